@@ -1,0 +1,57 @@
+"""The Python API: the same operations as the command line, returning Polars frames."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import polars as pl
+
+from .grid import make_grid_spec, parse_budget, read_grid_toml
+from .load import read_portfolio
+from .store.database import connect_read, connect_write, fetch_frame
+from .store.portfolio import store_portfolio
+
+
+def load_portfolio(projects, cash_flows=None, db=None) -> dict:
+    """Validate CSV files and (if ``db`` is given) load them atomically; return counts and notes.
+
+    Raises ValidationError listing every problem; nothing is written then.
+    """
+    portfolio = read_portfolio(projects, cash_flows)
+    info = {"projects": portfolio.projects.height, "cash_flow_rows": portfolio.cash_flows.height,
+            "notes": portfolio.notes, "inputs_hash": portfolio.inputs_hash}
+    if db is not None:
+        con = connect_write(db)
+        try:
+            info["load_id"] = store_portfolio(con, portfolio)
+        finally:
+            con.close()
+    return info
+
+
+def screen_portfolio(db, *, grid=None, discount_rates=None, inflation=None, discount_basis=None, budgets=None,
+                     timing=None, periods_per_year=None, after_tax=None, chunk_size=None, resume=None,
+                     progress=False, stop_after_chunks=None) -> str:
+    """Screen the loaded portfolio over a grid (TOML path and/or overrides); return the run id."""
+    from .screen import screen
+    spec = None
+    if not resume:
+        toml_settings = read_grid_toml(grid) if grid else None
+        budget_map = parse_budget(budgets) if budgets and isinstance(budgets, (list, tuple)) else budgets
+        spec = make_grid_spec(toml_settings=toml_settings, discount_rates=discount_rates, inflation=inflation,
+                              discount_basis=discount_basis, budgets=budget_map or None, timing=timing,
+                              periods_per_year=periods_per_year, after_tax=after_tax)
+    con = connect_write(db)
+    try:
+        return screen(con, spec, resume=resume, chunk_size=chunk_size, progress=progress,
+                      stop_after_chunks=stop_after_chunks)
+    finally:
+        con.close()
+
+
+def read_table(db, sql: str, params=None) -> pl.DataFrame:
+    """Run a read-only SQL statement against a ratescape database and return a Polars frame."""
+    con = connect_read(db)
+    try:
+        return fetch_frame(con, sql, params)
+    finally:
+        con.close()

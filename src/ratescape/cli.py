@@ -1,0 +1,192 @@
+"""The ``ratescape`` command line: a thin layer over the library, one function per subcommand."""
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import click
+
+from . import __version__
+from .errors import RatescapeError
+
+CAUTION = ("Caution: ratescape is a screening aid, not an appraisal or professional advice. Results rest on the "
+           "assumptions shown; tax and depreciation rules vary by jurisdiction and year; decisions rest with "
+           "qualified professionals under local rules.")
+
+
+def _fail(exc: Exception) -> None:
+    click.echo(f"Error: {exc}", err=True)
+    sys.exit(1)
+
+
+class Command(click.Command):
+    """Turn user-fixable errors into ``Error: ...`` and a non-zero exit, never a traceback."""
+
+    def invoke(self, ctx):
+        try:
+            return super().invoke(ctx)
+        except RatescapeError as exc:
+            _fail(exc)
+        except KeyboardInterrupt:
+            click.echo("Interrupted.", err=True)
+            sys.exit(130)
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
+@click.version_option(__version__, prog_name="ratescape")
+def main():
+    """Screen capital projects over a grid of discount-rate and inflation scenarios.
+
+    \b
+    Example:
+      ratescape demo --out ./ratescape-demo
+    """
+
+
+@main.command(cls=Command)
+@click.option("--out", "out_dir", type=click.Path(file_okay=False), default="./ratescape-demo", show_default=True,
+              help="Folder for ratescape-demo.duckdb and report.html.")
+@click.option("--quiet", is_flag=True, help="No progress lines.")
+def demo(out_dir, quiet):
+    """Run the main job on the bundled, invented demo portfolio.
+
+    Loads the demo projects, screens them over the demo grid, decides, writes
+    DIR/ratescape-demo.duckdb and DIR/report.html and prints a short summary.
+
+    \b
+    Example:
+      ratescape demo --out ./ratescape-demo
+    """
+    from .demo import run_demo
+    summary = run_demo(Path(out_dir), progress=not quiet)
+    click.echo(summary)
+
+
+@main.command(cls=Command)
+@click.option("--projects", "projects_path", required=True, type=click.Path(dir_okay=False),
+              help="Projects CSV (project_id,name[,group][,requires][,parametric columns]).")
+@click.option("--cash-flows", "cash_flows_path", type=click.Path(dir_okay=False),
+              help="Long-form cash-flow CSV (project_id,period,amount[,basis][,escalation][,kind]).")
+@click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
+def load(projects_path, cash_flows_path, db_path):
+    """Validate the CSV files and load them into the database.
+
+    Every problem is reported at once (file, line, column, value, fix); an
+    invalid input writes nothing. A valid load replaces the database's
+    portfolio in one transaction; earlier runs stay.
+
+    \b
+    Example:
+      ratescape load --projects projects.csv --cash-flows cash_flows.csv --db plan.duckdb
+    """
+    from .api import load_portfolio
+    info = load_portfolio(projects_path, cash_flows_path, db_path)
+    for note in info["notes"]:
+        click.echo(f"Note: {note}", err=True)
+    click.echo(f"Loaded {info['projects']} projects and {info['cash_flow_rows']} cash-flow lines into {db_path}.")
+
+
+@main.command(cls=Command)
+@click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
+@click.option("--grid", "grid_path", type=click.Path(dir_okay=False), help="Grid and run settings (TOML).")
+@click.option("--discount-rates", help="START:STOP:COUNT of discount rates as fractions, e.g. 0:0.2:41.")
+@click.option("--inflation", help="START:STOP:COUNT of general inflation rates as fractions, e.g. 0:0.1:21.")
+@click.option("--discount-basis", type=click.Choice(["nominal", "real"]), help="Whether the discount-rate axis is nominal (market) or real.")
+@click.option("--budget", "budgets", multiple=True, metavar="PERIOD=AMOUNT",
+              help="Most the investment lines of PERIOD may spend (then-current money). Repeatable.")
+@click.option("--timing", type=click.Choice(["end", "mid", "beginning"]), help="When in a period cash flows fall (default end).")
+@click.option("--periods-per-year", type=float, help="Periods per year (1 = years, 12 = months).")
+@click.option("--after-tax/--before-tax", default=None, help="Evaluate after-tax cash flows as well.")
+@click.option("--chunk-size", type=click.IntRange(min=1), help="Projects per chunk (default: from memory).")
+@click.option("--resume", "resume", metavar="RUN_ID", help="Finish an interrupted run.")
+@click.option("--quiet", is_flag=True, help="No progress output.")
+def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budgets, timing, periods_per_year,
+           after_tax, chunk_size, resume, quiet):
+    """Evaluate every project in every scenario of the grid and store the results.
+
+    Rates are fractions (0.07 = 7 %). Flags override the TOML file. The run
+    id is printed on the last line of standard output; progress and logs go
+    to standard error.
+
+    \b
+    Example:
+      ratescape screen --db plan.duckdb --discount-rates 0:0.2:41 --inflation 0:0.1:21 --discount-basis nominal
+      ratescape screen --db plan.duckdb --grid grid.toml --budget 0=50e6 --budget 1=20e6
+      ratescape screen --db plan.duckdb --resume run-20261201-101500-ab12cd
+    """
+    from .api import screen_portfolio
+    if resume and any(v is not None for v in (grid_path, discount_rates, inflation, discount_basis, timing,
+                                               periods_per_year, after_tax)) | bool(budgets):
+        raise click.UsageError("--resume continues a run with its stored grid; give no grid options with it")
+    run_id = screen_portfolio(db_path, grid=grid_path, discount_rates=discount_rates, inflation=inflation,
+                              discount_basis=discount_basis, budgets=list(budgets), timing=timing,
+                              periods_per_year=periods_per_year, after_tax=after_tax, chunk_size=chunk_size,
+                              resume=resume, progress=not quiet)
+    click.echo(CAUTION, err=True)
+    click.echo(run_id)
+
+
+@main.command(cls=Command)
+@click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
+@click.argument("name_or_file", required=False)
+@click.option("--param", "params", multiple=True, metavar="KEY=VALUE", help="A query parameter. Repeatable.")
+@click.option("--format", "fmt", type=click.Choice(["table", "csv", "json"]), default="table", show_default=True)
+@click.option("--list", "list_only", is_flag=True, help="List the bundled queries and their parameters.")
+def query(db_path, name_or_file, params, fmt, list_only):
+    """Run a bundled query by name, or a .sql file, on a read-only connection.
+
+    \b
+    Example:
+      ratescape query --db plan.duckdb accepted-everywhere
+      ratescape query --db plan.duckdb fails-above-inflation --param threshold=0.06 --format csv
+      ratescape query --db plan.duckdb --list
+    """
+    from .query import list_queries, run_query
+    if list_only:
+        for q in list_queries():
+            ps = ", ".join(f"{k}={v[0]}" for k, v in q.params.items())
+            click.echo(f"{q.name}: {q.about}" + (f" [{ps}]" if ps else ""))
+        return
+    if not name_or_file:
+        raise click.UsageError("give a query name or a .sql file (see --list)")
+    parsed = {}
+    for item in params:
+        if "=" not in item:
+            raise click.UsageError(f"--param {item!r}: expected KEY=VALUE, e.g. --param threshold=0.05")
+        k, v = item.split("=", 1)
+        parsed[k.strip()] = v.strip()
+    frame = run_query(db_path, name_or_file, parsed)
+    if fmt == "csv":
+        click.echo(frame.write_csv(), nl=False)
+    elif fmt == "json":
+        click.echo(json.dumps(frame.to_dicts(), default=str, indent=1))
+    else:
+        import polars as pl
+        with pl.Config(tbl_rows=200, tbl_cols=30, fmt_str_lengths=60, tbl_width_chars=200,
+                       tbl_hide_dataframe_shape=True, tbl_hide_column_data_types=True):
+            click.echo(str(frame))
+        click.echo(f"({frame.height} rows)")
+
+
+@main.command(cls=Command)
+@click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
+@click.option("--run", "run_id", help="Run id (default: the newest finished run).")
+@click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False), help="HTML file to write.")
+@click.option("--project", "projects", multiple=True, help="Project id for drill-down charts. Repeatable.")
+def report(db_path, run_id, out_path, projects):
+    """Write the self-contained, offline HTML report of a run.
+
+    \b
+    Example:
+      ratescape report --db plan.duckdb --out report.html
+      ratescape report --db plan.duckdb --run run-20261201-101500-ab12cd --project P007 --out report.html
+    """
+    from .report import write_report
+    write_report(db_path, out_path, run_id=run_id, projects=list(projects) or None)
+    click.echo(f"Wrote {out_path}")
+    click.echo(CAUTION, err=True)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

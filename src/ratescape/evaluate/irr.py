@@ -1,0 +1,425 @@
+"""Internal rate of return with every root in a search range, vectorised over rows.
+
+Pure numpy. A cash-flow stream with more than one sign change can have no
+IRR or several; this module never silently picks one. :func:`irr_roots`
+returns every root it finds in a documented range together with a root
+count, a status code, the Descartes sign-change count and the Norstrom
+uniqueness flag; :func:`irr` returns a rate only where exactly one root
+exists.
+
+Method
+------
+Write u = log(1 + r). The present worth PW(u) = sum_t A_t e^(-u t) is
+evaluated for all rows on a grid of ``grid_points`` values of u, evenly
+spaced between log(1 + low) and log(1 + high), with one matrix product
+(rows x periods) @ (periods x grid). For u < 0 each column is multiplied by
+e^(u (T-1)) (the future worth at T-1, same roots and same multiplicities),
+so no factor exceeds 1 and nothing overflows. Then:
+
+1. every sign change between neighbouring grid points is a bracket;
+2. a grid point where PW is exactly 0 is a root;
+3. a grid point where |PW| has a strict local minimum without a sign change
+   and a parabola through it and its neighbours dips by half or more
+   towards zero is a *touch candidate*: the extremum of PW between the two
+   neighbours is located (root of dPW/du); if |PW| there is at most
+   ``touch_tol`` times sum_t |A_t| e^(-u t) it is a touching (double) root,
+   and if PW changes sign there the two roots on either side are bracketed;
+4. all brackets of all rows are refined together by a safeguarded Newton
+   iteration (Newton step, bisection when the step leaves the bracket) on
+   arrays, to machine precision in u. No Python loop runs over rows.
+
+Limits: roots outside [low, high] are not reported; three or more roots
+within one grid step, or a root of even multiplicity higher than two, can be
+missed; raise ``grid_points`` to resolve clustered roots. End-of-period
+amounts and per-period rates (as numpy_financial.irr).
+
+References
+----------
+J. H. Lorie, L. J. Savage, "Three Problems in Rationing Capital", Journal of
+Business 28(4), 1955, 229-239 (multiple IRRs).
+C. J. Norstrom, "A Sufficient Condition for a Unique Nonnegative Internal
+Rate of Return", Journal of Financial and Quantitative Analysis 7(3), 1972,
+1835-1839 (from memory).
+R. Descartes' rule of signs: the number of roots r > -1 is at most the
+number of sign changes of the amounts and has the same parity (common
+practice).
+"""
+from __future__ import annotations
+
+from enum import IntEnum
+from typing import NamedTuple
+
+import numpy as np
+
+__all__ = ["IrrStatus", "IrrResult", "irr_roots", "irr", "sign_changes"]
+
+_EPS = np.finfo(float).eps
+_CHUNK_ELEMENTS = 2_000_000  # rows x grid points per matrix product
+
+
+class IrrStatus(IntEnum):
+    """Status code of one row of :func:`irr_roots` (stored as int8).
+
+    UNIQUE (0)          exactly one root in [low, high]; ``irr`` returns it
+    NONE (1)            the amounts change sign but no root lies in [low, high]
+    MULTIPLE (2)        two or more roots in [low, high]; ``irr`` returns NaN
+    NO_SIGN_CHANGE (3)  all non-zero amounts have one sign: no IRR at any rate
+    ZERO_FLOWS (4)      every amount is zero: PW = 0 at every rate
+    NONFINITE (5)       an amount is NaN or infinite
+    """
+
+    UNIQUE = 0
+    NONE = 1
+    MULTIPLE = 2
+    NO_SIGN_CHANGE = 3
+    ZERO_FLOWS = 4
+    NONFINITE = 5
+
+
+_STATUS_LABELS = np.array([s.name.lower() for s in IrrStatus])
+
+
+class IrrResult(NamedTuple):
+    """Every IRR found per row, with counts and flags.
+
+    Attributes
+    ----------
+    roots : ndarray, shape (..., K) [fraction per period]
+        Roots sorted ascending, NaN-padded; K = max(1, largest count).
+    count : ndarray of int, shape (...)
+        Number of roots found in [low, high] (a touching root counts once).
+    status : ndarray of int8, shape (...)
+        :class:`IrrStatus` codes; ``labels`` gives their names.
+    sign_changes : ndarray of int, shape (...)
+        Sign changes of the non-zero amounts (Descartes: upper bound on the
+        number of roots r > -1, same parity).
+    norstrom : ndarray of bool, shape (...)
+        True where the cumulative amounts change sign exactly once and their
+        total is non-zero: then exactly one root r > 0 exists (Norstrom 1972).
+    touching : ndarray of bool, shape (...)
+        True where a root is a touching (double) root: PW reaches zero
+        without changing sign.
+    """
+
+    roots: np.ndarray
+    count: np.ndarray
+    status: np.ndarray
+    sign_changes: np.ndarray
+    norstrom: np.ndarray
+    touching: np.ndarray
+
+    @property
+    def labels(self):
+        """Status names ("unique", "none", "multiple", ...), shape (...)."""
+        return _STATUS_LABELS[np.asarray(self.status, dtype=int)]
+
+
+def sign_changes(amounts):
+    """Number of sign changes in each stream, zeros skipped.
+
+    Parameters
+    ----------
+    amounts : array_like, shape (..., T)
+
+    Returns
+    -------
+    int or ndarray of int, shape (...)
+
+    Examples
+    --------
+    >>> sign_changes([-100, 0, 50, -10, 0])
+    2
+    """
+    a = np.asarray(amounts, dtype=float)
+    if a.ndim == 0:
+        raise ValueError(f"amounts must have a period axis (last), got shape {a.shape}")
+    out = _sign_changes(a)
+    return int(out) if out.ndim == 0 else out
+
+
+def _sign_changes(a):
+    s = np.sign(a)
+    T = a.shape[-1]
+    idx = np.where(s != 0, np.arange(T), 0)
+    idx = np.maximum.accumulate(idx, axis=-1)
+    sf = np.take_along_axis(s, idx, axis=-1)
+    return np.count_nonzero(sf[..., 1:] * sf[..., :-1] < 0, axis=-1)
+
+
+def _check_args(amounts, low, high, grid_points):
+    a = np.asarray(amounts, dtype=float)
+    if a.ndim == 0 or a.shape[-1] < 1:
+        raise ValueError(
+            f"amounts must have a period axis (last) with at least 1 period, got shape {a.shape}"
+        )
+    low = float(low)
+    high = float(high)
+    if not (np.isfinite(low) and np.isfinite(high) and -1.0 < low < high):
+        raise ValueError(f"need -1 < low < high (finite), got low={low!r}, high={high!r}")
+    if grid_points is None:
+        grid_points = max(256, 4 * a.shape[-1])
+    if int(grid_points) != grid_points or grid_points < 8:
+        raise ValueError(f"grid_points must be an integer >= 8, got {grid_points!r}")
+    return a, low, high, int(grid_points)
+
+
+def _newton_bisect(A, lo, hi, order, maxiter=200):
+    """Roots of d^order PW / du^order in [lo, hi] for each row of A (K, T).
+
+    The function values at lo and hi must have opposite signs (or one is 0).
+    Returns u, shape (K,).
+    """
+    K, T = A.shape
+    t = np.arange(T, dtype=float)
+    w0 = (-t) ** order
+    w1 = (-t) ** (order + 1)
+    c = (T - 1) * np.minimum(lo, 0.0)  # constant scale per bracket, keeps factors <= ~1
+
+    def ev(x, idx):
+        M = A[idx] * np.exp(-x[:, None] * t + c[idx, None])
+        return M @ w0, M @ w1
+
+    a = lo.copy()
+    b = hi.copy()
+    f_lo, _ = ev(lo, np.arange(K))
+    s_lo = np.sign(f_lo)
+    x = 0.5 * (a + b)
+    # an end point that is itself a root
+    x = np.where(f_lo == 0, lo, x)
+    active = np.flatnonzero(f_lo != 0)
+    for _ in range(maxiter):
+        if active.size == 0:
+            break
+        xa = x[active]
+        f, df = ev(xa, active)
+        same = np.sign(f) == s_lo[active]
+        a_act = np.where(same, xa, a[active])
+        b_act = np.where(same, b[active], xa)
+        a[active] = a_act
+        b[active] = b_act
+        with np.errstate(divide="ignore", invalid="ignore"):
+            xn = xa - f / df
+        ok = np.isfinite(xn) & (xn > a_act) & (xn < b_act)
+        xn = np.where(ok, xn, 0.5 * (a_act + b_act))
+        zero = f == 0
+        xn = np.where(zero, xa, xn)
+        tol = 4.0 * _EPS * (np.abs(xn) + 1.0)
+        done = zero | (np.abs(xn - xa) <= tol) | (b_act - a_act <= tol)
+        x[active] = xn
+        active = active[~done]
+    return x
+
+
+def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-9):
+    """Every internal rate of return in [low, high] of each cash-flow stream.
+
+    Parameters
+    ----------
+    amounts : array_like, shape (..., T) [currency]
+        Cash flows, last axis the period t = 0 .. T-1 (end of period).
+    low, high : float, keyword-only [fraction per period]
+        Search range of the rate, -1 < low < high. Default -0.99 .. 10
+        (-99 % .. 1000 %).
+    grid_points : int, keyword-only
+        Points of the search grid in log(1 + r); default max(256, 4 T).
+    touch_tol : float, keyword-only
+        A touch candidate is accepted as a double root when
+        |PW| <= touch_tol * sum |A_t| (1+r)^-t there.
+
+    Returns
+    -------
+    IrrResult
+        ``roots`` (..., K), ``count``, ``status``, ``sign_changes``,
+        ``norstrom``, ``touching`` (...). For 1-D ``amounts`` the per-row
+        fields are Python ints / bools and ``roots`` has shape (K,).
+
+    Warnings
+    --------
+    Only roots inside [low, high] are reported. Roots closer together than a
+    grid step, other than a single pair, may be missed (see module notes).
+
+    Notes
+    -----
+    The IRR r solves sum_t A_t (1 + r)^-t = 0. See the module docstring for
+    the method.
+
+    References
+    ----------
+    Lorie & Savage (1955); Norstrom (1972); see module docstring.
+
+    Examples
+    --------
+    >>> res = irr_roots([-1600, 10000, -10000])
+    >>> res.roots.round(12).tolist(), res.count, res.labels
+    ([0.25, 4.0], 2, 'multiple')
+    >>> irr_roots([-1000, 2500, -2000]).labels
+    'none'
+    """
+    a, low, high, G = _check_args(amounts, low, high, grid_points)
+    lead = a.shape[:-1]
+    T = a.shape[-1]
+    A = a.reshape(-1, T)
+    P = A.shape[0]
+
+    finite = np.isfinite(A).all(axis=1)
+    A = np.where(finite[:, None], A, 0.0)
+    zero_rows = finite & ~(A != 0).any(axis=1)
+    sc = _sign_changes(A)
+    cum = np.cumsum(A, axis=1)
+    norstrom = (_sign_changes(cum) == 1) & (cum[:, -1] != 0) & finite
+
+    t = np.arange(T, dtype=float)
+    u = np.linspace(np.log1p(low), np.log1p(high), G)
+    scale = (T - 1) * np.minimum(u, 0.0)
+    D = np.exp(-np.outer(t, u) + scale)  # (T, G), entries <= 1
+
+    # only rows that can have a root need the grid
+    search = np.flatnonzero(finite & (sc > 0))
+    node_rows, node_u = [], []
+    br_rows, br_lo, br_hi = [], [], []
+    tc_rows, tc_g, tc_sign = [], [], []
+    chunk = max(1, _CHUNK_ELEMENTS // G)
+    for start in range(0, search.size, chunk):  # loop over blocks of rows, not rows
+        rows = search[start:start + chunk]
+        F = A[rows] @ D
+        s = np.sign(F)
+        r0, g0 = np.nonzero(s == 0)
+        node_rows.append(rows[r0])
+        node_u.append(u[g0])
+        r1, g1 = np.nonzero(s[:, :-1] * s[:, 1:] < 0)
+        br_rows.append(rows[r1])
+        br_lo.append(u[g1])
+        br_hi.append(u[g1 + 1])
+        # touch candidates: strict local minimum of |F| with no sign change
+        absF = np.abs(F)
+        fm, f0, fp = F[:, :-2], F[:, 1:-1], F[:, 2:]
+        cand = (
+            (s[:, :-2] == s[:, 1:-1]) & (s[:, 1:-1] == s[:, 2:]) & (s[:, 1:-1] != 0)
+            & (absF[:, 1:-1] <= absF[:, :-2]) & (absF[:, 1:-1] < absF[:, 2:])
+        )
+        curv = fm - 2.0 * f0 + fp
+        with np.errstate(divide="ignore", invalid="ignore"):
+            vertex = f0 - (fp - fm) ** 2 / (8.0 * curv)
+        cand &= (vertex * f0 <= 0) | (np.abs(vertex) <= 0.5 * np.abs(f0))
+        r2, g2 = np.nonzero(cand)
+        tc_rows.append(rows[r2])
+        tc_g.append(g2 + 1)
+        tc_sign.append(s[r2, g2 + 1])
+
+    def cat(parts, dtype=float):
+        return np.concatenate(parts) if parts else np.empty(0, dtype=dtype)
+
+    node_rows = cat(node_rows, int)
+    node_u = cat(node_u)
+    br_rows = cat(br_rows, int)
+    br_lo = cat(br_lo)
+    br_hi = cat(br_hi)
+    tc_rows = cat(tc_rows, int)
+    tc_g = cat(tc_g, int)
+    tc_sign = cat(tc_sign)
+
+    touch_rows = np.empty(0, dtype=int)
+    touch_u = np.empty(0)
+    if tc_rows.size:
+        lo = u[tc_g - 1]
+        hi = u[tc_g + 1]
+        Ac = A[tc_rows]
+        c = (T - 1) * np.minimum(lo, 0.0)
+        d_lo = (Ac * np.exp(-lo[:, None] * t + c[:, None])) @ (-t)
+        d_hi = (Ac * np.exp(-hi[:, None] * t + c[:, None])) @ (-t)
+        keep = np.sign(d_lo) * np.sign(d_hi) < 0
+        if keep.any():
+            Ac, lo, hi, c = Ac[keep], lo[keep], hi[keep], c[keep]
+            rows_k, sign_k = tc_rows[keep], tc_sign[keep]
+            ustar = _newton_bisect(Ac, lo, hi, order=1)
+            M = Ac * np.exp(-ustar[:, None] * t + c[:, None])
+            fstar = M.sum(axis=1)
+            size = np.abs(M).sum(axis=1)
+            is_touch = np.abs(fstar) <= touch_tol * size
+            crosses = ~is_touch & (np.sign(fstar) == -sign_k)
+            touch_rows = rows_k[is_touch]
+            touch_u = ustar[is_touch]
+            br_rows = np.concatenate([br_rows, rows_k[crosses], rows_k[crosses]])
+            br_lo = np.concatenate([br_lo, lo[crosses], ustar[crosses]])
+            br_hi = np.concatenate([br_hi, ustar[crosses], hi[crosses]])
+
+    ref_u = _newton_bisect(A[br_rows], br_lo, br_hi, order=0) if br_rows.size else np.empty(0)
+
+    all_rows = np.concatenate([node_rows, br_rows, touch_rows])
+    all_u = np.concatenate([node_u, ref_u, touch_u])
+    all_touch = np.concatenate([
+        np.zeros(node_rows.size, bool), np.zeros(br_rows.size, bool), np.ones(touch_rows.size, bool)
+    ])
+    order = np.lexsort((all_u, all_rows))
+    all_rows, all_u, all_touch = all_rows[order], all_u[order], all_touch[order]
+    if all_rows.size > 1:  # drop duplicates (same row, same root to rounding)
+        dup = np.zeros(all_rows.size, bool)
+        dup[1:] = (all_rows[1:] == all_rows[:-1]) & (
+            np.abs(all_u[1:] - all_u[:-1]) <= 1e-12 * (1.0 + np.abs(all_u[1:]))
+        )
+        all_rows, all_u, all_touch = all_rows[~dup], all_u[~dup], all_touch[~dup]
+
+    count = np.bincount(all_rows, minlength=P)
+    K = max(1, int(count.max()) if P else 1)
+    first = np.concatenate([[0], np.cumsum(count)[:-1]]) if P else np.empty(0, int)
+    pos = np.arange(all_rows.size) - first[all_rows]
+    roots = np.full((P, K), np.nan)
+    roots[all_rows, pos] = np.expm1(all_u)
+    touching = np.zeros(P, bool)
+    touching[all_rows[all_touch]] = True
+
+    status = np.where(count == 1, IrrStatus.UNIQUE,
+                      np.where(count > 1, IrrStatus.MULTIPLE, IrrStatus.NONE))
+    status = np.where(sc == 0, IrrStatus.NO_SIGN_CHANGE, status)
+    status = np.where(zero_rows, IrrStatus.ZERO_FLOWS, status)
+    status = np.where(~finite, IrrStatus.NONFINITE, status).astype(np.int8)
+
+    if not lead:
+        return IrrResult(roots[0], int(count[0]), int(status[0]), int(sc[0]),
+                         bool(norstrom[0]), bool(touching[0]))
+    return IrrResult(
+        roots.reshape(lead + (K,)),
+        count.reshape(lead),
+        status.reshape(lead),
+        sc.reshape(lead),
+        norstrom.reshape(lead),
+        touching.reshape(lead),
+    )
+
+
+def irr(amounts, *, low=-0.99, high=10.0, grid_points=None):
+    """Internal rate of return of each stream where it is unique in [low, high].
+
+    Parameters
+    ----------
+    amounts : array_like, shape (..., T) [currency]
+        Cash flows, last axis the period t = 0 .. T-1 (end of period).
+    low, high, grid_points : keyword-only
+        As :func:`irr_roots`.
+
+    Returns
+    -------
+    float or ndarray, shape (...) [fraction per period]
+        The root where exactly one root lies in [low, high]; NaN where there
+        is none **or several**. Use :func:`irr_roots` for every root, the
+        count and the status of each row.
+
+    Warnings
+    --------
+    Unlike numpy_financial.irr this never picks one of several roots.
+
+    Notes
+    -----
+    sum_t A_t (1 + r)^-t = 0.
+
+    Examples
+    --------
+    >>> round(irr([-100, 39, 59, 55, 20]), 10)
+    0.2809484212
+    >>> irr([-1600, 10000, -10000])
+    nan
+    """
+    res = irr_roots(amounts, low=low, high=high, grid_points=grid_points)
+    if np.ndim(res.count) == 0:
+        return float(res.roots[0]) if res.count == 1 else float("nan")
+    return np.where(res.count == 1, res.roots[..., 0], np.nan)

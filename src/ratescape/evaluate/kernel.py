@@ -1,0 +1,214 @@
+"""The engine's kernel: present worth over a scenario grid as one matrix product.
+
+A chunk of P projects with T periods is a stack of amount matrices, one per
+*line class* c = (basis, escalation, multiplier). For S scenarios with
+nominal rate i_s, inflation f_s and per-scenario multipliers m_cs, the
+discount tensor is
+
+    D[c, t, s] = m_cs * ((1 + e_c)(1 + f_s))^tau_t / (1 + i_s)^tau_t   (real lines)
+    D[c, t, s] = m_cs / (1 + i_s)^tau_t                                 (nominal lines)
+
+and the present worth (base-year money, time 0) of every project in every
+scenario is ``A.reshape(P, C*T) @ D.reshape(C*T, S)``.
+
+Factors are computed in log space, exp(tau * (log1p(e) + log1p(f) - log1p(i))),
+so long horizons and extreme rates neither lose precision nor overflow early.
+
+References
+----------
+W. G. Sullivan, E. M. Wicks, C. P. Koelling, Engineering Economy, Pearson,
+chapter on price changes: constant-dollar vs actual-dollar analysis (from memory).
+I. Fisher, The Theory of Interest, Macmillan, 1930.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Mapping, Sequence
+
+import numpy as np
+
+from .timing import discount_exponents
+
+
+@dataclass(frozen=True, order=True)
+class LineClass:
+    """A class of cash-flow lines that share one discount-factor row.
+
+    basis : "real" (base-year money, grows with inflation and escalation) or
+        "nominal" (then-current money fixed by contract).
+    escalation : yearly escalation differential over general inflation
+        [fraction per year]; only meaningful for real lines.
+    multiplier : name of a per-scenario multiplier ("one" for plain lines;
+        "after_tax" = 1 - tax_rate, "tax" = tax_rate, "cost_multiplier", ...).
+    """
+
+    basis: str = "real"
+    escalation: float = 0.0
+    multiplier: str = "one"
+
+    def __post_init__(self):
+        if self.basis not in ("real", "nominal"):
+            raise ValueError(f"basis must be 'real' or 'nominal', got {self.basis!r}")
+        if not self.escalation > -1.0:
+            raise ValueError(f"escalation must be > -1, got {self.escalation!r}")
+
+
+def _rates(x, name: str) -> np.ndarray:
+    a = np.asarray(x, dtype=float)
+    if a.ndim != 1:
+        raise ValueError(f"{name} must be 1-D (S,), got shape {a.shape}")
+    if np.any(~np.isfinite(a)) or np.any(a <= -1.0):
+        raise ValueError(f"{name} must be finite and > -1 (fractions per year)")
+    return a
+
+
+def discount_tensor(classes: Sequence[LineClass], exponents: np.ndarray, discount_rate, inflation,
+                    multipliers: Mapping[str, np.ndarray] | None = None) -> np.ndarray:
+    """Discount-factor tensor D (C, T, S) for line classes over scenarios.
+
+    Parameters
+    ----------
+    classes : sequence of C LineClass
+    exponents : (T,) [years] from :func:`timing.discount_exponents`
+    discount_rate : (S,) nominal rate i [fraction per year]
+    inflation : (S,) general inflation f [fraction per year]
+    multipliers : mapping name -> (S,) per-scenario multiplier; "one" is implicit.
+
+    Returns
+    -------
+    ndarray (C, T, S): present worth of one unit of each class's amount.
+    """
+    i = _rates(discount_rate, "discount_rate")
+    f = _rates(inflation, "inflation")
+    if i.shape != f.shape:
+        raise ValueError(f"discount_rate {i.shape} and inflation {f.shape} must have the same shape (S,)")
+    tau = np.asarray(exponents, dtype=float)
+    if tau.ndim != 1:
+        raise ValueError(f"exponents must be 1-D (T,), got shape {tau.shape}")
+    multipliers = dict(multipliers or {})
+    log_i = np.log1p(i)
+    log_f = np.log1p(f)
+    out = np.empty((len(classes), tau.size, i.size))
+    for c, cls in enumerate(classes):  # loop over a handful of classes, not projects or scenarios
+        log_growth = (np.log1p(cls.escalation) + log_f) if cls.basis == "real" else np.zeros_like(log_f)
+        np.exp(np.multiply.outer(tau, log_growth - log_i), out=out[c])
+        if cls.multiplier != "one":
+            if cls.multiplier not in multipliers:
+                raise ValueError(f"no per-scenario values given for multiplier {cls.multiplier!r}")
+            m = np.asarray(multipliers[cls.multiplier], dtype=float)
+            if m.shape != i.shape:
+                raise ValueError(f"multiplier {cls.multiplier!r} has shape {m.shape}, expected {i.shape}")
+            out[c] *= m[None, :]
+    return out
+
+
+def present_worth_classes(amounts: np.ndarray, tensor: np.ndarray) -> np.ndarray:
+    """Present worth (P, S) of class-stacked amounts (C, P, T) with a tensor (C, T, S).
+
+    One BLAS matrix product: (P, C*T) @ (C*T, S).
+    """
+    A = np.asarray(amounts, dtype=float)
+    D = np.asarray(tensor, dtype=float)
+    if A.ndim != 3 or D.ndim != 3 or A.shape[0] != D.shape[0] or A.shape[2] != D.shape[1]:
+        raise ValueError(f"amounts (C, P, T) {A.shape} and tensor (C, T, S) {D.shape} do not match")
+    C, P, T = A.shape
+    S = D.shape[2]
+    if C == 1:
+        return A[0] @ D[0]
+    return np.ascontiguousarray(A.transpose(1, 0, 2)).reshape(P, C * T) @ D.reshape(C * T, S)
+
+
+def present_worth_grid(amounts, rates, *, timing: str = "end", periods_per_year: float = 1.0) -> np.ndarray:
+    """Present worth of P cash-flow rows at S discount rates: (P, T), (S,) -> (P, S).
+
+    The engine's kernel in its plainest form, one matrix product
+    ``amounts @ V`` with V[t, s] = (1 + rates[s])^(-tau_t).
+
+    Parameters
+    ----------
+    amounts : array_like (P, T) [currency], period t = 0, 1, ..., T-1 on the last axis.
+    rates : array_like (S,) [fraction per year], each > -1.
+    timing : "end" (default), "mid" or "beginning" of period.
+    periods_per_year : periods per year m; annual rates convert as (1+i)^(1/m) - 1.
+
+    Returns
+    -------
+    ndarray (P, S) [currency at time 0]
+
+    Warnings
+    --------
+    Period 0 is undiscounted; period t >= 1 is discounted over t years
+    (end), t - 1/2 (mid) or t - 1 (beginning), divided by ``periods_per_year``.
+
+    Notes
+    -----
+    PW = sum_t A_t (1 + i)^(-tau_t).
+
+    References
+    ----------
+    E. L. Grant, W. G. Ireson, R. S. Leavenworth, Principles of Engineering
+    Economy, Wiley (present-worth method; from memory).
+
+    Examples
+    --------
+    >>> present_worth_grid([[-100.0, 60.0, 60.0]], [0.0, 0.1]).round(4).tolist()
+    [[20.0, 4.1322]]
+    """
+    A = np.asarray(amounts, dtype=float)
+    if A.ndim != 2:
+        raise ValueError(f"amounts must be 2-D (P, T), got shape {A.shape}")
+    r = _rates(np.atleast_1d(rates), "rates")
+    tau = discount_exponents(A.shape[1], timing, periods_per_year)
+    V = np.exp(-np.multiply.outer(tau, np.log1p(r)))
+    return A @ V
+
+
+def then_current_streams(amounts: np.ndarray, classes: Sequence[LineClass], exponents: np.ndarray,
+                         inflation, multipliers: Mapping[str, np.ndarray] | None = None) -> np.ndarray:
+    """Then-current (nominal) cash flows (F, P, T) at each of F inflation levels.
+
+    Real lines grow by ((1 + e)(1 + f))^tau; nominal lines stay fixed.
+    Multipliers, when given, are (F,) values per inflation level.
+    """
+    A = np.asarray(amounts, dtype=float)
+    f = _rates(np.atleast_1d(inflation), "inflation")
+    tau = np.asarray(exponents, dtype=float)
+    multipliers = dict(multipliers or {})
+    out = np.zeros((f.size, A.shape[1], A.shape[2]))
+    for c, cls in enumerate(classes):
+        if cls.basis == "real":
+            g = np.exp(np.multiply.outer(np.log1p(f) + np.log1p(cls.escalation), tau))  # (F, T)
+        else:
+            g = np.ones((f.size, tau.size))
+        if cls.multiplier != "one":
+            g = g * np.asarray(multipliers[cls.multiplier], dtype=float)[:, None]
+        out += A[c][None, :, :] * g[:, None, :]
+    return out
+
+
+def capital_recovery_factor(rate, years) -> np.ndarray:
+    """(A/P, i, n) = i / (1 - (1 + i)^-n), with the i -> 0 limit 1/n; n may be fractional.
+
+    Parameters
+    ----------
+    rate : array_like [fraction per year], > -1
+    years : array_like [years], > 0; broadcast against ``rate``.
+
+    References
+    ----------
+    Any engineering-economy text's capital recovery factor (common practice).
+
+    Examples
+    --------
+    >>> round(float(capital_recovery_factor(0.10, 5)), 4)
+    0.2638
+    """
+    i = np.asarray(rate, dtype=float)
+    n = np.asarray(years, dtype=float)
+    x = n * np.log1p(i)
+    denom = -np.expm1(-x)  # 1 - (1+i)^-n
+    small = np.abs(x) < 1e-10
+    with np.errstate(divide="ignore", invalid="ignore"):
+        # series for tiny rates: 1/n + (n + 1) i / (2 n); exact 1/n at i = 0
+        crf = np.where(small, 1.0 / n + (n + 1.0) * i / (2.0 * n), i / np.where(small, 1.0, denom))
+    return crf if crf.ndim else float(crf)

@@ -1,0 +1,459 @@
+"""After-tax cash flows as line classes for the present-worth kernel.
+
+The engine sums line classes c = (basis, escalation, multiplier): each has an
+amounts matrix A_c (P, T) and a per-scenario multiplier m_c,s, and
+PW = sum_c A_c @ D_c (see DEVELOPERS.md, "kernel contract"). With an income
+tax rate tau_s (which may vary by scenario) the after-tax analysis needs only
+three multipliers, named here:
+
+==============  ===========  ===========================================
+multiplier      value        used for
+==============  ===========  ===========================================
+``"one"``       1            investment (capitalised, not expensed), loan
+                             principal and payments, investment tax credit
+``"after_tax"`` 1 - tau_s    operating lines (benefit, cost, other) and the
+                             sale price at disposal (salvage)
+``"tax"``       tau_s        tax shields: depreciation, book value written
+                             off at disposal, deductible loan interest
+==============  ===========  ===========================================
+
+Assumptions (screening level; state them with every after-tax result):
+
+* Tax is linear: a project's loss in a year offsets the firm's other taxable
+  income in that year (common practice for a profitable firm), so the tax
+  effect of every line is tau_s times its amount. For a stand-alone project
+  :func:`after_tax_cash_flows_carry_forward` carries losses forward instead.
+* Taxes are paid at the end of the year in which the income arises.
+* Depreciation is fixed in nominal money (a share of historical cost), so
+  inflation erodes the value of the tax shield.
+* The whole gain on disposal (depreciation recapture and any gain above cost)
+  is taxed at the ordinary rate; a loss on disposal saves tax at that rate.
+* MACRS: the asset is sold at the end of year ``life``; deductions of tax
+  years up to ``life`` are taken in full (the disposal-year convention is not
+  applied) and the book value left is written off at disposal.
+
+References
+----------
+W. G. Sullivan, E. M. Wicks, C. P. Koelling, Engineering Economy, Pearson,
+chapters "Depreciation and Income Taxes" and "Price Changes and Exchange
+Rates" (from memory).
+D. G. Newnan, T. G. Eschenbach, J. P. Lavelle, Engineering Economic
+Analysis, Oxford University Press, chapters "Income Taxes" and "Inflation
+and Price Change" (from memory).
+Internal Revenue Service, Publication 946, How to Depreciate Property.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from . import depreciation as _dep
+
+__all__ = [
+    "MULTIPLIERS",
+    "KIND_MULTIPLIER",
+    "multiplier_values",
+    "after_tax_lines",
+    "loan_schedule",
+    "tax_immediate_offset",
+    "after_tax_cash_flows_carry_forward",
+]
+
+MULTIPLIERS = ("one", "after_tax", "tax")
+
+#: multiplier name of each cash-flow ``kind`` after tax (the engine relabels its own lines with this).
+KIND_MULTIPLIER = {
+    "investment": "one",
+    "benefit": "after_tax",
+    "cost": "after_tax",
+    "other": "after_tax",
+    "salvage": "after_tax",
+}
+
+
+def _check_tax_rate(tax_rate, name="tax_rate"):
+    t = np.asarray(tax_rate, dtype=float)
+    if np.any(~np.isfinite(t)) or np.any(t < 0) or np.any(t >= 1):
+        raise ValueError(f"{name} must satisfy 0 <= {name} < 1")
+    return t
+
+
+def multiplier_values(tax_rate):
+    """Per-scenario values of the three after-tax multipliers.
+
+    Parameters
+    ----------
+    tax_rate : array_like, shape (S,) or scalar [fraction]
+        Income-tax rate tau_s of each scenario.
+
+    Returns
+    -------
+    dict {"one", "after_tax", "tax": ndarray shape (S,) or float}
+        1, 1 - tau_s, tau_s.
+
+    Examples
+    --------
+    >>> m = multiplier_values([0.0, 0.25])
+    >>> m["after_tax"].tolist(), m["tax"].tolist()
+    ([1.0, 0.75], [0.0, 0.25])
+    """
+    t = _check_tax_rate(tax_rate)
+    out = {"one": np.ones_like(t), "after_tax": 1.0 - t, "tax": t.copy()}
+    if t.ndim == 0:
+        out = {k: float(v) for k, v in out.items()}
+    return out
+
+
+def _as_vector(x, p, name, dtype=float):
+    a = np.asarray(x, dtype=dtype)
+    if a.ndim == 0:
+        return np.full(p, a.item(), dtype=dtype)
+    if a.shape != (p,):
+        raise ValueError(f"{name} must be a scalar or shape (P,) = ({p},), got {a.shape}")
+    return a
+
+
+def _as_int_vector(x, p, name, minimum):
+    a = np.asarray(x)
+    if a.dtype.kind == "f":
+        if np.any(~np.isfinite(a)) or np.any(a != np.round(a)):
+            raise ValueError(f"{name} must hold whole numbers of years")
+        a = a.astype(np.int64)
+    elif a.dtype.kind not in "iu":
+        raise ValueError(f"{name} must hold integers, got dtype {a.dtype}")
+    a = _as_vector(a, p, name, dtype=np.int64)
+    if np.any(a < minimum):
+        raise ValueError(f"{name} must be >= {minimum}")
+    return a
+
+
+def loan_schedule(principal, rate, term, n_periods):
+    """Level-payment loan: payment and interest of each period, nominal.
+
+    Parameters
+    ----------
+    principal : array_like, shape (P,) [currency at t = 0]
+    rate : array_like, scalar or (P,) [fraction per period, nominal, fixed]
+    term : array_like of int, scalar or (P,) [periods], 1 <= term <= n_periods - 1
+    n_periods : int
+        T, number of periods t = 0 .. T - 1.
+
+    Returns
+    -------
+    payment, interest : ndarray, shape (P, T) [currency of each period]
+        Payment A = L (A/P, i, n) at t = 1..n (zero elsewhere) and the
+        interest part I_t = i * balance_{t-1}.
+
+    Notes
+    -----
+    A = L i (1+i)^n / ((1+i)^n - 1), and A = L / n when i = 0.
+
+    Examples
+    --------
+    >>> pay, intr = loan_schedule([1000.0], 0.10, 2, 4)
+    >>> pay.round(4).tolist(), intr.round(4).tolist()
+    ([[0.0, 576.1905, 576.1905, 0.0]], [[0.0, 100.0, 52.381, 0.0]])
+    """
+    L = np.asarray(principal, dtype=float)
+    if L.ndim != 1:
+        raise ValueError(f"principal must have shape (P,), got {L.shape}")
+    p = L.shape[0]
+    i = _as_vector(rate, p, "rate")
+    n = _as_int_vector(term, p, "term", 1)
+    T = int(n_periods)
+    if np.any(n > T - 1):
+        raise ValueError(f"loan term must be <= n_periods - 1 = {T - 1}")
+    if np.any(~np.isfinite(i)) or np.any(i <= -1):
+        raise ValueError("loan rate must be finite and > -1")
+    growth = (1.0 + i) ** n
+    with np.errstate(divide="ignore", invalid="ignore"):
+        crf = np.where(i == 0.0, 1.0 / n, i * growth / (growth - 1.0))
+    payment_amount = L * crf
+    payment = np.zeros((p, T))
+    interest = np.zeros((p, T))
+    balance = L.copy()
+    for t in range(1, int(n.max(initial=0)) + 1):  # loop over periods, not projects
+        active = t <= n
+        it = np.where(active, i * balance, 0.0)
+        pay = np.where(active, payment_amount, 0.0)
+        interest[:, t] = it
+        payment[:, t] = pay
+        balance = balance + it - pay
+    return payment, interest
+
+
+def after_tax_lines(
+    first_cost,
+    life,
+    n_periods,
+    *,
+    method="macrs",
+    recovery_years=5,
+    salvage=0.0,
+    convention=None,
+    quarter=None,
+    declining_rate=2.0,
+    itc_rate=0.0,
+    itc_period=1,
+    itc_basis_reduction=0.0,
+    loan_amount=0.0,
+    loan_rate=0.0,
+    loan_term=None,
+    include_capital_lines=False,
+):
+    """Extra line classes of an after-tax analysis for a chunk of projects.
+
+    Parameters
+    ----------
+    first_cost : array_like, shape (P,) [currency at t = 0]
+        Depreciable first cost of each project, paid at t = 0.
+    life : array_like of int, scalar or (P,) [years]
+        Year of disposal N (1 <= N <= T - 1): the asset is sold at the end
+        of year N and its remaining book value written off.
+    n_periods : int
+        T, the number of periods t = 0 .. T - 1 of the chunk's matrices.
+    method : str or array_like of str, scalar or (P,)
+        Depreciation method per call or per project (see
+        :func:`ratescape.evaluate.depreciation.depreciation_schedule`).
+    recovery_years : int or array_like of int, scalar or (P,) [years]
+    salvage : array_like, scalar or (P,) [currency]
+        Estimated salvage used by straight-line / declining-balance /
+        units-of-production depreciation (ignored by MACRS). With
+        ``include_capital_lines`` it is also the sale price at year N, in
+        base-year (real) money.
+    convention, quarter, declining_rate :
+        Passed to ``depreciation_schedule`` (one value per call).
+    itc_rate : float or (P,) [fraction of first cost]
+        Investment tax credit, received as a nominal amount in
+        ``itc_period`` (default 1: with the first year's tax return; 0 for
+        a credit taken at purchase).
+    itc_basis_reduction : float [fraction of the credit]
+        Share of the credit that reduces the depreciable basis (0 = none).
+    loan_amount : array_like, scalar or (P,) [currency at t = 0]
+        Debt L borrowed at t = 0; 0 = equity financed.
+    loan_rate : float or (P,) [fraction per year, nominal, fixed by contract]
+    loan_term : int or (P,) [years]; required when any loan_amount > 0.
+    include_capital_lines : bool
+        Also return the investment (-first_cost at t = 0, real, "one") and the
+        sale price (+salvage at t = N, real, "after_tax") lines, for projects
+        given parametrically without a cash-flow file.
+
+    Returns
+    -------
+    dict {(basis, escalation, multiplier): ndarray (P, T)}
+        Keys among ``("nominal", 0.0, "tax")`` (depreciation D_t at t = 1..N
+        plus the book value BV_N at t = N: the tax shield, and loan interest
+        I_t), ``("nominal", 0.0, "one")`` (loan inflow L at t = 0, payments
+        -A at t = 1..n, investment tax credit) and, with
+        ``include_capital_lines``, ``("real", 0.0, "one")`` and
+        ``("real", 0.0, "after_tax")``. Only non-empty classes are returned.
+
+    Warnings
+    --------
+    End-of-period timing: tax year k lands at period k; t = 0 is the purchase.
+    The operating lines of the project are not produced here: relabel them
+    with :data:`KIND_MULTIPLIER` (benefit, cost, other, salvage ->
+    ``"after_tax"``; investment -> ``"one"``).
+    Assumes tax is linear: a loss in one year offsets the firm's other
+    taxable income that year (common practice), so every line's tax is
+    tau times its amount. For a stand-alone project use
+    :func:`after_tax_cash_flows_carry_forward`.
+    The gain on disposal (recapture and any gain above cost) is taxed at the
+    ordinary rate. MACRS deductions of years up to N are taken in full (the
+    disposal-year convention is not applied); the rest is written off at N.
+
+    Notes
+    -----
+    After-tax cash flow of year t (nominal money):
+
+    ATCF_t = (1 - tau) X_t + tau (D_t + I_t + [t = N] BV_N)
+             - P_0 [t = 0] + (1 - tau) S_N [t = N]
+             + L [t = 0] - A [1 <= t <= n] + ITC [t = t_ITC]
+    where X_t are the operating lines (real basis, inflated), D_t, BV_N, I_t,
+    A, L and ITC are nominal, and S_N the real sale price inflated to year N.
+    Because D_t is nominal, its present worth falls as inflation rises.
+
+    References
+    ----------
+    W. G. Sullivan, E. M. Wicks, C. P. Koelling, Engineering Economy,
+    Pearson, after-tax cash-flow table (from memory).
+
+    Examples
+    --------
+    >>> lines = after_tax_lines([100_000.0], 6, 8, method="macrs", recovery_years=5)
+    >>> lines[("nominal", 0.0, "tax")].round(2).tolist()
+    [[0.0, 20000.0, 32000.0, 19200.0, 11520.0, 11520.0, 5760.0, 0.0]]
+    >>> lines = after_tax_lines([100_000.0], 3, 5, method="macrs", recovery_years=5)
+    >>> lines[("nominal", 0.0, "tax")].round(2).tolist()   # BV 28,800 written off in year 3
+    [[0.0, 20000.0, 32000.0, 48000.0, 0.0]]
+    """
+    cost = np.asarray(first_cost, dtype=float)
+    if cost.ndim != 1:
+        raise ValueError(f"first_cost must have shape (P,), got {cost.shape}")
+    if np.any(~np.isfinite(cost)) or np.any(cost < 0):
+        raise ValueError("first_cost must be finite and >= 0")
+    p = cost.shape[0]
+    T = _dep._check_int(n_periods, "n_periods", minimum=2)
+    N = _as_int_vector(life, p, "life", 1)
+    if np.any(N > T - 1):
+        raise ValueError(f"life must be <= n_periods - 1 = {T - 1} (disposal must fall inside the matrix)")
+    salvage_v = _as_vector(salvage, p, "salvage")
+    methods = np.asarray(method, dtype=object)
+    methods = np.full(p, methods.item(), dtype=object) if methods.ndim == 0 else methods
+    if methods.shape != (p,):
+        raise ValueError(f"method must be a string or shape (P,) = ({p},), got {methods.shape}")
+    rec = _as_int_vector(recovery_years, p, "recovery_years", 1)
+    itc = _as_vector(itc_rate, p, "itc_rate")
+    if np.any(~np.isfinite(itc)) or np.any(itc < 0) or np.any(itc >= 1):
+        raise ValueError("itc_rate must satisfy 0 <= itc_rate < 1")
+    itc_t = _dep._check_int(itc_period, "itc_period", minimum=0)
+    if itc_t > T - 1:
+        raise ValueError(f"itc_period must be <= n_periods - 1 = {T - 1}")
+    red = float(itc_basis_reduction)
+    if not 0.0 <= red <= 1.0:
+        raise ValueError(f"itc_basis_reduction must be in [0, 1], got {itc_basis_reduction!r}")
+
+    credit = itc * cost
+    basis = cost - red * credit
+    t_index = np.arange(T)
+
+    # --- depreciation shield: group by (method, recovery_years), a handful of groups
+    shield = np.zeros((p, T))
+    groups = {}
+    for k, (m, r) in enumerate(zip(methods.tolist(), rec.tolist())):
+        groups.setdefault((m, r), []).append(k)
+    for (m, r), members in groups.items():  # loop over distinct methods, not projects
+        idx = np.asarray(members)
+        sched = _dep.depreciation_schedule(
+            basis[idx], m, r, salvage=np.minimum(salvage_v[idx], basis[idx]), convention=convention,
+            quarter=quarter, declining_rate=declining_rate,
+        )  # (G, Y)
+        Y = sched.shape[-1]
+        years = np.arange(1, Y + 1)
+        kept = np.where(years[None, :] <= N[idx, None], sched, 0.0)  # deductions up to disposal
+        bv_at_disposal = basis[idx] - kept.sum(axis=-1)
+        block = np.zeros((idx.size, T))
+        ncol = min(Y, T - 1)
+        block[:, 1:ncol + 1] = kept[:, :ncol]
+        block[np.arange(idx.size), N[idx]] += bv_at_disposal
+        shield[idx] = block
+
+    tax_lines = shield
+    one_nominal = np.zeros((p, T))
+    if np.any(credit != 0):
+        one_nominal[:, itc_t] += credit
+
+    # --- debt financing
+    L = _as_vector(loan_amount, p, "loan_amount")
+    if np.any(~np.isfinite(L)) or np.any(L < 0):
+        raise ValueError("loan_amount must be finite and >= 0")
+    if np.any(L > 0):
+        if loan_term is None:
+            raise ValueError("loan_amount > 0 needs loan_term (years)")
+        payment, interest = loan_schedule(L, loan_rate, loan_term, T)
+        one_nominal[:, 0] += L
+        one_nominal -= payment
+        tax_lines = tax_lines + interest
+
+    out = {("nominal", 0.0, "tax"): tax_lines}
+    if np.any(one_nominal != 0):
+        out[("nominal", 0.0, "one")] = one_nominal
+    if include_capital_lines:
+        inv = np.zeros((p, T))
+        inv[:, 0] = -cost
+        out[("real", 0.0, "one")] = inv
+        sale = np.where(t_index[None, :] == N[:, None], salvage_v[:, None], 0.0)
+        out[("real", 0.0, "after_tax")] = sale
+    return out
+
+
+def tax_immediate_offset(taxable_income, tax_rate):
+    """Tax of each year when losses offset the firm's other income at once.
+
+    Parameters
+    ----------
+    taxable_income : array_like, shape (P, S, T) [nominal currency]
+    tax_rate : array_like, shape (S,) [fraction]
+
+    Returns
+    -------
+    ndarray, shape (P, S, T) [nominal currency]
+        tau_s * taxable income; negative = tax saved elsewhere in the firm.
+
+    Examples
+    --------
+    >>> tax_immediate_offset([[[100.0, -40.0]]], [0.25]).tolist()
+    [[[25.0, -10.0]]]
+    """
+    x = np.asarray(taxable_income, dtype=float)
+    t = _check_tax_rate(tax_rate)
+    if x.ndim != 3 or t.shape != (x.shape[1],):
+        raise ValueError(f"taxable_income must be (P, S, T) and tax_rate (S,), got {x.shape} and {t.shape}")
+    return x * t[None, :, None]
+
+
+def after_tax_cash_flows_carry_forward(taxable_income, tax_rate, *, offset_limit=1.0, initial_loss=0.0):
+    """Tax paid each year when a project's losses are carried forward.
+
+    For a stand-alone project (no other income to absorb its losses), a loss
+    is not refunded: it is carried forward, without expiry, and deducted
+    from the next years' positive taxable income. Vectorised over projects
+    and scenarios; the loop runs over years only.
+
+    Parameters
+    ----------
+    taxable_income : array_like, shape (P, S, T) [nominal currency]
+        Taxable income of each project, scenario and year (operating income
+        minus depreciation, interest, ... in then-current money).
+    tax_rate : array_like, shape (S,) [fraction]
+    offset_limit : float in (0, 1]
+        Largest share of a year's positive income that carried losses may
+        offset (1 = unlimited; 0.8 mimics an 80 % limitation).
+    initial_loss : float or array_like broadcasting to (P, S) [currency]
+        Loss already carried into year 0.
+
+    Returns
+    -------
+    ndarray, shape (P, S, T) [nominal currency]
+        Tax paid, >= 0 every year.
+
+    Notes
+    -----
+    With carry c_{t-1} >= 0: used_t = min(c_{t-1}, limit * max(x_t, 0)),
+    tax_t = tau * max(x_t - used_t, 0) and c_t = c_{t-1} - used_t + max(-x_t, 0).
+    Compared with immediate offset (tax = tau x_t), cumulative tax paid is
+    never lower at any year, so total tax and its present worth at a positive
+    discount rate are never lower either.
+
+    References
+    ----------
+    Internal Revenue Code section 172 (net operating loss deduction), as a
+    description of the carry-forward mechanism only (common practice).
+
+    Examples
+    --------
+    >>> x = [[[-100.0, 60.0, 60.0]]]
+    >>> after_tax_cash_flows_carry_forward(x, [0.25]).tolist()
+    [[[0.0, 0.0, 5.0]]]
+    """
+    x = np.asarray(taxable_income, dtype=float)
+    t = _check_tax_rate(tax_rate)
+    if x.ndim != 3:
+        raise ValueError(f"taxable_income must have shape (P, S, T), got {x.shape}")
+    if t.shape != (x.shape[1],):
+        raise ValueError(f"tax_rate must have shape (S,) = ({x.shape[1]},), got {t.shape}")
+    if np.any(~np.isfinite(x)):
+        raise ValueError("taxable_income must be finite")
+    limit = float(offset_limit)
+    if not 0.0 < limit <= 1.0:
+        raise ValueError(f"offset_limit must be in (0, 1], got {offset_limit!r}")
+    carry = np.broadcast_to(np.asarray(initial_loss, dtype=float), x.shape[:2]).copy()
+    if np.any(carry < 0):
+        raise ValueError("initial_loss must be >= 0")
+    paid = np.empty_like(x)
+    rate = t[None, :]
+    for k in range(x.shape[2]):  # loop over years only
+        income = x[:, :, k]
+        used = np.minimum(carry, limit * np.maximum(income, 0.0))
+        paid[:, :, k] = rate * np.maximum(income - used, 0.0)
+        carry = carry - used + np.maximum(-income, 0.0)
+    return paid

@@ -1,0 +1,319 @@
+"""Scenario grid: axes from flags or a TOML file → one row per scenario.
+
+A grid is the Cartesian product of named axes. The discount-rate axis is
+given on a nominal or a real basis; every scenario carries both rates, linked
+by the exact Fisher relation (1 + i) = (1 + r)(1 + f). Further axes
+(``tax_rate``, ``cost_multiplier``, ``benefit_multiplier``) multiply into the
+same product. Scenario ids number the product with the discount-rate axis
+varying fastest.
+"""
+from __future__ import annotations
+
+import json
+import math
+import sys
+from dataclasses import dataclass, field, asdict
+from pathlib import Path
+
+import numpy as np
+
+from .errors import GridError
+from .evaluate.inflation import nominal_rate, real_rate
+from .evaluate.timing import TIMING_CONVENTIONS
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+DEFAULT_DISCOUNT = "0:0.20:41"
+DEFAULT_INFLATION = "0:0.10:21"
+EXTRA_AXES = {
+    "tax_rate": (0.0, 1.0, "an income-tax rate as a fraction (0.25 = 25 %)"),
+    "cost_multiplier": (0.0, None, "a multiplier of investment lines (1.1 = 10 % overrun)"),
+    "benefit_multiplier": (0.0, None, "a multiplier of benefit lines (0.9 = 10 % shortfall)"),
+}
+MAX_SCENARIOS = 1_000_000
+
+
+@dataclass
+class Axis:
+    """One grid axis: a name and its values (ascending)."""
+
+    name: str
+    values: list[float]
+
+
+@dataclass
+class GridSpec:
+    """Everything that defines a run's scenarios and evaluation conventions."""
+
+    discount_rates: list[float]
+    inflation: list[float]
+    discount_basis: str = "nominal"
+    extra_axes: list[Axis] = field(default_factory=list)
+    base: dict = field(default_factory=dict)
+    timing: str = "end"
+    periods_per_year: float = 1.0
+    budgets: dict = field(default_factory=dict)
+    after_tax: bool = False
+    weights: dict = field(default_factory=dict)
+
+    def to_json(self) -> str:
+        return json.dumps(asdict(self), sort_keys=True)
+
+    @classmethod
+    def from_json(cls, text: str) -> "GridSpec":
+        data = json.loads(text)
+        data["extra_axes"] = [Axis(**a) for a in data.get("extra_axes", [])]
+        data["budgets"] = {int(k): v for k, v in data.get("budgets", {}).items()}
+        return cls(**data)
+
+    @property
+    def axes(self) -> list[Axis]:
+        first = "discount_rate" if self.discount_basis == "nominal" else "real_rate"
+        return [Axis(first, list(self.discount_rates)), Axis("inflation", list(self.inflation)), *self.extra_axes]
+
+    @property
+    def scenario_count(self) -> int:
+        return math.prod(len(a.values) for a in self.axes)
+
+
+def parse_range(text: str, what: str) -> list[float]:
+    """Parse ``START:STOP:COUNT`` (inclusive, evenly spaced) or a single value or ``a,b,c``.
+
+    >>> parse_range("0:0.1:3", "inflation")
+    [0.0, 0.05, 0.1]
+    """
+    t = str(text).strip()
+    try:
+        if ":" in t:
+            parts = t.split(":")
+            if len(parts) != 3:
+                raise ValueError
+            start, stop, count = float(parts[0]), float(parts[1]), parts[2]
+            if float(count) != int(float(count)):
+                raise GridError(f"{what}: COUNT must be a whole number in {t!r}. Fix: e.g. 0:0.2:41")
+            return _linspace(start, stop, int(float(count)), what)
+        if "," in t:
+            return [float(v) for v in t.split(",")]
+        return [float(t)]
+    except GridError:
+        raise
+    except ValueError:
+        raise GridError(f"{what}: cannot read {t!r}. Fix: give START:STOP:COUNT with rates as fractions, "
+                        f"e.g. 0:0.2:41 (0 to 20 % in 41 steps), a single value like 0.07, or a list like 0.03,0.05,0.07")
+
+
+def _linspace(start: float, stop: float, count: int, what: str) -> list[float]:
+    if count < 1:
+        raise GridError(f"{what}: COUNT must be at least 1, got {count}. Fix: e.g. 0:0.2:41")
+    if count > 1 and stop < start:
+        raise GridError(f"{what}: the range {start}:{stop} runs backwards. Fix: give START below STOP, e.g. {stop}:{start}:{count}")
+    if count > 1 and stop == start:
+        raise GridError(f"{what}: START equals STOP with COUNT {count} (a zero step). Fix: use COUNT 1 or widen the range")
+    return [float(v) for v in np.linspace(start, stop, count)]
+
+
+def _axis_from_toml(value, what: str) -> list[float]:
+    if isinstance(value, dict):
+        unknown = set(value) - {"start", "stop", "count", "values"}
+        if unknown:
+            raise GridError(f"{what}: unknown key(s) {sorted(unknown)}. Fix: use start/stop/count or values")
+        if "values" in value:
+            return [float(v) for v in value["values"]]
+        try:
+            return _linspace(float(value["start"]), float(value["stop"]), int(value["count"]), what)
+        except KeyError as exc:
+            raise GridError(f"{what}: missing '{exc.args[0]}'. Fix: give start, stop and count") from None
+    if isinstance(value, (list, tuple)):
+        return [float(v) for v in value]
+    if isinstance(value, (int, float)):
+        return [float(value)]
+    if isinstance(value, str):
+        return parse_range(value, what)
+    raise GridError(f"{what}: cannot read {value!r}. Fix: use {{ start = 0.0, stop = 0.2, count = 41 }}")
+
+
+def read_grid_toml(path: str | Path) -> dict:
+    """Read the settings of a grid TOML file into a flat dict of GridSpec fields."""
+    p = Path(path)
+    try:
+        data = tomllib.loads(p.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise GridError(f"{path}: file not found. Fix: check the path of --grid") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise GridError(f"{path}: invalid TOML: {exc}. Fix: correct the line shown") from None
+    except UnicodeDecodeError:
+        raise GridError(f"{path}: not UTF-8 text. Fix: save the file as UTF-8") from None
+    allowed = {"grid", "time", "budget", "tax", "weights", "sensitivity", "decisions"}
+    unknown = set(data) - allowed
+    if unknown:
+        raise GridError(f"{path}: unknown table(s) {sorted(unknown)}. Fix: use only {sorted(allowed)}")
+    out: dict = {}
+    grid = data.get("grid", {})
+    for key, value in grid.items():
+        if key == "discount_rates":
+            out["discount_rates"] = _axis_from_toml(value, f"{path}: grid.discount_rates")
+        elif key == "inflation":
+            out["inflation"] = _axis_from_toml(value, f"{path}: grid.inflation")
+        elif key == "discount_basis":
+            out["discount_basis"] = value
+        elif key == "base":
+            out["base"] = dict(value)
+        elif key in EXTRA_AXES:
+            out.setdefault("extra_axes", []).append(Axis(key, _axis_from_toml(value, f"{path}: grid.{key}")))
+        else:
+            raise GridError(f"{path}: unknown key grid.{key}. Fix: use discount_rates, inflation, discount_basis, "
+                            f"base or an extra axis ({', '.join(EXTRA_AXES)})")
+    time = data.get("time", {})
+    for key, value in time.items():
+        if key in ("timing", "periods_per_year"):
+            out[key] = value
+        else:
+            raise GridError(f"{path}: unknown key time.{key}. Fix: use timing or periods_per_year")
+    budget = data.get("budget", {})
+    if "periods" in budget:
+        out["budgets"] = {int(k): float(v) for k, v in budget["periods"].items()}
+    tax = data.get("tax", {})
+    if tax:
+        out["after_tax"] = bool(tax.get("after_tax", True))
+        if "rate" in tax and "tax_rate" not in [a.name for a in out.get("extra_axes", [])]:
+            out.setdefault("extra_axes", []).append(Axis("tax_rate", _axis_from_toml(tax["rate"], f"{path}: tax.rate")))
+    if "weights" in data:
+        out["weights"] = data["weights"]
+    for extra in ("sensitivity", "decisions"):
+        if extra in data:
+            out[extra] = data[extra]
+    return out
+
+
+def make_grid_spec(*, toml_settings: dict | None = None, discount_rates: str | None = None,
+                   inflation: str | None = None, discount_basis: str | None = None,
+                   budgets: dict | None = None, timing: str | None = None,
+                   periods_per_year: float | None = None, after_tax: bool | None = None) -> GridSpec:
+    """Combine TOML settings with command-line overrides (flags win) and validate."""
+    s = dict(toml_settings or {})
+    s.pop("sensitivity", None)
+    s.pop("decisions", None)
+    if discount_rates is not None:
+        s["discount_rates"] = parse_range(discount_rates, "--discount-rates")
+    if inflation is not None:
+        s["inflation"] = parse_range(inflation, "--inflation")
+    if discount_basis is not None:
+        s["discount_basis"] = discount_basis
+    if budgets:
+        s["budgets"] = dict(budgets)
+    if timing is not None:
+        s["timing"] = timing
+    if periods_per_year is not None:
+        s["periods_per_year"] = periods_per_year
+    if after_tax is not None:
+        s["after_tax"] = after_tax
+    s.setdefault("discount_rates", parse_range(DEFAULT_DISCOUNT, "default discount rates"))
+    s.setdefault("inflation", parse_range(DEFAULT_INFLATION, "default inflation"))
+    spec = GridSpec(**s)
+    validate_grid_spec(spec)
+    return spec
+
+
+def validate_grid_spec(spec: GridSpec) -> None:
+    """Refuse rates at or below -100 %, unknown bases and conventions, empty or huge grids."""
+    if spec.discount_basis not in ("nominal", "real"):
+        raise GridError(f"discount basis must be 'nominal' or 'real', got {spec.discount_basis!r}. "
+                        "Fix: --discount-basis nominal (market rates) or real (rates net of inflation)")
+    if spec.timing not in TIMING_CONVENTIONS:
+        raise GridError(f"timing must be one of {', '.join(TIMING_CONVENTIONS)}, got {spec.timing!r}")
+    if not (isinstance(spec.periods_per_year, (int, float)) and spec.periods_per_year > 0):
+        raise GridError(f"periods_per_year must be a positive number, got {spec.periods_per_year!r} (1 = years, 12 = months)")
+    for axis in spec.axes:
+        vals = np.asarray(axis.values, dtype=float)
+        if vals.size == 0:
+            raise GridError(f"the {axis.name} axis has no values. Fix: give at least one")
+        if not np.all(np.isfinite(vals)):
+            raise GridError(f"the {axis.name} axis has a non-finite value. Fix: give finite fractions")
+        if np.unique(vals).size != vals.size:
+            raise GridError(f"the {axis.name} axis repeats a value. Fix: give distinct values")
+        if axis.name in ("discount_rate", "real_rate", "inflation") and np.any(vals <= -1.0):
+            bad = vals[vals <= -1.0][0]
+            raise GridError(f"the {axis.name} axis has {bad:g} (-100 % or less), where money would lose all value. "
+                            "Fix: rates are fractions greater than -1 (0.07 = 7 %)")
+        if axis.name in EXTRA_AXES:
+            low, high, what = EXTRA_AXES[axis.name]
+            if np.any(vals < low) or (high is not None and np.any(vals > high)):
+                raise GridError(f"the {axis.name} axis must hold {what}, got {vals.min():g}..{vals.max():g}")
+    if spec.discount_basis == "real":
+        i = nominal_rate(np.asarray(spec.discount_rates)[None, :], np.asarray(spec.inflation)[:, None])
+        if np.any(np.asarray(i) <= -1.0):
+            raise GridError("a real rate and an inflation rate combine to a nominal rate of -100 % or less")
+    else:
+        pass  # real_rate > -1 follows from i > -1 and f > -1
+    if spec.scenario_count > MAX_SCENARIOS:
+        raise GridError(f"the grid has {spec.scenario_count:,} scenarios, more than {MAX_SCENARIOS:,}. Fix: use fewer steps")
+    for period, amount in spec.budgets.items():
+        if int(period) < 0 or not (isinstance(amount, (int, float)) and math.isfinite(amount) and amount >= 0):
+            raise GridError(f"budget for period {period} must be a non-negative amount, got {amount!r}")
+    for key in spec.base:
+        if key not in [a.name for a in spec.axes] + ["discount_rate", "real_rate"]:
+            raise GridError(f"base names an unknown axis {key!r}. Fix: use one of {[a.name for a in spec.axes]}")
+
+
+def parse_budget(items: list[str] | tuple[str, ...]) -> dict[int, float]:
+    """Parse repeatable ``PERIOD=AMOUNT`` budget flags (amount in then-current money)."""
+    out: dict[int, float] = {}
+    for item in items:
+        try:
+            k, v = item.split("=", 1)
+            period, amount = int(k), float(v)
+        except ValueError:
+            raise GridError(f"--budget {item!r}: expected PERIOD=AMOUNT. Fix: e.g. --budget 0=50e6 --budget 1=20e6") from None
+        if period < 0 or not math.isfinite(amount) or amount < 0:
+            raise GridError(f"--budget {item!r}: the period must be >= 0 and the amount a non-negative number")
+        out[period] = amount
+    return out
+
+
+@dataclass
+class ScenarioTable:
+    """The scenarios of a grid as columns (S,) plus the base scenario's index."""
+
+    columns: dict[str, np.ndarray]
+    base_index: int
+
+    @property
+    def size(self) -> int:
+        return len(self.columns["scenario_id"])
+
+
+def build_scenarios(spec: GridSpec) -> ScenarioTable:
+    """Expand a grid spec into scenario columns: discount_rate (nominal), real_rate, inflation, extra axes.
+
+    The base scenario is the grid point nearest to ``spec.base`` on each
+    axis (default: each axis's middle value).
+    """
+    axes = spec.axes
+    mesh = np.meshgrid(*[np.asarray(a.values, dtype=float) for a in reversed(axes)], indexing="ij")
+    cols = {a.name: m.ravel() for a, m in zip(reversed(axes), mesh)}
+    f = cols["inflation"]
+    if spec.discount_basis == "nominal":
+        cols["real_rate"] = np.asarray(real_rate(cols["discount_rate"], f))
+    else:
+        cols["discount_rate"] = np.asarray(nominal_rate(cols["real_rate"], f))
+    S = f.size
+    out = {"scenario_id": np.arange(S, dtype=np.int64), "discount_rate": cols["discount_rate"],
+           "real_rate": cols["real_rate"], "inflation": f}
+    for a in spec.extra_axes:
+        out[a.name] = cols[a.name]
+    # base point: nearest grid value per axis
+    base_values = {}
+    for a in axes:
+        vals = np.asarray(a.values, dtype=float)
+        want = spec.base.get(a.name)
+        if want is None and a.name == "real_rate" and "discount_rate" in spec.base:
+            want = None
+        base_values[a.name] = vals[np.argmin(np.abs(vals - want))] if want is not None else vals[(len(vals) - 1) // 2]
+    mask = np.ones(S, dtype=bool)
+    for a in axes:
+        mask &= cols[a.name] == base_values[a.name]
+    base_index = int(np.flatnonzero(mask)[0])
+    return ScenarioTable(out, base_index)

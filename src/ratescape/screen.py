@@ -1,0 +1,342 @@
+"""Screen stage: stream projects from DuckDB through the engine and back, chunk by chunk.
+
+Orchestration only; the numbers come from the pure modules in
+:mod:`ratescape.evaluate` and :mod:`ratescape.decide`. Each chunk of
+projects is evaluated over every scenario and written in ONE transaction
+(results, summaries, IRRs and the chunk's completion mark), so an
+interrupted run can be resumed with ``--resume RUN_ID`` and ends with exactly
+the rows an uninterrupted run would have.
+"""
+from __future__ import annotations
+
+import os
+import time
+import uuid
+from dataclasses import dataclass
+from datetime import datetime, timezone
+
+import numpy as np
+import polars as pl
+import pyarrow as pa
+
+from . import __version__
+from .errors import RunError
+from .evaluate.irr import irr_roots
+from .evaluate.kernel import (LineClass, capital_recovery_factor, discount_tensor, present_worth_classes,
+                              then_current_streams)
+from .evaluate.inflation import real_rate as fisher_real_rate
+from .evaluate.timing import discount_exponents
+from .grid import GridSpec, ScenarioTable, build_scenarios
+from .progress import Progress, log
+from .store.database import fetch_frame, transaction
+
+# Cells (projects x scenarios) evaluated per chunk when no chunk size is given:
+# about 2e7 cells keeps a chunk's arrays near 0.5 GB whatever the portfolio size.
+DEFAULT_CELLS_PER_CHUNK = 20_000_000
+IRR_SEARCH = (-0.99, 10.0)
+
+
+def _now() -> datetime:
+    return datetime.now(timezone.utc).replace(tzinfo=None)
+
+
+def _multiplier_for(kind: str, axes: set[str]) -> str:
+    if kind == "investment" and "cost_multiplier" in axes:
+        return "cost_multiplier"
+    if kind == "benefit" and "benefit_multiplier" in axes:
+        return "benefit_multiplier"
+    return "one"
+
+
+@dataclass
+class Plan:
+    """What every chunk of a run shares: scenarios, line classes, discount tensor."""
+
+    run_id: str
+    spec: GridSpec
+    scenarios: ScenarioTable
+    classes: list[LineClass]
+    class_index: dict
+    n_periods: int
+    exponents: np.ndarray
+    tensor: np.ndarray
+    weights: np.ndarray
+    project_count: int
+    chunk_size: int
+    inflation_levels: np.ndarray
+    irr_multipliers: dict
+
+    @property
+    def chunk_count(self) -> int:
+        return max(1, -(-self.project_count // self.chunk_size))
+
+
+def _current_inputs(con) -> tuple[str, int, int]:
+    row = con.execute("SELECT inputs_hash FROM loads ORDER BY load_id DESC LIMIT 1").fetchone()
+    if row is None:
+        raise RunError("the database has no portfolio. Fix: run `ratescape load --projects FILE.csv --db DB` first")
+    count = con.execute("SELECT count(*) FROM projects").fetchone()[0]
+    max_period = con.execute("SELECT coalesce(max(period), 0) FROM cash_flows").fetchone()[0]
+    return row[0], int(count), int(max_period)
+
+
+def _scenario_weights(spec: GridSpec, table: ScenarioTable) -> np.ndarray:
+    """Scenario weights (S,) summing to 1: uniform unless the spec gives axis weights."""
+    if spec.weights:
+        from .decide.weights import scenario_weights_from_spec  # optional module (decisions)
+        return scenario_weights_from_spec(spec, table)
+    return np.full(table.size, 1.0 / table.size)
+
+
+def _plan(con, run_id: str, spec: GridSpec, chunk_size: int | None) -> Plan:
+    inputs_hash, count, max_period = _current_inputs(con)
+    table = build_scenarios(spec)
+    axes = {a.name for a in spec.extra_axes}
+    rows = con.execute("SELECT DISTINCT basis, escalation, kind FROM cash_flows").fetchall()
+    keys = sorted({(b, float(e), _multiplier_for(k, axes)) for b, e, k in rows})
+    classes = [LineClass(b, e, m) for b, e, m in keys] or [LineClass()]
+    class_index = {(c.basis, c.escalation, c.multiplier): n for n, c in enumerate(classes)}
+    T = max_period + 1
+    tau = discount_exponents(T, spec.timing, spec.periods_per_year)
+    multipliers = {name: table.columns[name] for name in axes}
+    tensor = discount_tensor(classes, tau, table.columns["discount_rate"], table.columns["inflation"], multipliers)
+    if not np.all(np.isfinite(tensor)):
+        raise RunError("discount factors overflow for this horizon and these rates "
+                       f"({T - 1} periods). Fix: narrow the rate range or shorten the horizon")
+    if chunk_size is None:
+        chunk_size = max(1, min(max(count, 1), DEFAULT_CELLS_PER_CHUNK // max(table.size, 1)))
+    levels = np.unique(table.columns["inflation"])
+    base = table.base_index
+    irr_mult = {name: np.full(levels.size, table.columns[name][base]) for name in axes}
+    return Plan(run_id, spec, table, classes, class_index, T, tau, tensor, _scenario_weights(spec, table),
+                count, int(chunk_size), levels, irr_mult)
+
+
+def _chunk_amounts(con, plan: Plan, first: int, stop: int):
+    """Amounts (C, P_chunk, T), project ids and horizons for project keys [first, stop)."""
+    frame = fetch_frame(con,
+        """SELECT p.project_key, cf.period, cf.basis, cf.escalation, cf.kind, sum(cf.amount) AS amount
+           FROM cash_flows cf JOIN projects p USING (project_id)
+           WHERE p.project_key >= ? AND p.project_key < ?
+           GROUP BY ALL""", [first, stop])
+    ids = con.execute("SELECT project_id FROM projects WHERE project_key >= ? AND project_key < ? ORDER BY project_key",
+                      [first, stop]).fetchnumpy()["project_id"]
+    P = stop - first
+    A = np.zeros((len(plan.classes), P, plan.n_periods))
+    horizon = np.ones(P, dtype=np.int64)
+    if frame.height:
+        axes = {a.name for a in plan.spec.extra_axes}
+        uniq = frame.select("basis", "escalation", "kind").unique(maintain_order=True)
+        cls = [plan.class_index[(b, float(e), _multiplier_for(k, axes))] for b, e, k in uniq.iter_rows()]
+        lookup = uniq.with_columns(pl.Series("class_index", cls, dtype=pl.Int64))
+        frame = frame.join(lookup, on=["basis", "escalation", "kind"], how="left")
+        k = frame["project_key"].to_numpy() - first
+        t = frame["period"].to_numpy()
+        c = frame["class_index"].to_numpy()
+        np.add.at(A, (c, k, t), frame["amount"].to_numpy())
+        nz = frame.filter(pl.col("amount") != 0).group_by("project_key").agg(pl.col("period").max())
+        horizon[nz["project_key"].to_numpy() - first] = np.maximum(nz["period"].to_numpy(), 1)
+    return A, np.asarray(ids, dtype=object), horizon
+
+
+def evaluate_chunk(plan: Plan, A: np.ndarray, horizon: np.ndarray) -> dict:
+    """Pure evaluation of one chunk: present/annual worth, acceptance, summaries and IRRs."""
+    cols = plan.scenarios.columns
+    pw = present_worth_classes(A, plan.tensor)                          # (P, S)
+    years = horizon / float(plan.spec.periods_per_year)
+    crf = capital_recovery_factor(cols["real_rate"][None, :], years[:, None])
+    aw = pw * crf                                                        # base-year money per year
+    accepted = pw >= 0.0
+    w = plan.weights
+    b = plan.scenarios.base_index
+    summary = {
+        "accept_share": accepted.mean(axis=1), "accept_probability": accepted @ w,
+        "pw_min": pw.min(axis=1), "pw_max": pw.max(axis=1), "pw_mean": pw.mean(axis=1),
+        "pw_expected": pw @ w, "pw_base": pw[:, b], "accepted_base": accepted[:, b],
+        "annual_worth_base": aw[:, b], "horizon": horizon.astype(np.int32),
+    }
+    streams = then_current_streams(A, plan.classes, plan.exponents, plan.inflation_levels, plan.irr_multipliers)
+    F, P, T = streams.shape
+    irr = irr_roots(streams.reshape(F * P, T), low=IRR_SEARCH[0], high=IRR_SEARCH[1])
+    return {"pw": pw, "aw": aw, "accepted": accepted, "summary": summary, "irr": irr, "irr_shape": (F, P)}
+
+
+def _per_period_to_annual(rate, m: float):
+    return np.power(1.0 + rate, m) - 1.0
+
+
+def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out: dict, seconds: float) -> int:
+    P, S = out["pw"].shape
+    dictionary = pa.array(ids.tolist(), type=pa.string())
+    indices = pa.array(np.repeat(np.arange(P, dtype=np.int32), S))
+    results = pa.table({
+        "project_id": pa.DictionaryArray.from_arrays(indices, dictionary),
+        "scenario_id": pa.array(np.tile(np.arange(S, dtype=np.int32), P)),
+        "present_worth": pa.array(out["pw"].ravel()),
+        "annual_worth": pa.array(out["aw"].ravel()),
+        "accepted": pa.array(out["accepted"].ravel()),
+    })
+    summary = pa.table({"project_id": pa.array(ids.tolist(), type=pa.string()),
+                        **{k: pa.array(v) for k, v in out["summary"].items()}})
+    irr = out["irr"]
+    F, _ = out["irr_shape"]
+    m = float(plan.spec.periods_per_year)
+    levels = plan.inflation_levels
+    roots_nominal = _per_period_to_annual(np.asarray(irr.roots), m) if m != 1 else np.asarray(irr.roots)
+    count = np.asarray(irr.count)
+    unique_root = np.where(count == 1, roots_nominal[:, 0] if roots_nominal.shape[1] else np.nan, np.nan)
+    f_rows = np.repeat(levels, P)
+    irr_table = pa.table({
+        "project_id": pa.array(np.tile(ids, F).tolist(), type=pa.string()),
+        "inflation": pa.array(f_rows),
+        "root_count": pa.array(count.astype(np.int32)),
+        "irr_nominal": pa.array(unique_root, mask=np.isnan(unique_root)),
+        "irr_real": pa.array((1 + unique_root) / (1 + f_rows) - 1, mask=np.isnan(unique_root)),
+        "status": pa.array(np.asarray(irr.labels).tolist(), type=pa.string()),
+        "sign_changes": pa.array(np.asarray(irr.sign_changes).astype(np.int32)),
+    })
+    rr, kk = np.nonzero(np.isfinite(roots_nominal))
+    roots_table = pa.table({
+        "project_id": pa.array(np.tile(ids, F)[rr].tolist(), type=pa.string()),
+        "inflation": pa.array(f_rows[rr]),
+        "root_index": pa.array(kk.astype(np.int32)),
+        "irr_nominal": pa.array(roots_nominal[rr, kk]),
+        "irr_real": pa.array((1 + roots_nominal[rr, kk]) / (1 + f_rows[rr]) - 1),
+    })
+    with transaction(con):
+        con.register("chunk_results", results)
+        con.execute("INSERT INTO results (run_id, project_id, scenario_id, present_worth, annual_worth, accepted) "
+                    "SELECT ?, project_id::VARCHAR, scenario_id, present_worth, annual_worth, accepted FROM chunk_results",
+                    [plan.run_id])
+        con.unregister("chunk_results")
+        con.register("chunk_summary", summary)
+        names = list(out["summary"])
+        con.execute(f"INSERT INTO project_summary (run_id, project_id, {', '.join(names)}) "
+                    f"SELECT ?, project_id, {', '.join(names)} FROM chunk_summary", [plan.run_id])
+        con.unregister("chunk_summary")
+        con.register("chunk_irr", irr_table)
+        con.execute("INSERT INTO irr_results SELECT ?, * FROM chunk_irr", [plan.run_id])
+        con.unregister("chunk_irr")
+        con.register("chunk_roots", roots_table)
+        con.execute("INSERT INTO irr_roots SELECT ?, * FROM chunk_roots", [plan.run_id])
+        con.unregister("chunk_roots")
+        con.execute("INSERT INTO run_chunks VALUES (?, ?, ?, ?, ?, ?, ?)",
+                    [plan.run_id, chunk_index, first, first + P - 1, P * S, _now(), seconds])
+        con.execute("UPDATE runs SET chunks_done = chunks_done + 1 WHERE run_id = ?", [plan.run_id])
+    return P * S
+
+
+def _finalize(con, plan: Plan) -> None:
+    """Ranks across all projects per scenario (in DuckDB), then mark the run done."""
+    base = plan.scenarios.base_index
+    with transaction(con):
+        con.execute("""
+            UPDATE project_summary AS s SET rank_min = r.rank_min, rank_median = r.rank_median,
+                   rank_max = r.rank_max, rank_base = r.rank_base
+            FROM (SELECT project_id, min(rnk) AS rank_min, median(rnk) AS rank_median, max(rnk) AS rank_max,
+                         max(rnk) FILTER (WHERE scenario_id = ?) AS rank_base
+                  FROM (SELECT project_id, scenario_id,
+                               rank() OVER (PARTITION BY scenario_id ORDER BY present_worth DESC) AS rnk
+                        FROM results WHERE run_id = ?)
+                  GROUP BY project_id) AS r
+            WHERE s.run_id = ? AND s.project_id = r.project_id""", [base, plan.run_id, plan.run_id])
+        run_decisions(con, plan)
+        con.execute("UPDATE runs SET status = 'done', finished_at = ?, message = NULL WHERE run_id = ?",
+                    [_now(), plan.run_id])
+
+
+def run_decisions(con, plan: Plan) -> None:
+    """Hook for the decision stage (alternatives, rationing, ...); see ratescape.decisions."""
+    try:
+        from .decisions import decide_run
+    except ImportError:
+        return
+    decide_run(con, plan)
+
+
+def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chunk_size: int | None = None,
+           progress: bool = True, stop_after_chunks: int | None = None) -> str:
+    """Evaluate every project in every scenario and store the results; return the run id.
+
+    ``resume`` continues an interrupted run with its stored grid and chunk
+    size. ``stop_after_chunks`` (testing aid) stops after that many chunks,
+    leaving the run resumable.
+    """
+    if resume:
+        row = con.execute("SELECT status, grid_spec, inputs_hash, chunk_size FROM runs WHERE run_id = ?",
+                          [resume]).fetchone()
+        if row is None:
+            raise RunError(f"no run {resume!r} in this database. Fix: list runs with `ratescape query --db DB runs`")
+        status, grid_json, run_hash, stored_chunk = row
+        if status == "done":
+            raise RunError(f"run {resume} is already done; nothing to resume")
+        inputs_hash, _, _ = _current_inputs(con)
+        if inputs_hash != run_hash:
+            raise RunError(f"the portfolio was reloaded after run {resume} started, so it cannot be resumed. "
+                           "Fix: start a new run with `ratescape screen`")
+        spec = GridSpec.from_json(grid_json)
+        plan = _plan(con, resume, spec, stored_chunk)
+        con.execute("UPDATE runs SET status = 'running', process_id = ?, message = NULL WHERE run_id = ?",
+                    [os.getpid(), resume])
+        log(f"resuming run {resume}")
+    else:
+        if spec is None:
+            raise RunError("no grid given")
+        run_id = f"run-{datetime.now().strftime('%Y%m%d-%H%M%S')}-{uuid.uuid4().hex[:6]}"
+        plan = _plan(con, run_id, spec, chunk_size)
+        if plan.project_count == 0:
+            raise RunError("the portfolio has no projects. Fix: load a projects file first")
+        inputs_hash, _, _ = _current_inputs(con)
+        cols = plan.scenarios.columns
+        S = plan.scenarios.size
+        scen = pa.table({
+            "scenario_id": pa.array(cols["scenario_id"].astype(np.int32)),
+            "discount_rate": pa.array(cols["discount_rate"]), "real_rate": pa.array(cols["real_rate"]),
+            "inflation": pa.array(cols["inflation"]),
+            **{k: pa.array(cols[k] if k in cols else np.full(S, np.nan), mask=None if k in cols else np.ones(S, bool))
+               for k in ("tax_rate", "cost_multiplier", "benefit_multiplier")},
+            "weight": pa.array(plan.weights),
+            "is_base": pa.array(cols["scenario_id"] == plan.scenarios.base_index),
+        })
+        with transaction(con):
+            con.execute("INSERT INTO runs VALUES (?, 'running', ?, NULL, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0, ?, NULL)", [
+                run_id, _now(), __version__, inputs_hash, spec.to_json(), spec.discount_basis, spec.timing,
+                float(spec.periods_per_year), bool(spec.after_tax), plan.project_count, S,
+                plan.scenarios.base_index, plan.chunk_size, plan.chunk_count, os.getpid()])
+            con.register("new_scenarios", scen)
+            con.execute("INSERT INTO scenarios SELECT ?, * FROM new_scenarios", [run_id])
+            con.unregister("new_scenarios")
+        log(f"run {run_id}: {plan.project_count} projects x {S} scenarios in {plan.chunk_count} chunk(s)")
+    done = {r[0] for r in con.execute("SELECT chunk_index FROM run_chunks WHERE run_id = ?", [plan.run_id]).fetchall()}
+    todo = [c for c in range(plan.chunk_count) if c not in done]
+    bar = Progress(len(todo), "screen", enabled=progress)
+    written = 0
+    try:
+        for n, chunk in enumerate(todo):
+            if stop_after_chunks is not None and n >= stop_after_chunks:
+                con.execute("UPDATE runs SET status = 'interrupted', message = ? WHERE run_id = ?",
+                            [f"stopped after {n} chunks; resume with --resume {plan.run_id}", plan.run_id])
+                return plan.run_id
+            first = chunk * plan.chunk_size
+            stop = min(first + plan.chunk_size, plan.project_count)
+            t0 = time.perf_counter()
+            A, ids, horizon = _chunk_amounts(con, plan, first, stop)
+            out = evaluate_chunk(plan, A, horizon)
+            written += _write_chunk(con, plan, chunk, first, ids, out, time.perf_counter() - t0)
+            bar.update()
+        bar.close()
+        _finalize(con, plan)
+    except KeyboardInterrupt:
+        bar.close()
+        con.execute("UPDATE runs SET status = 'interrupted', message = ? WHERE run_id = ?",
+                    [f"interrupted; resume with --resume {plan.run_id}", plan.run_id])
+        raise
+    except BaseException as exc:
+        bar.close()
+        try:
+            con.execute("UPDATE runs SET status = 'failed', message = ? WHERE run_id = ?",
+                        [f"{type(exc).__name__}: {exc}"[:500], plan.run_id])
+        except Exception:
+            pass
+        raise
+    return plan.run_id

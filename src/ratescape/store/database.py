@@ -1,0 +1,71 @@
+"""Opening a ratescape database: read-write for one writer, read-only for everyone else."""
+from __future__ import annotations
+
+import re
+from contextlib import contextmanager
+from pathlib import Path
+
+import duckdb
+
+from ..errors import DatabaseBusyError, RatescapeError
+from .schema import create_schema
+
+
+def _busy_message(path, exc: Exception) -> str:
+    text = str(exc)
+    m = re.search(r"PID (\d+)", text)
+    who = f"process {m.group(1)}" if m else "another process"
+    return (f"database busy: {path} is open for writing by {who}. "
+            f"Fix: wait for it to finish (or stop it), then run again; read-only queries work once no writer is active")
+
+
+def connect_write(path: str | Path) -> duckdb.DuckDBPyConnection:
+    """Open (creating if needed) a database for writing; one writer at a time."""
+    try:
+        con = duckdb.connect(str(path))
+    except duckdb.IOException as exc:
+        if "lock" in str(exc).lower():
+            raise DatabaseBusyError(_busy_message(path, exc)) from None
+        raise RatescapeError(f"cannot open {path}: {exc}") from None
+    create_schema(con)
+    return con
+
+
+def connect_read(path: str | Path) -> duckdb.DuckDBPyConnection:
+    """Open an existing database read-only (queries and reports)."""
+    p = Path(path)
+    if not p.is_file():
+        raise RatescapeError(f"{path}: no such database. Fix: run `ratescape load` first or check --db")
+    try:
+        return duckdb.connect(str(p), read_only=True)
+    except duckdb.IOException as exc:
+        if "lock" in str(exc).lower():
+            raise DatabaseBusyError(_busy_message(path, exc)) from None
+        raise RatescapeError(f"cannot open {path}: {exc}") from None
+    except duckdb.Error as exc:
+        raise RatescapeError(f"{path} is not a ratescape database ({exc})") from None
+
+
+@contextmanager
+def transaction(con):
+    """BEGIN … COMMIT, or ROLLBACK on any exception (including KeyboardInterrupt)."""
+    con.execute("BEGIN TRANSACTION")
+    try:
+        yield con
+    except BaseException:
+        con.execute("ROLLBACK")
+        raise
+    else:
+        con.execute("COMMIT")
+
+
+def fetch_frame(con, sql: str, params=None):
+    """Run ``sql`` with bound ``params`` and return a Polars frame (DuckDB 2 has no cursor ``.pl()``)."""
+    import warnings
+
+    import polars as pl
+
+    with warnings.catch_warnings():  # DuckDB 2 warns that DB-API Arrow output copies rows; ours are small
+        warnings.simplefilter("ignore", UserWarning)
+        table = con.execute(sql, params if params else []).to_arrow_table()
+    return pl.from_arrow(table)

@@ -1,0 +1,65 @@
+"""The DuckDB schema of a ratescape database (see README, "Database schema")."""
+from __future__ import annotations
+
+SCHEMA_VERSION = 1
+
+TABLES = {
+    "meta": """CREATE TABLE IF NOT EXISTS meta (key VARCHAR PRIMARY KEY, value VARCHAR)""",
+    "loads": """CREATE TABLE IF NOT EXISTS loads (
+        load_id INTEGER PRIMARY KEY, loaded_at TIMESTAMP, projects_file VARCHAR, cash_flows_file VARCHAR,
+        inputs_hash VARCHAR, project_count INTEGER, cash_flow_rows BIGINT, tool_version VARCHAR, notes VARCHAR)""",
+    "projects": """CREATE TABLE IF NOT EXISTS projects (
+        project_key INTEGER NOT NULL, project_id VARCHAR PRIMARY KEY, name VARCHAR, group_name VARCHAR,
+        requires VARCHAR, mandatory BOOLEAN, category VARCHAR,
+        first_cost DOUBLE, annual_benefit DOUBLE, benefit_basis VARCHAR, benefit_escalation DOUBLE,
+        annual_cost DOUBLE, cost_basis VARCHAR, cost_escalation DOUBLE, salvage DOUBLE, life INTEGER,
+        depreciation_method VARCHAR, recovery_years INTEGER, depreciable_basis DOUBLE,
+        loan_amount DOUBLE, loan_rate DOUBLE, loan_term INTEGER, source_line INTEGER)""",
+    "cash_flows": """CREATE TABLE IF NOT EXISTS cash_flows (
+        project_id VARCHAR NOT NULL, period INTEGER NOT NULL, amount DOUBLE NOT NULL, basis VARCHAR NOT NULL,
+        escalation DOUBLE NOT NULL, kind VARCHAR NOT NULL, source VARCHAR, source_line INTEGER)""",
+    "runs": """CREATE TABLE IF NOT EXISTS runs (
+        run_id VARCHAR PRIMARY KEY, status VARCHAR NOT NULL, started_at TIMESTAMP, finished_at TIMESTAMP,
+        tool_version VARCHAR, inputs_hash VARCHAR, grid_spec VARCHAR, discount_basis VARCHAR, timing VARCHAR,
+        periods_per_year DOUBLE, after_tax BOOLEAN, project_count INTEGER, scenario_count INTEGER,
+        base_scenario_id INTEGER, chunk_size INTEGER, chunk_count INTEGER, chunks_done INTEGER,
+        process_id INTEGER, message VARCHAR)""",
+    "run_chunks": """CREATE TABLE IF NOT EXISTS run_chunks (
+        run_id VARCHAR NOT NULL, chunk_index INTEGER NOT NULL, first_project_key INTEGER, last_project_key INTEGER,
+        result_rows BIGINT, finished_at TIMESTAMP, seconds DOUBLE, PRIMARY KEY (run_id, chunk_index))""",
+    "scenarios": """CREATE TABLE IF NOT EXISTS scenarios (
+        run_id VARCHAR NOT NULL, scenario_id INTEGER NOT NULL, discount_rate DOUBLE NOT NULL,
+        real_rate DOUBLE NOT NULL, inflation DOUBLE NOT NULL, tax_rate DOUBLE, cost_multiplier DOUBLE,
+        benefit_multiplier DOUBLE, weight DOUBLE, is_base BOOLEAN, PRIMARY KEY (run_id, scenario_id))""",
+    "results": """CREATE TABLE IF NOT EXISTS results (
+        run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, scenario_id INTEGER NOT NULL,
+        present_worth DOUBLE NOT NULL, annual_worth DOUBLE NOT NULL, accepted BOOLEAN NOT NULL,
+        present_worth_before_tax DOUBLE)""",
+    "project_summary": """CREATE TABLE IF NOT EXISTS project_summary (
+        run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, accept_share DOUBLE, accept_probability DOUBLE,
+        pw_min DOUBLE, pw_max DOUBLE, pw_mean DOUBLE, pw_expected DOUBLE, pw_base DOUBLE, accepted_base BOOLEAN,
+        annual_worth_base DOUBLE, horizon INTEGER,
+        rank_min INTEGER, rank_median DOUBLE, rank_max INTEGER, rank_base INTEGER,
+        pi_rank_min INTEGER, pi_rank_median DOUBLE, pi_rank_max INTEGER, top_k_share DOUBLE,
+        selected_share DOUBLE, selected_probability DOUBLE,
+        PRIMARY KEY (run_id, project_id))""",
+    "irr_results": """CREATE TABLE IF NOT EXISTS irr_results (
+        run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, inflation DOUBLE NOT NULL,
+        root_count INTEGER NOT NULL, irr_nominal DOUBLE, irr_real DOUBLE, status VARCHAR NOT NULL,
+        sign_changes INTEGER, PRIMARY KEY (run_id, project_id, inflation))""",
+    "irr_roots": """CREATE TABLE IF NOT EXISTS irr_roots (
+        run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, inflation DOUBLE NOT NULL,
+        root_index INTEGER NOT NULL, irr_nominal DOUBLE NOT NULL, irr_real DOUBLE NOT NULL)""",
+}
+
+
+def create_schema(con) -> None:
+    """Create every table that does not exist yet (idempotent)."""
+    for ddl in TABLES.values():
+        con.execute(ddl)
+    con.execute("INSERT OR REPLACE INTO meta VALUES ('schema_version', ?)", [str(SCHEMA_VERSION)])
+
+
+def table_exists(con, name: str) -> bool:
+    return bool(con.execute(
+        "SELECT count(*) FROM information_schema.tables WHERE table_name = ?", [name]).fetchone()[0])
