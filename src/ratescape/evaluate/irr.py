@@ -110,8 +110,9 @@ class IrrResult(NamedTuple):
 
     @property
     def labels(self):
-        """Status names ("unique", "none", "multiple", ...), shape (...)."""
-        return _STATUS_LABELS[np.asarray(self.status, dtype=int)]
+        """Status names ("unique", "none", "multiple", ...), shape (...); str for one row."""
+        out = _STATUS_LABELS[np.asarray(self.status, dtype=int)]
+        return str(out) if out.ndim == 0 else out
 
 
 def sign_changes(amounts):
@@ -177,11 +178,11 @@ def _newton_bisect(A, lo, hi, order, maxiter=200):
 
     def ev(x, idx):
         M = A[idx] * np.exp(-x[:, None] * t + c[idx, None])
-        return M @ w0, M @ w1
+        return M @ w0, M @ w1, np.abs(M) @ np.abs(w0)
 
     a = lo.copy()
     b = hi.copy()
-    f_lo, _ = ev(lo, np.arange(K))
+    f_lo, _, _ = ev(lo, np.arange(K))
     s_lo = np.sign(f_lo)
     x = 0.5 * (a + b)
     # an end point that is itself a root
@@ -191,7 +192,7 @@ def _newton_bisect(A, lo, hi, order, maxiter=200):
         if active.size == 0:
             break
         xa = x[active]
-        f, df = ev(xa, active)
+        f, df, size = ev(xa, active)
         same = np.sign(f) == s_lo[active]
         a_act = np.where(same, xa, a[active])
         b_act = np.where(same, b[active], xa)
@@ -201,7 +202,8 @@ def _newton_bisect(A, lo, hi, order, maxiter=200):
             xn = xa - f / df
         ok = np.isfinite(xn) & (xn > a_act) & (xn < b_act)
         xn = np.where(ok, xn, 0.5 * (a_act + b_act))
-        zero = f == 0
+        # |f| at the rounding-noise level of the sum: xa is as good as it gets
+        zero = np.abs(f) <= 8.0 * _EPS * size
         xn = np.where(zero, xa, xn)
         tol = 4.0 * _EPS * (np.abs(xn) + 1.0)
         done = zero | (np.abs(xn - xa) <= tol) | (b_act - a_act <= tol)

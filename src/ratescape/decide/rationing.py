@@ -1,0 +1,813 @@
+"""Capital rationing in every scenario: a 0-1 integer program per scenario.
+
+In each scenario s choose x in {0, 1}^P to
+
+    maximise    sum_j pw[j, s] x_j
+    subject to  sum_j a[k(s), b, j] x_j <= budget[s, b]     every budget period b
+                sum_{j in g} x_j <= 1   (or == 1 if group g is mandatory)
+                x_dep <= x_pre          every (dependent, prerequisite) pair
+
+with ``scipy.optimize.milp`` (HiGHS). Beside the optimum it reports the LP
+relaxation bound, the gap, and the profitability-index greedy answer.
+
+References
+----------
+J. H. Lorie, L. J. Savage, "Three problems in rationing capital", Journal of
+Business 28(4), 1955, pp. 229-239.
+H. M. Weingartner, Mathematical Programming and the Analysis of Capital
+Budgeting Problems, Prentice-Hall, 1963 (0-1 formulation, mutually
+exclusive and contingent projects).
+Q. Huangfu, J. A. J. Hall, "Parallelizing the dual revised simplex method",
+Mathematical Programming Computation 10(1), 2018, pp. 119-142 (HiGHS).
+G. L. Nemhauser, L. A. Wolsey, Integer and Combinatorial Optimization,
+Wiley, 1988 (reduced-cost fixing).
+"""
+from __future__ import annotations
+
+import os
+import sys
+import time
+from contextlib import contextmanager
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import sparse
+from scipy.optimize import Bounds, LinearConstraint, linprog, milp
+
+from .weights import _check_weights
+
+__all__ = [
+    "RationingResult",
+    "RegretResult",
+    "ration_capital",
+    "greedy_selection",
+    "selection_share",
+    "core_portfolio",
+    "min_max_regret",
+    "STATUS_OPTIMAL",
+    "STATUS_LIMIT",
+    "STATUS_INFEASIBLE",
+    "STATUS_OTHER",
+    "METHOD_LP_BOUND",
+    "METHOD_MILP",
+    "METHOD_MILP_FIXED",
+]
+
+#: status codes (S,) of :class:`RationingResult`, as ``scipy.optimize.milp``'s
+STATUS_OPTIMAL = 0  # optimal within mip_rel_gap
+STATUS_LIMIT = 1  # time limit reached; best portfolio found is reported
+STATUS_INFEASIBLE = 2  # no portfolio satisfies the constraints
+STATUS_OTHER = 4
+
+#: how a scenario's optimum was proved (``RationingResult.method``)
+METHOD_LP_BOUND = 0  # a heuristic portfolio within mip_rel_gap of the LP bound: no MILP needed
+METHOD_MILP = 1  # full MILP
+METHOD_MILP_FIXED = 2  # MILP after reduced-cost fixing
+METHOD_NONE = -1  # infeasible LP: nothing to solve
+
+_FEAS_TOL = 1e-9  # relative budget tolerance when checking portfolios
+
+
+@dataclass(frozen=True)
+class RationingResult:
+    """Per-scenario capital rationing results (all arrays indexed by scenario first).
+
+    Attributes
+    ----------
+    selected : ndarray of bool, shape (S, P)
+        Optimal (within ``mip_rel_gap``) portfolio of each scenario.
+    objective : ndarray, shape (S,) [currency]
+        Its total present worth; NaN where infeasible.
+    lp_bound : ndarray, shape (S,) [currency]
+        Optimum of the LP relaxation (0 <= x <= 1); NaN where infeasible.
+    mip_gap : ndarray, shape (S,) [fraction]
+        (best bound - objective) / |objective| at the end of the solve, the
+        best bound being the LP bound or the branch-and-bound dual bound.
+    greedy_selected : ndarray of bool, shape (S, P)
+    greedy_objective : ndarray, shape (S,) [currency]
+        Profitability-index greedy portfolio and its worth (NaN where the
+        greedy rule finds no feasible portfolio); see :func:`greedy_selection`.
+    budget_used : ndarray, shape (S, B) [then-current money]
+        Outlay of the optimal portfolio in each budget period.
+    solve_seconds : ndarray, shape (S,) [s]
+        Solver time; 0 for scenarios that reused another's solve.
+    status : ndarray of int8, shape (S,)
+        ``STATUS_OPTIMAL``, ``STATUS_LIMIT``, ``STATUS_INFEASIBLE`` or
+        ``STATUS_OTHER``.
+    method : ndarray of int8, shape (S,)
+        ``METHOD_LP_BOUND``, ``METHOD_MILP``, ``METHOD_MILP_FIXED`` (or -1).
+    solved_as : ndarray of int, shape (S,)
+        Index of the scenario whose solve was reused (``s`` itself when it
+        was solved).
+    """
+
+    selected: np.ndarray
+    objective: np.ndarray
+    lp_bound: np.ndarray
+    mip_gap: np.ndarray
+    greedy_selected: np.ndarray
+    greedy_objective: np.ndarray
+    budget_used: np.ndarray
+    solve_seconds: np.ndarray
+    status: np.ndarray
+    method: np.ndarray
+    solved_as: np.ndarray
+
+
+@dataclass(frozen=True)
+class RegretResult:
+    """Min-max-regret choice among the distinct per-scenario optimal portfolios.
+
+    Attributes
+    ----------
+    portfolios : ndarray of bool, shape (K, P)
+        The distinct optimal portfolios.
+    optimal_in : ndarray of int, shape (K,)
+        Number of scenarios in which each was the optimum.
+    feasible : ndarray of bool, shape (K, S)
+        Whether the portfolio fits every budget of scenario s.
+    regret : ndarray, shape (K, S) [currency]
+        objective_s - pw[:, s] @ x_k; NaN where infeasible or where the
+        scenario itself had no optimum.
+    max_regret : ndarray, shape (K,) [currency]
+        Largest regret; +inf for portfolios infeasible in some scenario.
+    max_regret_where_feasible : ndarray, shape (K,) [currency]
+        Largest regret over the scenarios where the portfolio is feasible.
+    best : int
+        Index into ``portfolios`` of the min-max-regret portfolio among those
+        feasible in every scenario; -1 if there is none.
+    best_selected : ndarray of bool, shape (P,)
+        That portfolio (all False when ``best == -1``).
+    """
+
+    portfolios: np.ndarray
+    optimal_in: np.ndarray
+    feasible: np.ndarray
+    regret: np.ndarray
+    max_regret: np.ndarray
+    max_regret_where_feasible: np.ndarray
+    best: int
+    best_selected: np.ndarray
+
+
+# --------------------------------------------------------------------------
+# validation and structure
+
+
+@dataclass
+class _Problem:
+    pw: np.ndarray  # (P, S)
+    inv: np.ndarray  # (K, B, P)
+    cls: np.ndarray  # (S,)
+    budgets: np.ndarray  # (S, B)
+    group: np.ndarray  # (P,) -1 = none
+    mandatory: np.ndarray  # (G,) bool
+    requires: np.ndarray  # (R, 2)
+    prereq_pad: np.ndarray  # (P, M) prerequisites of each project, -1 padded
+    may_be_forced: np.ndarray  # (P,) bool: in a mandatory group or a prerequisite
+
+
+def _validate(pw, investment, budgets, scenario_class, group_index, group_mandatory, requires):
+    x = np.asarray(pw, dtype=float)
+    if x.ndim != 2 or x.shape[0] == 0 or x.shape[1] == 0:
+        raise ValueError(f"pw must have shape (P, S) with P, S >= 1, got shape {x.shape}")
+    if np.any(~np.isfinite(x)):
+        raise ValueError("pw must be finite")
+    P, S = x.shape
+    inv = np.asarray(investment, dtype=float)
+    if inv.ndim == 2:
+        inv = inv[None]
+    if inv.ndim != 3 or inv.shape[2] != P or inv.shape[1] == 0:
+        raise ValueError(
+            f"investment must have shape (B, P) or (K, B, P) with P = {P}, got shape {np.shape(investment)}"
+        )
+    if np.any(~np.isfinite(inv)):
+        raise ValueError("investment must be finite")
+    K, B, _ = inv.shape
+    if scenario_class is None:
+        if K != 1:
+            raise ValueError(f"investment has K = {K} classes: give scenario_class of shape (S,) = ({S},)")
+        cls = np.zeros(S, dtype=np.intp)
+    else:
+        cls = np.asarray(scenario_class)
+        if cls.shape != (S,) or not np.issubdtype(cls.dtype, np.integer):
+            raise ValueError(f"scenario_class must be integers of shape (S,) = ({S},), got shape {cls.shape}")
+        if np.any(cls < 0) or np.any(cls >= K):
+            raise ValueError(f"scenario_class values must lie in [0, {K}) for investment of shape {inv.shape}")
+        cls = cls.astype(np.intp)
+    bud = np.asarray(budgets, dtype=float)
+    if bud.shape == (B,):
+        bud = np.broadcast_to(bud, (S, B))
+    elif bud.shape != (S, B):
+        raise ValueError(f"budgets must have shape (B,) = ({B},) or (S, B) = ({S}, {B}), got shape {bud.shape}")
+    if np.any(np.isnan(bud)):
+        raise ValueError("budgets must not be NaN (use inf for an unlimited period)")
+    if group_index is None:
+        grp = np.full(P, -1, dtype=np.intp)
+    else:
+        grp = np.asarray(group_index)
+        if grp.shape != (P,) or not np.issubdtype(grp.dtype, np.integer):
+            raise ValueError(f"group_index must be integers of shape (P,) = ({P},), got shape {grp.shape}")
+        if np.any(grp < -1):
+            raise ValueError("group_index values must be >= -1 (-1 = no group)")
+        grp = grp.astype(np.intp)
+    G = int(grp.max()) + 1 if grp.size else 0
+    if group_mandatory is None:
+        mand = np.zeros(G, dtype=bool)
+    else:
+        mand = np.asarray(group_mandatory, dtype=bool)
+        if mand.ndim != 1 or mand.size < G:
+            raise ValueError(f"group_mandatory must have shape (G,) with G >= {G}, got shape {mand.shape}")
+        G = mand.size
+    if requires is None:
+        req = np.zeros((0, 2), dtype=np.intp)
+    else:
+        req = np.asarray(requires)
+        if req.size == 0:
+            req = np.zeros((0, 2), dtype=np.intp)
+        if req.ndim != 2 or req.shape[1] != 2 or not np.issubdtype(req.dtype, np.integer):
+            raise ValueError(f"requires must be integer pairs of shape (R, 2), got shape {req.shape}")
+        if np.any(req < 0) or np.any(req >= P):
+            raise ValueError(f"requires indices must lie in [0, {P})")
+        if np.any(req[:, 0] == req[:, 1]):
+            raise ValueError("requires must not pair a project with itself")
+        req = np.unique(req.astype(np.intp), axis=0)
+    # prerequisites of each project, padded with -1
+    counts = np.bincount(req[:, 0], minlength=P) if req.size else np.zeros(P, dtype=np.intp)
+    M = int(counts.max()) if counts.size else 0
+    pad = np.full((P, max(M, 1)), -1, dtype=np.intp)
+    if req.size:
+        order = np.argsort(req[:, 0], kind="stable")
+        dep, pre = req[order, 0], req[order, 1]
+        first = np.searchsorted(dep, dep, side="left")
+        pad[dep, np.arange(dep.size) - first] = pre
+    forced = np.zeros(P, dtype=bool)
+    if G:
+        in_grp = grp >= 0
+        forced[in_grp] = mand[grp[in_grp]]
+    if req.size:
+        forced[req[:, 1]] = True
+    return _Problem(x, inv, cls, np.ascontiguousarray(bud), grp, mand, req, pad, forced)
+
+
+def _structure(prob):
+    """Per-class constraint matrices: (A_ub, A_eq) sparse and the fixed row bounds."""
+    P = prob.pw.shape[1 - 1]
+    grp, mand, req = prob.group, prob.mandatory, prob.requires
+    G = mand.size
+    members = grp >= 0
+    gmat = sparse.csr_matrix(
+        (np.ones(members.sum()), (grp[members], np.flatnonzero(members))), shape=(G, P)
+    )
+    has_member = np.bincount(grp[members], minlength=G) > 0
+    opt_rows = np.flatnonzero(~mand & has_member)
+    man_rows = np.flatnonzero(mand)
+    R = req.shape[0]
+    rmat = sparse.csr_matrix(
+        (np.r_[np.ones(R), -np.ones(R)], (np.r_[np.arange(R), np.arange(R)], np.r_[req[:, 0], req[:, 1]])),
+        shape=(R, P),
+    )
+    rest_ub = sparse.vstack([gmat[opt_rows], rmat]).tocsr()
+    rest_b = np.r_[np.ones(opt_rows.size), np.zeros(R)]
+    a_eq = gmat[man_rows].tocsr()
+    b_eq = np.ones(man_rows.size)
+    a_ub = [sparse.vstack([sparse.csr_matrix(prob.inv[k]), rest_ub]).tocsr() for k in range(prob.inv.shape[0])]
+    return a_ub, rest_b, a_eq, b_eq
+
+
+# --------------------------------------------------------------------------
+# greedy
+
+
+def _greedy(prob, pw_sp, cls, budgets, start=None):
+    """Profitability-index greedy for many scenarios at once.
+
+    pw_sp (S', P), cls (S',), budgets (S', B), start (S', P) bool or None.
+    Returns selected (S', P) bool, feasible (S',) bool.
+    """
+    Sn, P = pw_sp.shape
+    inv = prob.inv  # (K, B, P)
+    grp, mand, pad = prob.group, prob.mandatory, prob.prereq_pad
+    G = mand.size
+    tot = inv.sum(axis=1)[cls]  # (S', P) total outlay over the budget periods
+    with np.errstate(divide="ignore", invalid="ignore"):
+        pi = np.where(tot > 0, pw_sp / np.where(tot > 0, tot, 1.0), np.inf)
+    pi = np.where(pw_sp > 0, pi, -np.inf)
+    # sort by PI descending, then pw descending, then index (lexsort is stable)
+    order = np.lexsort((-pw_sp, -pi), axis=-1) if Sn else np.zeros((0, P), dtype=np.intp)
+    chosen = np.zeros((Sn, P), dtype=bool) if start is None else start.copy()
+    gcol = np.where(grp >= 0, grp, G)  # column G = "no group", never marked taken
+    taken = np.zeros((Sn, G + 1), dtype=bool)
+    rows = np.arange(Sn)
+    if start is not None and G:
+        r, c = np.nonzero(chosen & (grp >= 0))
+        taken[r, grp[c]] = True
+        taken[:, G] = False
+    inv_t = np.transpose(inv, (0, 2, 1))  # (K, P, B)
+    used = np.zeros((Sn, inv.shape[1]))
+    if start is not None:
+        for k in np.unique(cls):
+            m = cls == k
+            used[m] = chosen[m].astype(float) @ inv[k].T
+    slack = budgets * _FEAS_TOL + _FEAS_TOL
+    n_pos = int((pw_sp > 0).sum(axis=1).max()) if Sn else 0
+    padv = pad >= 0
+    for k in range(n_pos):  # sequential by nature; vectorised over scenarios
+        j = order[:, k]
+        ok = (pi[rows, j] > -np.inf) & ~chosen[rows, j]
+        a = inv_t[cls, j]  # (S', B)
+        ok &= np.all(used + a <= budgets + slack, axis=1)
+        ok &= ~taken[rows, gcol[j]]
+        pj = pad[j]  # (S', M)
+        ok &= np.all(chosen[rows[:, None], np.where(padv[j], pj, 0)] | ~padv[j], axis=1)
+        if not ok.any():
+            continue
+        r = rows[ok]
+        chosen[r, j[ok]] = True
+        used[r] += a[ok]
+        taken[r, gcol[j[ok]]] = True
+        taken[:, G] = False
+    feasible = np.ones(Sn, dtype=bool)
+    # mandatory groups still empty: take the fitting member with the highest PI
+    for g in np.flatnonzero(mand):
+        mem = np.flatnonzero(grp == g)
+        need = ~taken[:, g]
+        if not need.any():
+            continue
+        if mem.size == 0:
+            feasible[:] = False
+            continue
+        r = np.flatnonzero(need)
+        a = inv_t[cls[r][:, None], mem[None, :]]  # (r, m, B)
+        fits = np.all(used[r][:, None, :] + a <= (budgets[r] + slack[r])[:, None, :], axis=2)
+        pm = pad[mem]  # (m, M)
+        pre_ok = np.all(chosen[r][:, np.where(pm >= 0, pm, 0)] | (pm < 0)[None], axis=2)
+        okm = fits & pre_ok
+        tot_m = tot[r][:, mem]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            score = np.where(tot_m > 0, pw_sp[r][:, mem] / np.where(tot_m > 0, tot_m, 1.0), np.inf)
+        score = np.where(okm, score, -np.inf)
+        best = np.argmax(score, axis=1)
+        got = okm[np.arange(r.size), best]
+        rr = r[got]
+        jj = mem[best[got]]
+        chosen[rr, jj] = True
+        used[rr] += inv_t[cls[rr], jj]
+        taken[rr, g] = True
+        feasible[r[~got]] = False
+    chosen[~feasible] = False
+    return chosen, feasible
+
+
+def greedy_selection(pw, investment, budgets, *, scenario_class=None, group_index=None,
+                     group_mandatory=None, requires=None):
+    """Profitability-index greedy portfolio in every scenario.
+
+    Parameters
+    ----------
+    pw, investment, budgets, scenario_class, group_index, group_mandatory, requires
+        As for :func:`ration_capital`.
+
+    Returns
+    -------
+    selected : ndarray of bool, shape (S, P)
+    objective : ndarray, shape (S,) [currency]
+        NaN where the rule finds no feasible portfolio (all False then).
+
+    Notes
+    -----
+    The rule, in each scenario:
+
+    1. Candidates are the projects with pw > 0, sorted by
+       PI = pw / (sum over budget periods of the project's outlay),
+       highest first (ties: higher pw first, then lower index). A project
+       with pw > 0 and total outlay <= 0 has PI = +inf and comes first.
+    2. One pass in that order. A candidate is taken if its outlay fits the
+       remaining budget of every period, no other member of its group is
+       taken, and **every prerequisite has already been taken**.
+       Prerequisites are never pulled in by a dependent, and a candidate
+       skipped for any reason is not reconsidered.
+    3. Each mandatory group still empty after the pass gets its member
+       with the highest PI (now including pw <= 0) that fits and whose
+       prerequisites are taken. If none fits, the greedy portfolio is
+       infeasible: the selection is empty and its objective NaN.
+
+    The pass is a loop over candidate positions, vectorised over scenarios.
+
+    References
+    ----------
+    J. H. Lorie, L. J. Savage, "Three problems in rationing capital",
+    Journal of Business 28(4), 1955, pp. 229-239 (ranking by
+    profitability index and its failure with several budget periods).
+
+    Examples
+    --------
+    >>> sel, obj = greedy_selection([[6.0], [5.0], [5.0]], [[4.0, 3.0, 3.0]], [6.0])
+    >>> sel.tolist(), obj.tolist()
+    ([[False, True, True]], [10.0])
+    """
+    prob = _validate(pw, investment, budgets, scenario_class, group_index, group_mandatory, requires)
+    sel, ok = _greedy(prob, prob.pw.T, prob.cls, prob.budgets)
+    obj = np.where(ok, np.einsum("sp,ps->s", sel.astype(float), prob.pw), np.nan)
+    return sel, obj
+
+
+# --------------------------------------------------------------------------
+# exact solve
+
+
+@contextmanager
+def _quiet_stdout(enabled):
+    """Send file descriptor 1 to /dev/null: some HiGHS builds print debug lines there."""
+    if not enabled:
+        yield
+        return
+    try:
+        fd = sys.stdout.fileno()
+    except (AttributeError, OSError, ValueError):
+        yield
+        return
+    sys.stdout.flush()
+    saved = os.dup(fd)
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    try:
+        os.dup2(devnull, fd)
+        yield
+    finally:
+        os.dup2(saved, fd)
+        os.close(saved)
+        os.close(devnull)
+
+
+def _feasible(prob, x, k, budget):
+    """Whether 0-1 portfolios x (n, P) fit class k's budgets (B,); groups/requires assumed."""
+    used = x.astype(float) @ prob.inv[k].T
+    return np.all(used <= budget + np.abs(budget) * _FEAS_TOL + _FEAS_TOL, axis=1)
+
+
+def _structurally_ok(prob, x):
+    """Groups and requires satisfied by portfolios x (n, P)."""
+    ok = np.ones(x.shape[0], dtype=bool)
+    if prob.requires.size:
+        ok &= ~np.any(x[:, prob.requires[:, 0]] & ~x[:, prob.requires[:, 1]], axis=1)
+    G = prob.mandatory.size
+    if G:
+        m = prob.group >= 0
+        counts = np.zeros((x.shape[0], G), dtype=np.intp)
+        np.add.at(counts.T, prob.group[m], x[:, m].T.astype(np.intp))
+        ok &= np.all(counts <= 1, axis=1) & np.all(counts[:, prob.mandatory] == 1, axis=1)
+    return ok
+
+
+def _prune(prob, x, pw_s, k, budget):
+    """Drop selected projects with pw <= 0 that nothing forces (keeps feasibility)."""
+    x = x.copy()
+    while True:
+        cand = x & (pw_s <= 0)
+        if not cand.any():
+            return x
+        needed = np.zeros_like(x)
+        if prob.requires.size:
+            dep, pre = prob.requires[:, 0], prob.requires[:, 1]
+            needed[pre[x[dep]]] = True
+        m = prob.group >= 0
+        in_mand = np.zeros_like(x)
+        in_mand[m] = prob.mandatory[prob.group[m]]
+        cand &= ~needed & ~in_mand
+        dropped = False
+        for j in np.flatnonzero(cand):
+            y = x.copy()
+            y[j] = False
+            if _feasible(prob, y[None], k, budget)[0]:
+                x = y
+                dropped = True
+        if not dropped:
+            return x
+
+
+def _lp(prob, s, a_ub, rest_b, a_eq, b_eq):
+    """LP relaxation of scenario s: (status, U, x, d_lo, d_up, upper bounds, seconds)."""
+    t0 = time.perf_counter()
+    pw_s = prob.pw[:, s]
+    P = pw_s.size
+    ub = np.where((pw_s > 0) | prob.may_be_forced, 1.0, 0.0)
+    has_eq = a_eq.shape[0] > 0
+    lp = linprog(
+        -pw_s, A_ub=a_ub, b_ub=np.r_[prob.budgets[s], rest_b],
+        A_eq=a_eq if has_eq else None, b_eq=b_eq if has_eq else None,
+        bounds=np.c_[np.zeros(P), ub], method="highs",
+    )
+    if lp.status != 0:
+        return lp.status, np.nan, None, None, None, ub, time.perf_counter() - t0
+    return (0, -lp.fun, lp.x, np.asarray(lp.lower.marginals), -np.asarray(lp.upper.marginals),
+            ub, time.perf_counter() - t0)
+
+
+def _lp_rounding_starts(prob, lp_x, cls, budgets):
+    """LP solutions (n, P) rounded down, requires repaired, infeasible ones emptied."""
+    start = lp_x > 1 - 1e-6
+    if prob.requires.size:
+        dep, pre = prob.requires[:, 0], prob.requires[:, 1]
+        for _ in range(dep.size + 1):
+            bad = start[:, dep] & ~start[:, pre]
+            if not bad.any():
+                break
+            r, c = np.nonzero(bad)
+            start[r, dep[c]] = False
+    for k in np.unique(cls):
+        m = np.flatnonzero(cls == k)
+        used = start[m].astype(float) @ prob.inv[k].T
+        bad = np.any(used > budgets[m] + np.abs(budgets[m]) * _FEAS_TOL + _FEAS_TOL, axis=1)
+        start[m[bad]] = False
+    return start
+
+
+def _solve_one(prob, s, a_ub, rest_b, a_eq, b_eq, lp_info, cands, mip_rel_gap, time_limit):
+    """Branch and bound for scenario s, if needed. Returns (x or None, bound, status, method, seconds)."""
+    t0 = time.perf_counter()
+    U, lp_x, d_lo, d_up, ub = lp_info
+    pw_s = prob.pw[:, s]
+    k = prob.cls[s]
+    budget = prob.budgets[s]
+    P = pw_s.size
+    # incumbent: best feasible candidate portfolio
+    L, x_inc = -np.inf, None
+    if cands:
+        cand = np.asarray(cands, dtype=bool)
+        ok = _feasible(prob, cand, k, budget) & ~np.any(cand[:, ub == 0], axis=1)
+        if ok.any():
+            vals = np.where(ok, cand.astype(float) @ pw_s, -np.inf)
+            i = int(np.argmax(vals))
+            L, x_inc = float(vals[i]), cand[i]
+    if x_inc is not None and U - L <= mip_rel_gap * max(abs(L), 1e-12):
+        return x_inc, max(U, L), STATUS_OPTIMAL, METHOD_LP_BOUND, time.perf_counter() - t0
+    lb_v = np.zeros(P)
+    ub_v = ub.copy()
+    method = METHOD_MILP
+    if x_inc is not None:
+        # reduced-cost fixing: moving x_j off its LP bound costs at least d_j
+        margin = U - L + 1e-7 * max(1.0, abs(U))
+        fix0 = (d_lo > margin) & (lp_x < 0.5)
+        fix1 = (d_up > margin) & (lp_x > 0.5)
+        ub_v[fix0] = 0.0
+        lb_v[fix1] = 1.0
+        method = METHOD_MILP_FIXED
+    ones = lb_v == 1.0
+    free = lb_v < ub_v
+    const = float(pw_s[ones].sum())
+    if not free.any():
+        return ones, U, STATUS_OPTIMAL, method, time.perf_counter() - t0
+    fidx = np.flatnonzero(free)
+    b_ub = np.r_[budget, rest_b]
+    shift_ub = np.asarray(a_ub[:, ones].sum(axis=1)).ravel() if ones.any() else 0.0
+    cons = [LinearConstraint(a_ub[:, fidx], -np.inf, b_ub - shift_ub)]
+    if a_eq.shape[0]:
+        shift_eq = np.asarray(a_eq[:, ones].sum(axis=1)).ravel() if ones.any() else 0.0
+        cons.append(LinearConstraint(a_eq[:, fidx], b_eq - shift_eq, b_eq - shift_eq))
+    gap = mip_rel_gap
+    if method == METHOD_MILP_FIXED:
+        # gap on the reduced objective that means mip_rel_gap of the whole one
+        red = abs(L - const)
+        gap = min(0.5, max(mip_rel_gap, mip_rel_gap * abs(L) / max(red, 1e-12)))
+    opts = {"mip_rel_gap": gap}
+    if time_limit is not None:
+        opts["time_limit"] = float(time_limit)
+    res = milp(-pw_s[fidx], integrality=np.ones(fidx.size), bounds=Bounds(lb_v[fidx], ub_v[fidx]),
+               constraints=cons, options=opts)
+    x, obj = None, -np.inf
+    if res.x is not None:
+        x = ones.copy()
+        x[fidx] = res.x > 0.5
+        if _structurally_ok(prob, x[None])[0] and _feasible(prob, x[None], k, budget)[0]:
+            obj = float(pw_s[x].sum())
+        else:  # rounded solver answer not feasible (numerical trouble)
+            x = None
+    if x_inc is not None and L >= obj:
+        x, obj = x_inc, L
+    seconds = time.perf_counter() - t0
+    if x is None:
+        st = {2: STATUS_INFEASIBLE, 1: STATUS_LIMIT}.get(res.status, STATUS_OTHER)
+        return None, np.nan, st, method, seconds
+    bound = U
+    if res.status == 0 and res.mip_dual_bound is not None and np.isfinite(res.mip_dual_bound):
+        bound = min(U, max(obj, const - res.mip_dual_bound))
+    return x, bound, (STATUS_OPTIMAL if res.status == 0 else STATUS_LIMIT), method, seconds
+
+
+def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=None,
+                   group_mandatory=None, requires=None, mip_rel_gap=1e-4, time_limit=None,
+                   reuse_identical=True, pool_size=32, quiet=True):
+    """Best portfolio of projects under period budgets, in every scenario.
+
+    Parameters
+    ----------
+    pw : array_like, shape (P, S) [currency]
+        Present worth of each project in each scenario (the objective).
+    investment : array_like, shape (B, P) or (K, B, P) [then-current money]
+        Outlay of each project in each budget period b. With K classes
+        (e.g. one per inflation value, since then-current outlays move with
+        inflation), ``scenario_class`` says which class each scenario uses;
+        the constraint matrix is built once per class.
+    budgets : array_like, shape (B,) or (S, B) [then-current money]
+        Money available in each budget period (``inf`` = unlimited);
+        per scenario when given as (S, B).
+    scenario_class : array_like of int, shape (S,), optional
+        Class of each scenario in [0, K); required when K > 1.
+    group_index : array_like of int, shape (P,), optional
+        Mutually exclusive group of each project, -1 = none. Groups are
+        numbered 0 .. G-1.
+    group_mandatory : array_like of bool, shape (G,), optional
+        True: exactly one member of the group must be chosen; False
+        (default): at most one.
+    requires : array_like of int, shape (R, 2), optional
+        (dependent, prerequisite) pairs: x_dep <= x_pre.
+    mip_rel_gap : float, optional
+        Relative optimality tolerance (default 1e-4, HiGHS's own default).
+    time_limit : float, optional
+        Seconds per scenario for the branch and bound; on reaching it the
+        best portfolio found is reported with status ``STATUS_LIMIT``.
+    reuse_identical : bool, optional
+        Solve once per distinct (class, budgets, pw column) and copy the
+        answer to identical scenarios (default True).
+    pool_size : int, optional
+        How many distinct optimal portfolios to keep as starting
+        candidates for later scenarios (default 32).
+    quiet : bool, optional
+        Silence text that the solver writes to standard output during the
+        solve (default True).
+
+    Returns
+    -------
+    RationingResult
+        See :class:`RationingResult`; arrays of shape (S, ...).
+
+    Warnings
+    --------
+    Outlays in ``investment`` and ``budgets`` are in then-current money of
+    their budget period; ``pw`` is present worth in base-year money. The two
+    are not mixed: outlays only enter the constraints.
+
+    Notes
+    -----
+    Formulation (Weingartner 1963): maximise pw[:, s] @ x subject to
+    inv[k(s)] @ x <= budgets[s], group rows sum(x_g) <= 1 (== 1 when
+    mandatory), and x_dep - x_pre <= 0; x in {0, 1}^P.
+
+    A project with pw <= 0 has upper bound 0 unless it is in a mandatory
+    group or is a prerequisite of another project; a selected project with
+    pw <= 0 that neither a mandatory group nor a selected dependent needs
+    is dropped after the solve. So a project with pw <= 0 is selected only
+    when the constraints force it or when it enables dependents worth more
+    than it costs.
+
+    Each distinct scenario is solved in three steps, which reuse the work
+    of earlier scenarios:
+
+    1. The LP relaxation (HiGHS dual simplex) gives ``lp_bound`` U and the
+       reduced costs d_j.
+    2. Candidate portfolios: the profitability-index greedy answer, the LP
+       solution rounded down and then filled greedily, and the distinct
+       optima of earlier scenarios of the same class (``pool_size`` most
+       recent) that fit this scenario's budgets. The best, L, is the
+       incumbent. If U - L <= mip_rel_gap |L| it is optimal within the
+       tolerance and no branch and bound is needed
+       (``METHOD_LP_BOUND``).
+    3. Otherwise, reduced-cost fixing: a variable at 0 (1) in the LP with
+       |d_j| > U - L cannot change in any portfolio better than L, so it is
+       fixed; the smaller 0-1 program over the rest goes to
+       ``scipy.optimize.milp``, with the gap tolerance rescaled so that it
+       still means ``mip_rel_gap`` of the whole objective. The better of its
+       answer and L is kept.
+
+    ``scipy.optimize.milp`` takes no starting solution, hence the fixing
+    step to carry the incumbent's information into the solve.
+
+    References
+    ----------
+    H. M. Weingartner, Mathematical Programming and the Analysis of Capital
+    Budgeting Problems, Prentice-Hall, 1963.
+    G. L. Nemhauser, L. A. Wolsey, Integer and Combinatorial Optimization,
+    Wiley, 1988, sec. II.1 (reduced-cost fixing).
+
+    Examples
+    --------
+    >>> res = ration_capital([[6.0], [5.0], [5.0]], [[4.0, 3.0, 3.0]], [6.0])
+    >>> res.selected.tolist(), res.objective.tolist(), res.greedy_objective.tolist()
+    ([[False, True, True]], [10.0], [10.0])
+    """
+    prob = _validate(pw, investment, budgets, scenario_class, group_index, group_mandatory, requires)
+    mip_rel_gap = float(mip_rel_gap)
+    if not 0 <= mip_rel_gap < 1:
+        raise ValueError(f"mip_rel_gap must lie in [0, 1), got {mip_rel_gap}")
+    if time_limit is not None and not float(time_limit) > 0:
+        raise ValueError(f"time_limit must be > 0 seconds, got {time_limit}")
+    P, S = prob.pw.shape
+    B = prob.inv.shape[1]
+
+    # distinct scenarios
+    if reuse_identical:
+        key = np.concatenate([prob.cls[:, None].astype(float), prob.budgets, prob.pw.T], axis=1)
+        _, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
+        inverse = inverse.ravel()
+        uniq = np.sort(first)
+        # map each scenario to the representative with the same key
+        rep_of_key = np.empty(first.size, dtype=np.intp)
+        rep_of_key[inverse[first]] = first
+        solved_as = rep_of_key[inverse]
+    else:
+        uniq = np.arange(S)
+        solved_as = np.arange(S)
+
+    a_ub, rest_b, a_eq, b_eq = _structure(prob)
+    pw_u = prob.pw[:, uniq].T  # (U, P)
+    cls_u = prob.cls[uniq]
+    bud_u = prob.budgets[uniq]
+    g_sel, g_ok = _greedy(prob, pw_u, cls_u, bud_u)
+
+    n_u = uniq.size
+    sel_u = np.zeros((n_u, P), dtype=bool)
+    lp_u = np.full(n_u, np.nan)
+    bound_u = np.full(n_u, np.nan)
+    st_u = np.full(n_u, STATUS_INFEASIBLE, dtype=np.int8)
+    meth_u = np.full(n_u, METHOD_NONE, dtype=np.int8)
+    sec_u = np.zeros(n_u)
+    ok_u = np.zeros(n_u, dtype=bool)
+    lp_x = np.zeros((n_u, P))
+    lp_info = [None] * n_u
+    with _quiet_stdout(quiet):
+        # 1. LP relaxations
+        for i, s in enumerate(uniq):
+            k = int(prob.cls[s])
+            st, U, x, d_lo, d_up, ub, sec = _lp(prob, s, a_ub[k], rest_b, a_eq, b_eq)
+            sec_u[i] = sec
+            if st == 0:
+                lp_u[i] = U
+                lp_x[i] = x
+                lp_info[i] = (U, x, d_lo, d_up, ub)
+            else:
+                st_u[i] = STATUS_INFEASIBLE if st == 2 else STATUS_OTHER
+        # 2. LP solutions rounded down and filled greedily (all scenarios at once)
+        r_sel, r_ok = _greedy(prob, pw_u, cls_u, bud_u, _lp_rounding_starts(prob, lp_x, cls_u, bud_u))
+        # 3. certify by the LP bound, or branch and bound on what reduced costs leave free
+        pools = {k: [] for k in range(prob.inv.shape[0])}
+        for i, s in enumerate(uniq):
+            if lp_info[i] is None:
+                continue
+            k = int(prob.cls[s])
+            cands = list(pools[k])
+            if g_ok[i]:
+                cands.append(g_sel[i])
+            if r_ok[i]:
+                cands.append(r_sel[i])
+            x, bnd, st, meth, sec = _solve_one(prob, s, a_ub[k], rest_b, a_eq, b_eq, lp_info[i], cands,
+                                               mip_rel_gap, time_limit)
+            st_u[i], meth_u[i] = st, meth
+            sec_u[i] += sec
+            if x is None:
+                continue
+            x = _prune(prob, x, prob.pw[:, s], k, prob.budgets[s])
+            sel_u[i] = x
+            bound_u[i] = bnd
+            ok_u[i] = True
+            if not any(np.array_equal(x, y) for y in pools[k]):
+                pools[k].append(x)
+                if len(pools[k]) > pool_size:
+                    pools[k].pop(0)
+
+    # back to all scenarios
+    pos = np.empty(S, dtype=np.intp)
+    pos[uniq] = np.arange(n_u)
+    idx = pos[solved_as]
+    selected = sel_u[idx]
+    ok = ok_u[idx]
+    objective = np.where(ok, np.einsum("sp,ps->s", selected.astype(float), prob.pw), np.nan)
+    bound = bound_u[idx]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        gap = np.where(ok, (bound - objective) / np.maximum(np.abs(objective), 1e-300), np.nan)
+    gap = np.where(ok & (bound - objective <= 0), 0.0, gap)
+    greedy_sel = g_sel[idx]
+    greedy_obj = np.where(g_ok[idx], np.einsum("sp,ps->s", greedy_sel.astype(float), prob.pw), np.nan)
+    used = np.einsum("sbp,sp->sb", prob.inv[prob.cls], selected.astype(float)) if S * B * P <= 5e7 else \
+        _used_by_class(prob, selected)
+    seconds = np.where(solved_as == np.arange(S), sec_u[idx], 0.0)
+    return RationingResult(
+        selected=selected,
+        objective=objective,
+        lp_bound=lp_u[idx],
+        mip_gap=gap,
+        greedy_selected=greedy_sel,
+        greedy_objective=greedy_obj,
+        budget_used=used,
+        solve_seconds=seconds,
+        status=st_u[idx],
+        method=meth_u[idx],
+        solved_as=solved_as,
+    )
+
+
+def _used_by_class(prob, selected):
+    used = np.zeros((selected.shape[0], prob.inv.shape[1]))
+    for k in np.unique(prob.cls):
+        m = prob.cls == k
+        used[m] = selected[m].astype(float) @ prob.inv[k].T
+    return used
