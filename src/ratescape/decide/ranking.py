@@ -116,7 +116,7 @@ def rank_summary(ranks):
     --------
     >>> r = rank_projects([[1.0, 5.0, 2.0], [2.0, 4.0, 1.0]])
     >>> [a.tolist() for a in rank_summary(r)]
-    [[1, 1, 2], [1.0, 2.0, 2.0], [2, 2, 2]]
+    [[1, 1], [1.0, 2.0], [2, 2]]
     """
     r = _as_ranks(ranks)
     return r.min(axis=1), np.median(r, axis=1), r.max(axis=1)

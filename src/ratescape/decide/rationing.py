@@ -252,7 +252,7 @@ def _validate(pw, investment, budgets, scenario_class, group_index, group_mandat
 
 def _structure(prob):
     """Per-class constraint matrices: (A_ub, A_eq) sparse and the fixed row bounds."""
-    P = prob.pw.shape[1 - 1]
+    P = prob.pw.shape[0]
     grp, mand, req = prob.group, prob.mandatory, prob.requires
     G = mand.size
     members = grp >= 0
@@ -309,7 +309,7 @@ def _greedy(prob, pw_sp, cls, budgets, start=None):
         for k in np.unique(cls):
             m = cls == k
             used[m] = chosen[m].astype(float) @ inv[k].T
-    slack = budgets * _FEAS_TOL + _FEAS_TOL
+    slack = np.abs(budgets) * _FEAS_TOL + _FEAS_TOL
     n_pos = int((pw_sp > 0).sum(axis=1).max()) if Sn else 0
     padv = pad >= 0
     for k in range(n_pos):  # sequential by nature; vectorised over scenarios
@@ -710,10 +710,7 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
         _, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
         inverse = inverse.ravel()
         uniq = np.sort(first)
-        # map each scenario to the representative with the same key
-        rep_of_key = np.empty(first.size, dtype=np.intp)
-        rep_of_key[inverse[first]] = first
-        solved_as = rep_of_key[inverse]
+        solved_as = first[inverse]  # first scenario with the same key
     else:
         uniq = np.arange(S)
         solved_as = np.arange(S)
@@ -811,3 +808,166 @@ def _used_by_class(prob, selected):
         m = prob.cls == k
         used[m] = selected[m].astype(float) @ prob.inv[k].T
     return used
+
+
+# --------------------------------------------------------------------------
+# summaries across scenarios
+
+
+def _as_selected(selected):
+    sel = np.asarray(selected)
+    if sel.ndim != 2:
+        raise ValueError(f"selected must have shape (S, P), got shape {sel.shape}")
+    return sel.astype(bool)
+
+
+def selection_share(selected, weights=None):
+    """Share of scenarios in which each project is in the optimal portfolio.
+
+    Parameters
+    ----------
+    selected : array_like of bool, shape (S, P)
+        ``RationingResult.selected``.
+    weights : array_like, shape (S,), optional
+        Scenario weights (the user's judgement, not a forecast; see
+        :mod:`ratescape.decide.weights`), normalised to sum to 1; the result
+        is then a weighted selection probability. Default: equal weights.
+
+    Returns
+    -------
+    share : ndarray, shape (P,) [fraction]
+
+    Examples
+    --------
+    >>> selection_share([[True, False], [True, True]]).tolist()
+    [1.0, 0.5]
+    """
+    sel = _as_selected(selected)
+    if weights is None:
+        return sel.mean(axis=0)
+    w = _check_weights(weights, sel.shape[0])
+    return w @ sel.astype(float)
+
+
+def core_portfolio(selected, threshold=0.8, weights=None):
+    """Projects selected in at least ``threshold`` of the scenarios.
+
+    Parameters
+    ----------
+    selected : array_like of bool, shape (S, P)
+    threshold : float [fraction], in (0, 1]
+        Minimum selection share (default 0.8); 1.0 = selected everywhere.
+    weights : array_like, shape (S,), optional
+        Scenario weights, as in :func:`selection_share`.
+
+    Returns
+    -------
+    core : ndarray of bool, shape (P,)
+
+    Warnings
+    --------
+    The core is a list of robust choices, not itself a portfolio: it need
+    not fit the budgets of every scenario, and a mandatory group may have
+    no member in it.
+
+    Examples
+    --------
+    >>> core_portfolio([[True, False], [True, True], [False, True]], 0.6).tolist()
+    [True, True]
+    """
+    t = float(threshold)
+    if not 0 < t <= 1:
+        raise ValueError(f"threshold must lie in (0, 1], got {threshold}")
+    return selection_share(selected, weights) >= t - 1e-12
+
+
+def min_max_regret(pw, selected, objective, investment, budgets, *, scenario_class=None):
+    """Min-max-regret portfolio among the distinct per-scenario optima.
+
+    Parameters
+    ----------
+    pw : array_like, shape (P, S) [currency]
+    selected : array_like of bool, shape (S, P)
+        Optimal portfolio of each scenario (``RationingResult.selected``).
+    objective : array_like, shape (S,) [currency]
+        Its worth (``RationingResult.objective``); NaN marks a scenario with
+        no optimum, which is skipped.
+    investment, budgets, scenario_class
+        As for :func:`ration_capital`, to check each candidate portfolio
+        against every scenario's budgets.
+
+    Returns
+    -------
+    RegretResult
+
+    Notes
+    -----
+    The candidates are the K distinct optimal portfolios. The regret of
+    portfolio k in scenario s is R_ks = objective_s - pw[:, s] @ x_k >= 0
+    (up to the solver's gap tolerance), and the choice is
+    argmin_k max_s R_ks.
+
+    Groups and requires are the same in every scenario, so every candidate
+    satisfies them everywhere. Budgets are not: when outlays are in
+    then-current money (cost classes) or budgets are per scenario, an
+    optimum of one scenario can overspend in another. Such a portfolio is
+    *excluded* from the choice (its ``max_regret`` is +inf) and *flagged*
+    in ``feasible`` (K, S); its regret where it does fit is still reported
+    in ``max_regret_where_feasible``. If no candidate fits every scenario,
+    ``best`` is -1.
+
+    References
+    ----------
+    L. J. Savage, "The theory of statistical decision", Journal of the
+    American Statistical Association 46(253), 1951, pp. 55-67 (minimax
+    regret).
+
+    Examples
+    --------
+    >>> pw = [[10.0, 1.0], [1.0, 10.0], [6.0, 6.0]]
+    >>> sel = [[True, False, False], [False, True, False]]
+    >>> r = min_max_regret(pw, sel, [10.0, 10.0], [[1.0, 1.0, 1.0]], [1.0])
+    >>> r.portfolios.astype(int).tolist(), r.max_regret.tolist(), r.best
+    ([[0, 1, 0], [1, 0, 0]], [9.0, 9.0], 0)
+    """
+    x = np.asarray(pw, dtype=float)
+    if x.ndim != 2:
+        raise ValueError(f"pw must have shape (P, S), got shape {x.shape}")
+    P, S = x.shape
+    sel = _as_selected(selected)
+    if sel.shape != (S, P):
+        raise ValueError(f"selected must have shape (S, P) = ({S}, {P}), got shape {sel.shape}")
+    obj = np.asarray(objective, dtype=float)
+    if obj.shape != (S,):
+        raise ValueError(f"objective must have shape (S,) = ({S},), got shape {obj.shape}")
+    prob = _validate(np.nan_to_num(x), investment, budgets, scenario_class, None, None, None)
+    have = np.isfinite(obj)
+    if not have.any():
+        raise ValueError("no scenario has an optimum (objective is all NaN)")
+    ports, counts = np.unique(sel[have], axis=0, return_counts=True)
+    K = ports.shape[0]
+    feas = np.zeros((K, S), dtype=bool)
+    pf = ports.astype(float)
+    for k in np.unique(prob.cls):
+        m = np.flatnonzero(prob.cls == k)
+        used = pf @ prob.inv[k].T  # (K, B)
+        b = prob.budgets[m]  # (m, B)
+        feas[:, m] = np.all(used[:, None, :] <= b[None] + np.abs(b[None]) * _FEAS_TOL + _FEAS_TOL, axis=2)
+    worth = pf @ x  # (K, S)
+    regret = np.where(feas & have[None], obj[None] - worth, np.nan)
+    where_feas = np.where(feas[:, have].any(axis=1), np.nanmax(np.where(np.isnan(regret), -np.inf, regret), axis=1),
+                          np.nan)
+    everywhere = feas[:, have].all(axis=1)
+    max_regret = np.where(everywhere, where_feas, np.inf)
+    best = int(np.argmin(max_regret)) if everywhere.any() else -1
+    best_sel = ports[best].copy() if best >= 0 else np.zeros(P, dtype=bool)
+    return RegretResult(
+        portfolios=ports,
+        optimal_in=counts,
+        feasible=feas,
+        regret=regret,
+        max_regret=max_regret,
+        max_regret_where_feasible=where_feas,
+        best=best,
+        best_selected=best_sel,
+    )

@@ -160,14 +160,14 @@ def switching_value(worth_fn, base, low, high, *, n_scan=65):
     order = np.argsort(ev_pos, axis=1, kind="stable")[:, :R]
     pos = np.take_along_axis(ev_pos, order, axis=1)  # (P, R), inf = none
     for r in range(R):  # loop over crossing rank, not over projects
-        pr = pos[:, r]
-        at_pt = np.isfinite(pr) & (pr % 2 == 0)
-        k_pt = np.where(at_pt, pr // 2, 0).astype(int)
-        crossings[at_pt, r] = grid[at_pt, k_pt[at_pt]]
-        br = np.isfinite(pr) & (pr % 2 == 1)
+        fin = np.isfinite(pos[:, r])
+        pr = np.where(fin, pos[:, r], 0.0).astype(np.int64)
+        at_pt = fin & (pr % 2 == 0)
+        crossings[at_pt, r] = grid[at_pt, pr[at_pt] // 2]
+        br = fin & (pr % 2 == 1)
         if np.any(br):
             idx = np.flatnonzero(br)
-            k = ((pr[br] - 1) // 2).astype(int)
+            k = (pr[br] - 1) // 2
 
             def f(x, j):
                 vals = base_.copy()

@@ -8,8 +8,10 @@ The MACRS percentages are the published tables of the tax authority (IRS
 Publication 946, Appendix A, Tables A-1 to A-5), kept as CSV data files in
 ``tables/`` beside this module with their source in each file's header. They
 are looked up, never recomputed: the printed percentages were rounded by
-the IRS so that each column sums to 100, and several differ from a fresh
-declining-balance computation by up to 0.0064 percentage point.
+the IRS so that each column sums to 100 (one printed column, Table A-2
+20-year, sums to 99.992 because its year 2 is printed 7.000), and most
+differ from a fresh declining-balance computation by up to 0.0064
+percentage point (two cells of Table A-3 7-year by 0.014).
 
 Broadcasting contract: ``cost`` and ``salvage`` broadcast against each other
 to a batch shape B (scalars give B = ()); a schedule has shape B + (Y,),
@@ -125,7 +127,8 @@ def macrs_percentages(recovery_years, convention="half-year", quarter=None):
     Returns
     -------
     ndarray, shape (recovery_years + 1,) [percent of unadjusted basis]
-        Percentage for recovery years 1 .. recovery_years + 1, summing to 100.
+        Percentage for recovery years 1 .. recovery_years + 1, summing to 100
+        (99.992 for Table A-2, 20-year, as printed).
 
     Warnings
     --------

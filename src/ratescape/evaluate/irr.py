@@ -139,12 +139,18 @@ def sign_changes(amounts):
 
 
 def _sign_changes(a):
-    s = np.sign(a)
-    T = a.shape[-1]
-    idx = np.where(s != 0, np.arange(T), 0)
-    idx = np.maximum.accumulate(idx, axis=-1)
-    sf = np.take_along_axis(s, idx, axis=-1)
-    return np.count_nonzero(sf[..., 1:] * sf[..., :-1] < 0, axis=-1)
+    lead = a.shape[:-1]
+    s = np.sign(a.reshape(-1, a.shape[-1]))
+    out = np.count_nonzero(s[..., 1:] * s[..., :-1] < 0, axis=-1)
+    has_zero = (s == 0).any(axis=-1)
+    if has_zero.any():  # skip zeros: carry the last non-zero sign forward
+        sz = s[has_zero]
+        T = a.shape[-1]
+        idx = np.where(sz != 0, np.arange(T), 0)
+        idx = np.maximum.accumulate(idx, axis=-1)
+        sf = np.take_along_axis(sz, idx, axis=-1)
+        out[has_zero] = np.count_nonzero(sf[..., 1:] * sf[..., :-1] < 0, axis=-1)
+    return out.reshape(lead)
 
 
 def _check_args(amounts, low, high, grid_points):
@@ -164,55 +170,55 @@ def _check_args(amounts, low, high, grid_points):
     return a, low, high, int(grid_points)
 
 
-def _newton_bisect(A, lo, hi, order, maxiter=200):
+def _newton_bisect(A, lo, hi, order, s_lo, x0=None, maxiter=200):
     """Roots of d^order PW / du^order in [lo, hi] for each row of A (K, T).
 
-    The function values at lo and hi must have opposite signs (or one is 0).
+    ``s_lo`` is the sign of the function at ``lo`` (the sign at ``hi`` is
+    the opposite); ``x0`` an optional first guess inside [lo, hi].
     Returns u, shape (K,).
     """
     K, T = A.shape
     t = np.arange(T, dtype=float)
-    w0 = (-t) ** order
-    w1 = (-t) ** (order + 1)
-    c = (T - 1) * np.minimum(lo, 0.0)  # constant scale per bracket, keeps factors <= ~1
-
-    def ev(x, idx):
-        M = A[idx] * np.exp(-x[:, None] * t + c[idx, None])
-        return M @ w0, M @ w1, np.abs(M) @ np.abs(w0)
-
-    a = lo.copy()
-    b = hi.copy()
-    f_lo, _, _ = ev(lo, np.arange(K))
-    s_lo = np.sign(f_lo)
-    x = 0.5 * (a + b)
-    # an end point that is itself a root
-    x = np.where(f_lo == 0, lo, x)
-    active = np.flatnonzero(f_lo != 0)
+    w = np.stack([(-t) ** order, (-t) ** (order + 1)], axis=1)  # (T, 2)
+    aw0 = np.abs(w[:, 0])
+    out = np.empty(K)
+    idx = np.arange(K)
+    Aa = A
+    ca = (T - 1) * np.minimum(lo, 0.0)  # constant scale per bracket keeps factors <= ~1
+    a = np.asarray(lo, dtype=float).copy()
+    b = np.asarray(hi, dtype=float).copy()
+    sa = np.asarray(s_lo, dtype=float)
+    x = 0.5 * (a + b) if x0 is None else np.clip(x0, a, b)
     for _ in range(maxiter):
-        if active.size == 0:
+        if idx.size == 0:
             break
-        xa = x[active]
-        f, df, size = ev(xa, active)
-        same = np.sign(f) == s_lo[active]
-        a_act = np.where(same, xa, a[active])
-        b_act = np.where(same, b[active], xa)
-        a[active] = a_act
-        b[active] = b_act
+        M = Aa * np.exp(-x[:, None] * t + ca[:, None])
+        fd = M @ w
+        f, df = fd[:, 0], fd[:, 1]
+        size = np.abs(M) @ aw0
+        same = np.sign(f) == sa
+        a = np.where(same, x, a)
+        b = np.where(same, b, x)
         with np.errstate(divide="ignore", invalid="ignore"):
-            xn = xa - f / df
-        ok = np.isfinite(xn) & (xn > a_act) & (xn < b_act)
-        xn = np.where(ok, xn, 0.5 * (a_act + b_act))
-        # |f| at the rounding-noise level of the sum: xa is as good as it gets
+            xn = x - f / df
+        ok = np.isfinite(xn) & (xn > a) & (xn < b)
+        xn = np.where(ok, xn, 0.5 * (a + b))
+        # |f| at the rounding-noise level of the sum: x is as good as it gets
         zero = np.abs(f) <= 8.0 * _EPS * size
-        xn = np.where(zero, xa, xn)
+        xn = np.where(zero, x, xn)
         tol = 4.0 * _EPS * (np.abs(xn) + 1.0)
-        done = zero | (np.abs(xn - xa) <= tol) | (b_act - a_act <= tol)
-        x[active] = xn
-        active = active[~done]
-    return x
+        done = zero | (np.abs(xn - x) <= tol) | (b - a <= tol)
+        out[idx[done]] = xn[done]
+        keep = ~done
+        if not keep.all():
+            idx, Aa, ca, a, b, sa = idx[keep], Aa[keep], ca[keep], a[keep], b[keep], sa[keep]
+            xn = xn[keep]
+        x = xn
+    out[idx] = x  # not converged within maxiter (should not happen): best estimate
+    return out
 
 
-def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-9):
+def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-12):
     """Every internal rate of return in [low, high] of each cash-flow stream.
 
     Parameters
@@ -278,35 +284,46 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-9
     # only rows that can have a root need the grid
     search = np.flatnonzero(finite & (sc > 0))
     node_rows, node_u = [], []
-    br_rows, br_lo, br_hi = [], [], []
+    br_rows, br_lo, br_hi, br_x0, br_slo = [], [], [], [], []
     tc_rows, tc_g, tc_sign = [], [], []
     chunk = max(1, _CHUNK_ELEMENTS // G)
     for start in range(0, search.size, chunk):  # loop over blocks of rows, not rows
         rows = search[start:start + chunk]
         F = A[rows] @ D
-        s = np.sign(F)
-        r0, g0 = np.nonzero(s == 0)
-        node_rows.append(rows[r0])
-        node_u.append(u[g0])
-        r1, g1 = np.nonzero(s[:, :-1] * s[:, 1:] < 0)
+        n_g = F.shape[1]
+        # exact zeros at grid points (flat indices are much faster than 2-D nonzero)
+        k0 = np.flatnonzero(F == 0)
+        node_rows.append(rows[k0 // n_g])
+        node_u.append(u[k0 % n_g])
+        # sign changes between neighbours (0 counts as non-negative)
+        neg = F < 0
+        k1 = np.flatnonzero(neg[:, :-1] != neg[:, 1:])
+        g1 = k1 % (n_g - 1)
+        r1 = k1 // (n_g - 1)
         br_rows.append(rows[r1])
         br_lo.append(u[g1])
         br_hi.append(u[g1 + 1])
+        f_a, f_b = F[r1, g1], F[r1, g1 + 1]
+        br_x0.append(u[g1] + (u[g1 + 1] - u[g1]) * f_a / (f_a - f_b))  # secant guess
+        br_slo.append(np.where(f_a < 0, -1.0, 1.0))
         # touch candidates: strict local minimum of |F| with no sign change
         absF = np.abs(F)
-        fm, f0, fp = F[:, :-2], F[:, 1:-1], F[:, 2:]
-        cand = (
-            (s[:, :-2] == s[:, 1:-1]) & (s[:, 1:-1] == s[:, 2:]) & (s[:, 1:-1] != 0)
-            & (absF[:, 1:-1] <= absF[:, :-2]) & (absF[:, 1:-1] < absF[:, 2:])
-        )
+        cand = (absF[:, 1:-1] <= absF[:, :-2]) & (absF[:, 1:-1] < absF[:, 2:])
+        cand &= neg[:, :-2] == neg[:, 1:-1]
+        cand &= neg[:, 1:-1] == neg[:, 2:]
+        cand &= F[:, 1:-1] != 0
+        k2 = np.flatnonzero(cand)
+        r2 = k2 // (n_g - 2)
+        g2 = k2 % (n_g - 2) + 1
+        fm, f0, fp = F[r2, g2 - 1], F[r2, g2], F[r2, g2 + 1]
+        # parabola through the three points: keep it if it dips halfway to zero
         curv = fm - 2.0 * f0 + fp
         with np.errstate(divide="ignore", invalid="ignore"):
             vertex = f0 - (fp - fm) ** 2 / (8.0 * curv)
-        cand &= (vertex * f0 <= 0) | (np.abs(vertex) <= 0.5 * np.abs(f0))
-        r2, g2 = np.nonzero(cand)
-        tc_rows.append(rows[r2])
-        tc_g.append(g2 + 1)
-        tc_sign.append(s[r2, g2 + 1])
+        dips = (vertex * f0 <= 0) | (np.abs(vertex) <= 0.5 * np.abs(f0))
+        tc_rows.append(rows[r2[dips]])
+        tc_g.append(g2[dips])
+        tc_sign.append(np.sign(f0[dips]))
 
     def cat(parts, dtype=float):
         return np.concatenate(parts) if parts else np.empty(0, dtype=dtype)
@@ -316,6 +333,8 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-9
     br_rows = cat(br_rows, int)
     br_lo = cat(br_lo)
     br_hi = cat(br_hi)
+    br_x0 = cat(br_x0)
+    br_slo = cat(br_slo)
     tc_rows = cat(tc_rows, int)
     tc_g = cat(tc_g, int)
     tc_sign = cat(tc_sign)
@@ -333,7 +352,7 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-9
         if keep.any():
             Ac, lo, hi, c = Ac[keep], lo[keep], hi[keep], c[keep]
             rows_k, sign_k = tc_rows[keep], tc_sign[keep]
-            ustar = _newton_bisect(Ac, lo, hi, order=1)
+            ustar = _newton_bisect(Ac, lo, hi, order=1, s_lo=np.sign(d_lo[keep]))
             M = Ac * np.exp(-ustar[:, None] * t + c[:, None])
             fstar = M.sum(axis=1)
             size = np.abs(M).sum(axis=1)
@@ -344,8 +363,11 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-9
             br_rows = np.concatenate([br_rows, rows_k[crosses], rows_k[crosses]])
             br_lo = np.concatenate([br_lo, lo[crosses], ustar[crosses]])
             br_hi = np.concatenate([br_hi, ustar[crosses], hi[crosses]])
+            br_x0 = np.concatenate([br_x0, 0.5 * (lo + ustar)[crosses], 0.5 * (ustar + hi)[crosses]])
+            br_slo = np.concatenate([br_slo, sign_k[crosses], -sign_k[crosses]])
 
-    ref_u = _newton_bisect(A[br_rows], br_lo, br_hi, order=0) if br_rows.size else np.empty(0)
+    ref_u = (_newton_bisect(A[br_rows], br_lo, br_hi, order=0, s_lo=br_slo, x0=br_x0)
+             if br_rows.size else np.empty(0))
 
     all_rows = np.concatenate([node_rows, br_rows, touch_rows])
     all_u = np.concatenate([node_u, ref_u, touch_u])

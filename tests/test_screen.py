@@ -1,0 +1,144 @@
+"""Screening runs: stored values, run metadata, transactional chunks and resumption."""
+import duckdb
+import numpy as np
+import numpy_financial as npf
+import pytest
+
+from ratescape import load_portfolio, screen_portfolio
+from ratescape import screen as screen_module
+
+PROJECTS = ["project_id,name,first_cost,annual_benefit,benefit_basis,benefit_escalation,annual_cost,cost_basis,salvage,life"]
+rng = np.random.default_rng(7)
+for k in range(23):
+    basis = "nominal" if k % 3 == 0 else "real"
+    PROJECTS.append(f"P{k:02d},Project {k},{rng.uniform(50, 150):.2f},{rng.uniform(5, 40):.2f},{basis},"
+                    f"{0.02 if k % 4 == 1 else 0},{rng.uniform(0, 5):.2f},real,{rng.uniform(0, 20):.2f},{3 + k % 9}")
+FLOWS = "project_id,period,amount,basis,escalation,kind\nX,0,-100,real,0,\nX,1,230,real,0,\nX,2,-132,real,0,\n"
+
+
+@pytest.fixture
+def db(tmp_path):
+    (tmp_path / "p.csv").write_text("\n".join(PROJECTS + ["X,Two roots,,,,,,,,"]) + "\n")
+    (tmp_path / "c.csv").write_text(FLOWS)
+    path = tmp_path / "plan.duckdb"
+    load_portfolio(tmp_path / "p.csv", tmp_path / "c.csv", path)
+    return path
+
+
+def fetch(path, sql, params=()):
+    con = duckdb.connect(str(path), read_only=True)
+    try:
+        return con.execute(sql, list(params)).fetchall()
+    finally:
+        con.close()
+
+
+def independent_pw(path, run_id):
+    """PW recomputed per project and scenario with plain loops and numpy-financial's npv."""
+    flows = fetch(path, "SELECT project_id, period, amount, basis, escalation FROM cash_flows")
+    scen = fetch(path, "SELECT scenario_id, discount_rate, inflation FROM scenarios WHERE run_id = ? ORDER BY 1", [run_id])
+    out = {}
+    for sid, i, f in scen:
+        streams = {}
+        for pid, t, a, basis, e in flows:
+            s = streams.setdefault(pid, np.zeros(12))
+            # then-current money: real lines grow with (1+f)(1+e) a year, nominal lines stay fixed
+            s[t] += a * ((1 + f) * (1 + e)) ** t if basis == "real" else a
+        for pid, s in streams.items():
+            out[(pid, sid)] = npf.npv(i, s)   # reference library, values[0] at t = 0
+    return out
+
+
+def test_results_match_an_independent_computation(db):
+    run_id = screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5")
+    rows = fetch(db, "SELECT project_id, scenario_id, present_worth, accepted FROM results WHERE run_id = ?", [run_id])
+    assert len(rows) == 24 * 45
+    want = independent_pw(db, run_id)
+    for pid, sid, pw, acc in rows:
+        assert pw == pytest.approx(want[(pid, sid)], rel=1e-10, abs=1e-8)
+        assert acc == (pw >= 0)
+
+
+def test_run_metadata_and_summary(db):
+    run_id = screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5", chunk_size=5)
+    (status, started, finished, version, ihash, spec, chunks, done, pcount, scount) = fetch(
+        db, "SELECT status, started_at, finished_at, tool_version, inputs_hash, grid_spec, chunk_count, chunks_done, "
+            "project_count, scenario_count FROM runs WHERE run_id = ?", [run_id])[0]
+    assert status == "done" and finished >= started and version == "0.1.0" and len(ihash) == 64
+    assert chunks == done == 5 and pcount == 24 and scount == 45
+    assert '"discount_basis": "nominal"' in spec
+    # summary agrees with the results table
+    check = fetch(db, """SELECT s.project_id, s.accept_share, s.pw_min, s.pw_max, a.share, a.mn, a.mx
+                         FROM project_summary s JOIN (SELECT project_id, avg(accepted::INT) share, min(present_worth) mn,
+                                                              max(present_worth) mx FROM results WHERE run_id = $1 GROUP BY 1) a
+                         USING (project_id) WHERE s.run_id = $1""", [run_id])
+    assert len(check) == 24
+    for _, share, mn, mx, share2, mn2, mx2 in check:
+        assert share == pytest.approx(share2) and mn == mx2 or (mn == pytest.approx(mn2) and mx == pytest.approx(mx2))
+    ranks = fetch(db, "SELECT min(rank_min), max(rank_max) FROM project_summary WHERE run_id = ?", [run_id])[0]
+    assert ranks == (1, 24)
+
+
+def test_irr_results_flag_several_roots(db):
+    run_id = screen_portfolio(db, discount_rates="0.1", inflation="0:0.1:3")
+    rows = fetch(db, "SELECT inflation, status, root_count, irr_real FROM irr_results WHERE run_id = ? AND project_id = 'X' ORDER BY 1", [run_id])
+    assert [r[1] for r in rows] == ["multiple"] * 3 and all(r[3] is None for r in rows)
+    roots = fetch(db, "SELECT inflation, irr_real, irr_nominal FROM irr_roots WHERE run_id = ? AND project_id = 'X' ORDER BY 1, 2", [run_id])
+    # -100, 230, -132 has roots 10 % and 20 % (x^2 roots of 100x^2 - 230x + 132 = 0; common practice);
+    # real-basis flows: the real IRR does not depend on inflation, the nominal one follows Fisher.
+    for f, r, i in roots:
+        assert min(abs(r - 0.1), abs(r - 0.2)) < 1e-9
+        assert i == pytest.approx((1 + r) * (1 + f) - 1, abs=1e-9)
+    # the conventional projects have a unique IRR at which PW = 0 (checked against numpy-financial)
+    p0 = fetch(db, "SELECT irr_nominal FROM irr_results WHERE run_id = ? AND project_id = 'P01' AND inflation = 0", [run_id])[0][0]
+    flows = fetch(db, "SELECT period, sum(amount * CASE WHEN basis = 'real' THEN power(1 + escalation, period) ELSE 1 END) "
+                      "FROM cash_flows WHERE project_id = 'P01' GROUP BY 1 ORDER BY 1")
+    stream = np.array([a for _, a in flows])  # then-current money at zero inflation (escalation applies)
+    assert p0 == pytest.approx(npf.irr(stream), abs=1e-9)
+
+
+def _table_dump(path, run_id):
+    return {t: sorted(fetch(path, f"SELECT * EXCLUDE (run_id) FROM {t} WHERE run_id = ?", [run_id]))
+            for t in ("results", "project_summary", "irr_results", "irr_roots", "scenarios")}
+
+
+def test_resumed_run_equals_an_uninterrupted_run(db):
+    full = screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5", chunk_size=4)
+    part = screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5", chunk_size=4, stop_after_chunks=2)
+    assert fetch(db, "SELECT status, chunks_done FROM runs WHERE run_id = ?", [part])[0] == ("interrupted", 2)
+    assert fetch(db, "SELECT count(*) FROM results WHERE run_id = ?", [part])[0][0] == 8 * 45
+    again = screen_portfolio(db, resume=part)
+    assert again == part
+    assert fetch(db, "SELECT status, chunks_done FROM runs WHERE run_id = ?", [part])[0] == ("done", 6)
+    assert _table_dump(db, part) == _table_dump(db, full)
+
+
+def test_failure_in_the_middle_of_a_chunk_write_leaves_no_partial_rows(db, monkeypatch):
+    calls = {"n": 0}
+    real_write = screen_module._write_chunk
+
+    def failing_write(con, plan, *args, **kwargs):
+        calls["n"] += 1
+        if calls["n"] == 3:
+            # fail inside the transaction, after this chunk's results rows were inserted
+            class FailingConnection:
+                def __getattr__(self, name):
+                    return getattr(con, name)
+
+                def execute(self, sql, *a, **k):
+                    if sql.startswith("INSERT INTO project_summary"):
+                        raise OSError("disk full (simulated)")
+                    return con.execute(sql, *a, **k)
+            return real_write(FailingConnection(), plan, *args, **kwargs)
+        return real_write(con, plan, *args, **kwargs)
+
+    monkeypatch.setattr(screen_module, "_write_chunk", failing_write)
+    with pytest.raises(Exception, match="disk full"):
+        screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5", chunk_size=4)
+    monkeypatch.undo()
+    run_id, status, done = fetch(db, "SELECT run_id, status, chunks_done FROM runs")[0]
+    assert status == "failed" and done == 2
+    assert fetch(db, "SELECT count(*) FROM results WHERE run_id = ?", [run_id])[0][0] == 8 * 45
+    assert fetch(db, "SELECT count(*) FROM project_summary WHERE run_id = ?", [run_id])[0][0] == 8
+    screen_portfolio(db, resume=run_id)
+    assert fetch(db, "SELECT count(*) FROM results WHERE run_id = ?", [run_id])[0][0] == 24 * 45
