@@ -31,8 +31,9 @@ from .progress import Progress, log
 from .store.database import fetch_frame, transaction
 
 # Cells (projects x scenarios) evaluated per chunk when no chunk size is given:
-# about 2e7 cells keeps a chunk's arrays near 0.5 GB whatever the portfolio size.
-DEFAULT_CELLS_PER_CHUNK = 20_000_000
+# about 5e6 cells keeps a chunk's arrays near 150 MB whatever the portfolio size, and the
+# matrix product cache-friendly (bench/bench_kernel.py).
+DEFAULT_CELLS_PER_CHUNK = 5_000_000
 IRR_SEARCH = (-0.99, 10.0)
 
 

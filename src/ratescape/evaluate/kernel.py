@@ -102,10 +102,12 @@ def discount_tensor(classes: Sequence[LineClass], exponents: np.ndarray, discoun
     return out
 
 
-def present_worth_classes(amounts: np.ndarray, tensor: np.ndarray) -> np.ndarray:
+def present_worth_classes(amounts: np.ndarray, tensor: np.ndarray, *, out: np.ndarray | None = None) -> np.ndarray:
     """Present worth (P, S) of class-stacked amounts (C, P, T) with a tensor (C, T, S).
 
-    One BLAS matrix product: (P, C*T) @ (C*T, S).
+    One BLAS matrix product: (P, C*T) @ (C*T, S). ``out`` (P, S), when
+    given, receives the result (reusing one buffer across chunks avoids
+    page-faulting a fresh array for every chunk).
     """
     A = np.asarray(amounts, dtype=float)
     D = np.asarray(tensor, dtype=float)
@@ -113,9 +115,12 @@ def present_worth_classes(amounts: np.ndarray, tensor: np.ndarray) -> np.ndarray
         raise ValueError(f"amounts (C, P, T) {A.shape} and tensor (C, T, S) {D.shape} do not match")
     C, P, T = A.shape
     S = D.shape[2]
+    if out is not None and out.shape != (P, S):
+        raise ValueError(f"out has shape {out.shape}, expected {(P, S)}")
     if C == 1:
-        return A[0] @ D[0]
-    return np.ascontiguousarray(A.transpose(1, 0, 2)).reshape(P, C * T) @ D.reshape(C * T, S)
+        return np.matmul(A[0], D[0], out=out)
+    flat = np.ascontiguousarray(A.transpose(1, 0, 2)).reshape(P, C * T)
+    return np.matmul(flat, np.ascontiguousarray(D.reshape(C * T, S)), out=out)
 
 
 def present_worth_grid(amounts, rates, *, timing: str = "end", periods_per_year: float = 1.0) -> np.ndarray:

@@ -1,0 +1,93 @@
+"""Benchmark: present worth over a scenario grid, engine vs raw matmul vs loops.
+
+Shape (defaults): 100,000 projects x 40 periods x a 51 x 51 grid (2,601
+scenarios). Prints, in one run on the same data:
+
+* raw numpy matmul (P, T) @ (T, S): the machine's limit for this shape;
+* the engine's kernel (discount tensor + chunked present_worth_classes), as
+  the screen stage runs it, with one and with three line classes;
+* a numpy-financial loop (npf.npv per project and scenario) on a sample,
+  extrapolated to the full shape;
+* the ratios.
+
+Usage:  .venv/bin/python bench/bench_kernel.py [--projects N] [--periods T] [--grid K]
+"""
+from __future__ import annotations
+
+import argparse
+import time
+
+import numpy as np
+
+from ratescape.evaluate.kernel import LineClass, discount_tensor, present_worth_classes
+from ratescape.evaluate.timing import discount_exponents
+
+
+def best_of(fn, repeat=3):
+    best = float("inf")
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        fn()
+        best = min(best, time.perf_counter() - t0)
+    return best
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--projects", type=int, default=100_000)
+    ap.add_argument("--periods", type=int, default=40)
+    ap.add_argument("--grid", type=int, default=51)
+    ap.add_argument("--chunk", type=int, default=1_922, help="projects per chunk (the screen default for 2,601 scenarios)")
+    ap.add_argument("--sample", type=int, default=20, help="projects in the numpy-financial loop sample")
+    args = ap.parse_args(argv)
+    P, T, K = args.projects, args.periods + 1, args.grid
+    S = K * K
+    rng = np.random.default_rng(0)
+    A = rng.normal(size=(P, T))
+    i_axis = np.linspace(0.0, 0.20, K)
+    f_axis = np.linspace(0.0, 0.10, K)
+    f, i = (x.ravel() for x in np.meshgrid(f_axis, i_axis, indexing="ij"))
+    tau = discount_exponents(T)
+
+    V = np.exp(-np.multiply.outer(tau, np.log1p(i)))          # (T, S) nominal discount factors
+    out = np.empty((P, S))
+    t_raw = best_of(lambda: np.matmul(A, V, out=out))
+
+    classes = [LineClass("real", 0.0)]
+    buffer = np.empty((args.chunk, S))
+
+    def engine_one():
+        D = discount_tensor(classes, tau, i, f)
+        for start in range(0, P, args.chunk):
+            block = A[None, start:start + args.chunk]
+            present_worth_classes(block, D, out=buffer[:block.shape[1]])
+    t_engine = best_of(engine_one)
+
+    A3 = np.stack([A, 0.3 * A, 0.1 * A])
+    classes3 = [LineClass("real", 0.0), LineClass("real", 0.02), LineClass("nominal", 0.0)]
+    def engine_three():
+        D = discount_tensor(classes3, tau, i, f)
+        for start in range(0, P, args.chunk):
+            block = A3[:, start:start + args.chunk]
+            present_worth_classes(block, D, out=buffer[:block.shape[1]])
+    t_engine3 = best_of(engine_three, repeat=1)
+
+    import numpy_financial as npf
+    n = args.sample
+    t0 = time.perf_counter()
+    for p in range(n):
+        for s in range(S):
+            npf.npv(i[s], A[p])
+    t_npf = (time.perf_counter() - t0) / (n * S) * (P * S)
+
+    flops = 2.0 * P * T * S
+    print(f"shape: {P:,} projects x {T} periods x {S:,} scenarios ({K} x {K}); chunk {args.chunk:,} projects")
+    print(f"{'method':<44}{'seconds':>10}{'GFLOP/s':>10}{'vs raw matmul':>15}")
+    print(f"{'raw numpy matmul (P,T)@(T,S)':<44}{t_raw:>10.2f}{flops / t_raw / 1e9:>10.1f}{1.0:>15.2f}")
+    print(f"{'engine kernel, 1 line class (chunked)':<44}{t_engine:>10.2f}{flops / t_engine / 1e9:>10.1f}{t_engine / t_raw:>15.2f}")
+    print(f"{'engine kernel, 3 line classes (chunked)':<44}{t_engine3:>10.2f}{3 * flops / t_engine3 / 1e9:>10.1f}{t_engine3 / t_raw:>15.2f}")
+    print(f"{'numpy-financial npv loop (extrapolated)':<44}{t_npf:>10.0f}{'':>10}{t_npf / t_raw:>15.0f}")
+
+
+if __name__ == "__main__":
+    main()
