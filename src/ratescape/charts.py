@@ -16,8 +16,8 @@ Colours
 * categories (alternatives, inputs): :data:`CATEGORY_COLOURS`, hues from
   the colour-universal-design set of Okabe and Ito, in an order of our own;
 * ordered levels (inflation, discount rate): Vega's ``viridis`` scheme;
-* worth above / below zero: Vega's ``blueorange`` diverging scheme with its
-  midpoint pinned at zero.
+* worth: near-white at zero, shading to vermilion below and blue above
+  (:func:`worth_colour_scale`).
 
 References
 ----------
@@ -53,6 +53,7 @@ __all__ = [
     "spider",
     "surface_contours",
     "tornado",
+    "worth_colour_scale",
     "worth_curve",
     "worth_surface",
 ]
@@ -69,7 +70,8 @@ CATEGORY_COLOURS = (
     "#F0E442",  # yellow
 )
 SEQUENTIAL_SCHEME = "viridis"
-DIVERGING_SCHEME = "blueorange"
+#: Worth colours: below zero, at zero, above zero (Okabe & Ito vermilion and blue around near-white).
+WORTH_BELOW, WORTH_ZERO, WORTH_ABOVE = "#D55E00", "#F7F7F7", "#0072B2"
 #: Largest number of data rows one chart accepts unless ``max_rows`` says otherwise.
 MAX_CHART_ROWS = 20_000
 
@@ -90,6 +92,8 @@ _TITLES = {
     "pct_change": "Change in input from base value",
     "tax_rate": "Income tax rate",
 }
+_SHORT = {"discount_rate": "nominal discount rate", "real_rate": "real discount rate",
+          "inflation": "inflation", "present_worth": "present worth", "annual_worth": "annual worth"}
 _IDENT_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 _MONEY_FORMAT = ",.0f"
 
@@ -100,6 +104,10 @@ _MONEY_FORMAT = ",.0f"
 
 def _title(column: str) -> str:
     return _TITLES.get(column, column.replace("_", " ").capitalize())
+
+
+def _short(column: str) -> str:
+    return _SHORT.get(column, column.replace("_", " "))
 
 
 def _fmt(column: str) -> str:
@@ -123,8 +131,13 @@ def _require(frame: pl.DataFrame, columns: Sequence[str], func: str, what: str =
         )
 
 
-def _values(frame: pl.DataFrame, func: str, max_rows: int) -> alt.Data:
-    """Inline data with NaN written as null, refusing oversized frames."""
+def _values(frame: pl.DataFrame, func: str, max_rows: int) -> dict[str, Any]:
+    """Inline data with NaN written as null, refusing oversized frames.
+
+    A plain ``{"values": rows}`` dict rather than ``alt.Data``: Altair moves
+    it to the top-level ``datasets`` (shared by layers with equal rows)
+    without wrapping every row in schema objects, which is many times faster.
+    """
     if frame.height > max_rows:
         raise ValueError(
             f"{func}: the frame has {frame.height:,} rows but a chart takes at most "
@@ -134,7 +147,7 @@ def _values(frame: pl.DataFrame, func: str, max_rows: int) -> alt.Data:
     floats = [c for c, t in frame.schema.items() if t.is_float()]
     if floats:
         frame = frame.with_columns([pl.col(c).fill_nan(None) for c in floats])
-    return alt.Data(values=frame.to_dicts())
+    return {"values": frame.to_dicts()}
 
 
 def _with_label(frame: pl.DataFrame) -> pl.DataFrame:
@@ -239,8 +252,19 @@ def _refine_on_edges(px, py, x, y, func, level):
     """Move contour vertices along their grid edge to the root of func - level (vectorised bisection)."""
     px = px.copy()
     py = py.copy()
-    on_row = np.isin(py, y)  # horizontal edge: y fixed at a grid row, x between two columns
-    on_col = np.isin(px, x) & ~on_row  # vertical edge: x fixed, y between two rows
+
+    def snap(p, grid):
+        """Nearest grid value and whether p lies on it (to rounding of the interpolation)."""
+        j = np.clip(np.searchsorted(grid, p), 1, grid.size - 1)
+        j = np.where(np.abs(grid[j - 1] - p) <= np.abs(grid[j] - p), j - 1, j)
+        tol = 1e-9 * (grid[-1] - grid[0])
+        return grid[j], np.abs(grid[j] - p) <= tol
+
+    ysnap, on_row = snap(py, y)  # horizontal edge: y fixed at a grid row, x between two columns
+    xsnap, on_col = snap(px, x)  # vertical edge: x fixed, y between two rows
+    on_col &= ~on_row
+    py = np.where(on_row, ysnap, py)
+    px = np.where(on_col, xsnap, px)
     for mask, along, fixed, grid, horizontal in (
         (on_row, px, py, x, True), (on_col, py, px, y, False)
     ):
@@ -472,8 +496,8 @@ def worth_curve(
         project dropdown.
     irr_points : polars.DataFrame, optional
         Columns ``project_id``, ``series`` and ``irr_column``: each IRR
-        root, drawn as a diamond on the zero line. Rows with a null root
-        are dropped.
+        root, drawn as a diamond on the zero line. Rows with a null root,
+        or a root outside the range of ``x`` in ``frame``, are dropped.
     x, measure, series : str
         Column names of the horizontal axis, the worth and the line levels.
     irr_column : str, optional
@@ -543,6 +567,7 @@ def worth_curve(
             irr_points.select(pl.col("project_id").cast(pl.String), series,
                               pl.col(irr_column).cast(pl.Float64).fill_nan(None))
             .drop_nulls(irr_column)
+            .filter(pl.col(irr_column).is_between(data[x].min(), data[x].max()))
             .join(names, on="project_id", how="left")
             .with_columns(pl.col("label").fill_null(pl.col("project_id")))
             .select(["project_id", "label", series, irr_column])
@@ -564,8 +589,8 @@ def worth_curve(
         )
         layers.append(irr)
     chart = alt.layer(*layers).properties(
-        title=title or f"{_title(measure)} against {_title(x).split(' (')[0].lower()}"
-                       f", one line per {_title(series).split(' (')[0].lower()} level; diamonds mark IRR",
+        title=title or f"{_title(measure)} against {_short(x)}, one line per {_short(series)} level; "
+                       "diamonds mark the IRR",
         width=width, height=height,
     )
     if project is not None:
@@ -575,6 +600,36 @@ def worth_curve(
 
 # ---------------------------------------------------------------------------
 # view 2: two inputs
+# ---------------------------------------------------------------------------
+
+def worth_colour_scale(values: pl.Series | np.ndarray) -> alt.Scale:
+    """Colour scale for worth: near-white at zero, vermilion below, blue above.
+
+    Parameters
+    ----------
+    values : Series or array, shape (N,)
+        The worths to be coloured [currency]; NaN ignored.
+
+    Returns
+    -------
+    altair.Scale
+        Piecewise linear: domain ``[min, 0, max]`` when the values straddle
+        zero, ``[0, max]`` or ``[min, 0]`` otherwise, so zero is always the
+        pale end or the middle.
+
+    Examples
+    --------
+    >>> worth_colour_scale(np.array([-5.0, 10.0])).to_dict()["domain"]
+    [-5.0, 0.0, 10.0]
+    """
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    lo, hi = (float(v.min()), float(v.max())) if v.size else (0.0, 1.0)
+    if lo < 0.0 < hi:
+        return alt.Scale(type="linear", domain=[lo, 0.0, hi], range=[WORTH_BELOW, WORTH_ZERO, WORTH_ABOVE])
+    if hi <= 0.0:
+        return alt.Scale(type="linear", domain=[min(lo, -1e-12), 0.0], range=[WORTH_BELOW, WORTH_ZERO])
+    return alt.Scale(type="linear", domain=[0.0, max(hi, 1e-12)], range=[WORTH_ZERO, WORTH_ABOVE])
 # ---------------------------------------------------------------------------
 
 def _contour_labels(contours: pl.DataFrame, keys: Sequence[str]) -> pl.DataFrame:
@@ -625,8 +680,8 @@ def worth_surface(
     Returns
     -------
     altair.LayerChart
-        Layers: rect (colour diverging at zero, tooltip with exact
-        values), contour lines, contour labels.
+        Layers: rect (colour by :func:`worth_colour_scale`, tooltip with
+        exact values), contour lines, contour labels.
 
     Examples
     --------
@@ -649,8 +704,7 @@ def worth_surface(
     if slider is not None:
         param, filt = _pick_slider(frame, slider, _title(slider))
         params.append(param)
-    colour = alt.Color(f"{value}:Q", title=_title(value),
-                       scale=alt.Scale(scheme=DIVERGING_SCHEME, domainMid=0),
+    colour = alt.Color(f"{value}:Q", title=_title(value), scale=worth_colour_scale(frame[value]),
                        legend=alt.Legend(format="~s"))
     rect = alt.Chart(_values(cells, "worth_surface", max_rows)).mark_rect().encode(
         x=alt.X(f"{x}_lo:Q", title=_title(x), axis=alt.Axis(format=_fmt(x)),
@@ -678,8 +732,7 @@ def worth_surface(
     if filt is not None:
         rect, lines, labels = (c.transform_filter(filt) for c in (rect, lines, labels))
     chart = alt.layer(rect, lines, labels).properties(
-        title=title or f"{_title(value)} over {_title(x).split(' (')[0].lower()} and "
-                       f"{_title(y).split(' (')[0].lower()}; lines join equal worth",
+        title=title or f"{_title(value)} over {_short(x)} and {_short(y)}; lines join equal worth",
         width=width, height=height,
     )
     if params:

@@ -58,6 +58,9 @@ class GridSpec:
     budgets: dict = field(default_factory=dict)
     after_tax: bool = False
     weights: dict = field(default_factory=dict)
+    sensitivity: dict = field(default_factory=dict)
+    decisions: dict = field(default_factory=dict)
+    tax: dict = field(default_factory=dict)
 
     def to_json(self) -> str:
         return json.dumps(asdict(self), sort_keys=True)
@@ -175,11 +178,14 @@ def read_grid_toml(path: str | Path) -> dict:
     budget = data.get("budget", {})
     if "periods" in budget:
         out["budgets"] = {int(k): float(v) for k, v in budget["periods"].items()}
-    tax = data.get("tax", {})
+    tax = dict(data.get("tax", {}))
     if tax:
-        out["after_tax"] = bool(tax.get("after_tax", True))
-        if "rate" in tax and "tax_rate" not in [a.name for a in out.get("extra_axes", [])]:
-            out.setdefault("extra_axes", []).append(Axis("tax_rate", _axis_from_toml(tax["rate"], f"{path}: tax.rate")))
+        out["after_tax"] = bool(tax.pop("after_tax", True))
+        if "rate" in tax:
+            rate = tax.pop("rate")
+            if "tax_rate" not in [a.name for a in out.get("extra_axes", [])]:
+                out.setdefault("extra_axes", []).append(Axis("tax_rate", _axis_from_toml(rate, f"{path}: tax.rate")))
+        out["tax"] = tax
     if "weights" in data:
         out["weights"] = data["weights"]
     for extra in ("sensitivity", "decisions"):
@@ -194,8 +200,6 @@ def make_grid_spec(*, toml_settings: dict | None = None, discount_rates: str | N
                    periods_per_year: float | None = None, after_tax: bool | None = None) -> GridSpec:
     """Combine TOML settings with command-line overrides (flags win) and validate."""
     s = dict(toml_settings or {})
-    s.pop("sensitivity", None)
-    s.pop("decisions", None)
     if discount_rates is not None:
         s["discount_rates"] = parse_range(discount_rates, "--discount-rates")
     if inflation is not None:

@@ -690,8 +690,14 @@ def _drill_sections(ctx: _Run, ids: list[str]) -> list[Section]:
     irr = None
     irr_col = "irr_real" if x == "real_rate" else "irr_nominal"
     # irr_roots holds every root of streams with several; irr_results one row per inflation level
-    irr_table = next((t for t in ("irr_roots", "irr_results") if t in ctx.tables
-                      and {"project_id", "inflation", irr_col} <= set(_columns(ctx.con, t))), None)
+    irr_table = None
+    for t in ("irr_roots", "irr_results"):
+        if t in ctx.tables and {"run_id", "project_id", "inflation", irr_col} <= set(_columns(ctx.con, t)):
+            n_rows = ctx.con.execute(f"SELECT count(*) FROM {t} WHERE run_id = ? AND list_contains(?, project_id)",
+                                     [ctx.run_id, ids]).fetchall()[0][0]
+            if n_rows:
+                irr_table = t
+                break
     if irr_table is not None:
         irr = _q(ctx.con, f"""
             SELECT project_id, inflation, {irr_col} FROM {irr_table}
@@ -701,9 +707,10 @@ def _drill_sections(ctx: _Run, ids: list[str]) -> list[Section]:
         "Present worth against the discount rate",
         "Drill-down projects: " + ", ".join(f"{names.get(i) or i} ({i})" for i in ids)
         + ". Pick a project in the list under the chart. Each line is one inflation level; "
-        "diamonds mark the IRR at that inflation (several diamonds on one line mean several IRRs).",
+        "diamonds mark the IRR at that inflation (several diamonds on one line mean several IRRs; "
+        "an IRR outside the range of discount rates screened is not drawn).",
         chart=charts.worth_curve(curve, irr, x=x, irr_column=irr_col),
-        notes=[] if irr is not None else ["IRR marks not available: no irr_roots or irr_results table."]))
+        notes=[] if irr is not None else ["IRR marks not available: no IRR rows for these projects."]))
     # surfaces: thinned to MAX_SURFACE_POINTS grid points
     keep = max(2, int(math.sqrt(MAX_SURFACE_POINTS)))
     sx, sy = _thin(xs_all, keep), _thin(ys_all, keep)
@@ -721,7 +728,7 @@ def _drill_sections(ctx: _Run, ids: list[str]) -> list[Section]:
                                 unavailable="Not available: the grid needs at least two levels on each axis."))
             continue
         secs.append(Section(f"Present worth surface: {label}", level=3,
-                            text="Colour shows present worth (blue above zero, orange below); "
+                            text="Colour shows present worth (blue above zero, orange-red below, pale near zero); "
                                  "black lines join scenarios of equal present worth.",
                             chart=charts.worth_surface(one, x=x, y=y,
                                                        title=f"Present worth of {label}")))

@@ -22,13 +22,16 @@ import pyarrow as pa
 from . import __version__
 from .errors import RunError
 from .evaluate.irr import irr_roots
-from .evaluate.kernel import (LineClass, capital_recovery_factor, discount_tensor, present_worth_classes,
+from .decide.sensitivity import SensitivitySettings, one_at_a_time
+from .evaluate.kernel import (ROLES, LineClass, capital_recovery_factor, discount_tensor, present_worth_classes,
                               then_current_streams)
 from .evaluate.inflation import real_rate as fisher_real_rate
 from .evaluate.timing import discount_exponents
 from .grid import GridSpec, ScenarioTable, build_scenarios
 from .progress import Progress, log
 from .store.database import fetch_frame, transaction
+
+SWITCH_LABELS = {0: "one", 1: "several", 2: "none", 3: "at_base"}
 
 # Cells (projects x scenarios) evaluated per chunk when no chunk size is given:
 # about 5e6 cells keeps a chunk's arrays near 150 MB whatever the portfolio size, and the
@@ -66,6 +69,7 @@ class Plan:
     chunk_size: int
     inflation_levels: np.ndarray
     irr_multipliers: dict
+    sensitivity: SensitivitySettings
 
     @property
     def chunk_count(self) -> int:
@@ -109,12 +113,25 @@ def _plan(con, run_id: str, spec: GridSpec, chunk_size: int | None) -> Plan:
     levels = np.unique(table.columns["inflation"])
     base = table.base_index
     irr_mult = {name: np.full(levels.size, table.columns[name][base]) for name in axes}
+    try:
+        sens = SensitivitySettings.from_spec(spec.sensitivity, spec.discount_rates if spec.discount_basis == "nominal"
+                                             else list(np.unique(table.columns["discount_rate"])), spec.inflation)
+    except ValueError as exc:
+        raise RunError(f"[sensitivity] settings: {exc}") from None
     return Plan(run_id, spec, table, classes, class_index, T, tau, tensor, _scenario_weights(spec, table),
-                count, int(chunk_size), levels, irr_mult)
+                count, int(chunk_size), levels, irr_mult, sens)
+
+
+def _role_index(kind):
+    return 0 if kind == "investment" else 1 if kind == "benefit" else 2
 
 
 def _chunk_amounts(con, plan: Plan, first: int, stop: int):
-    """Amounts (C, P_chunk, T), project ids and horizons for project keys [first, stop)."""
+    """Amounts by role (R, C, P_chunk, T), project ids and horizons for project keys [first, stop).
+
+    Roles (investment, benefit, other) keep the lines apart for one-at-a-time
+    sensitivity; the kernel uses their sum.
+    """
     frame = fetch_frame(con,
         """SELECT p.project_key, cf.period, cf.basis, cf.escalation, cf.kind, sum(cf.amount) AS amount
            FROM cash_flows cf JOIN projects p USING (project_id)
@@ -123,26 +140,30 @@ def _chunk_amounts(con, plan: Plan, first: int, stop: int):
     ids = con.execute("SELECT project_id FROM projects WHERE project_key >= ? AND project_key < ? ORDER BY project_key",
                       [first, stop]).fetchnumpy()["project_id"]
     P = stop - first
-    A = np.zeros((len(plan.classes), P, plan.n_periods))
+    A = np.zeros((len(ROLES), len(plan.classes), P, plan.n_periods))
     horizon = np.ones(P, dtype=np.int64)
     if frame.height:
         axes = {a.name for a in plan.spec.extra_axes}
         uniq = frame.select("basis", "escalation", "kind").unique(maintain_order=True)
         cls = [plan.class_index[(b, float(e), _multiplier_for(k, axes))] for b, e, k in uniq.iter_rows()]
-        lookup = uniq.with_columns(pl.Series("class_index", cls, dtype=pl.Int64))
+        roles = [_role_index(k) for _, _, k in uniq.iter_rows()]
+        lookup = uniq.with_columns(pl.Series("class_index", cls, dtype=pl.Int64),
+                                   pl.Series("role_index", roles, dtype=pl.Int64))
         frame = frame.join(lookup, on=["basis", "escalation", "kind"], how="left")
         k = frame["project_key"].to_numpy() - first
         t = frame["period"].to_numpy()
         c = frame["class_index"].to_numpy()
-        np.add.at(A, (c, k, t), frame["amount"].to_numpy())
+        r = frame["role_index"].to_numpy()
+        np.add.at(A, (r, c, k, t), frame["amount"].to_numpy())
         nz = frame.filter(pl.col("amount") != 0).group_by("project_key").agg(pl.col("period").max())
         horizon[nz["project_key"].to_numpy() - first] = np.maximum(nz["period"].to_numpy(), 1)
     return A, np.asarray(ids, dtype=object), horizon
 
 
-def evaluate_chunk(plan: Plan, A: np.ndarray, horizon: np.ndarray) -> dict:
-    """Pure evaluation of one chunk: present/annual worth, acceptance, summaries and IRRs."""
+def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> dict:
+    """Pure evaluation of one chunk: present/annual worth, acceptance, summaries, IRRs, sensitivity."""
     cols = plan.scenarios.columns
+    A = A_by_role.sum(axis=0)
     pw = present_worth_classes(A, plan.tensor)                          # (P, S)
     years = horizon / float(plan.spec.periods_per_year)
     crf = capital_recovery_factor(cols["real_rate"][None, :], years[:, None])
@@ -159,7 +180,11 @@ def evaluate_chunk(plan: Plan, A: np.ndarray, horizon: np.ndarray) -> dict:
     streams = then_current_streams(A, plan.classes, plan.exponents, plan.inflation_levels, plan.irr_multipliers)
     F, P, T = streams.shape
     irr = irr_roots(streams.reshape(F * P, T), low=IRR_SEARCH[0], high=IRR_SEARCH[1])
-    return {"pw": pw, "aw": aw, "accepted": accepted, "summary": summary, "irr": irr, "irr_shape": (F, P)}
+    b_mult = {name: cols[name][b] for name in (a.name for a in plan.spec.extra_axes)}
+    sens = one_at_a_time(A_by_role, plan.classes, plan.exponents, float(cols["discount_rate"][b]),
+                         float(cols["inflation"][b]), plan.sensitivity, b_mult)
+    return {"pw": pw, "aw": aw, "accepted": accepted, "summary": summary, "irr": irr, "irr_shape": (F, P),
+            "sensitivity": sens}
 
 
 def _per_period_to_annual(rate, m: float):
@@ -204,7 +229,35 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
         "irr_nominal": pa.array(roots_nominal[rr, kk]),
         "irr_real": pa.array((1 + roots_nominal[rr, kk]) / (1 + f_rows[rr]) - 1),
     })
+    sens = out["sensitivity"]
+    I = len(sens["inputs"])
+    K = len(sens["pct_changes"])
+    sens_table = pa.table({
+        "project_id": pa.array(np.tile(ids, I).tolist(), type=pa.string()),
+        "input": pa.array(np.repeat(sens["inputs"], P).tolist(), type=pa.string()),
+        "base_value": pa.array(np.repeat(sens["base_value"], P)),
+        "low_value": pa.array(np.repeat(sens["low"], P)),
+        "high_value": pa.array(np.repeat(sens["high"], P)),
+        "worth_base": pa.array(np.tile(sens["worth_base"], I)),
+        "worth_low": pa.array(sens["worth_low"].ravel()),
+        "worth_high": pa.array(sens["worth_high"].ravel()),
+        "switching_value": pa.array(sens["switching_value"].ravel(), mask=np.isnan(sens["switching_value"].ravel())),
+        "switching_change": pa.array(sens["switching_change"].ravel(), mask=np.isnan(sens["switching_change"].ravel())),
+        "switching_status": pa.array([SWITCH_LABELS[int(v)] for v in sens["switching_status"].ravel()], type=pa.string()),
+    })
+    spider_table = pa.table({
+        "project_id": pa.array(np.tile(np.repeat(ids, K), I).tolist(), type=pa.string()),
+        "input": pa.array(np.repeat(sens["inputs"], P * K).tolist(), type=pa.string()),
+        "change": pa.array(np.tile(sens["pct_changes"], I * P)),
+        "present_worth": pa.array(sens["spider"].ravel()),
+    })
     with transaction(con):
+        con.register("chunk_sensitivity", sens_table)
+        con.execute("INSERT INTO sensitivity SELECT ?, * FROM chunk_sensitivity", [plan.run_id])
+        con.unregister("chunk_sensitivity")
+        con.register("chunk_spider", spider_table)
+        con.execute("INSERT INTO spider SELECT ?, * FROM chunk_spider", [plan.run_id])
+        con.unregister("chunk_spider")
         con.register("chunk_results", results)
         con.execute("INSERT INTO results (run_id, project_id, scenario_id, present_worth, annual_worth, accepted) "
                     "SELECT ?, project_id::VARCHAR, scenario_id, present_worth, annual_worth, accepted FROM chunk_results",

@@ -37,6 +37,7 @@ __all__ = [
     "probability_of_acceptance",
     "expected_present_worth",
     "weighted_selection_share",
+    "scenario_weights_from_spec",
 ]
 
 _TAILS = ("fold", "truncate")
@@ -429,6 +430,66 @@ def weighted_selection_share(selected, weights):
         raise ValueError(f"selected must have shape (S, P), got shape {sel.shape}")
     w = _check_weights(weights, sel.shape[0])
     return w @ sel.astype(float)
+
+
+def scenario_weights_from_spec(spec, table):
+    """Scenario weights (S,) for a grid spec's scenario table, from ``spec.weights``.
+
+    Parameters
+    ----------
+    spec : object
+        Anything with ``axes`` (a list of objects with ``name`` and
+        ``values``, the grid of each axis) and ``weights``, a mapping from an
+        axis name to that axis's specification for :func:`axis_weights`: a
+        list of weights (one per grid value) or a mapping such as
+        ``{"distribution": "normal", "mean": 0.03, "sd": 0.01}``, optionally
+        with ``"tails": "fold" | "truncate"``. The key ``discount_rates``
+        stands for the first (discount) axis. Axes without an entry get
+        equal weights.
+    table : object
+        Anything with ``columns``, a mapping from axis name to the (S,)
+        values of each scenario.
+
+    Returns
+    -------
+    w : ndarray, shape (S,) [probability], summing to 1
+
+    Notes
+    -----
+    The product of axis weights, see :func:`scenario_weights` (independent
+    axes). The weights are the user's judgement, not a forecast.
+    """
+    axes = list(spec.axes)
+    names = [a.name for a in axes]
+    given = dict(spec.weights or {})
+    if "discount_rates" in given and names[0] not in given:
+        given[names[0]] = given.pop("discount_rates")
+    unknown = sorted(set(given) - set(names))
+    if unknown:
+        raise ValueError(f"weights given for unknown axis {unknown}; the grid's axes are {names}")
+    ws, idx = [], []
+    for a in axes:
+        grid = np.asarray(a.values, dtype=float)
+        entry = given.get(a.name)
+        if entry is None:
+            w = np.full(grid.size, 1.0 / grid.size)
+        elif isinstance(entry, Mapping):
+            entry = dict(entry)
+            tails = entry.pop("tails", "fold")
+            w = axis_weights(grid, entry, tails=tails)
+        else:
+            w = axis_weights(grid, entry)
+        vals = np.asarray(table.columns[a.name], dtype=float)
+        order = np.argsort(grid)
+        pos = np.clip(np.searchsorted(grid[order], vals), 0, grid.size - 1)
+        near = np.where(
+            (pos > 0) & (np.abs(grid[order][pos - 1] - vals) < np.abs(grid[order][pos] - vals)), pos - 1, pos
+        )
+        if not np.allclose(grid[order][near], vals, rtol=1e-12, atol=1e-15):
+            raise ValueError(f"scenario values of axis {a.name!r} are not on its grid")
+        ws.append(w)
+        idx.append(order[near])
+    return scenario_weights(ws, np.asarray(idx, dtype=np.intp))
 
 
 def _as_pw2(pw):

@@ -29,8 +29,11 @@ so no factor exceeds 1 and nothing overflows. Then:
    arrays, to machine precision in u. No Python loop runs over rows.
 
 Limits: roots outside [low, high] are not reported; three or more roots
-within one grid step, or a root of even multiplicity higher than two, can be
-missed; raise ``grid_points`` to resolve clustered roots. End-of-period
+within one grid step (e.g. a double root next to a simple one), or a root of
+even multiplicity higher than two, can be missed; raise ``grid_points`` to
+resolve clustered roots. Two roots so close that PW between them dips by less
+than ``touch_tol`` times the scale are reported as one touching root. A root
+of multiplicity m is located only to about eps^(1/m). End-of-period
 amounts and per-period rates (as numpy_financial.irr).
 
 References
@@ -411,14 +414,14 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
     )
 
 
-def irr(amounts, *, low=-0.99, high=10.0, grid_points=None):
+def irr(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-12):
     """Internal rate of return of each stream where it is unique in [low, high].
 
     Parameters
     ----------
     amounts : array_like, shape (..., T) [currency]
         Cash flows, last axis the period t = 0 .. T-1 (end of period).
-    low, high, grid_points : keyword-only
+    low, high, grid_points, touch_tol : keyword-only
         As :func:`irr_roots`.
 
     Returns
@@ -443,7 +446,7 @@ def irr(amounts, *, low=-0.99, high=10.0, grid_points=None):
     >>> irr([-1600, 10000, -10000])
     nan
     """
-    res = irr_roots(amounts, low=low, high=high, grid_points=grid_points)
+    res = irr_roots(amounts, low=low, high=high, grid_points=grid_points, touch_tol=touch_tol)
     if np.ndim(res.count) == 0:
         return float(res.roots[0]) if res.count == 1 else float("nan")
     return np.where(res.count == 1, res.roots[..., 0], np.nan)

@@ -217,3 +217,59 @@ def capital_recovery_factor(rate, years) -> np.ndarray:
         # series for tiny rates: 1/n + (n + 1) i / (2 n); exact 1/n at i = 0
         crf = np.where(small, 1.0 / n + (n + 1.0) * i / (2.0 * n), i / np.where(small, 1.0, denom))
     return crf if crf.ndim else float(crf)
+
+
+ROLES = ("investment", "benefit", "other")
+
+
+def present_worth_at(amounts_by_role: np.ndarray, classes: Sequence[LineClass], exponents: np.ndarray,
+                     discount_rate, inflation, *, escalation_shift=0.0, cost_multiplier=1.0,
+                     benefit_multiplier=1.0, multipliers: Mapping[str, np.ndarray] | None = None) -> np.ndarray:
+    """Present worth (P,) of each project at its own scenario point (one-at-a-time sensitivity).
+
+    Parameters
+    ----------
+    amounts_by_role : (R, C, P, T) [currency]: amounts split by role
+        (investment, benefit, other) and line class.
+    classes : C line classes; exponents (T,) [years].
+    discount_rate, inflation : scalar or (P,) [fraction per year], nominal rate and inflation.
+    escalation_shift : scalar or (P,) [fraction per year] added to every real line's escalation.
+    cost_multiplier, benefit_multiplier : scalar or (P,) multipliers of investment and benefit lines.
+    multipliers : name -> scalar or (P,) values of the classes' per-scenario multipliers.
+
+    Returns
+    -------
+    ndarray (P,) [currency at time 0]
+
+    Notes
+    -----
+    Same factors as :func:`discount_tensor`, evaluated per project instead of per
+    grid scenario: PW_p = sum_c sum_t a_cpt ((1+e_c+d_p)(1+f_p))^tau_t / (1+i_p)^tau_t.
+    """
+    A = np.asarray(amounts_by_role, dtype=float)
+    if A.ndim != 4 or A.shape[0] != len(ROLES) or A.shape[1] != len(classes):
+        raise ValueError(f"amounts_by_role must be (R={len(ROLES)}, C={len(classes)}, P, T), got shape {A.shape}")
+    _, C, P, T = A.shape
+    tau = np.asarray(exponents, dtype=float)
+    i = np.broadcast_to(np.asarray(discount_rate, dtype=float), (P,))
+    f = np.broadcast_to(np.asarray(inflation, dtype=float), (P,))
+    shift = np.broadcast_to(np.asarray(escalation_shift, dtype=float), (P,))
+    cm = np.broadcast_to(np.asarray(cost_multiplier, dtype=float), (P,))
+    bm = np.broadcast_to(np.asarray(benefit_multiplier, dtype=float), (P,))
+    if np.any(i <= -1) or np.any(f <= -1):
+        raise ValueError("rates must be > -1")
+    multipliers = dict(multipliers or {})
+    log_i = np.log1p(i)
+    out = np.zeros(P)
+    for c, cls in enumerate(classes):  # a handful of classes; vectorised over projects and periods
+        if cls.basis == "real":
+            with np.errstate(invalid="ignore"):
+                log_g = np.log1p(cls.escalation + shift) + np.log1p(f)
+        else:
+            log_g = np.zeros(P)
+        factor = np.exp(np.multiply.outer(log_g - log_i, tau))            # (P, T)
+        if cls.multiplier != "one":
+            factor = factor * np.broadcast_to(np.asarray(multipliers[cls.multiplier], dtype=float), (P,))[:, None]
+        lines = A[0, c] * cm[:, None] + A[1, c] * bm[:, None] + A[2, c]
+        out += np.einsum("pt,pt->p", lines, factor)
+    return out

@@ -50,6 +50,40 @@ TABLES = {
     "irr_roots": """CREATE TABLE IF NOT EXISTS irr_roots (
         run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, inflation DOUBLE NOT NULL,
         root_index INTEGER NOT NULL, irr_nominal DOUBLE NOT NULL, irr_real DOUBLE NOT NULL)""",
+    "sensitivity": """CREATE TABLE IF NOT EXISTS sensitivity (
+        run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, input VARCHAR NOT NULL, base_value DOUBLE,
+        low_value DOUBLE, high_value DOUBLE, worth_base DOUBLE, worth_low DOUBLE, worth_high DOUBLE,
+        switching_value DOUBLE, switching_change DOUBLE, switching_status VARCHAR,
+        PRIMARY KEY (run_id, project_id, input))""",
+    "spider": """CREATE TABLE IF NOT EXISTS spider (
+        run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, input VARCHAR NOT NULL, change DOUBLE NOT NULL,
+        present_worth DOUBLE NOT NULL)""",
+    "group_decisions": """CREATE TABLE IF NOT EXISTS group_decisions (
+        run_id VARCHAR NOT NULL, group_name VARCHAR NOT NULL, scenario_id INTEGER NOT NULL,
+        preferred VARCHAR, runner_up VARCHAR, margin DOUBLE, preferred_worth DOUBLE,
+        PRIMARY KEY (run_id, group_name, scenario_id))""",
+    "frontiers": """CREATE TABLE IF NOT EXISTS frontiers (
+        run_id VARCHAR NOT NULL, group_name VARCHAR NOT NULL, alternative_a VARCHAR NOT NULL,
+        alternative_b VARCHAR NOT NULL, x_axis VARCHAR NOT NULL, x DOUBLE NOT NULL, y_axis VARCHAR NOT NULL,
+        y DOUBLE NOT NULL, segment INTEGER NOT NULL, point INTEGER NOT NULL, kind VARCHAR, residual DOUBLE,
+        converged BOOLEAN)""",
+    "scenario_ranks": """CREATE TABLE IF NOT EXISTS scenario_ranks (
+        run_id VARCHAR NOT NULL, scenario_id INTEGER NOT NULL, kendall_tau DOUBLE, kendall_tau_pi DOUBLE,
+        PRIMARY KEY (run_id, scenario_id))""",
+    "portfolios": """CREATE TABLE IF NOT EXISTS portfolios (
+        run_id VARCHAR NOT NULL, scenario_id INTEGER NOT NULL, objective DOUBLE, lp_bound DOUBLE, mip_gap DOUBLE,
+        greedy_objective DOUBLE, projects_selected INTEGER, budget_used VARCHAR, status VARCHAR,
+        solve_seconds DOUBLE, PRIMARY KEY (run_id, scenario_id))""",
+    "selections": """CREATE TABLE IF NOT EXISTS selections (
+        run_id VARCHAR NOT NULL, scenario_id INTEGER NOT NULL, project_id VARCHAR NOT NULL)""",
+    "greedy_selections": """CREATE TABLE IF NOT EXISTS greedy_selections (
+        run_id VARCHAR NOT NULL, scenario_id INTEGER NOT NULL, project_id VARCHAR NOT NULL)""",
+    "portfolio_summary": """CREATE TABLE IF NOT EXISTS portfolio_summary (
+        run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, selected_share DOUBLE, selected_probability DOUBLE,
+        in_core BOOLEAN, in_min_max_regret BOOLEAN, PRIMARY KEY (run_id, project_id))""",
+    "portfolio_regret": """CREATE TABLE IF NOT EXISTS portfolio_regret (
+        run_id VARCHAR NOT NULL, candidate INTEGER NOT NULL, max_regret DOUBLE, mean_regret DOUBLE,
+        scenarios_optimal INTEGER, chosen BOOLEAN, PRIMARY KEY (run_id, candidate))""",
 }
 
 
