@@ -67,6 +67,11 @@ MAX_CURVE_LINES = 11
 MAX_GROUPS = 4
 
 
+NO_BUDGET = "Not available: this run has no budget-limited portfolios."
+NO_GROUPS = "Not available: this run has no groups of mutually exclusive alternatives."
+NO_SENSITIVITY = "Not available: this run has no one-at-a-time sensitivity results."
+
+
 class ReportError(ValueError):
     """The report cannot be built from this database or with these arguments."""
 
@@ -561,7 +566,7 @@ def _headline_sections(ctx: _Run, top_n: int) -> tuple[list[Section], list[str]]
                      "SELECT count(*) FROM scenarios WHERE run_id = ?")
         n_port = ctx.con.execute(denom_sql, [ctx.run_id]).fetchall()[0][0] or 0
         if n_port == 0:
-            secs.append(Section("Core portfolio", unavailable="Not available: no budget-limited portfolios in this run."))
+            secs.append(Section("Core portfolio", unavailable=NO_BUDGET))
         else:
             core = _q(ctx.con, """
                 WITH sel AS (SELECT project_id, count(DISTINCT scenario_id) AS k
@@ -578,12 +583,12 @@ def _headline_sections(ctx: _Run, top_n: int) -> tuple[list[Section], list[str]]
                 f"{n_port:,} scenarios. Shown: the {core.height:,} projects selected most often.",
                 table=core.drop("core_total")))
     else:
-        secs.append(Section("Core portfolio",
-                            unavailable="Not available: this run has no budget (no selections table)."))
+        secs.append(Section("Core portfolio", unavailable=NO_BUDGET))
     if "portfolios" in ctx.tables:
         pcols = set(_columns(ctx.con, "portfolios"))
         want = [c for c in ("objective", "lp_bound", "greedy_objective") if c in pcols]
-        if want:
+        n_rows = ctx.con.execute("SELECT count(*) FROM portfolios WHERE run_id = ?", [ctx.run_id]).fetchall()[0][0]
+        if want and n_rows:
             stat_rows = []
             for stat, fn in (("lowest", "min"), ("median", "median"), ("highest", "max")):
                 vals = ctx.con.execute(
@@ -655,7 +660,9 @@ def _portfolio_chart_sections(ctx: _Run, top_n: int) -> list[Section]:
         n_port = ctx.con.execute(
             "SELECT count(DISTINCT scenario_id) FROM portfolios WHERE run_id = ?" if "portfolios" in ctx.tables
             else "SELECT count(*) FROM scenarios WHERE run_id = ?", [ctx.run_id]).fetchall()[0][0] or 0
-        if n_port:
+        if not n_port:
+            secs.append(Section("Selection share in the budget-limited portfolio", unavailable=NO_BUDGET))
+        else:
             sel = _q(ctx.con, """
                 SELECT s.project_id, p.name, count(DISTINCT s.scenario_id) / ?::DOUBLE AS selected_share
                 FROM selections s LEFT JOIN projects p ON p.project_id = s.project_id
@@ -664,8 +671,7 @@ def _portfolio_chart_sections(ctx: _Run, top_n: int) -> list[Section]:
             secs.append(Section("Selection share in the budget-limited portfolio",
                                 chart=charts.selection_share_bars(sel)))
     else:
-        secs.append(Section("Selection share in the budget-limited portfolio",
-                            unavailable="Not available: this run has no budget (no selections table)."))
+        secs.append(Section("Selection share in the budget-limited portfolio", unavailable=NO_BUDGET))
     return secs
 
 
@@ -738,15 +744,14 @@ def _drill_sections(ctx: _Run, ids: list[str]) -> list[Section]:
 def _decision_sections(ctx: _Run, ids: list[str]) -> list[Section]:
     title = "Decision maps for mutually exclusive alternatives"
     if "group_decisions" not in ctx.tables:
-        return [Section(title, unavailable="Not available: this run has no groups of alternatives "
-                                           "(no group_decisions table).")]
+        return [Section(title, unavailable=NO_GROUPS)]
     groups = [r[0] for r in ctx.con.execute("""
         SELECT g.group_name FROM (SELECT DISTINCT group_name FROM group_decisions WHERE run_id = ?) g
         ORDER BY (SELECT count(*) FROM projects p WHERE p.group_name = g.group_name
                   AND list_contains(?, p.project_id)) DESC, g.group_name LIMIT ?""",
         [ctx.run_id, ids, MAX_GROUPS]).fetchall()]
     if not groups:
-        return [Section(title, unavailable="Not available: no group decisions recorded for this run.")]
+        return [Section(title, unavailable=NO_GROUPS)]
     x, y = ctx.x, ctx.y
     keep = max(2, int(math.sqrt(MAX_SURFACE_POINTS)))
     sx, sy = _thin(ctx.levels(x), keep), _thin(ctx.levels(y), keep)
@@ -785,41 +790,36 @@ def _decision_sections(ctx: _Run, ids: list[str]) -> list[Section]:
 
 def _sensitivity_sections(ctx: _Run, ids: list[str]) -> list[Section]:
     title = "One-at-a-time sensitivity"
-    if "sensitivity" not in ctx.tables:
-        return [Section(title, unavailable="Not available: no sensitivity table in this run.")]
-    cols = set(_columns(ctx.con, "sensitivity"))
-    secs = [Section(title, "Each input moved on its own, the others held at base values, for the "
-                           "drill-down projects.")]
-    if {"worth_low", "worth_high", "base_worth", "input"} <= cols:
-        tor = _q(ctx.con, """
-            SELECT t.project_id, p.name, t.input, t.worth_low, t.worth_high, t.base_worth
-            FROM sensitivity t LEFT JOIN projects p ON p.project_id = t.project_id
-            WHERE t.run_id = ? AND list_contains(?, t.project_id)""", [ctx.run_id, ids])
-    elif {"input", "pct_change", "present_worth"} <= cols:
-        tor = _q(ctx.con, """
-            SELECT t.project_id, p.name, t.input,
-                   arg_min(t.present_worth, t.pct_change) AS worth_low,
-                   arg_max(t.present_worth, t.pct_change) AS worth_high,
-                   max(t.present_worth) FILTER (WHERE t.pct_change = 0) AS base_worth
-            FROM sensitivity t LEFT JOIN projects p ON p.project_id = t.project_id
-            WHERE t.run_id = ? AND list_contains(?, t.project_id)
-            GROUP BY t.project_id, p.name, t.input""", [ctx.run_id, ids])
-    else:
-        tor = None
-    if tor is not None and tor.height:
-        secs.append(Section("Tornado", level=3, chart=charts.tornado(tor)))
-    else:
-        secs.append(Section("Tornado", level=3, unavailable="Not available for these projects."))
-    if {"input", "pct_change", "present_worth"} <= cols:
-        sp = _q(ctx.con, """
-            SELECT t.project_id, p.name, t.input, t.pct_change, t.present_worth
-            FROM sensitivity t LEFT JOIN projects p ON p.project_id = t.project_id
-            WHERE t.run_id = ? AND list_contains(?, t.project_id)
-            ORDER BY t.project_id, t.input, t.pct_change""", [ctx.run_id, ids])
-        if sp.height:
-            secs.append(Section("Spider", level=3, chart=charts.spider(sp)))
-            return secs
-    secs.append(Section("Spider", level=3, unavailable="Not available for these projects."))
+    tor = sp = None
+    if "sensitivity" in ctx.tables:
+        cols = set(_columns(ctx.con, "sensitivity"))
+        base_col = next((c for c in ("worth_base", "base_worth") if c in cols), None)
+        if base_col and {"input", "worth_low", "worth_high"} <= cols:
+            tor = _q(ctx.con, f"""
+                SELECT t.project_id, p.name, t.input, t.worth_low, t.worth_high, t.{base_col} AS base_worth
+                FROM sensitivity t LEFT JOIN projects p ON p.project_id = t.project_id
+                WHERE t.run_id = ? AND list_contains(?, t.project_id)
+                  AND t.worth_low IS NOT NULL AND t.worth_high IS NOT NULL
+                ORDER BY t.project_id, t.input""", [ctx.run_id, ids])
+    # spider rows: `spider(input, change, present_worth)`, or long-form sensitivity with pct_change
+    for table, change in (("spider", "change"), ("spider", "pct_change"), ("sensitivity", "pct_change")):
+        if table in ctx.tables and {"input", change, "present_worth"} <= set(_columns(ctx.con, table)):
+            sp = _q(ctx.con, f"""
+                SELECT t.project_id, p.name, t.input, t.{change} AS pct_change, t.present_worth
+                FROM {table} t LEFT JOIN projects p ON p.project_id = t.project_id
+                WHERE t.run_id = ? AND list_contains(?, t.project_id)
+                ORDER BY t.project_id, t.input, t.{change}""", [ctx.run_id, ids])
+            break
+    have_tor = tor is not None and tor.height > 0
+    have_sp = sp is not None and sp.height > 0
+    if not have_tor and not have_sp:
+        return [Section(title, unavailable=NO_SENSITIVITY)]
+    secs = [Section(title, "Each input moved on its own, the others held at their base values, "
+                           "for the drill-down projects.")]
+    secs.append(Section("Tornado", level=3, chart=charts.tornado(tor)) if have_tor else
+                Section("Tornado", level=3, unavailable="Not available for these projects."))
+    secs.append(Section("Spider", level=3, chart=charts.spider(sp)) if have_sp else
+                Section("Spider", level=3, unavailable="Not available for these projects."))
     return secs
 
 

@@ -165,6 +165,9 @@ def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> di
     cols = plan.scenarios.columns
     A = A_by_role.sum(axis=0)
     pw = present_worth_classes(A, plan.tensor)                          # (P, S)
+    outlay = -present_worth_classes(A_by_role[0], plan.tensor)          # PW of investment outlays (P, S)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        pi = np.where(outlay > 0, 1.0 + pw / outlay, np.nan)            # profitability index
     years = horizon / float(plan.spec.periods_per_year)
     crf = capital_recovery_factor(cols["real_rate"][None, :], years[:, None])
     aw = pw * crf                                                        # base-year money per year
@@ -183,7 +186,7 @@ def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> di
     b_mult = {name: cols[name][b] for name in (a.name for a in plan.spec.extra_axes)}
     sens = one_at_a_time(A_by_role, plan.classes, plan.exponents, float(cols["discount_rate"][b]),
                          float(cols["inflation"][b]), plan.sensitivity, b_mult)
-    return {"pw": pw, "aw": aw, "accepted": accepted, "summary": summary, "irr": irr, "irr_shape": (F, P),
+    return {"pw": pw, "aw": aw, "pi": pi, "accepted": accepted, "summary": summary, "irr": irr, "irr_shape": (F, P),
             "sensitivity": sens}
 
 
@@ -201,6 +204,7 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
         "present_worth": pa.array(out["pw"].ravel()),
         "annual_worth": pa.array(out["aw"].ravel()),
         "accepted": pa.array(out["accepted"].ravel()),
+        "profitability_index": pa.array(out["pi"].ravel(), mask=np.isnan(out["pi"].ravel())),
     })
     summary = pa.table({"project_id": pa.array(ids.tolist(), type=pa.string()),
                         **{k: pa.array(v) for k, v in out["summary"].items()}})
@@ -259,8 +263,9 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
         con.execute("INSERT INTO spider SELECT ?, * FROM chunk_spider", [plan.run_id])
         con.unregister("chunk_spider")
         con.register("chunk_results", results)
-        con.execute("INSERT INTO results (run_id, project_id, scenario_id, present_worth, annual_worth, accepted) "
-                    "SELECT ?, project_id::VARCHAR, scenario_id, present_worth, annual_worth, accepted FROM chunk_results",
+        con.execute("INSERT INTO results (run_id, project_id, scenario_id, present_worth, annual_worth, accepted, "
+                    "profitability_index) SELECT ?, project_id::VARCHAR, scenario_id, present_worth, annual_worth, "
+                    "accepted, profitability_index FROM chunk_results",
                     [plan.run_id])
         con.unregister("chunk_results")
         con.register("chunk_summary", summary)
@@ -281,19 +286,31 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
 
 
 def _finalize(con, plan: Plan) -> None:
-    """Ranks across all projects per scenario (in DuckDB), then mark the run done."""
+    """Ranks across all projects per scenario (in DuckDB), the decision stage, then mark the run done.
+
+    Ranks: 1 = largest present worth (or profitability index) in the scenario,
+    ties share the smallest rank ("competition ranking"); projects without an
+    investment outlay have no profitability index and no PI rank.
+    """
     base = plan.scenarios.base_index
+    top_k = int(plan.spec.decisions.get("top_k", 10))
     with transaction(con):
         con.execute("""
             UPDATE project_summary AS s SET rank_min = r.rank_min, rank_median = r.rank_median,
-                   rank_max = r.rank_max, rank_base = r.rank_base
+                   rank_max = r.rank_max, rank_base = r.rank_base, top_k_share = r.top_k_share,
+                   pi_rank_min = r.pi_rank_min, pi_rank_median = r.pi_rank_median, pi_rank_max = r.pi_rank_max
             FROM (SELECT project_id, min(rnk) AS rank_min, median(rnk) AS rank_median, max(rnk) AS rank_max,
-                         max(rnk) FILTER (WHERE scenario_id = ?) AS rank_base
+                         max(rnk) FILTER (WHERE scenario_id = $base) AS rank_base,
+                         avg((rnk <= $k)::INTEGER) AS top_k_share,
+                         min(pi_rnk) AS pi_rank_min, median(pi_rnk) AS pi_rank_median, max(pi_rnk) AS pi_rank_max
                   FROM (SELECT project_id, scenario_id,
-                               rank() OVER (PARTITION BY scenario_id ORDER BY present_worth DESC) AS rnk
-                        FROM results WHERE run_id = ?)
+                               rank() OVER (PARTITION BY scenario_id ORDER BY present_worth DESC) AS rnk,
+                               CASE WHEN profitability_index IS NOT NULL THEN
+                                    rank() OVER (PARTITION BY scenario_id ORDER BY profitability_index DESC NULLS LAST)
+                               END AS pi_rnk
+                        FROM results WHERE run_id = $run)
                   GROUP BY project_id) AS r
-            WHERE s.run_id = ? AND s.project_id = r.project_id""", [base, plan.run_id, plan.run_id])
+            WHERE s.run_id = $run AND s.project_id = r.project_id""", {"base": base, "run": plan.run_id, "k": top_k})
         run_decisions(con, plan)
         con.execute("UPDATE runs SET status = 'done', finished_at = ?, message = NULL WHERE run_id = ?",
                     [_now(), plan.run_id])
