@@ -310,25 +310,10 @@ def _greedy(prob, pw_sp, cls, budgets, start=None):
             m = cls == k
             used[m] = chosen[m].astype(float) @ inv[k].T
     slack = np.abs(budgets) * _FEAS_TOL + _FEAS_TOL
-    n_pos = int((pw_sp > 0).sum(axis=1).max()) if Sn else 0
-    padv = pad >= 0
-    for k in range(n_pos):  # sequential by nature; vectorised over scenarios
-        j = order[:, k]
-        ok = (pi[rows, j] > -np.inf) & ~chosen[rows, j]
-        a = inv_t[cls, j]  # (S', B)
-        ok &= np.all(used + a <= budgets + slack, axis=1)
-        ok &= ~taken[rows, gcol[j]]
-        pj = pad[j]  # (S', M)
-        ok &= np.all(chosen[rows[:, None], np.where(padv[j], pj, 0)] | ~padv[j], axis=1)
-        if not ok.any():
-            continue
-        r = rows[ok]
-        chosen[r, j[ok]] = True
-        used[r] += a[ok]
-        taken[r, gcol[j[ok]]] = True
-        taken[:, G] = False
     feasible = np.ones(Sn, dtype=bool)
-    # mandatory groups still empty: take the fitting member with the highest PI
+    # must-do first: every mandatory group still empty takes its fitting member with the
+    # highest PI before the PI pass spends the budgets (common practice: commit to
+    # obligatory projects, then rank the discretionary ones)
     for g in np.flatnonzero(mand):
         mem = np.flatnonzero(grp == g)
         need = ~taken[:, g]
@@ -355,6 +340,23 @@ def _greedy(prob, pw_sp, cls, budgets, start=None):
         used[rr] += inv_t[cls[rr], jj]
         taken[rr, g] = True
         feasible[r[~got]] = False
+    n_pos = int((pw_sp > 0).sum(axis=1).max()) if Sn else 0
+    padv = pad >= 0
+    for k in range(n_pos):  # sequential by nature; vectorised over scenarios
+        j = order[:, k]
+        ok = (pi[rows, j] > -np.inf) & ~chosen[rows, j]
+        a = inv_t[cls, j]  # (S', B)
+        ok &= np.all(used + a <= budgets + slack, axis=1)
+        ok &= ~taken[rows, gcol[j]]
+        pj = pad[j]  # (S', M)
+        ok &= np.all(chosen[rows[:, None], np.where(padv[j], pj, 0)] | ~padv[j], axis=1)
+        if not ok.any():
+            continue
+        r = rows[ok]
+        chosen[r, j[ok]] = True
+        used[r] += a[ok]
+        taken[r, gcol[j[ok]]] = True
+        taken[:, G] = False
     chosen[~feasible] = False
     return chosen, feasible
 
@@ -378,19 +380,19 @@ def greedy_selection(pw, investment, budgets, *, scenario_class=None, group_inde
     -----
     The rule, in each scenario:
 
-    1. Candidates are the projects with pw > 0, sorted by
+    1. Must-do first: each mandatory group takes its member with the
+       highest PI (pw <= 0 included) that fits the budgets and whose
+       prerequisites are taken. If none fits, the greedy portfolio is
+       infeasible: the selection is empty and its objective NaN.
+    2. Candidates are the projects with pw > 0, sorted by
        PI = pw / (sum over budget periods of the project's outlay),
        highest first (ties: higher pw first, then lower index). A project
        with pw > 0 and total outlay <= 0 has PI = +inf and comes first.
-    2. One pass in that order. A candidate is taken if its outlay fits the
+    3. One pass in that order. A candidate is taken if its outlay fits the
        remaining budget of every period, no other member of its group is
        taken, and **every prerequisite has already been taken**.
        Prerequisites are never pulled in by a dependent, and a candidate
        skipped for any reason is not reconsidered.
-    3. Each mandatory group still empty after the pass gets its member
-       with the highest PI (now including pw <= 0) that fits and whose
-       prerequisites are taken. If none fits, the greedy portfolio is
-       infeasible: the selection is empty and its objective NaN.
 
     The pass is a loop over candidate positions, vectorised over scenarios.
 
