@@ -6,7 +6,6 @@ from __future__ import annotations
 
 import json
 
-import altair as alt
 import numpy as np
 import numpy_financial as npf
 import polars as pl

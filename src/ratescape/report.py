@@ -31,7 +31,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-import altair as alt
 import duckdb
 import polars as pl
 

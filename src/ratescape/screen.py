@@ -25,7 +25,8 @@ from .evaluate.irr import irr_roots
 from .decide.sensitivity import SensitivitySettings, one_at_a_time
 from .evaluate.kernel import (ROLES, LineClass, capital_recovery_factor, discount_tensor, present_worth_classes,
                               then_current_streams)
-from .evaluate.inflation import real_rate as fisher_real_rate
+from .evaluate.measures import (benefit_cost_ratio, discounted_payback_period, mirr, payback_period,
+                                present_worth)
 from .evaluate.timing import discount_exponents
 from .grid import GridSpec, ScenarioTable, build_scenarios
 from .progress import Progress, log
@@ -183,11 +184,46 @@ def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> di
     streams = then_current_streams(A, plan.classes, plan.exponents, plan.inflation_levels, plan.irr_multipliers)
     F, P, T = streams.shape
     irr = irr_roots(streams.reshape(F * P, T), low=IRR_SEARCH[0], high=IRR_SEARCH[1])
+    summary.update(base_measures(plan, A_by_role, horizon))
     b_mult = {name: cols[name][b] for name in (a.name for a in plan.spec.extra_axes)}
     sens = one_at_a_time(A_by_role, plan.classes, plan.exponents, float(cols["discount_rate"][b]),
                          float(cols["inflation"][b]), plan.sensitivity, b_mult)
     return {"pw": pw, "aw": aw, "pi": pi, "accepted": accepted, "summary": summary, "irr": irr, "irr_shape": (F, P),
             "sensitivity": sens}
+
+
+def base_measures(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> dict:
+    """Measures of worth of each project at the base scenario, on its then-current cash flows.
+
+    Future worth (at the end of the project's horizon), conventional and modified
+    benefit-cost ratios (benefits = benefit lines; O&M = the other lines net of
+    salvage; investment = investment lines), simple and discounted payback
+    [periods], and MIRR with finance and reinvestment rates equal to the base
+    nominal discount rate [fraction per year].
+    """
+    cols = plan.scenarios.columns
+    b = plan.scenarios.base_index
+    i, f = float(cols["discount_rate"][b]), float(cols["inflation"][b])
+    m = float(plan.spec.periods_per_year)
+    mult = {name: np.array([cols[name][b]]) for name in (a.name for a in plan.spec.extra_axes)}
+    by_role = [then_current_streams(A_by_role[r], plan.classes, plan.exponents, [f], mult)[0] for r in range(len(ROLES))]
+    invest, benefit, other = by_role
+    total = invest + benefit + other
+    opts = {"timing": plan.spec.timing, "periods_per_year": m}
+    with np.errstate(divide="ignore", invalid="ignore"):
+        bc = benefit_cost_ratio(benefit, -other, -invest, i, **opts)
+        bc_mod = benefit_cost_ratio(benefit, -other, -invest, i, modified=True, **opts)
+        fw = present_worth(total, i, **opts) * np.power(1.0 + i, horizon / m)
+        i_per = (1.0 + i) ** (1.0 / m) - 1.0
+        mirr_per = mirr(total, i_per, i_per) if total.shape[1] >= 2 else np.full(total.shape[0], np.nan)
+    return {
+        "future_worth_base": np.asarray(fw, dtype=float),
+        "bc_ratio_base": np.asarray(bc, dtype=float),
+        "bc_ratio_modified_base": np.asarray(bc_mod, dtype=float),
+        "payback_periods": np.asarray(payback_period(total), dtype=float),
+        "discounted_payback_base": np.asarray(discounted_payback_period(total, i, **opts), dtype=float),
+        "mirr_base": np.asarray(_per_period_to_annual(np.asarray(mirr_per, dtype=float), m), dtype=float),
+    }
 
 
 def _per_period_to_annual(rate, m: float):
@@ -207,7 +243,8 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
         "profitability_index": pa.array(out["pi"].ravel(), mask=np.isnan(out["pi"].ravel())),
     })
     summary = pa.table({"project_id": pa.array(ids.tolist(), type=pa.string()),
-                        **{k: pa.array(v) for k, v in out["summary"].items()}})
+                        **{k: pa.array(v, mask=np.isnan(v) if np.asarray(v).dtype.kind == "f" else None)
+                           for k, v in out["summary"].items()}})
     irr = out["irr"]
     F, _ = out["irr_shape"]
     m = float(plan.spec.periods_per_year)
