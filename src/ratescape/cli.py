@@ -188,5 +188,31 @@ def report(db_path, run_id, out_path, projects):
     click.echo(CAUTION, err=True)
 
 
+@main.command(cls=Command)
+@click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
+@click.argument("kind", type=click.Choice(["acceptance-share", "acceptance-vs-inflation", "rank-stability",
+                                           "selection-share", "worth-curve", "worth-surface", "decision-map",
+                                           "tornado", "spider"]))
+@click.option("--run", "run_id", help="Run id (default: the newest finished run).")
+@click.option("--project", "projects", multiple=True, help="Project id for project charts. Repeatable.")
+@click.option("--group", help="Group of alternatives for decision-map.")
+@click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False),
+              help="Output file: .html (offline), .png, .svg or .json (the chart specification).")
+def chart(db_path, kind, run_id, projects, group, out_path):
+    """Write a single chart of a run.
+
+    \b
+    Example:
+      ratescape chart --db plan.duckdb worth-curve --project P007 --out p007.html
+      ratescape chart --db plan.duckdb decision-map --group fleet-depot --out depot.svg
+      ratescape chart --db plan.duckdb acceptance-share --out acceptance.png
+    """
+    from .report import write_chart
+    from .store.database import connect_read
+    connect_read(db_path).close()  # clear message when the file is missing or busy
+    write_chart(db_path, kind, out_path, run_id=run_id, projects=list(projects) or None, group=group)
+    click.echo(f"Wrote {out_path}")
+
+
 if __name__ == "__main__":  # pragma: no cover
     main()

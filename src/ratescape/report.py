@@ -35,6 +35,7 @@ import duckdb
 import polars as pl
 
 from ratescape import charts
+from ratescape.errors import RatescapeError
 from ratescape.html_safety import check_inline_script, escape_html, json_script_block
 
 __all__ = [
@@ -71,7 +72,7 @@ NO_GROUPS = "Not available: this run has no groups of mutually exclusive alterna
 NO_SENSITIVITY = "Not available: this run has no one-at-a-time sensitivity results."
 
 
-class ReportError(ValueError):
+class ReportError(RatescapeError, ValueError):
     """The report cannot be built from this database or with these arguments."""
 
 
@@ -932,3 +933,53 @@ def write_report(
     out = Path(out_path)
     out.write_text(page, encoding="utf-8")
     return out
+
+
+CHART_KINDS = {
+    "acceptance-share": ("portfolio", "Acceptance share by project"),
+    "acceptance-vs-inflation": ("portfolio", "Acceptance against inflation"),
+    "rank-stability": ("portfolio", "Rank stability"),
+    "selection-share": ("portfolio", "Selection share in the budget-limited portfolio"),
+    "worth-curve": ("drill", "Present worth against the discount rate"),
+    "worth-surface": ("drill", "Present worth surface"),
+    "decision-map": ("decision", "Group "),
+    "tornado": ("sensitivity", "Tornado"),
+    "spider": ("sensitivity", "Spider"),
+}
+
+
+def write_chart(db_path: str | Path, kind: str, out_path: str | Path, *, run_id: str | None = None,
+                projects: Sequence[str] | None = None, group: str | None = None, top_n: int = 25) -> Path:
+    """Write one chart of a run to ``out_path`` (.html offline, .png, .svg or .json).
+
+    ``kind`` is one of :data:`CHART_KINDS`; drill-down kinds take ``projects``,
+    ``decision-map`` takes ``group``.
+    """
+    if kind not in CHART_KINDS:
+        raise ReportError(f"unknown chart kind {kind!r}; use one of: {', '.join(CHART_KINDS)}")
+    stage, title = CHART_KINDS[kind]
+    con = duckdb.connect(str(db_path), read_only=True)
+    try:
+        ctx = _Run(con, _pick_run(con, run_id))
+        if stage == "portfolio":
+            sections = _portfolio_chart_sections(ctx, top_n)
+        else:
+            _, suggested = _headline_sections(ctx, top_n)
+            ids = _drill_projects(ctx, projects, suggested)
+            if stage == "drill":
+                sections = _drill_sections(ctx, ids[:1])
+            elif stage == "decision":
+                sections = _decision_sections(ctx, ids)
+                if group is not None:
+                    title = f"Group {group}"
+            else:
+                sections = _sensitivity_sections(ctx, ids[:1])
+        for sec in sections:
+            if sec.chart is not None and sec.title.startswith(title):
+                charts.save_chart(sec.chart, out_path)
+                return Path(out_path)
+        why = next((s.unavailable for s in sections if s.title.startswith(title) and s.unavailable), None)
+        raise ReportError(f"no {kind} chart for this run" + (f": {why}" if why else
+                          (f" (group {group!r} not found)" if group else "")))
+    finally:
+        con.close()
