@@ -97,12 +97,14 @@ def load(projects_path, cash_flows_path, db_path):
               help="Most the investment lines of PERIOD may spend (then-current money). Repeatable.")
 @click.option("--timing", type=click.Choice(["end", "mid", "beginning"]), help="When in a period cash flows fall (default end).")
 @click.option("--periods-per-year", type=float, help="Periods per year (1 = years, 12 = months).")
-@click.option("--after-tax/--before-tax", default=None, help="Evaluate after-tax cash flows as well.")
+@click.option("--after-tax/--before-tax", default=None,
+              help="Screen after-tax cash flows (before-tax worth is stored beside them).")
+@click.option("--tax-rate", help="Income-tax rate(s) as fractions: 0.25, or START:STOP:COUNT as a grid axis. Implies --after-tax.")
 @click.option("--chunk-size", type=click.IntRange(min=1), help="Projects per chunk (default: from memory).")
 @click.option("--resume", "resume", metavar="RUN_ID", help="Finish an interrupted run.")
 @click.option("--quiet", is_flag=True, help="No progress output.")
 def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budgets, timing, periods_per_year,
-           after_tax, chunk_size, resume, quiet):
+           after_tax, tax_rate, chunk_size, resume, quiet):
     """Evaluate every project in every scenario of the grid and store the results.
 
     Rates are fractions (0.07 = 7 %). Flags override the TOML file. The run
@@ -113,15 +115,17 @@ def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budget
     Example:
       ratescape screen --db plan.duckdb --discount-rates 0:0.2:41 --inflation 0:0.1:21 --discount-basis nominal
       ratescape screen --db plan.duckdb --grid grid.toml --budget 0=50e6 --budget 1=20e6
+      ratescape screen --db plan.duckdb --after-tax --tax-rate 0.15:0.35:5
       ratescape screen --db plan.duckdb --resume run-20261201-101500-ab12cd
     """
     from .api import screen_portfolio
-    if resume and any(v is not None for v in (grid_path, discount_rates, inflation, discount_basis, timing,
-                                               periods_per_year, after_tax)) | bool(budgets):
+    if resume and (any(v is not None for v in (grid_path, discount_rates, inflation, discount_basis, timing,
+                                                periods_per_year, after_tax, tax_rate)) or bool(budgets)):
         raise click.UsageError("--resume continues a run with its stored grid; give no grid options with it")
     run_id = screen_portfolio(db_path, grid=grid_path, discount_rates=discount_rates, inflation=inflation,
                               discount_basis=discount_basis, budgets=list(budgets), timing=timing,
-                              periods_per_year=periods_per_year, after_tax=after_tax, chunk_size=chunk_size,
+                              periods_per_year=periods_per_year, after_tax=after_tax, tax_rate=tax_rate,
+                              chunk_size=chunk_size,
                               resume=resume, progress=not quiet)
     click.echo(CAUTION, err=True)
     click.echo(run_id)

@@ -111,7 +111,7 @@ def _decide_groups(con, plan, groups: dict, reader) -> None:
     plane = np.ones(S, dtype=bool)
     for a in spec.extra_axes:
         plane &= cols[a.name] == cols[a.name][base]
-    base_mult = {a.name: float(cols[a.name][base]) for a in spec.extra_axes}
+    base_mult = plan.base_multipliers
     rows = {k: [] for k in ("group_name", "scenario_id", "preferred", "runner_up", "margin", "preferred_worth")}
     fr = {k: [] for k in ("group_name", "alternative_a", "alternative_b", "x_axis", "x", "y_axis", "y", "segment",
                           "point", "kind", "residual", "converged")}
@@ -195,7 +195,7 @@ def _budget_outlays(con, plan, reader):
     for first in range(0, P, plan.chunk_size):
         stop = min(first + plan.chunk_size, P)
         A = reader(con, plan, first, stop)[0][0]                           # investment role (C, p, T)
-        mult = {name: np.ones(len(uniq)) for name in {c.multiplier for c in plan.classes} if name != "one"}
+        mult = {name: np.ones(len(uniq)) for name in plan.base_multipliers}   # cost multiplier applied below
         streams = then_current_streams(A, plan.classes, plan.exponents, uniq[:, 0], mult)   # (K, p, T)
         streams = streams * uniq[:, 1][:, None, None]
         for b, period in enumerate(periods):

@@ -197,7 +197,8 @@ def read_grid_toml(path: str | Path) -> dict:
 def make_grid_spec(*, toml_settings: dict | None = None, discount_rates: str | None = None,
                    inflation: str | None = None, discount_basis: str | None = None,
                    budgets: dict | None = None, timing: str | None = None,
-                   periods_per_year: float | None = None, after_tax: bool | None = None) -> GridSpec:
+                   periods_per_year: float | None = None, after_tax: bool | None = None,
+                   tax_rate: str | None = None) -> GridSpec:
     """Combine TOML settings with command-line overrides (flags win) and validate."""
     s = dict(toml_settings or {})
     if discount_rates is not None:
@@ -214,6 +215,10 @@ def make_grid_spec(*, toml_settings: dict | None = None, discount_rates: str | N
         s["periods_per_year"] = periods_per_year
     if after_tax is not None:
         s["after_tax"] = after_tax
+    if tax_rate is not None:
+        axes = [a for a in s.get("extra_axes", []) if a.name != "tax_rate"]
+        s["extra_axes"] = axes + [Axis("tax_rate", parse_range(tax_rate, "--tax-rate"))]
+        s.setdefault("after_tax", True)
     s.setdefault("discount_rates", parse_range(DEFAULT_DISCOUNT, "default discount rates"))
     s.setdefault("inflation", parse_range(DEFAULT_INFLATION, "default inflation"))
     spec = GridSpec(**s)

@@ -27,6 +27,7 @@ from .evaluate.kernel import (ROLES, LineClass, capital_recovery_factor, discoun
                               then_current_streams)
 from .evaluate.measures import (benefit_cost_ratio, discounted_payback_period, mirr, payback_period,
                                 present_worth)
+from .evaluate.tax import after_tax_lines
 from .evaluate.timing import discount_exponents
 from .grid import GridSpec, ScenarioTable, build_scenarios
 from .progress import Progress, log
@@ -45,12 +46,36 @@ def _now() -> datetime:
     return datetime.now(timezone.utc).replace(tzinfo=None)
 
 
-def _multiplier_for(kind: str, axes: set[str]) -> str:
+def _multiplier_for(kind: str, axes: set[str], after_tax: bool = False) -> str:
+    """Per-scenario multiplier of a cash-flow line of this kind (composite names multiply).
+
+    After tax every line but the investment is taxable income, kept at (1 - tax rate);
+    the investment is capitalised and recovered through depreciation.
+    """
+    parts = []
+    if after_tax and kind != "investment":
+        parts.append("after_tax")
     if kind == "investment" and "cost_multiplier" in axes:
-        return "cost_multiplier"
+        parts.append("cost_multiplier")
     if kind == "benefit" and "benefit_multiplier" in axes:
-        return "benefit_multiplier"
-    return "one"
+        parts.append("benefit_multiplier")
+    return "*".join(parts) or "one"
+
+
+# Classes of the lines an after-tax analysis adds (see evaluate/tax.py): the tax shield of
+# depreciation, book value written off and loan interest (nominal, times the tax rate), and
+# loan flows and tax credits (nominal, present only after tax).
+TAX_SHIELD_CLASS = ("nominal", 0.0, "tax")
+AFTER_TAX_ONLY_CLASS = ("nominal", 0.0, "after_tax_only")
+
+
+def scenario_multipliers(table: ScenarioTable, after_tax: bool) -> dict:
+    """Per-scenario (S,) values of every multiplier name the line classes may use."""
+    S = table.size
+    out = {name: table.columns[name] for name in ("cost_multiplier", "benefit_multiplier") if name in table.columns}
+    tax = table.columns.get("tax_rate", np.zeros(S)) if after_tax else np.zeros(S)
+    out.update(tax=tax, after_tax=1.0 - tax, after_tax_only=np.full(S, 1.0 if after_tax else 0.0))
+    return out
 
 
 @dataclass
@@ -71,6 +96,8 @@ class Plan:
     inflation_levels: np.ndarray
     irr_multipliers: dict
     sensitivity: SensitivitySettings
+    base_multipliers: dict
+    tensor_before_tax: np.ndarray | None = None
 
     @property
     def chunk_count(self) -> int:
@@ -98,14 +125,25 @@ def _plan(con, run_id: str, spec: GridSpec, chunk_size: int | None) -> Plan:
     inputs_hash, count, max_period = _current_inputs(con)
     table = build_scenarios(spec)
     axes = {a.name for a in spec.extra_axes}
+    if spec.after_tax and "tax_rate" not in axes:
+        raise RunError("after-tax screening needs an income-tax rate. Fix: add --tax-rate 0.25 (or a range "
+                       "such as 0.15:0.35:5), or `rate = 0.25` under [tax] in the grid TOML")
     rows = con.execute("SELECT DISTINCT basis, escalation, kind FROM cash_flows").fetchall()
-    keys = sorted({(b, float(e), _multiplier_for(k, axes)) for b, e, k in rows})
-    classes = [LineClass(b, e, m) for b, e, m in keys] or [LineClass()]
+    keys = {(b, float(e), _multiplier_for(k, axes, spec.after_tax)) for b, e, k in rows}
+    if spec.after_tax:
+        keys |= {TAX_SHIELD_CLASS, AFTER_TAX_ONLY_CLASS}
+    classes = [LineClass(b, e, m) for b, e, m in sorted(keys)] or [LineClass()]
     class_index = {(c.basis, c.escalation, c.multiplier): n for n, c in enumerate(classes)}
-    T = max_period + 1
+    T = max_period + 1 + (1 if spec.after_tax else 0)   # room for a book-value write-off after the last flow
     tau = discount_exponents(T, spec.timing, spec.periods_per_year)
-    multipliers = {name: table.columns[name] for name in axes}
-    tensor = discount_tensor(classes, tau, table.columns["discount_rate"], table.columns["inflation"], multipliers)
+    multipliers = scenario_multipliers(table, spec.after_tax)
+    rates = (table.columns["discount_rate"], table.columns["inflation"])
+    tensor = discount_tensor(classes, tau, *rates, multipliers)
+    before = None
+    if spec.after_tax:
+        zero_tax = dict(multipliers, tax=np.zeros(table.size), after_tax=np.ones(table.size),
+                        after_tax_only=np.zeros(table.size))
+        before = discount_tensor(classes, tau, *rates, zero_tax)
     if not np.all(np.isfinite(tensor)):
         raise RunError("discount factors overflow for this horizon and these rates "
                        f"({T - 1} periods). Fix: narrow the rate range or shorten the horizon")
@@ -113,14 +151,15 @@ def _plan(con, run_id: str, spec: GridSpec, chunk_size: int | None) -> Plan:
         chunk_size = max(1, min(max(count, 1), DEFAULT_CELLS_PER_CHUNK // max(table.size, 1)))
     levels = np.unique(table.columns["inflation"])
     base = table.base_index
-    irr_mult = {name: np.full(levels.size, table.columns[name][base]) for name in axes}
+    base_mult = {name: float(v[base]) for name, v in multipliers.items()}
+    irr_mult = {name: np.full(levels.size, v) for name, v in base_mult.items()}
     try:
         sens = SensitivitySettings.from_spec(spec.sensitivity, spec.discount_rates if spec.discount_basis == "nominal"
                                              else list(np.unique(table.columns["discount_rate"])), spec.inflation)
     except ValueError as exc:
         raise RunError(f"[sensitivity] settings: {exc}") from None
     return Plan(run_id, spec, table, classes, class_index, T, tau, tensor, _scenario_weights(spec, table),
-                count, int(chunk_size), levels, irr_mult, sens)
+                count, int(chunk_size), levels, irr_mult, sens, base_mult, before)
 
 
 def _role_index(kind):
@@ -146,7 +185,8 @@ def _chunk_amounts(con, plan: Plan, first: int, stop: int):
     if frame.height:
         axes = {a.name for a in plan.spec.extra_axes}
         uniq = frame.select("basis", "escalation", "kind").unique(maintain_order=True)
-        cls = [plan.class_index[(b, float(e), _multiplier_for(k, axes))] for b, e, k in uniq.iter_rows()]
+        cls = [plan.class_index[(b, float(e), _multiplier_for(k, axes, plan.spec.after_tax))]
+               for b, e, k in uniq.iter_rows()]
         roles = [_role_index(k) for _, _, k in uniq.iter_rows()]
         lookup = uniq.with_columns(pl.Series("class_index", cls, dtype=pl.Int64),
                                    pl.Series("role_index", roles, dtype=pl.Int64))
@@ -158,7 +198,52 @@ def _chunk_amounts(con, plan: Plan, first: int, stop: int):
         np.add.at(A, (r, c, k, t), frame["amount"].to_numpy())
         nz = frame.filter(pl.col("amount") != 0).group_by("project_key").agg(pl.col("period").max())
         horizon[nz["project_key"].to_numpy() - first] = np.maximum(nz["period"].to_numpy(), 1)
+    if plan.spec.after_tax:
+        _add_tax_lines(con, plan, first, stop, A, horizon)
     return A, np.asarray(ids, dtype=object), horizon
+
+
+def _add_tax_lines(con, plan: Plan, first: int, stop: int, A: np.ndarray, horizon: np.ndarray) -> None:
+    """Add the after-tax lines (depreciation shield, write-off, loan, credits) of a chunk to role "other".
+
+    Depreciable basis: the project's ``depreciable_basis`` or else its investment lines (base-year
+    money, placed in service at period 0). Method and recovery period: the project's columns or the
+    ``[tax]`` defaults (straight line over the project's horizon). The asset is disposed of at the
+    project's horizon, where its remaining book value is written off.
+    """
+    p = fetch_frame(con, """
+        SELECT pr.project_key, pr.depreciation_method, pr.recovery_years, pr.depreciable_basis, pr.salvage,
+               pr.loan_amount, pr.loan_rate, pr.loan_term,
+               coalesce((SELECT -sum(amount) FROM cash_flows c WHERE c.project_id = pr.project_id
+                         AND c.kind = 'investment'), 0) AS invested,
+               coalesce((SELECT sum(amount) FROM cash_flows c WHERE c.project_id = pr.project_id
+                         AND c.kind = 'salvage'), 0) AS salvage_lines
+        FROM projects pr WHERE pr.project_key >= ? AND pr.project_key < ? ORDER BY pr.project_key""", [first, stop])
+    tax = plan.spec.tax
+    default_method = tax.get("default_method", "straight-line")
+    methods = np.array([m or default_method for m in p["depreciation_method"].to_list()], dtype=object)
+    horizon_years = horizon
+    recovery = np.array([r if r is not None else (tax.get("default_recovery_years") or int(h))
+                         for r, h in zip(p["recovery_years"].to_list(), horizon_years)], dtype=np.int64)
+    basis = p["depreciable_basis"].fill_null(p["invested"]).to_numpy().astype(float)
+    salvage = p["salvage"].fill_null(p["salvage_lines"]).to_numpy().astype(float)
+    loan = p["loan_amount"].fill_null(0.0).to_numpy().astype(float)
+    loan_rate = p["loan_rate"].fill_null(0.0).to_numpy().astype(float)
+    loan_term = p["loan_term"].fill_null(1).to_numpy().astype(np.int64)
+    try:
+        extra = after_tax_lines(np.clip(basis, 0.0, None), horizon, plan.n_periods, method=methods,
+                                recovery_years=recovery, salvage=np.clip(salvage, 0.0, None),
+                                itc_rate=float(tax.get("investment_tax_credit", 0.0)),
+                                loan_amount=loan, loan_rate=loan_rate, loan_term=loan_term)
+    except ValueError as exc:
+        raise RunError(f"after-tax lines of projects {first}..{stop - 1}: {exc}. Fix: check depreciation_method "
+                       "(straight-line, declining-balance, macrs), recovery_years and loan columns") from None
+    other = ROLES.index("other")
+    for (b, e, m), amounts in extra.items():
+        key = TAX_SHIELD_CLASS if m == "tax" else AFTER_TAX_ONLY_CLASS
+        if (b, e) != key[:2]:
+            raise RunError(f"unexpected after-tax line class {(b, e, m)}")
+        A[other, plan.class_index[key]] += amounts
 
 
 def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> dict:
@@ -185,10 +270,12 @@ def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> di
     F, P, T = streams.shape
     irr = irr_roots(streams.reshape(F * P, T), low=IRR_SEARCH[0], high=IRR_SEARCH[1])
     summary.update(base_measures(plan, A_by_role, horizon))
-    b_mult = {name: cols[name][b] for name in (a.name for a in plan.spec.extra_axes)}
     sens = one_at_a_time(A_by_role, plan.classes, plan.exponents, float(cols["discount_rate"][b]),
-                         float(cols["inflation"][b]), plan.sensitivity, b_mult)
-    return {"pw": pw, "aw": aw, "pi": pi, "accepted": accepted, "summary": summary, "irr": irr, "irr_shape": (F, P),
+                         float(cols["inflation"][b]), plan.sensitivity, plan.base_multipliers)
+    if plan.tensor_before_tax is not None:
+        summary["pw_before_tax_base"] = present_worth_classes(A, plan.tensor_before_tax[:, :, b:b + 1])[:, 0]
+    pw_before = present_worth_classes(A, plan.tensor_before_tax) if plan.tensor_before_tax is not None else None
+    return {"pw": pw, "pw_before_tax": pw_before, "aw": aw, "pi": pi, "accepted": accepted, "summary": summary, "irr": irr, "irr_shape": (F, P),
             "sensitivity": sens}
 
 
@@ -205,7 +292,7 @@ def base_measures(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> dic
     b = plan.scenarios.base_index
     i, f = float(cols["discount_rate"][b]), float(cols["inflation"][b])
     m = float(plan.spec.periods_per_year)
-    mult = {name: np.array([cols[name][b]]) for name in (a.name for a in plan.spec.extra_axes)}
+    mult = {name: np.array([v]) for name, v in plan.base_multipliers.items()}
     by_role = [then_current_streams(A_by_role[r], plan.classes, plan.exponents, [f], mult)[0] for r in range(len(ROLES))]
     invest, benefit, other = by_role
     total = invest + benefit + other
@@ -241,6 +328,8 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
         "annual_worth": pa.array(out["aw"].ravel()),
         "accepted": pa.array(out["accepted"].ravel()),
         "profitability_index": pa.array(out["pi"].ravel(), mask=np.isnan(out["pi"].ravel())),
+        "present_worth_before_tax": (pa.array(out["pw_before_tax"].ravel()) if out["pw_before_tax"] is not None
+                                     else pa.nulls(P * S, pa.float64())),
     })
     summary = pa.table({"project_id": pa.array(ids.tolist(), type=pa.string()),
                         **{k: pa.array(v, mask=np.isnan(v) if np.asarray(v).dtype.kind == "f" else None)
@@ -301,8 +390,9 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
         con.unregister("chunk_spider")
         con.register("chunk_results", results)
         con.execute("INSERT INTO results (run_id, project_id, scenario_id, present_worth, annual_worth, accepted, "
-                    "profitability_index) SELECT ?, project_id::VARCHAR, scenario_id, present_worth, annual_worth, "
-                    "accepted, profitability_index FROM chunk_results",
+                    "profitability_index, present_worth_before_tax) SELECT ?, project_id::VARCHAR, scenario_id, "
+                    "present_worth, annual_worth, accepted, profitability_index, present_worth_before_tax "
+                    "FROM chunk_results",
                     [plan.run_id])
         con.unregister("chunk_results")
         con.register("chunk_summary", summary)

@@ -53,6 +53,25 @@ class LineClass:
             raise ValueError(f"escalation must be > -1, got {self.escalation!r}")
 
 
+def multiplier_values(name: str, multipliers: Mapping[str, np.ndarray], shape: tuple) -> np.ndarray:
+    """Values of a (possibly composite) multiplier name, e.g. ``"after_tax*benefit_multiplier"``.
+
+    ``"one"`` is 1; a composite name is the product of its ``*``-separated parts.
+    """
+    out = np.ones(shape)
+    if name == "one":
+        return out
+    for part in name.split("*"):
+        if part not in multipliers:
+            raise ValueError(f"no per-scenario values given for multiplier {part!r}")
+        m = np.asarray(multipliers[part], dtype=float)
+        try:
+            out = out * np.broadcast_to(m, shape)
+        except ValueError:
+            raise ValueError(f"multiplier {part!r} has shape {m.shape}, expected {shape}") from None
+    return out
+
+
 def _rates(x, name: str) -> np.ndarray:
     a = np.asarray(x, dtype=float)
     if a.ndim != 1:
@@ -93,12 +112,7 @@ def discount_tensor(classes: Sequence[LineClass], exponents: np.ndarray, discoun
         log_growth = (np.log1p(cls.escalation) + log_f) if cls.basis == "real" else np.zeros_like(log_f)
         np.exp(np.multiply.outer(tau, log_growth - log_i), out=out[c])
         if cls.multiplier != "one":
-            if cls.multiplier not in multipliers:
-                raise ValueError(f"no per-scenario values given for multiplier {cls.multiplier!r}")
-            m = np.asarray(multipliers[cls.multiplier], dtype=float)
-            if m.shape != i.shape:
-                raise ValueError(f"multiplier {cls.multiplier!r} has shape {m.shape}, expected {i.shape}")
-            out[c] *= m[None, :]
+            out[c] *= multiplier_values(cls.multiplier, multipliers, i.shape)[None, :]
     return out
 
 
@@ -186,7 +200,7 @@ def then_current_streams(amounts: np.ndarray, classes: Sequence[LineClass], expo
         else:
             g = np.ones((f.size, tau.size))
         if cls.multiplier != "one":
-            g = g * np.asarray(multipliers[cls.multiplier], dtype=float)[:, None]
+            g = g * multiplier_values(cls.multiplier, multipliers, f.shape)[:, None]
         out += A[c][None, :, :] * g[:, None, :]
     return out
 
@@ -269,7 +283,7 @@ def present_worth_at(amounts_by_role: np.ndarray, classes: Sequence[LineClass], 
             log_g = np.zeros(P)
         factor = np.exp(np.multiply.outer(log_g - log_i, tau))            # (P, T)
         if cls.multiplier != "one":
-            factor = factor * np.broadcast_to(np.asarray(multipliers[cls.multiplier], dtype=float), (P,))[:, None]
+            factor = factor * multiplier_values(cls.multiplier, multipliers, (P,))[:, None]
         lines = A[0, c] * cm[:, None] + A[1, c] * bm[:, None] + A[2, c]
         out += np.einsum("pt,pt->p", lines, factor)
     return out

@@ -15,7 +15,7 @@ import polars as pl
 
 from ..columns import BASES, CASH_FLOW_COLUMNS, KINDS, MAX_PERIOD, PARAMETRIC_COLUMNS, PARAMETRIC_MONEY, PROJECT_COLUMNS
 from ..errors import Issue, ValidationError
-from .reader import read_table
+from .reader import open_table, read_table
 from .validate import Cells, check_unique_ids
 
 CASH_FLOW_SCHEMA = {
@@ -43,29 +43,94 @@ def _sha256(path) -> str:
     return h.hexdigest()
 
 
-def _read_cash_flows(path, issues: list[Issue], notes: list[str]) -> pl.DataFrame | None:
-    table = read_table(path, CASH_FLOW_COLUMNS, issues)
-    notes.extend(table.notes)
-    if table.frame is None:
-        return None
-    cells = Cells(table.path, table.frame, issues)
+# Typed cash-flow rows kept while the file is read once. Past this many the read
+# only validates, and a second read builds the rows once the file is known to be
+# good: refusing a file of any size then needs memory for one block only.
+KEEP_ROWS = 2_000_000
+
+
+def _typed_flows(cells: Cells, source: str) -> pl.DataFrame:
+    """Parse and check one batch of cash-flow cells; bad cells become nulls and issues."""
     project_id = cells.identifier("project_id")
     period = cells.integer("period", required=True, minimum=0, what="a period index (0 = now)")
     amount = cells.number("amount", required=True, what="an amount of money")
     basis = cells.choice("basis", BASES, default="real")
     escalation = cells.rate("escalation")
     kind = cells.choice("kind", KINDS, default="")
-    frame = pl.DataFrame([project_id, period, amount, basis, escalation, kind, table.frame["line"].cast(pl.Int64).alias("source_line")])
+    frame = pl.DataFrame([project_id, period, amount, basis, escalation, kind,
+                          cells.frame["line"].cast(pl.Int64).alias("source_line")])
     # A blank kind is inferred: money out at period 0 is investment, other money
     # in is benefit, other money out is cost (documented in the README).
-    frame = frame.with_columns(
+    return frame.with_columns(
         pl.when(pl.col("kind") != "").then(pl.col("kind"))
         .when((pl.col("period") == 0) & (pl.col("amount") < 0)).then(pl.lit("investment"))
         .when(pl.col("amount") >= 0).then(pl.lit("benefit"))
         .otherwise(pl.lit("cost")).alias("kind"),
-        pl.lit(Path(path).name).alias("source"),
+        pl.lit(source).alias("source"),
     )
-    return frame
+
+
+def _flow_stats(parts: list[pl.DataFrame]) -> pl.DataFrame:
+    """Per project: sum of absolute amounts and first line, merged over batches."""
+    frame = pl.concat(parts, how="vertical")
+    return frame.group_by("project_id").agg(pl.col("total").sum(), pl.col("line").min())
+
+
+def _read_cash_flows(path, issues: list[Issue], notes: list[str], known_ids: set[str] | None,
+                     projects_name: str) -> tuple[pl.DataFrame | None, pl.DataFrame | None]:
+    """Stream the cash-flow file block by block; return (typed rows or None, per-project stats or None).
+
+    The rows are None whenever an issue was found anywhere (nothing will be
+    written then); the stats (``project_id, total, line``) feed the
+    cross-file checks and are None only when the file cannot be read as a
+    table.
+    """
+    source = open_table(path, CASH_FLOW_COLUMNS, issues)
+    if source is None:
+        return None, None
+    name = Path(path).name
+    counts: dict = {}
+    known = pl.Series("known", sorted(known_ids), dtype=pl.String).implode() if known_ids is not None else None
+    kept: list[pl.DataFrame] = []
+    kept_rows = 0
+    keep = True
+    stats: list[pl.DataFrame] = []
+
+    def unknown_fix(pid: str) -> str:
+        return f"add '{pid}' to {projects_name} or correct the id"
+
+    for batch in source.batches():
+        cells = Cells(source.name, batch, issues, counts)
+        typed = _typed_flows(cells, name)
+        if known is not None:
+            unknown = ~typed["project_id"].is_in(known) & (typed["project_id"] != "")
+            cells.report(unknown, "project_id", "cash flows for a project not in the projects file", unknown_fix)
+        stats.append(typed.group_by("project_id").agg(pl.col("amount").abs().sum().alias("total"),
+                                                      pl.col("source_line").min().alias("line")))
+        if len(stats) >= 32:
+            stats = [_flow_stats(stats)]
+        if keep and not issues and kept_rows + typed.height <= KEEP_ROWS:
+            kept.append(typed)
+            kept_rows += typed.height
+        else:
+            keep, kept = False, []
+    source.finish()
+    Cells(source.name, pl.DataFrame(), issues, counts).finish()
+    notes.extend(source.notes)
+    if source.broken:
+        return None, None
+    if source.rows == 0:
+        issues.append(Issue(source.name, 2, None, None, "the file has a header but no data rows",
+                            "add at least one data row"))
+        return None, None
+    merged = _flow_stats(stats)
+    if issues:
+        return None, merged
+    if not keep:  # the file is good but was too big to keep on the first read: read it again
+        second = open_table(path, CASH_FLOW_COLUMNS, [])
+        assert second is not None
+        kept = [_typed_flows(Cells(source.name, batch, issues, {}), name) for batch in second.batches()]
+    return pl.concat(kept, how="vertical"), merged
 
 
 def _read_projects(path, issues: list[Issue], notes: list[str]) -> tuple[pl.DataFrame | None, Cells | None]:
@@ -94,6 +159,7 @@ def _read_projects(path, issues: list[Issue], notes: list[str]) -> tuple[pl.Data
              cells.number("loan_amount", required=False, what="an amount of money"),
              cells.rate("loan_rate"),
              cells.integer("loan_term", required=False, minimum=1, what="a loan term in periods")]
+    cells.finish()
     frame = pl.DataFrame(cols).with_columns(table.frame["line"].cast(pl.Int64).alias("source_line"))
     any_money = pl.any_horizontal([pl.col(c).is_not_null() & (pl.col(c) != 0) for c in PARAMETRIC_MONEY])
     frame = frame.with_columns(any_money.alias("parametric"))
@@ -134,25 +200,25 @@ def _expand_parametric(projects: pl.DataFrame, source: str) -> pl.DataFrame:
     return out.select(list(CASH_FLOW_SCHEMA)).cast(CASH_FLOW_SCHEMA)
 
 
-def _check_structure(projects: pl.DataFrame, flows: pl.DataFrame | None, ppath: str, cpath: str | None,
+def _check_structure(projects: pl.DataFrame, stats: pl.DataFrame | None, ppath: str, cpath: str | None,
                      issues: list[Issue]) -> None:
-    """Cross-file checks: unknown ids, projects without flows, groups, requires."""
+    """Cross-file checks: projects without flows or with both descriptions, all-zero flows, groups, requires.
+
+    ``stats`` holds one row per project id of the cash-flow file (``total`` =
+    sum of absolute amounts, ``line`` = its first line), or None without a
+    cash-flow file.
+    """
     ids = set(projects["project_id"].to_list())
     line_of = dict(zip(projects["project_id"].to_list(), projects["source_line"].to_list()))
     with_rows: set[str] = set()
-    if flows is not None and flows.height:
-        unknown = flows.filter(~pl.col("project_id").is_in(list(ids)) & (pl.col("project_id") != ""))
-        for line, pid in unknown.select("source_line", "project_id").head(200).iter_rows():
-            issues.append(Issue(cpath, line, "project_id", pid, "cash flows for a project not in the projects file",
-                                f"add '{pid}' to {Path(ppath).name} or correct the id"))
-        with_rows = set(flows["project_id"].unique().to_list())
+    if stats is not None and stats.height:
+        with_rows = set(stats.filter(pl.col("project_id") != "")["project_id"].to_list())
         both = projects.filter(pl.col("parametric") & pl.col("project_id").is_in(list(with_rows)))
         for line, pid in both.select("source_line", "project_id").iter_rows():
             issues.append(Issue(ppath, line, "first_cost", pid,
                                 "project has both parametric amounts and rows in the cash-flow file",
                                 "describe each project one way: clear its parametric columns or remove its cash-flow rows"))
-        sums = flows.group_by("project_id").agg((pl.col("amount").abs().sum()).alias("total"))
-        zero = sums.filter((pl.col("total") == 0) & pl.col("project_id").is_in(list(ids)))
+        zero = stats.filter((pl.col("total") == 0) & pl.col("project_id").is_in(list(ids)))
         for pid in zero["project_id"].to_list():
             issues.append(Issue(ppath, line_of.get(pid), "project_id", pid, "all of the project's cash flows are zero",
                                 "give the project's cash flows or remove it from the portfolio"))
@@ -240,9 +306,11 @@ def read_portfolio(projects_path, cash_flows_path=None) -> Portfolio:
     issues: list[Issue] = []
     notes: list[str] = []
     projects, _ = _read_projects(projects_path, issues, notes)
-    flows = _read_cash_flows(cash_flows_path, issues, notes) if cash_flows_path else None
-    if projects is not None and (cash_flows_path is None or flows is not None):
-        _check_structure(projects, flows, str(projects_path), str(cash_flows_path) if cash_flows_path else None, issues)
+    known = set(projects["project_id"].to_list()) if projects is not None else None
+    flows, stats = (_read_cash_flows(cash_flows_path, issues, notes, known, Path(projects_path).name)
+                    if cash_flows_path else (None, None))
+    if projects is not None and (cash_flows_path is None or stats is not None):
+        _check_structure(projects, stats, str(projects_path), str(cash_flows_path) if cash_flows_path else None, issues)
     if issues:
         raise ValidationError(issues)
     assert projects is not None

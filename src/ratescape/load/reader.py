@@ -1,12 +1,16 @@
-"""Read a CSV file as text columns, checking its header and encoding first.
+"""Read a CSV file as text columns, checking its header, encoding and shape first.
 
 This is the file edge of the loader: it decides whether a file is a comma
 separated UTF-8 table with the expected headers and returns every cell as a
 string (numbers are parsed and checked in :mod:`ratescape.load.validate`, so
 that every bad cell can be reported at once with its line and column).
 
-Line numbers are 1-based with the header on line 1; a quoted field that
-spans several lines would shift the count (documented limitation).
+Files are read in blocks of :data:`BLOCK_BYTES` cut at line ends (never inside
+a quoted field), so a file of any size is checked with memory bounded by the
+block size: :meth:`CsvSource.batches` yields one frame of text cells per
+block. Line numbers are physical, 1-based, with the header on line 1. Empty
+lines are skipped (a note says how many); a quoted field holding a line break
+is refused, as are rows with too many or too few fields.
 """
 from __future__ import annotations
 
@@ -15,12 +19,22 @@ import difflib
 import io
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Iterator
 
 import polars as pl
 
 from ..errors import Issue
 
 BOM = b"\xef\xbb\xbf"
+# Bytes read per block. A block becomes a few frames of the same size, so the
+# loader's memory stays near a small multiple of this whatever the file size.
+BLOCK_BYTES = 4 << 20
+# A block is cut at the last line end outside quotes; a file whose quotes never
+# balance would otherwise be carried whole, so give up past this many bytes.
+MAX_CARRY_BYTES = 16 * BLOCK_BYTES
+# Structural problems (ragged rows, line breaks in cells) listed per file.
+MAX_STRUCTURE_ISSUES = 200
+ROW_FIX = "make every line have the same number of comma-separated fields as the header (quote cells that contain commas)"
 
 
 @dataclass
@@ -38,7 +52,7 @@ def _first_line(path: Path) -> bytes:
 
 
 def _locate_bad_utf8(path: Path) -> tuple[int, str]:
-    """Line number and a hex excerpt of the first invalid UTF-8 sequence."""
+    """Line number and a hex excerpt of the first invalid UTF-8 sequence (reads line by line)."""
     with open(path, "rb") as fh:
         for number, raw in enumerate(fh, start=1):
             try:
@@ -49,45 +63,231 @@ def _locate_bad_utf8(path: Path) -> tuple[int, str]:
     return 0, ""
 
 
-def read_table(path: str | Path, columns: dict, issues: list[Issue]) -> RawTable:
-    """Read ``path`` as all-text columns renamed to canonical names.
+def _excerpt(text: str, limit: int = 60) -> str:
+    text = text.rstrip("\r\n")
+    return text if len(text) <= limit else text[: limit - 3] + "..."
 
-    Problems are appended to ``issues``; the returned frame is None when the
-    file cannot be read as a table at all. Unknown headers are errors (with
-    the nearest known header suggested), required headers must be present,
-    header case and surrounding spaces are ignored.
+
+@dataclass
+class CsvSource:
+    """A CSV file whose header passed the checks; its rows are read block by block."""
+
+    path: Path
+    name: str
+    columns: list[str]               # canonical names in file order
+    header_bytes: int                # bytes of the header line (with BOM and line end)
+    issues: list[Issue]
+    notes: list[str] = field(default_factory=list)
+    block_bytes: int = BLOCK_BYTES
+    broken: bool = False             # a structural problem was found: no more frames are yielded
+    blank_lines: int = 0
+    rows: int = 0
+    _structure_issues: int = 0
+
+    def _structural(self, line: int | None, value: str | None, problem: str, fix: str) -> None:
+        self.broken = True
+        self._structure_issues += 1
+        if self._structure_issues <= MAX_STRUCTURE_ISSUES:
+            self.issues.append(Issue(self.name, line, None, value, problem, fix))
+
+    def _blocks(self) -> Iterator[tuple[int, bytes]]:
+        """(first line number, bytes) of consecutive blocks, each ending at a line end outside quotes."""
+        line = 2
+        with open(self.path, "rb") as fh:
+            fh.seek(self.header_bytes)
+            carry = b""
+            while True:
+                chunk = fh.read(self.block_bytes)
+                data = carry + chunk if carry else chunk
+                if not chunk:
+                    if data:
+                        yield line, data
+                    return
+                cut = _cut_outside_quotes(data)
+                if cut < 0:
+                    if len(data) > MAX_CARRY_BYTES:
+                        self._structural(line, None, "a double quote opens a field that does not close "
+                                         f"within {MAX_CARRY_BYTES >> 20} MB",
+                                         "close the quoted field, or remove the stray '\"'")
+                        return
+                    carry = data
+                    continue
+                block, carry = data[: cut + 1], data[cut + 1:]
+                yield line, block
+                line += block.count(b"\n")
+
+    def batches(self) -> Iterator[pl.DataFrame]:
+        """Frames of text cells (canonical column names) plus ``line`` (Int64), one per block.
+
+        Structural problems are appended to the issues; after the first one
+        no further frames are yielded, but the rest of the file is still
+        checked so that every ragged row is listed.
+        """
+        n = len(self.columns)
+        for first_line, block in self._blocks():
+            try:
+                text = block.decode("utf-8")
+            except UnicodeDecodeError as exc:
+                line = first_line + block.count(b"\n", 0, exc.start)
+                start = block.rfind(b"\n", 0, exc.start) + 1
+                self._structural(line, block[exc.start: exc.end + 3].hex(" "), "invalid UTF-8 bytes",
+                                 "save the file as UTF-8 (CSV UTF-8); the bytes shown are not valid UTF-8"
+                                 + (f" (they follow {block[start:exc.start][-20:].decode('utf-8', 'replace')!r})"
+                                    if exc.start > start else ""))
+                return
+            frame = _parse_plain(text, n, first_line, self) if '"' not in text else _parse_quoted(text, n, first_line, self)
+            if frame is None or self.broken:
+                continue
+            frame.columns = [*self.columns, "line"]
+            self.rows += frame.height
+            yield frame
+
+    def finish(self) -> None:
+        """Add the count of structural problems not listed, and the note on skipped empty lines."""
+        extra = self._structure_issues - MAX_STRUCTURE_ISSUES
+        if extra > 0:
+            self.issues.append(Issue(self.name, None, None, None, f"{extra} more rows with the wrong shape",
+                                     "fix the rows listed above the same way"))
+        if self.blank_lines:
+            self.notes.append(f"{self.name}: {self.blank_lines} empty line(s) were skipped.")
+
+
+def _cut_outside_quotes(data: bytes) -> int:
+    """Index of the last b'\\n' in ``data`` preceded by an even number of quotes, or -1."""
+    pos = data.rfind(b"\n")
+    if pos < 0:
+        return -1
+    parity = data.count(b'"', 0, pos + 1) & 1
+    while parity:
+        prev = data.rfind(b"\n", 0, pos)
+        if prev < 0:
+            return -1
+        parity ^= data.count(b'"', prev + 1, pos + 1) & 1
+        pos = prev
+    return pos
+
+
+def _parse_plain(text: str, n: int, first_line: int, src: CsvSource) -> pl.DataFrame | None:
+    """A block without quotes: split lines and fields with vectorised string operations."""
+    lines = text.split("\n")
+    if lines and lines[-1] == "":
+        lines.pop()
+    raw = pl.Series("raw", lines, dtype=pl.String).str.strip_suffix("\r")
+    del lines
+    line_no = pl.int_range(first_line, first_line + raw.len(), dtype=pl.Int64, eager=True).alias("line")
+    blank = raw == ""
+    fields = raw.str.count_matches(",", literal=True) + 1
+    ragged = ~blank & (fields != n)
+    if ragged.any():
+        bad = pl.DataFrame({"line": line_no, "raw": raw, "fields": fields}).filter(ragged)
+        for line, value, count in bad.head(MAX_STRUCTURE_ISSUES).iter_rows():
+            src._structural(line, _excerpt(value), f"{count} fields where the header has {n}", ROW_FIX)
+        src._structure_issues += max(0, bad.height - MAX_STRUCTURE_ISSUES)
+        return None
+    nblank = int(blank.sum())
+    if nblank:
+        src.blank_lines += nblank
+        keep = ~blank
+        raw, line_no = raw.filter(keep), line_no.filter(keep)
+    if n == 1:
+        cells = pl.DataFrame({"field_0": raw})
+    else:
+        cells = raw.str.split_exact(",", n - 1).struct.unnest()
+    return cells.with_columns(line_no)
+
+
+def _parse_quoted(text: str, n: int, first_line: int, src: CsvSource) -> pl.DataFrame | None:
+    """A block with quotes: the csv module parses it row by row, keeping physical line numbers."""
+    reader = csv.reader(io.StringIO(text, newline=""), strict=True)
+    rows: list[list[str]] = []
+    lines: list[int] = []
+    before = 0
+    while True:
+        try:
+            row = next(reader)
+        except StopIteration:
+            break
+        except csv.Error as exc:
+            src._structural(first_line + reader.line_num - 1, None, f"malformed quoting ({exc})",
+                            "quote a whole cell (\"1,200.50\") and double any quote inside it (\"\")")
+            return None
+        start = first_line + before
+        spans = reader.line_num - before
+        before = reader.line_num
+        if not row:
+            src.blank_lines += 1
+            continue
+        if spans > 1:
+            src._structural(start, _excerpt(",".join(row)), f"a quoted cell holds a line break (the row runs over {spans} lines)",
+                            "remove the line break from the cell (keep each row on one line)")
+            continue
+        if len(row) != n:
+            src._structural(start, _excerpt(",".join(row)), f"{len(row)} fields where the header has {n}", ROW_FIX)
+            continue
+        if src.broken:
+            continue
+        rows.append(row)
+        lines.append(start)
+    if src.broken:
+        return None
+    cols = list(zip(*rows)) if rows else [()] * n
+    data = {f"field_{k}": pl.Series(f"field_{k}", list(cols[k]), dtype=pl.String) for k in range(n)}
+    data["line"] = pl.Series("line", lines, dtype=pl.Int64)
+    return pl.DataFrame(data)
+
+
+def open_table(path: str | Path, columns: dict, issues: list[Issue]) -> CsvSource | None:
+    """Check a CSV file's existence, encoding of the header, delimiter and headers.
+
+    Problems are appended to ``issues``; returns None when the file cannot be
+    read as a table at all, else a :class:`CsvSource` whose
+    :meth:`~CsvSource.batches` yield the rows. Unknown headers are errors
+    (with the nearest known header suggested), required headers must be
+    present, header case and surrounding spaces are ignored.
     """
     p = Path(path)
     name = str(path)
-    table = RawTable(name, None)
     if not p.is_file():
         issues.append(Issue(name, None, None, None, "file not found", "check the path"))
-        return table
+        return None
     if p.stat().st_size == 0:
         issues.append(Issue(name, None, None, None, "the file is empty",
                             "export the table with a header line: " + ",".join(h for h, v in columns.items() if v[1])))
-        return table
+        return None
+    notes: list[str] = []
     head = _first_line(p)
+    header_bytes = len(head)
     if head.startswith(BOM):
         head = head[len(BOM):]
-        table.notes.append(f"{name}: a UTF-8 byte-order mark was found at the start and ignored.")
+        notes.append(f"{name}: a UTF-8 byte-order mark was found at the start and ignored.")
+    if head.endswith(b"\r\n"):
+        notes.append(f"{name}: Windows line endings (CR LF) were found and accepted.")
     try:
         header_text = head.decode("utf-8").rstrip("\r\n")
     except UnicodeDecodeError:
         issues.append(Issue(name, 1, None, head[:40].hex(" "), "the header is not UTF-8 text",
                             "save the file as UTF-8 (CSV UTF-8) and try again"))
-        return table
+        return None
+    if header_text.strip() == "":
+        issues.append(Issue(name, 1, None, None, "the first line is empty",
+                            "put the header line first: " + ",".join(h for h, v in columns.items() if v[1])))
+        return None
     if header_text.count(";") > 0 and header_text.count(",") == 0:
         issues.append(Issue(name, 1, None, header_text[:60], "the file uses semicolons as delimiters",
                             "export it as comma-separated values (and use '.' as the decimal mark)"))
-        return table
+        return None
     if "\t" in header_text and "," not in header_text:
         issues.append(Issue(name, 1, None, header_text[:60], "the file uses tabs as delimiters",
                             "export it as comma-separated values"))
-        return table
-    headers = next(csv.reader(io.StringIO(header_text)))
+        return None
+    try:
+        headers = next(csv.reader(io.StringIO(header_text), strict=True))
+    except csv.Error as exc:
+        issues.append(Issue(name, 1, None, header_text[:60], f"the header line cannot be read ({exc})",
+                            "write the header as plain comma-separated names"))
+        return None
     known = {h: spec for h, spec in columns.items()}
-    rename: dict[str, str] = {}
+    canonical: list[str] = []
     seen: set[str] = set()
     ok = True
     for col_index, raw_header in enumerate(headers, start=1):
@@ -98,7 +298,7 @@ def read_table(path: str | Path, columns: dict, issues: list[Issue]) -> RawTable
                                     "keep one column of that name"))
                 ok = False
             seen.add(h)
-            rename[raw_header] = known[h][0]
+            canonical.append(known[h][0])
         else:
             close = difflib.get_close_matches(h, list(known), n=1, cutoff=0.6)
             fix = f"rename it to '{close[0]}'" if close else (
@@ -111,28 +311,32 @@ def read_table(path: str | Path, columns: dict, issues: list[Issue]) -> RawTable
                             f"add a '{h}' column to the header line"))
         ok = False
     if not ok:
+        return None
+    return CsvSource(p, name, canonical, header_bytes, issues, notes)
+
+
+def read_table(path: str | Path, columns: dict, issues: list[Issue]) -> RawTable:
+    """Read ``path`` whole as all-text columns renamed to canonical names.
+
+    Problems are appended to ``issues``; the returned frame is None when the
+    file cannot be read as a table. For files too big to hold, iterate
+    :func:`open_table`'s batches instead.
+    """
+    name = str(path)
+    source = open_table(path, columns, issues)
+    if source is None:
+        return RawTable(name, None)
+    table = RawTable(name, None, source.notes)
+    frames = list(source.batches())
+    source.finish()
+    if source.broken:
         return table
-    try:
-        frame = pl.read_csv(p, infer_schema=False, has_header=True, encoding="utf8",
-                            raise_if_empty=False, truncate_ragged_lines=False)
-    except pl.exceptions.ComputeError as exc:
-        text = str(exc)
-        if "utf-8" in text.lower() or "utf8" in text.lower():
-            line, excerpt = _locate_bad_utf8(p)
-            issues.append(Issue(name, line or None, None, excerpt, "invalid UTF-8 bytes",
-                                "save the file as UTF-8 (CSV UTF-8); the bytes shown are not valid UTF-8"))
-        else:
-            issues.append(Issue(name, None, None, None, f"cannot be read as CSV: {text.splitlines()[0]}",
-                                "check that every line has the same number of comma-separated fields"))
-        return table
-    except pl.exceptions.PolarsError as exc:  # malformed CSV (ragged rows, bad quoting)
-        issues.append(Issue(name, None, None, None, f"cannot be read as CSV: {str(exc).splitlines()[0]}",
-                            "check that every line has the same number of comma-separated fields"))
-        return table
-    frame = frame.rename({c: rename[c] for c in frame.columns if c in rename})
-    if frame.height == 0:
+    if source.rows == 0:
         issues.append(Issue(name, 2, None, None, "the file has a header but no data rows",
                             "add at least one data row"))
         return table
-    table.frame = frame.with_row_index("line", offset=2)
+    table.frame = pl.concat(frames, how="vertical") if len(frames) > 1 else frames[0]
     return table
+
+
+__all__ = ["BLOCK_BYTES", "CsvSource", "RawTable", "open_table", "read_table"]

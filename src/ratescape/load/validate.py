@@ -46,25 +46,37 @@ def number_fix(value: str, what: str = "a plain number") -> str:
 class Cells:
     """Collects issues for one file while its columns are parsed."""
 
-    def __init__(self, path: str, frame: pl.DataFrame, issues: list[Issue]):
+    def __init__(self, path: str, frame: pl.DataFrame, issues: list[Issue], counts: dict | None = None):
         self.path = path
         self.frame = frame
         self.issues = issues
+        # bad cells per column, shared by the batches of one file (see ``finish``)
+        self.counts = counts if counts is not None else {}
 
     def report(self, mask: pl.Series, column: str, problem: str, fix) -> None:
-        """Add an issue for each row where ``mask`` is true (fix may be a callable of the value)."""
+        """Add an issue for each row where ``mask`` is true (fix may be a callable of the value).
+
+        At most :data:`MAX_ISSUES_PER_COLUMN` issues are listed per column over
+        all batches of a file; :meth:`finish` adds the count of the others.
+        """
         bad = self.frame.filter(mask)
         if bad.height == 0:
             return
-        shown = bad.head(MAX_ISSUES_PER_COLUMN)
+        already = self.counts.get(column, 0)
+        self.counts[column] = already + bad.height
+        shown = bad.head(max(0, MAX_ISSUES_PER_COLUMN - already))
         for line, value in zip(shown["line"].to_list(), shown[column].to_list() if column in shown.columns else [None] * shown.height):
             text = "" if value is None else str(value)
             self.issues.append(Issue(self.path, line, column, text, problem,
                                      fix(text) if callable(fix) else fix))
-        if bad.height > MAX_ISSUES_PER_COLUMN:
-            self.issues.append(Issue(self.path, None, column, None,
-                                     f"{bad.height - MAX_ISSUES_PER_COLUMN} more bad cells in this column",
-                                     "fix the cells listed above the same way"))
+
+    def finish(self) -> None:
+        """Add one issue per column with more bad cells than were listed."""
+        for column, n in self.counts.items():
+            if n > MAX_ISSUES_PER_COLUMN:
+                self.issues.append(Issue(self.path, None, column, None,
+                                         f"{n - MAX_ISSUES_PER_COLUMN} more bad cells in this column",
+                                         "fix the cells listed above the same way"))
 
     def text(self, column: str) -> pl.Series:
         if column not in self.frame.columns:

@@ -43,7 +43,7 @@ TABLES = {
         pi_rank_min INTEGER, pi_rank_median DOUBLE, pi_rank_max INTEGER, top_k_share DOUBLE,
         selected_share DOUBLE, selected_probability DOUBLE,
         future_worth_base DOUBLE, bc_ratio_base DOUBLE, bc_ratio_modified_base DOUBLE, payback_periods DOUBLE,
-        discounted_payback_base DOUBLE, mirr_base DOUBLE,
+        discounted_payback_base DOUBLE, mirr_base DOUBLE, pw_before_tax_base DOUBLE,
         PRIMARY KEY (run_id, project_id))""",
     "irr_results": """CREATE TABLE IF NOT EXISTS irr_results (
         run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, inflation DOUBLE NOT NULL,
