@@ -142,3 +142,28 @@ def test_failure_in_the_middle_of_a_chunk_write_leaves_no_partial_rows(db, monke
     assert fetch(db, "SELECT count(*) FROM project_summary WHERE run_id = ?", [run_id])[0][0] == 8
     screen_portfolio(db, resume=run_id)
     assert fetch(db, "SELECT count(*) FROM results WHERE run_id = ?", [run_id])[0][0] == 24 * 45
+
+
+def test_irr_fisher_shortcut_equals_a_search_at_every_inflation_level(db):
+    """Real-only projects: roots searched once and mapped by (1+i) = (1+f)(1+r) (exact Fisher relation)
+    must equal a direct search of the then-current stream at each level (identity)."""
+    from ratescape.evaluate.irr import irr_roots
+    from ratescape.evaluate.kernel import then_current_streams
+    from ratescape.grid import make_grid_spec
+    from ratescape.store.database import connect_write
+    con = connect_write(db)
+    try:
+        spec = make_grid_spec(discount_rates="0.1", inflation="0:0.1:6")
+        plan = screen_module._plan(con, "probe", spec, None)
+        A_by_role, _, _ = screen_module._chunk_amounts(con, plan, 0, plan.project_count)
+    finally:
+        con.close()
+    A = A_by_role.sum(axis=0)
+    got = screen_module.irr_over_inflation(plan, A)
+    streams = then_current_streams(A, plan.classes, plan.exponents, plan.inflation_levels, plan.irr_multipliers)
+    F, P, T = streams.shape
+    want = irr_roots(streams.reshape(F * P, T), low=-0.99, high=10.0)
+    np.testing.assert_array_equal(got.count, want.count)
+    k = min(got.roots.shape[1], np.asarray(want.roots).shape[1])
+    np.testing.assert_allclose(got.roots[:, :k], np.asarray(want.roots)[:, :k], rtol=1e-9, atol=1e-10)
+    assert (got.labels == np.asarray(want.labels)).all()

@@ -266,9 +266,8 @@ def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> di
         "pw_expected": pw @ w, "pw_base": pw[:, b], "accepted_base": accepted[:, b],
         "annual_worth_base": aw[:, b], "horizon": horizon.astype(np.int32),
     }
-    streams = then_current_streams(A, plan.classes, plan.exponents, plan.inflation_levels, plan.irr_multipliers)
-    F, P, T = streams.shape
-    irr = irr_roots(streams.reshape(F * P, T), low=IRR_SEARCH[0], high=IRR_SEARCH[1])
+    irr = irr_over_inflation(plan, A)
+    F, P = plan.inflation_levels.size, A.shape[1]
     summary.update(base_measures(plan, A_by_role, horizon))
     sens = one_at_a_time(A_by_role, plan.classes, plan.exponents, float(cols["discount_rate"][b]),
                          float(cols["inflation"][b]), plan.sensitivity, plan.base_multipliers)
@@ -277,6 +276,66 @@ def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> di
     pw_before = present_worth_classes(A, plan.tensor_before_tax) if plan.tensor_before_tax is not None else None
     return {"pw": pw, "pw_before_tax": pw_before, "aw": aw, "pi": pi, "accepted": accepted, "summary": summary, "irr": irr, "irr_shape": (F, P),
             "sensitivity": sens}
+
+
+@dataclass
+class IrrTable:
+    """IRR results laid out as (inflation level, project) rows: F * P rows, roots per period."""
+
+    roots: np.ndarray
+    count: np.ndarray
+    labels: np.ndarray
+    sign_changes: np.ndarray
+
+
+def irr_over_inflation(plan: Plan, A: np.ndarray) -> IrrTable:
+    """Every IRR root of every project's then-current stream at each inflation level of the grid.
+
+    A project whose lines are all real (constant base-year money) has a then-current stream
+    (1+f)^tau R_t, so its nominal roots are (1+i) = (1+f)(1+r) for the roots r of R: its
+    IRR is searched once and mapped by the exact Fisher relation to every inflation level.
+    Projects with nominal lines are searched at each level.
+
+    Warnings
+    --------
+    IRRs place period t's flow at its end (t periods from now) whatever the run's timing
+    convention; the discount-rate switching value in ``sensitivity`` honours the convention.
+    """
+    levels = plan.inflation_levels
+    F, (C, P, T) = levels.size, A.shape
+    nominal = np.array([c.basis == "nominal" for c in plan.classes])
+    mixed = np.any(A[nominal] != 0, axis=(0, 2)) if nominal.any() else np.zeros(P, dtype=bool)
+    m = float(plan.spec.periods_per_year)
+    low, high = IRR_SEARCH
+    real_part = then_current_streams(A[:, ~mixed], plan.classes, plan.exponents, [0.0],
+                                     {k: v[:1] for k, v in plan.irr_multipliers.items()})[0]
+    r = irr_roots(real_part, low=low, high=high)
+    growth = np.power(1.0 + levels, 1.0 / m)                                     # per-period inflation factor
+    K = max(np.asarray(r.roots).shape[-1], 1)
+    parts = {}
+    if mixed.any():
+        streams = then_current_streams(A[:, mixed], plan.classes, plan.exponents, levels, plan.irr_multipliers)
+        q = irr_roots(streams.reshape(F * int(mixed.sum()), T), low=low, high=high)
+        K = max(K, np.asarray(q.roots).shape[-1])
+        parts["mixed"] = q
+    roots = np.full((F, P, K), np.nan)
+    count = np.zeros((F, P), dtype=np.int64)
+    labels = np.empty((F, P), dtype=object)
+    signs = np.zeros((F, P), dtype=np.int64)
+    rr = np.asarray(r.roots)
+    roots[:, ~mixed, :rr.shape[-1]] = growth[:, None, None] * (1.0 + rr[None]) - 1.0
+    count[:, ~mixed] = np.asarray(r.count)[None]
+    labels[:, ~mixed] = np.asarray(r.labels)[None]
+    signs[:, ~mixed] = np.asarray(r.sign_changes)[None]
+    if mixed.any():
+        q = parts["mixed"]
+        n = int(mixed.sum())
+        qr = np.asarray(q.roots).reshape(F, n, -1)
+        roots[:, mixed, :qr.shape[-1]] = qr
+        count[:, mixed] = np.asarray(q.count).reshape(F, n)
+        labels[:, mixed] = np.asarray(q.labels).reshape(F, n)
+        signs[:, mixed] = np.asarray(q.sign_changes).reshape(F, n)
+    return IrrTable(roots.reshape(F * P, K), count.ravel(), labels.ravel(), signs.ravel())
 
 
 def base_measures(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> dict:

@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..evaluate.kernel import present_worth_at
+from ..evaluate.kernel import PointEvaluator
 from .switching import SWITCH_AT_BASE, SWITCH_NONE, SWITCH_ONE, first_cost_switching_multiplier, \
     linear_switching_multiplier, switching_value
 
@@ -87,12 +87,13 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
     base = {"discount_rate": base_rate, "inflation": base_inflation, "first_cost": 1.0, "benefits": 1.0,
             "escalation": 0.0}
 
+    evaluate = PointEvaluator(A, classes, exponents, mult)
+
     def pw(**kw):
         args = dict(discount_rate=base_rate, inflation=base_inflation, escalation_shift=0.0,
                     cost_multiplier=1.0, benefit_multiplier=1.0)
         args.update(kw)
-        return present_worth_at(A, classes, exponents, args.pop("discount_rate"), args.pop("inflation"),
-                                multipliers=mult, **args)
+        return evaluate(args.pop("discount_rate"), args.pop("inflation"), **args)
 
     fns = {
         "discount_rate": lambda v: pw(discount_rate=v),

@@ -249,7 +249,7 @@ def present_worth_at(amounts_by_role: np.ndarray, classes: Sequence[LineClass], 
     discount_rate, inflation : scalar or (P,) [fraction per year], nominal rate and inflation.
     escalation_shift : scalar or (P,) [fraction per year] added to every real line's escalation.
     cost_multiplier, benefit_multiplier : scalar or (P,) multipliers of investment and benefit lines.
-    multipliers : name -> scalar or (P,) values of the classes' per-scenario multipliers.
+    multipliers : name -> scalar values of the classes' multipliers at this point.
 
     Returns
     -------
@@ -260,30 +260,64 @@ def present_worth_at(amounts_by_role: np.ndarray, classes: Sequence[LineClass], 
     Same factors as :func:`discount_tensor`, evaluated per project instead of per
     grid scenario: PW_p = sum_c sum_t a_cpt ((1+e_c+d_p)(1+f_p))^tau_t / (1+i_p)^tau_t.
     """
-    A = np.asarray(amounts_by_role, dtype=float)
-    if A.ndim != 4 or A.shape[0] != len(ROLES) or A.shape[1] != len(classes):
-        raise ValueError(f"amounts_by_role must be (R={len(ROLES)}, C={len(classes)}, P, T), got shape {A.shape}")
-    _, C, P, T = A.shape
-    tau = np.asarray(exponents, dtype=float)
-    i = np.broadcast_to(np.asarray(discount_rate, dtype=float), (P,))
-    f = np.broadcast_to(np.asarray(inflation, dtype=float), (P,))
-    shift = np.broadcast_to(np.asarray(escalation_shift, dtype=float), (P,))
-    cm = np.broadcast_to(np.asarray(cost_multiplier, dtype=float), (P,))
-    bm = np.broadcast_to(np.asarray(benefit_multiplier, dtype=float), (P,))
-    if np.any(i <= -1) or np.any(f <= -1):
-        raise ValueError("rates must be > -1")
-    multipliers = dict(multipliers or {})
-    log_i = np.log1p(i)
-    out = np.zeros(P)
-    for c, cls in enumerate(classes):  # a handful of classes; vectorised over projects and periods
-        if cls.basis == "real":
-            with np.errstate(invalid="ignore"):
-                log_g = np.log1p(cls.escalation + shift) + np.log1p(f)
-        else:
-            log_g = np.zeros(P)
-        factor = np.exp(np.multiply.outer(log_g - log_i, tau))            # (P, T)
-        if cls.multiplier != "one":
-            factor = factor * multiplier_values(cls.multiplier, multipliers, (P,))[:, None]
-        lines = A[0, c] * cm[:, None] + A[1, c] * bm[:, None] + A[2, c]
-        out += np.einsum("pt,pt->p", lines, factor)
-    return out
+    return PointEvaluator(amounts_by_role, classes, exponents, multipliers)(
+        discount_rate, inflation, escalation_shift=escalation_shift, cost_multiplier=cost_multiplier,
+        benefit_multiplier=benefit_multiplier)
+
+
+class PointEvaluator:
+    """Evaluate present worth of a chunk's projects at many single points, reusing its layout.
+
+    When every project shares the point (a scan value), the worth is three
+    matrix-vector products over the flattened (P, C*T) amounts; otherwise the
+    factors are built per project, (P, T) per class.
+    """
+
+    def __init__(self, amounts_by_role, classes: Sequence[LineClass], exponents, multipliers=None):
+        A = np.asarray(amounts_by_role, dtype=float)
+        if A.ndim != 4 or A.shape[0] != len(ROLES) or A.shape[1] != len(classes):
+            raise ValueError(f"amounts_by_role must be (R={len(ROLES)}, C={len(classes)}, P, T), got shape {A.shape}")
+        self.A = A
+        self.classes = list(classes)
+        self.tau = np.asarray(exponents, dtype=float)
+        self.multipliers = {k: float(np.asarray(v, dtype=float).ravel()[0]) for k, v in (multipliers or {}).items()}
+        _, C, P, T = A.shape
+        self.P = P
+        self.total = A.sum(axis=0)                                               # (C, P, T)
+        flat = lambda x: np.ascontiguousarray(x.transpose(1, 0, 2)).reshape(P, C * T)  # noqa: E731
+        self.flat_total, self.flat_invest, self.flat_benefit = flat(self.total), flat(A[0]), flat(A[1])
+
+    def __call__(self, discount_rate, inflation, *, escalation_shift=0.0, cost_multiplier=1.0,
+                 benefit_multiplier=1.0) -> np.ndarray:
+        P = self.P
+        i, f, shift, cm, bm = (np.broadcast_to(np.asarray(v, dtype=float), (P,)) for v in
+                               (discount_rate, inflation, escalation_shift, cost_multiplier, benefit_multiplier))
+        if np.any(i <= -1) or np.any(f <= -1):
+            raise ValueError("rates must be > -1")
+        if P == 0:
+            return np.zeros(0)
+        if all(np.all(v == v[0]) for v in (i, f, shift)):
+            shifted = [LineClass(c.basis, c.escalation + (shift[0] if c.basis == "real" else 0.0), c.multiplier)
+                       for c in self.classes]
+            point = {k: np.array([v]) for k, v in self.multipliers.items()}
+            d = discount_tensor(shifted, self.tau, i[:1], f[:1], point)[:, :, 0].ravel()   # (C*T,)
+            out = self.flat_total @ d
+            if np.any(cm != 1.0):
+                out = out + (cm - 1.0) * (self.flat_invest @ d)
+            if np.any(bm != 1.0):
+                out = out + (bm - 1.0) * (self.flat_benefit @ d)
+            return out
+        log_i = np.log1p(i)
+        out = np.zeros(P)
+        for c, cls in enumerate(self.classes):  # a handful of classes; vectorised over projects and periods
+            if cls.basis == "real":
+                with np.errstate(invalid="ignore"):
+                    log_g = np.log1p(cls.escalation + shift) + np.log1p(f)
+            else:
+                log_g = np.zeros(P)
+            factor = np.exp(np.multiply.outer(log_g - log_i, self.tau))          # (P, T)
+            if cls.multiplier != "one":
+                factor = factor * multiplier_values(cls.multiplier, self.multipliers, (P,))[:, None]
+            lines = self.total[c] + (cm - 1.0)[:, None] * self.A[0, c] + (bm - 1.0)[:, None] * self.A[1, c]
+            out += np.einsum("pt,pt->p", lines, factor)
+        return out

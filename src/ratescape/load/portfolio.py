@@ -43,10 +43,11 @@ def _sha256(path) -> str:
     return h.hexdigest()
 
 
-# Typed cash-flow rows kept while the file is read once. Past this many the read
-# only validates, and a second read builds the rows once the file is known to be
-# good: refusing a file of any size then needs memory for one block only.
-KEEP_ROWS = 2_000_000
+# Cash-flow files up to this size are validated and typed in one read. A bigger
+# file is read twice: the first read only validates (memory for one block), the
+# second builds the typed rows once the file is known to be good, so refusing a
+# file of any size needs memory for one block only.
+SINGLE_READ_BYTES = 16 << 20
 
 
 def _typed_flows(cells: Cells, source: str) -> pl.DataFrame:
@@ -92,8 +93,7 @@ def _read_cash_flows(path, issues: list[Issue], notes: list[str], known_ids: set
     counts: dict = {}
     known = pl.Series("known", sorted(known_ids), dtype=pl.String).implode() if known_ids is not None else None
     kept: list[pl.DataFrame] = []
-    kept_rows = 0
-    keep = True
+    keep = source.path.stat().st_size <= SINGLE_READ_BYTES
     stats: list[pl.DataFrame] = []
 
     def unknown_fix(pid: str) -> str:
@@ -109,9 +109,8 @@ def _read_cash_flows(path, issues: list[Issue], notes: list[str], known_ids: set
                                                       pl.col("source_line").min().alias("line")))
         if len(stats) >= 32:
             stats = [_flow_stats(stats)]
-        if keep and not issues and kept_rows + typed.height <= KEEP_ROWS:
+        if keep and not issues:
             kept.append(typed)
-            kept_rows += typed.height
         else:
             keep, kept = False, []
     source.finish()
@@ -126,7 +125,7 @@ def _read_cash_flows(path, issues: list[Issue], notes: list[str], known_ids: set
     merged = _flow_stats(stats)
     if issues:
         return None, merged
-    if not keep:  # the file is good but was too big to keep on the first read: read it again
+    if not keep:  # the file is good but too big to keep during the first read: read it again
         second = open_table(path, CASH_FLOW_COLUMNS, [])
         assert second is not None
         kept = [_typed_flows(Cells(source.name, batch, issues, {}), name) for batch in second.batches()]

@@ -28,7 +28,7 @@ from ..errors import Issue
 BOM = b"\xef\xbb\xbf"
 # Bytes read per block. A block becomes a few frames of the same size, so the
 # loader's memory stays near a small multiple of this whatever the file size.
-BLOCK_BYTES = 4 << 20
+BLOCK_BYTES = 1 << 20
 # A block is cut at the last line end outside quotes; a file whose quotes never
 # balance would otherwise be carried whole, so give up past this many bytes.
 MAX_CARRY_BYTES = 16 * BLOCK_BYTES
@@ -78,7 +78,7 @@ class CsvSource:
     header_bytes: int                # bytes of the header line (with BOM and line end)
     issues: list[Issue]
     notes: list[str] = field(default_factory=list)
-    block_bytes: int = BLOCK_BYTES
+    block_bytes: int = field(default_factory=lambda: BLOCK_BYTES)
     broken: bool = False             # a structural problem was found: no more frames are yielded
     blank_lines: int = 0
     rows: int = 0
@@ -208,7 +208,8 @@ def _parse_quoted(text: str, n: int, first_line: int, src: CsvSource) -> pl.Data
         except StopIteration:
             break
         except csv.Error as exc:
-            src._structural(first_line + reader.line_num - 1, None, f"malformed quoting ({exc})",
+            row_text = text.split("\n", before + 1)[before] if text.count("\n") >= before else ""
+            src._structural(first_line + before, _excerpt(row_text), f"malformed quoting in the row starting on this line ({exc})",
                             "quote a whole cell (\"1,200.50\") and double any quote inside it (\"\")")
             return None
         start = first_line + before
