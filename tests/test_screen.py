@@ -167,3 +167,33 @@ def test_irr_fisher_shortcut_equals_a_search_at_every_inflation_level(db):
     k = min(got.roots.shape[1], np.asarray(want.roots).shape[1])
     np.testing.assert_allclose(got.roots[:, :k], np.asarray(want.roots)[:, :k], rtol=1e-9, atol=1e-10)
     assert (got.labels == np.asarray(want.labels)).all()
+
+
+def test_rank_statistics_match_scipy_rankdata(db, monkeypatch):
+    """Competition ranks (1 = largest PW, ties share the smallest rank) recomputed with
+    scipy.stats.rankdata(method="min") from the stored results; small blocks force several passes."""
+    from scipy.stats import rankdata
+    monkeypatch.setattr(screen_module, "RANK_BLOCK_CELLS", 24 * 7)
+    run_id = screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5")
+    rows = fetch(db, "SELECT project_id, scenario_id, present_worth, profitability_index FROM results WHERE run_id = ?", [run_id])
+    ids = sorted({r[0] for r in rows})
+    pw = np.zeros((len(ids), 45))
+    pi = np.full((len(ids), 45), np.nan)
+    for pid, sid, v, p in rows:
+        pw[ids.index(pid), sid] = v
+        pi[ids.index(pid), sid] = np.nan if p is None else p
+    ranks = rankdata(-pw, method="min", axis=0)
+    has_pi = np.isfinite(pi).all(axis=1)
+    pi_ranks = rankdata(-pi[has_pi], method="min", axis=0)
+    base = fetch(db, "SELECT scenario_id FROM scenarios WHERE run_id = ? AND is_base", [run_id])[0][0]
+    summary = {r[0]: r[1:] for r in fetch(db, """SELECT project_id, rank_min, rank_median, rank_max, rank_base,
+                                                 pi_rank_min, pi_rank_max FROM project_summary WHERE run_id = ?""", [run_id])}
+    pi_row = dict(zip(np.array(ids)[has_pi], pi_ranks))
+    for n, pid in enumerate(ids):
+        lo, med, hi, rb, plo, phi = summary[pid]
+        assert (lo, hi, rb) == (ranks[n].min(), ranks[n].max(), ranks[n, base])
+        assert med == pytest.approx(np.median(ranks[n]))
+        if pid in pi_row:
+            assert (plo, phi) == (pi_row[pid].min(), pi_row[pid].max())
+        else:
+            assert plo is None and phi is None

@@ -55,12 +55,12 @@ def _projects(con):
 def _pw_cube(con, plan, column: str = "present_worth") -> np.ndarray:
     """(P, S) matrix of a results column, projects in project_key order."""
     P, S = plan.project_count, plan.scenarios.size
-    data = con.execute(f"""SELECT p.project_key, r.scenario_id, r.{column}
-                           FROM results r JOIN projects p USING (project_id) WHERE r.run_id = ?""",
+    data = con.execute(f"SELECT project_key, scenario_id, {column} FROM results WHERE run_id = ?",
                        [plan.run_id]).fetchnumpy()
     cube = np.full((P, S), np.nan)
-    cube[data["project_key"].astype(np.int64), data["scenario_id"].astype(np.int64)] = np.asarray(
-        data[column], dtype=float)
+    raw = data[column]
+    values = np.ma.filled(raw.astype(float), np.nan) if np.ma.isMaskedArray(raw) else np.asarray(raw, dtype=float)
+    cube[np.asarray(data["project_key"], dtype=np.int64), np.asarray(data["scenario_id"], dtype=np.int64)] = values
     return cube
 
 

@@ -22,6 +22,7 @@ import pyarrow as pa
 from . import __version__
 from .errors import RunError
 from .evaluate.irr import irr_roots
+from .decide.ranking import rank_projects
 from .decide.sensitivity import SensitivitySettings, one_at_a_time
 from .evaluate.kernel import (ROLES, LineClass, capital_recovery_factor, discount_tensor, present_worth_classes,
                               then_current_streams)
@@ -389,6 +390,7 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
         "profitability_index": pa.array(out["pi"].ravel(), mask=np.isnan(out["pi"].ravel())),
         "present_worth_before_tax": (pa.array(out["pw_before_tax"].ravel()) if out["pw_before_tax"] is not None
                                      else pa.nulls(P * S, pa.float64())),
+        "project_key": pa.array(np.repeat(np.arange(first, first + P, dtype=np.int32), S)),
     })
     summary = pa.table({"project_id": pa.array(ids.tolist(), type=pa.string()),
                         **{k: pa.array(v, mask=np.isnan(v) if np.asarray(v).dtype.kind == "f" else None)
@@ -449,9 +451,9 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
         con.unregister("chunk_spider")
         con.register("chunk_results", results)
         con.execute("INSERT INTO results (run_id, project_id, scenario_id, present_worth, annual_worth, accepted, "
-                    "profitability_index, present_worth_before_tax) SELECT ?, project_id::VARCHAR, scenario_id, "
-                    "present_worth, annual_worth, accepted, profitability_index, present_worth_before_tax "
-                    "FROM chunk_results",
+                    "profitability_index, present_worth_before_tax, project_key) SELECT ?, project_id::VARCHAR, "
+                    "scenario_id, present_worth, annual_worth, accepted, profitability_index, "
+                    "present_worth_before_tax, project_key FROM chunk_results",
                     [plan.run_id])
         con.unregister("chunk_results")
         con.register("chunk_summary", summary)
@@ -471,32 +473,85 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
     return P * S
 
 
-def _finalize(con, plan: Plan) -> None:
-    """Ranks across all projects per scenario (in DuckDB), the decision stage, then mark the run done.
+# Cells of the (projects x scenarios) block read back for ranking, and the largest rank matrix
+# kept in memory for exact medians (uint32: 4 bytes a cell; ~1 GB = 100,000 x 2,601).
+RANK_BLOCK_CELLS = 20_000_000
+RANK_MATRIX_BYTES = 1_100_000_000
 
-    Ranks: 1 = largest present worth (or profitability index) in the scenario,
-    ties share the smallest rank ("competition ranking"); projects without an
-    investment outlay have no profitability index and no PI rank.
+
+def rank_statistics(con, plan: Plan) -> dict:
+    """Per-project rank statistics by present worth and by profitability index, in scenario blocks.
+
+    Reads the run's stored results back one block of scenarios at a time (bounded memory),
+    ranks every project within each scenario (1 = largest; ties share the smallest rank,
+    "competition ranking"; projects without an investment outlay have no PI rank), and keeps
+    min, max, the base scenario's rank and the top-K count. Medians are exact while the
+    (P, S) rank matrix fits in RANK_MATRIX_BYTES; beyond that they are left empty (logged).
     """
+    P, S = plan.project_count, plan.scenarios.size
     base = plan.scenarios.base_index
-    top_k = int(plan.spec.decisions.get("top_k", 10))
+    k = int(plan.spec.decisions.get("top_k", 10))
+    block = max(1, min(S, RANK_BLOCK_CELLS // max(P, 1)))
+    exact_median = P * S * 4 <= RANK_MATRIX_BYTES
+    if not exact_median:
+        log(f"ranks: {P:,} x {S:,} ranks exceed the in-memory limit; median ranks are left empty")
+    stats = {}
+    for name in ("pw", "pi"):
+        stats[name] = {"min": np.full(P, np.iinfo(np.int64).max), "max": np.zeros(P, dtype=np.int64),
+                       "base": np.zeros(P, dtype=np.int64), "top": np.zeros(P),
+                       "all": np.zeros((P, S), dtype=np.uint32) if exact_median else None,
+                       "valid": np.zeros(P, dtype=bool)}
+    for a in range(0, S, block):
+        b = min(S, a + block)
+        data = con.execute("""SELECT project_key, scenario_id, present_worth, profitability_index FROM results
+                              WHERE run_id = ? AND scenario_id >= ? AND scenario_id < ?""",
+                           [plan.run_id, a, b]).fetchnumpy()
+        rows = np.asarray(data["project_key"], dtype=np.int64)
+        cols = np.asarray(data["scenario_id"], dtype=np.int64) - a
+        for name, column in (("pw", "present_worth"), ("pi", "profitability_index")):
+            values = np.full((P, b - a), np.nan)
+            raw = data[column]
+            vals = np.ma.filled(raw.astype(float), np.nan) if np.ma.isMaskedArray(raw) else np.asarray(raw, float)
+            values[rows, cols] = vals
+            ranks = rank_projects(values)
+            valid = np.isfinite(values)
+            st = stats[name]
+            big = np.where(valid, ranks, np.iinfo(np.int64).max)
+            st["min"] = np.minimum(st["min"], big.min(axis=1))
+            st["max"] = np.maximum(st["max"], np.where(valid, ranks, 0).max(axis=1))
+            st["top"] += ((ranks <= k) & valid).sum(axis=1)
+            st["valid"] |= valid.all(axis=1)
+            if a <= base < b:
+                st["base"] = np.where(valid[:, base - a], ranks[:, base - a], 0)
+            if st["all"] is not None:
+                st["all"][:, a:b] = np.where(valid, ranks, 0)
+    out = {}
+    for name, prefix in (("pw", "rank"), ("pi", "pi_rank")):
+        st = stats[name]
+        ok = st["valid"]
+        med = (np.median(st["all"], axis=1) if st["all"] is not None else np.full(P, np.nan))
+        out[f"{prefix}_min"] = np.where(ok, st["min"], -1)
+        out[f"{prefix}_max"] = np.where(ok, st["max"], -1)
+        out[f"{prefix}_median"] = np.where(ok, med, np.nan)
+        if name == "pw":
+            out["rank_base"] = np.where(ok, st["base"], -1)
+            out["top_k_share"] = np.where(ok, st["top"] / S, np.nan)
+    return out
+
+
+def _finalize(con, plan: Plan) -> None:
+    """Rank statistics across all projects per scenario, the decision stage, then mark the run done."""
+    stats = rank_statistics(con, plan)
+    table = pa.table({"project_key": pa.array(np.arange(plan.project_count, dtype=np.int32)),
+                      **{k: pa.array(v, mask=(v < 0) if v.dtype.kind == "i" else ~np.isfinite(v))
+                         for k, v in stats.items()}})
     with transaction(con):
-        con.execute("""
-            UPDATE project_summary AS s SET rank_min = r.rank_min, rank_median = r.rank_median,
-                   rank_max = r.rank_max, rank_base = r.rank_base, top_k_share = r.top_k_share,
-                   pi_rank_min = r.pi_rank_min, pi_rank_median = r.pi_rank_median, pi_rank_max = r.pi_rank_max
-            FROM (SELECT project_id, min(rnk) AS rank_min, median(rnk) AS rank_median, max(rnk) AS rank_max,
-                         max(rnk) FILTER (WHERE scenario_id = $base) AS rank_base,
-                         avg((rnk <= $k)::INTEGER) AS top_k_share,
-                         min(pi_rnk) AS pi_rank_min, median(pi_rnk) AS pi_rank_median, max(pi_rnk) AS pi_rank_max
-                  FROM (SELECT project_id, scenario_id,
-                               rank() OVER (PARTITION BY scenario_id ORDER BY present_worth DESC) AS rnk,
-                               CASE WHEN profitability_index IS NOT NULL THEN
-                                    rank() OVER (PARTITION BY scenario_id ORDER BY profitability_index DESC NULLS LAST)
-                               END AS pi_rnk
-                        FROM results WHERE run_id = $run)
-                  GROUP BY project_id) AS r
-            WHERE s.run_id = $run AND s.project_id = r.project_id""", {"base": base, "run": plan.run_id, "k": top_k})
+        con.register("rank_stats", table)
+        con.execute(f"""
+            UPDATE project_summary AS s SET {', '.join(f'{c} = r.{c}' for c in stats)}
+            FROM (SELECT p.project_id, rs.* FROM rank_stats rs JOIN projects p USING (project_key)) AS r
+            WHERE s.run_id = ? AND s.project_id = r.project_id""", [plan.run_id])
+        con.unregister("rank_stats")
         run_decisions(con, plan)
         con.execute("UPDATE runs SET status = 'done', finished_at = ?, message = NULL WHERE run_id = ?",
                     [_now(), plan.run_id])
