@@ -41,6 +41,7 @@ SWITCH_LABELS = {0: "one", 1: "several", 2: "none", 3: "at_base"}
 # matrix product cache-friendly (bench/bench_kernel.py).
 DEFAULT_CELLS_PER_CHUNK = 5_000_000
 IRR_SEARCH = (-0.99, 10.0)
+DUCKDB_MEMORY_LIMIT = "1GB"
 
 
 def _now() -> datetime:
@@ -379,18 +380,22 @@ def _per_period_to_annual(rate, m: float):
 
 def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out: dict, seconds: float) -> int:
     P, S = out["pw"].shape
+    # scenario-major order within the chunk: each row group spans a narrow range of scenario ids,
+    # so reading results back one block of scenarios at a time skips most row groups
     dictionary = pa.array(ids.tolist(), type=pa.string())
-    indices = pa.array(np.repeat(np.arange(P, dtype=np.int32), S))
+    indices = pa.array(np.tile(np.arange(P, dtype=np.int32), S))
+    flat = lambda a: np.ascontiguousarray(a.T).ravel()  # noqa: E731
+    pi = flat(out["pi"])
     results = pa.table({
         "project_id": pa.DictionaryArray.from_arrays(indices, dictionary),
-        "scenario_id": pa.array(np.tile(np.arange(S, dtype=np.int32), P)),
-        "present_worth": pa.array(out["pw"].ravel()),
-        "annual_worth": pa.array(out["aw"].ravel()),
-        "accepted": pa.array(out["accepted"].ravel()),
-        "profitability_index": pa.array(out["pi"].ravel(), mask=np.isnan(out["pi"].ravel())),
-        "present_worth_before_tax": (pa.array(out["pw_before_tax"].ravel()) if out["pw_before_tax"] is not None
+        "scenario_id": pa.array(np.repeat(np.arange(S, dtype=np.int32), P)),
+        "present_worth": pa.array(flat(out["pw"])),
+        "annual_worth": pa.array(flat(out["aw"])),
+        "accepted": pa.array(flat(out["accepted"])),
+        "profitability_index": pa.array(pi, mask=np.isnan(pi)),
+        "present_worth_before_tax": (pa.array(flat(out["pw_before_tax"])) if out["pw_before_tax"] is not None
                                      else pa.nulls(P * S, pa.float64())),
-        "project_key": pa.array(np.repeat(np.arange(first, first + P, dtype=np.int32), S)),
+        "project_key": pa.array(np.tile(np.arange(first, first + P, dtype=np.int32), S)),
     })
     summary = pa.table({"project_id": pa.array(ids.tolist(), type=pa.string()),
                         **{k: pa.array(v, mask=np.isnan(v) if np.asarray(v).dtype.kind == "f" else None)
@@ -574,6 +579,7 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
     size. ``stop_after_chunks`` (testing aid) stops after that many chunks,
     leaving the run resumable.
     """
+    con.execute(f"SET memory_limit = '{DUCKDB_MEMORY_LIMIT}'")   # bound DuckDB's buffers; spill beyond
     if resume:
         row = con.execute("SELECT status, grid_spec, inputs_hash, chunk_size FROM runs WHERE run_id = ?",
                           [resume]).fetchone()
