@@ -161,6 +161,10 @@ def top_k_share(ranks, k, *, weights=None):
     return hit @ (w / w.sum())
 
 
+# Above this many projects the O(P^2) pairwise form is slower than SciPy's O(P log P) per scenario.
+PAIRWISE_MAX_PROJECTS = 400
+
+
 def kendall_tau_b(pw, base, *, chunk_bytes=64 * 2**20):
     """Kendall's tau-b between each scenario's ordering and a base ordering.
 
@@ -191,9 +195,10 @@ def kendall_tau_b(pw, base, *, chunk_bytes=64 * 2**20):
     Since tau-b depends only on order, worths and ranks give the same
     value. The computation is vectorised over all n0 pairs for a chunk of
     scenarios at once (O(P^2) per scenario, as a matrix product of sign
-    vectors), which suits P up to a few thousand. For larger P it falls
-    back to ``scipy.stats.kendalltau`` (O(P log P) per scenario) in a loop
-    over scenarios.
+    vectors), which suits small P (up to ``PAIRWISE_MAX_PROJECTS``). For
+    larger P it uses ``scipy.stats.kendalltau`` (O(P log P) per scenario) in
+    a loop over scenarios: at P = 2,000 the pairwise form would cost two
+    million pair comparisons per scenario.
 
     References
     ----------
@@ -222,7 +227,7 @@ def kendall_tau_b(pw, base, *, chunk_bytes=64 * 2**20):
     out = np.full(S, np.nan)
     if P < 2:
         return out
-    if P > 3000:  # pair arrays would be too large: O(P log P) per scenario
+    if P > PAIRWISE_MAX_PROJECTS:  # O(P^2) pairs cost more than O(P log P) per scenario
         from scipy.stats import kendalltau
 
         for s in range(S):
