@@ -265,19 +265,12 @@ def test_present_worth_grid_is_accurate_wherever_the_true_value_is_a_float():
                 assert pw[p, s] == pytest.approx(float(want), rel=1e-9, abs=1e-9), (p, r)
 
 
-@pytest.mark.xfail(strict=True, reason="lead fix (evaluate/kernel.py present_worth_grid): where factors overflow, a "
-                   "stream with both signs gives inf - inf = NaN, and a zero amount 0 * inf = NaN (a short project "
-                   "padded to a long horizon at rate -0.99 has a finite PW of 605,900 but gets NaN) silently; return ±inf from a log-space sum or refuse "
-                   "with ValueError naming the rate and horizon")
 def test_present_worth_grid_never_returns_nan():
     with np.errstate(all="ignore"):
         pw = ratescape.present_worth_grid(_long_streams(), np.array(RATES))
     assert not np.isnan(pw).any(), pw
 
 
-@pytest.mark.xfail(strict=True, reason="lead fix (evaluate/irr.py irr_roots): trailing zero periods (a short project "
-                   "padded to a long chunk horizon) give thousands of spurious roots near -0.99 from about 200 periods "
-                   "on; search each row up to its own last non-zero period")
 def test_irr_roots_ignore_trailing_zero_periods():
     a = _long_streams()[2:]
     with np.errstate(all="ignore"):
@@ -326,8 +319,6 @@ def test_screen_refuses_rates_whose_factors_overflow_and_writes_nothing(tmp_path
     assert digest(db) == before
 
 
-@pytest.mark.xfail(strict=True, reason="lead fix (screen.py _plan): compute the discount tensor under "
-                   "np.errstate(over='ignore') so the refusal is the only output (a RuntimeWarning is printed first)")
 def test_screen_overflow_refusal_prints_only_the_error(tmp_path):
     db, _ = _long_portfolio(tmp_path)
     r = subprocess.run([sys.executable, "-m", "ratescape", "screen", "--db", str(db),

@@ -80,7 +80,7 @@ def test_refused_load_creates_no_database(files):
 
 @pytest.mark.parametrize("args,message", [
     (["screen", "--discount-rates", "0.2:0:5"], "Error: --discount-rates: the range 0.2:0.0 runs backwards."),
-    (["screen", "--inflation", "-1:0:3"], "Error: the inflation axis has -1 (-100 % or less)"),
+    (["screen", "--inflation", "-1:0:3"], "Error: --inflation: the inflation axis has -1 (-100 % or less)"),
     (["screen", "--budget", "zero"], "Error: --budget 'zero': expected PERIOD=AMOUNT."),
     (["screen", "--resume", "run-nope"], "Error: no run 'run-nope' in this database."),
     (["query", "no-such-query"], "Error: no query named 'no-such-query'."),

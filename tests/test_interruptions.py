@@ -193,9 +193,6 @@ def test_interrupted_report_leaves_no_partial_page(work, trial, sig, tmp_path):
     assert _no_traceback(err), err
 
 
-@pytest.mark.xfail(strict=True, reason="lead fix: `import ratescape` imports polars/duckdb eagerly (ratescape/__init__.py), "
-                   "so Ctrl-C during start-up prints a traceback; make the package imports lazy and catch "
-                   "KeyboardInterrupt around `from .cli import main` in __main__.py")
 def test_interrupt_during_start_up_prints_no_traceback(tmp_path):
     proc = cli("query", "--db", tmp_path / "none.duckdb", "runs")
     time.sleep(0.15)    # Python is still importing the package's dependencies
@@ -222,10 +219,6 @@ class _Interrupting:
         return getattr(self._con, name)
 
 
-@pytest.mark.xfail(strict=True, reason="lead fix: DuckDB turns Ctrl-C during a query into RuntimeError('Query "
-                   "interrupted'); screen.py screen() marks the run 'failed' and cli.py prints a traceback. Treat it "
-                   "as KeyboardInterrupt (store/database.py transaction and screen.screen's except clauses; "
-                   "cli.Command.invoke)")
 def test_ctrl_c_inside_a_duckdb_query_marks_the_run_interrupted(work, tmp_path):
     from ratescape import screen as screen_module
     from ratescape.grid import make_grid_spec

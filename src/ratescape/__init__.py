@@ -3,16 +3,38 @@
 Pipeline: load → grid → evaluate → decide → store → query / chart / report.
 The numeric core (:mod:`ratescape.evaluate`, :mod:`ratescape.decide`) is pure
 numpy/scipy; I/O lives at the edges.
+
+The public names below are imported on first use, so ``python -m ratescape``
+starts quickly and an early Ctrl-C interrupts cleanly.
 """
 __version__ = "0.1.0"
 
-from .evaluate.kernel import present_worth_grid  # noqa: E402
-from .evaluate.measures import present_worth  # noqa: E402
-from .evaluate.irr import irr, irr_roots  # noqa: E402
-from .evaluate.depreciation import depreciation_schedule  # noqa: E402
-from .evaluate.inflation import nominal_rate, real_rate  # noqa: E402
-from .api import load_portfolio, read_table, screen_portfolio  # noqa: E402
-from .query import run_query  # noqa: E402
+_PUBLIC = {
+    "present_worth": ("ratescape.evaluate.measures", "present_worth"),
+    "present_worth_grid": ("ratescape.evaluate.kernel", "present_worth_grid"),
+    "irr": ("ratescape.evaluate.irr", "irr"),
+    "irr_roots": ("ratescape.evaluate.irr", "irr_roots"),
+    "depreciation_schedule": ("ratescape.evaluate.depreciation", "depreciation_schedule"),
+    "nominal_rate": ("ratescape.evaluate.inflation", "nominal_rate"),
+    "real_rate": ("ratescape.evaluate.inflation", "real_rate"),
+    "load_portfolio": ("ratescape.api", "load_portfolio"),
+    "screen_portfolio": ("ratescape.api", "screen_portfolio"),
+    "read_table": ("ratescape.api", "read_table"),
+    "run_query": ("ratescape.query", "run_query"),
+}
+__all__ = [*_PUBLIC, "__version__"]
 
-__all__ = ["present_worth", "present_worth_grid", "irr", "irr_roots", "depreciation_schedule", "nominal_rate",
-           "real_rate", "load_portfolio", "screen_portfolio", "run_query", "read_table", "__version__"]
+
+def __getattr__(name):
+    if name in _PUBLIC:
+        import importlib
+
+        module, attr = _PUBLIC[name]
+        value = getattr(importlib.import_module(module), attr)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'ratescape' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_PUBLIC))

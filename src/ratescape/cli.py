@@ -31,6 +31,12 @@ class Command(click.Command):
         except KeyboardInterrupt:
             click.echo("Interrupted.", err=True)
             sys.exit(130)
+        except RuntimeError as exc:   # DuckDB's form of Ctrl-C during a query
+            from .store.database import is_interrupt
+            if not is_interrupt(exc):
+                raise
+            click.echo("Interrupted.", err=True)
+            sys.exit(130)
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
@@ -218,5 +224,12 @@ def chart(db_path, kind, run_id, projects, group, out_path):
     click.echo(f"Wrote {out_path}")
 
 
+def run() -> None:
+    """Console-script entry point: ``ratescape ...``."""
+    from ._startup import import_extensions_then_honour_ctrl_c
+    import_extensions_then_honour_ctrl_c()
+    main(prog_name="ratescape")
+
+
 if __name__ == "__main__":  # pragma: no cover
-    main()
+    run()

@@ -61,6 +61,7 @@ class GridSpec:
     sensitivity: dict = field(default_factory=dict)
     decisions: dict = field(default_factory=dict)
     tax: dict = field(default_factory=dict)
+    sources: dict = field(default_factory=dict)   # setting -> where it came from (file: key, or flag)
 
     def to_json(self) -> str:
         return json.dumps(asdict(self), sort_keys=True)
@@ -153,9 +154,11 @@ def read_grid_toml(path: str | Path) -> dict:
     unknown = set(data) - allowed
     if unknown:
         raise GridError(f"{path}: unknown table(s) {sorted(unknown)}. Fix: use only {sorted(allowed)}")
-    out: dict = {}
+    out: dict = {"sources": {}}
+    src = out["sources"]
     grid = data.get("grid", {})
     for key, value in grid.items():
+        src[key] = f"{path}: grid.{key}"
         if key == "discount_rates":
             out["discount_rates"] = _axis_from_toml(value, f"{path}: grid.discount_rates")
         elif key == "inflation":
@@ -177,11 +180,17 @@ def read_grid_toml(path: str | Path) -> dict:
             raise GridError(f"{path}: unknown key time.{key}. Fix: use timing or periods_per_year")
     budget = data.get("budget", {})
     if "periods" in budget:
-        out["budgets"] = {int(k): float(v) for k, v in budget["periods"].items()}
+        src["budget"] = f"{path}: budget.periods"
+        try:
+            out["budgets"] = {int(k): float(v) for k, v in budget["periods"].items()}
+        except (TypeError, ValueError):
+            raise GridError(f"{path}: budget.periods must map period numbers to amounts. "
+                            'Fix: e.g. periods = { "0" = 50e6, "1" = 20e6 }') from None
     tax = dict(data.get("tax", {}))
     if tax:
         out["after_tax"] = bool(tax.pop("after_tax", True))
         if "rate" in tax:
+            src["tax_rate"] = f"{path}: tax.rate"
             rate = tax.pop("rate")
             if "tax_rate" not in [a.name for a in out.get("extra_axes", [])]:
                 out.setdefault("extra_axes", []).append(Axis("tax_rate", _axis_from_toml(rate, f"{path}: tax.rate")))
@@ -201,6 +210,11 @@ def make_grid_spec(*, toml_settings: dict | None = None, discount_rates: str | N
                    tax_rate: str | None = None) -> GridSpec:
     """Combine TOML settings with command-line overrides (flags win) and validate."""
     s = dict(toml_settings or {})
+    s["sources"] = dict(s.get("sources", {}))
+    for flag, key, value in (("--discount-rates", "discount_rates", discount_rates), ("--inflation", "inflation", inflation),
+                             ("--budget", "budget", budgets), ("--tax-rate", "tax_rate", tax_rate)):
+        if value:
+            s["sources"][key] = flag
     if discount_rates is not None:
         s["discount_rates"] = parse_range(discount_rates, "--discount-rates")
     if inflation is not None:
@@ -227,44 +241,63 @@ def make_grid_spec(*, toml_settings: dict | None = None, discount_rates: str | N
 
 
 def validate_grid_spec(spec: GridSpec) -> None:
-    """Refuse rates at or below -100 %, unknown bases and conventions, empty or huge grids."""
+    """Refuse rates at or below -100 %, unknown bases and conventions, empty or huge grids.
+
+    Messages start with where the setting came from (the TOML file and key, or the flag).
+    """
+    src = spec.sources or {}
+
+    def where(key: str, default: str) -> str:
+        return src.get(key, default) + ": "
+
+    axis_key = {"discount_rate": "discount_rates", "real_rate": "discount_rates"}
     if spec.discount_basis not in ("nominal", "real"):
-        raise GridError(f"discount basis must be 'nominal' or 'real', got {spec.discount_basis!r}. "
+        raise GridError(f"{where('discount_basis', '--discount-basis')}discount basis must be 'nominal' or 'real', "
+                        f"got {spec.discount_basis!r}. "
                         "Fix: --discount-basis nominal (market rates) or real (rates net of inflation)")
     if spec.timing not in TIMING_CONVENTIONS:
-        raise GridError(f"timing must be one of {', '.join(TIMING_CONVENTIONS)}, got {spec.timing!r}")
+        raise GridError(f"timing must be one of {', '.join(TIMING_CONVENTIONS)}, got {spec.timing!r}. "
+                        "Fix: use --timing end, mid or beginning")
     if not (isinstance(spec.periods_per_year, (int, float)) and spec.periods_per_year > 0):
-        raise GridError(f"periods_per_year must be a positive number, got {spec.periods_per_year!r} (1 = years, 12 = months)")
+        raise GridError(f"periods_per_year must be a positive number, got {spec.periods_per_year!r}. "
+                        "Fix: 1 = years, 4 = quarters, 12 = months")
     for axis in spec.axes:
+        w = where(axis_key.get(axis.name, axis.name), f"grid axis {axis.name}")
         vals = np.asarray(axis.values, dtype=float)
         if vals.size == 0:
-            raise GridError(f"the {axis.name} axis has no values. Fix: give at least one")
+            raise GridError(f"{w}the {axis.name} axis has no values. Fix: give at least one")
         if not np.all(np.isfinite(vals)):
-            raise GridError(f"the {axis.name} axis has a non-finite value. Fix: give finite fractions")
+            bad = vals[~np.isfinite(vals)][0]
+            raise GridError(f"{w}the {axis.name} axis has a non-finite value ({bad}). Fix: give finite fractions")
         if np.unique(vals).size != vals.size:
-            raise GridError(f"the {axis.name} axis repeats a value. Fix: give distinct values")
+            raise GridError(f"{w}the {axis.name} axis repeats a value. Fix: give distinct values")
         if axis.name in ("discount_rate", "real_rate", "inflation") and np.any(vals <= -1.0):
             bad = vals[vals <= -1.0][0]
-            raise GridError(f"the {axis.name} axis has {bad:g} (-100 % or less), where money would lose all value. "
+            raise GridError(f"{w}the {axis.name} axis has {bad:g} (-100 % or less), where money would lose all value. "
                             "Fix: rates are fractions greater than -1 (0.07 = 7 %)")
         if axis.name in EXTRA_AXES:
             low, high, what = EXTRA_AXES[axis.name]
             if np.any(vals < low) or (high is not None and np.any(vals > high)):
-                raise GridError(f"the {axis.name} axis must hold {what}, got {vals.min():g}..{vals.max():g}")
+                raise GridError(f"{w}the {axis.name} axis must hold {what}, got {vals.min():g}..{vals.max():g}. "
+                                f"Fix: give values of at least {low:g}" + (f" and at most {high:g}" if high else ""))
     if spec.discount_basis == "real":
         i = nominal_rate(np.asarray(spec.discount_rates)[None, :], np.asarray(spec.inflation)[:, None])
         if np.any(np.asarray(i) <= -1.0):
-            raise GridError("a real rate and an inflation rate combine to a nominal rate of -100 % or less")
-    else:
-        pass  # real_rate > -1 follows from i > -1 and f > -1
+            raise GridError("a real rate and an inflation rate combine to a nominal rate of -100 % or less. "
+                            "Fix: raise the lowest real rate or the lowest inflation")
     if spec.scenario_count > MAX_SCENARIOS:
-        raise GridError(f"the grid has {spec.scenario_count:,} scenarios, more than {MAX_SCENARIOS:,}. Fix: use fewer steps")
+        raise GridError(f"the grid has {spec.scenario_count:,} scenarios, more than {MAX_SCENARIOS:,}. "
+                        "Fix: use fewer steps on some axes")
     for period, amount in spec.budgets.items():
         if int(period) < 0 or not (isinstance(amount, (int, float)) and math.isfinite(amount) and amount >= 0):
-            raise GridError(f"budget for period {period} must be a non-negative amount, got {amount!r}")
+            raise GridError(f"{where('budget', '--budget')}budget for period {period} must be a non-negative amount, "
+                            f"got {amount!r}. Fix: give the most the investment lines of that period may spend, "
+                            "e.g. 50e6")
+    names = [a.name for a in spec.axes]
     for key in spec.base:
-        if key not in [a.name for a in spec.axes] + ["discount_rate", "real_rate"]:
-            raise GridError(f"base names an unknown axis {key!r}. Fix: use one of {[a.name for a in spec.axes]}")
+        if key not in names + ["discount_rate", "real_rate"]:
+            raise GridError(f"{where('base', 'grid.base')}base names an unknown axis {key!r}. "
+                            f"Fix: use one of {names}")
 
 
 def parse_budget(items: list[str] | tuple[str, ...]) -> dict[int, float]:

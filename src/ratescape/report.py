@@ -26,6 +26,7 @@ import datetime as _dt
 import functools
 import json
 import math
+import os
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -931,7 +932,14 @@ def write_report(
     page = build_report_html(sections, title=title, metadata=meta,
                              subtitle=f"Written {stamp} from {db.name}.")
     out = Path(out_path)
-    out.write_text(page, encoding="utf-8")
+    # write next to the target and rename: an interrupted write never leaves a partial page
+    tmp = out.with_name(f".{out.name}.{os.getpid()}.tmp")
+    try:
+        tmp.write_text(page, encoding="utf-8")
+        os.replace(tmp, out)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
     return out
 
 

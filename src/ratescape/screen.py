@@ -32,7 +32,7 @@ from .evaluate.tax import after_tax_lines
 from .evaluate.timing import discount_exponents
 from .grid import GridSpec, ScenarioTable, build_scenarios
 from .progress import Progress, log
-from .store.database import fetch_frame, transaction
+from .store.database import fetch_frame, is_interrupt, transaction
 
 SWITCH_LABELS = {0: "one", 1: "several", 2: "none", 3: "at_base"}
 
@@ -140,7 +140,8 @@ def _plan(con, run_id: str, spec: GridSpec, chunk_size: int | None) -> Plan:
     tau = discount_exponents(T, spec.timing, spec.periods_per_year)
     multipliers = scenario_multipliers(table, spec.after_tax)
     rates = (table.columns["discount_rate"], table.columns["inflation"])
-    tensor = discount_tensor(classes, tau, *rates, multipliers)
+    with np.errstate(over="ignore", invalid="ignore"):      # overflow is refused just below, cleanly
+        tensor = discount_tensor(classes, tau, *rates, multipliers)
     before = None
     if spec.after_tax:
         zero_tax = dict(multipliers, tax=np.zeros(table.size), after_tax=np.ones(table.size),
@@ -644,13 +645,14 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
             bar.update()
         bar.close()
         _finalize(con, plan)
-    except KeyboardInterrupt:
-        bar.close()
-        con.execute("UPDATE runs SET status = 'interrupted', message = ? WHERE run_id = ?",
-                    [f"interrupted; resume with --resume {plan.run_id}", plan.run_id])
-        raise
     except BaseException as exc:
         bar.close()
+        if is_interrupt(exc):
+            con.execute("UPDATE runs SET status = 'interrupted', message = ? WHERE run_id = ?",
+                        [f"interrupted; resume with --resume {plan.run_id}", plan.run_id])
+            if isinstance(exc, KeyboardInterrupt):
+                raise
+            raise KeyboardInterrupt(str(exc)) from exc
         try:
             con.execute("UPDATE runs SET status = 'failed', message = ? WHERE run_id = ?",
                         [f"{type(exc).__name__}: {exc}"[:500], plan.run_id])

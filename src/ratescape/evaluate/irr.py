@@ -173,7 +173,7 @@ def _check_args(amounts, low, high, grid_points):
     return a, low, high, int(grid_points)
 
 
-def _newton_bisect(A, lo, hi, order, s_lo, x0=None, maxiter=200):
+def _newton_bisect(A, lo, hi, order, s_lo, x0=None, maxiter=200, length=None):
     """Roots of d^order PW / du^order in [lo, hi] for each row of A (K, T).
 
     ``s_lo`` is the sign of the function at ``lo`` (the sign at ``hi`` is
@@ -187,7 +187,14 @@ def _newton_bisect(A, lo, hi, order, s_lo, x0=None, maxiter=200):
     out = np.empty(K)
     idx = np.arange(K)
     Aa = A
-    ca = (T - 1) * np.minimum(lo, 0.0)  # constant scale per bracket keeps factors <= ~1
+    # constant scale per bracket keeps factors <= ~1; ``length`` is each row's last non-zero
+    # period, so a short stream padded with zeros is not scaled into underflow
+    span = (T - 1) if length is None else np.asarray(length, dtype=float)
+    ca = span * np.minimum(lo, 0.0)
+    # periods after a row's last non-zero one contribute nothing; mask them so their factors
+    # cannot overflow into 0 * inf
+    beyond = (np.zeros((K, T), bool) if length is None
+              else t[None, :] > np.asarray(length, dtype=float)[:, None])
     a = np.asarray(lo, dtype=float).copy()
     b = np.asarray(hi, dtype=float).copy()
     sa = np.asarray(s_lo, dtype=float)
@@ -195,7 +202,7 @@ def _newton_bisect(A, lo, hi, order, s_lo, x0=None, maxiter=200):
     for _ in range(maxiter):
         if idx.size == 0:
             break
-        M = Aa * np.exp(-x[:, None] * t + ca[:, None])
+        M = Aa * np.exp(np.where(beyond, -np.inf, -x[:, None] * t + ca[:, None]))
         fd = M @ w
         f, df = fd[:, 0], fd[:, 1]
         size = np.abs(M) @ aw0
@@ -215,6 +222,7 @@ def _newton_bisect(A, lo, hi, order, s_lo, x0=None, maxiter=200):
         keep = ~done
         if not keep.all():
             idx, Aa, ca, a, b, sa = idx[keep], Aa[keep], ca[keep], a[keep], b[keep], sa[keep]
+            beyond = beyond[keep]
             xn = xn[keep]
         x = xn
     out[idx] = x  # not converged within maxiter (should not happen): best estimate
@@ -281,8 +289,8 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
 
     t = np.arange(T, dtype=float)
     u = np.linspace(np.log1p(low), np.log1p(high), G)
-    scale = (T - 1) * np.minimum(u, 0.0)
-    D = np.exp(-np.outer(t, u) + scale)  # (T, G), entries <= 1
+    nonzero = A != 0
+    last = np.where(nonzero.any(axis=1), T - 1 - np.argmax(nonzero[:, ::-1], axis=1), 0)
 
     # only rows that can have a root need the grid
     search = np.flatnonzero(finite & (sc > 0))
@@ -290,9 +298,15 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
     br_rows, br_lo, br_hi, br_x0, br_slo = [], [], [], [], []
     tc_rows, tc_g, tc_sign = [], [], []
     chunk = max(1, _CHUNK_ELEMENTS // G)
-    for start in range(0, search.size, chunk):  # loop over blocks of rows, not rows
-        rows = search[start:start + chunk]
-        F = A[rows] @ D
+    # rows grouped by their last non-zero period L: each group's factors are scaled by
+    # L * min(u, 0) so they stay <= 1 without underflowing a short stream to zero
+    blocks = []
+    for L in np.unique(last[search]):  # a loop over distinct horizons, not over rows
+        group = search[last[search] == L]
+        D = np.exp(-np.outer(t[:L + 1], u) + L * np.minimum(u, 0.0))  # (L+1, G), entries <= 1
+        blocks += [(group[k:k + chunk], L, D) for k in range(0, group.size, chunk)]
+    for rows, L, D in blocks:  # loop over blocks of rows, not rows
+        F = A[rows, :L + 1] @ D
         n_g = F.shape[1]
         # exact zeros at grid points (flat indices are much faster than 2-D nonzero)
         k0 = np.flatnonzero(F == 0)
@@ -348,15 +362,16 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
         lo = u[tc_g - 1]
         hi = u[tc_g + 1]
         Ac = A[tc_rows]
-        c = (T - 1) * np.minimum(lo, 0.0)
-        d_lo = (Ac * np.exp(-lo[:, None] * t + c[:, None])) @ (-t)
-        d_hi = (Ac * np.exp(-hi[:, None] * t + c[:, None])) @ (-t)
+        c = last[tc_rows] * np.minimum(lo, 0.0)
+        past = t[None, :] > last[tc_rows][:, None]
+        d_lo = (Ac * np.exp(np.where(past, -np.inf, -lo[:, None] * t + c[:, None]))) @ (-t)
+        d_hi = (Ac * np.exp(np.where(past, -np.inf, -hi[:, None] * t + c[:, None]))) @ (-t)
         keep = np.sign(d_lo) * np.sign(d_hi) < 0
         if keep.any():
-            Ac, lo, hi, c = Ac[keep], lo[keep], hi[keep], c[keep]
+            Ac, lo, hi, c, past = Ac[keep], lo[keep], hi[keep], c[keep], past[keep]
             rows_k, sign_k = tc_rows[keep], tc_sign[keep]
-            ustar = _newton_bisect(Ac, lo, hi, order=1, s_lo=np.sign(d_lo[keep]))
-            M = Ac * np.exp(-ustar[:, None] * t + c[:, None])
+            ustar = _newton_bisect(Ac, lo, hi, order=1, s_lo=np.sign(d_lo[keep]), length=last[rows_k])
+            M = Ac * np.exp(np.where(past, -np.inf, -ustar[:, None] * t + c[:, None]))
             fstar = M.sum(axis=1)
             size = np.abs(M).sum(axis=1)
             is_touch = np.abs(fstar) <= touch_tol * size
@@ -369,7 +384,7 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
             br_x0 = np.concatenate([br_x0, 0.5 * (lo + ustar)[crosses], 0.5 * (ustar + hi)[crosses]])
             br_slo = np.concatenate([br_slo, sign_k[crosses], -sign_k[crosses]])
 
-    ref_u = (_newton_bisect(A[br_rows], br_lo, br_hi, order=0, s_lo=br_slo, x0=br_x0)
+    ref_u = (_newton_bisect(A[br_rows], br_lo, br_hi, order=0, s_lo=br_slo, x0=br_x0, length=last[br_rows])
              if br_rows.size else np.empty(0))
 
     all_rows = np.concatenate([node_rows, br_rows, touch_rows])

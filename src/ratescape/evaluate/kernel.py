@@ -178,8 +178,33 @@ def present_worth_grid(amounts, rates, *, timing: str = "end", periods_per_year:
         raise ValueError(f"amounts must be 2-D (P, T), got shape {A.shape}")
     r = _rates(np.atleast_1d(rates), "rates")
     tau = discount_exponents(A.shape[1], timing, periods_per_year)
-    V = np.exp(-np.multiply.outer(tau, np.log1p(r)))
-    return A @ V
+    with np.errstate(over="ignore"):
+        V = np.exp(-np.multiply.outer(tau, np.log1p(r)))
+    if np.all(np.isfinite(V)):
+        return A @ V
+    return _present_worth_scaled(A, tau, np.log1p(r))
+
+
+def _present_worth_scaled(A: np.ndarray, tau: np.ndarray, log_r: np.ndarray) -> np.ndarray:
+    """PW where discount factors overflow (rates near -100 % over long horizons).
+
+    Rows are grouped by their last non-zero period L (a loop over distinct horizons, not
+    rows); each group's factors are scaled by their largest value exp(tau_L * max(0, -log(1+r)))
+    so the product stays finite, then scaled back: the result is exact where it is
+    representable and +-inf (never NaN) where it is not.
+    """
+    P, T = A.shape
+    out = np.zeros((P, log_r.size))
+    nonzero = A != 0
+    last = np.where(nonzero.any(axis=1), T - 1 - np.argmax(nonzero[:, ::-1], axis=1), 0)
+    for L in np.unique(last):
+        rows = np.flatnonzero(last == L)
+        m = tau[L] * np.maximum(0.0, -log_r)                                    # (S,) log of the largest factor
+        V = np.exp(-np.multiply.outer(tau[:L + 1], log_r) - m[None, :])        # (L+1, S), entries <= 1
+        scaled = A[rows, :L + 1] @ V
+        with np.errstate(over="ignore", invalid="ignore"):
+            out[rows] = np.where(scaled == 0, 0.0, scaled * np.exp(m)[None, :])
+    return out
 
 
 def then_current_streams(amounts: np.ndarray, classes: Sequence[LineClass], exponents: np.ndarray,

@@ -46,14 +46,26 @@ def connect_read(path: str | Path) -> duckdb.DuckDBPyConnection:
         raise RatescapeError(f"{path} is not a ratescape database ({exc})") from None
 
 
+def is_interrupt(exc: BaseException) -> bool:
+    """True for Ctrl-C, including DuckDB's own form of it (a query interrupted by SIGINT)."""
+    return isinstance(exc, KeyboardInterrupt) or (
+        isinstance(exc, (RuntimeError, duckdb.Error)) and "interrupted" in str(exc).lower())
+
+
 @contextmanager
 def transaction(con):
-    """BEGIN … COMMIT, or ROLLBACK on any exception (including KeyboardInterrupt)."""
+    """BEGIN … COMMIT, or ROLLBACK on any exception (including KeyboardInterrupt).
+
+    DuckDB reports Ctrl-C during a query as an "interrupted" error; it is re-raised as
+    KeyboardInterrupt so callers treat it as the user's interruption, not a failure.
+    """
     con.execute("BEGIN TRANSACTION")
     try:
         yield con
-    except BaseException:
+    except BaseException as exc:
         con.execute("ROLLBACK")
+        if is_interrupt(exc) and not isinstance(exc, KeyboardInterrupt):
+            raise KeyboardInterrupt(str(exc)) from exc
         raise
     else:
         con.execute("COMMIT")

@@ -34,7 +34,7 @@ TABLES = {
     "results": """CREATE TABLE IF NOT EXISTS results (
         run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, scenario_id INTEGER NOT NULL,
         present_worth DOUBLE NOT NULL, annual_worth DOUBLE NOT NULL, accepted BOOLEAN NOT NULL,
-        profitability_index DOUBLE, present_worth_before_tax DOUBLE, project_key INTEGER NOT NULL)""",
+        profitability_index DOUBLE, present_worth_before_tax DOUBLE, project_key INTEGER)""",
     "project_summary": """CREATE TABLE IF NOT EXISTS project_summary (
         run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, accept_share DOUBLE, accept_probability DOUBLE,
         pw_min DOUBLE, pw_max DOUBLE, pw_mean DOUBLE, pw_expected DOUBLE, pw_base DOUBLE, accepted_base BOOLEAN,
