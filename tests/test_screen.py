@@ -197,3 +197,20 @@ def test_rank_statistics_match_scipy_rankdata(db, monkeypatch):
             assert (plo, phi) == (pi_row[pid].min(), pi_row[pid].max())
         else:
             assert plo is None and phi is None
+
+
+def test_keep_summary_and_thinned_store_fewer_rows_with_the_same_summaries(db):
+    """--keep: summaries and ranks of a run without stored rows equal those of a full run (identity)."""
+    args = dict(discount_rates="0:0.2:9", inflation="0:0.1:5", chunk_size=5)
+    full = screen_portfolio(db, **args)
+    summary = screen_portfolio(db, keep="summary", **args)
+    thinned = screen_portfolio(db, keep="thinned:2", **args)
+    assert fetch(db, "SELECT count(*) FROM results WHERE run_id = ?", [summary])[0][0] == 0
+    kept = fetch(db, """SELECT DISTINCT sc.discount_rate, sc.inflation FROM results r
+                        JOIN scenarios sc USING (run_id, scenario_id) WHERE run_id = ?""", [thinned])
+    # every 2nd of 9 rates (5) x every 2nd of 5 inflation levels (3), plus the base (0.1, 0.05) on the grid
+    assert len(kept) == 5 * 3
+    cols = "project_id, accept_share, pw_min, pw_max, rank_min, rank_median, rank_max, rank_base, pi_rank_min"
+    want = sorted(fetch(db, f"SELECT {cols} FROM project_summary WHERE run_id = ?", [full]))
+    for run_id in (summary, thinned):
+        assert sorted(fetch(db, f"SELECT {cols} FROM project_summary WHERE run_id = ?", [run_id])) == want

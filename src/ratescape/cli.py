@@ -107,10 +107,13 @@ def load(projects_path, cash_flows_path, db_path):
               help="Screen after-tax cash flows (before-tax worth is stored beside them).")
 @click.option("--tax-rate", help="Income-tax rate(s) as fractions: 0.25, or START:STOP:COUNT as a grid axis. Implies --after-tax.")
 @click.option("--chunk-size", type=click.IntRange(min=1), help="Projects per chunk (default: from memory).")
+@click.option("--keep", metavar="all|summary|thinned:K",
+              help="Result rows to store: all (default), summary (per-project summaries only), "
+                   "or thinned:K (every K-th rate and inflation level, and the base scenario).")
 @click.option("--resume", "resume", metavar="RUN_ID", help="Finish an interrupted run.")
 @click.option("--quiet", is_flag=True, help="No progress output.")
 def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budgets, timing, periods_per_year,
-           after_tax, tax_rate, chunk_size, resume, quiet):
+           after_tax, tax_rate, chunk_size, keep, resume, quiet):
     """Evaluate every project in every scenario of the grid and store the results.
 
     Rates are fractions (0.07 = 7 %). Flags override the TOML file. The run
@@ -126,12 +129,12 @@ def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budget
     """
     from .api import screen_portfolio
     if resume and (any(v is not None for v in (grid_path, discount_rates, inflation, discount_basis, timing,
-                                                periods_per_year, after_tax, tax_rate)) or bool(budgets)):
+                                                periods_per_year, after_tax, tax_rate, keep)) or bool(budgets)):
         raise click.UsageError("--resume continues a run with its stored grid; give no grid options with it")
     run_id = screen_portfolio(db_path, grid=grid_path, discount_rates=discount_rates, inflation=inflation,
                               discount_basis=discount_basis, budgets=list(budgets), timing=timing,
                               periods_per_year=periods_per_year, after_tax=after_tax, tax_rate=tax_rate,
-                              chunk_size=chunk_size,
+                              keep=keep, chunk_size=chunk_size,
                               resume=resume, progress=not quiet)
     click.echo(CAUTION, err=True)
     click.echo(run_id)

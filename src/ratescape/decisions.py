@@ -52,16 +52,11 @@ def _projects(con):
     return fetch_frame(con, "SELECT project_key, project_id, group_name, requires, mandatory FROM projects ORDER BY project_key")
 
 
-def _pw_cube(con, plan, column: str = "present_worth") -> np.ndarray:
-    """(P, S) matrix of a results column, projects in project_key order."""
-    P, S = plan.project_count, plan.scenarios.size
-    data = con.execute(f"SELECT project_key, scenario_id, {column} FROM results WHERE run_id = ?",
-                       [plan.run_id]).fetchnumpy()
-    cube = np.full((P, S), np.nan)
-    raw = data[column]
-    values = np.ma.filled(raw.astype(float), np.nan) if np.ma.isMaskedArray(raw) else np.asarray(raw, dtype=float)
-    cube[np.asarray(data["project_key"], dtype=np.int64), np.asarray(data["scenario_id"], dtype=np.int64)] = values
-    return cube
+def _pw_cube(con, plan, column: str = "present_worth") -> np.ndarray | None:
+    """(P, S) matrix of a results column, projects in project_key order (stored or recomputed)."""
+    from .screen import result_block
+    block = result_block(con, plan, 0, plan.scenarios.size)
+    return None if block is None else block[column]
 
 
 def decide_run(con, plan) -> None:
@@ -78,6 +73,9 @@ def decide_run(con, plan) -> None:
             "capital rationing are skipped for this run (query the results table instead)")
         return
     pw = _pw_cube(con, plan)
+    if pw is None:
+        log("decision stage: the worth matrix is too large to recompute; rank correlations and rationing skipped")
+        return
     _rank_correlation(con, plan, pw)
     if plan.spec.budgets:
         _ration(con, plan, projects, pw, _chunk_amounts)

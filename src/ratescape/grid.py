@@ -62,6 +62,7 @@ class GridSpec:
     decisions: dict = field(default_factory=dict)
     tax: dict = field(default_factory=dict)
     sources: dict = field(default_factory=dict)   # setting -> where it came from (file: key, or flag)
+    keep: str = "all"                             # result rows kept: all, summary, thinned:K
 
     def to_json(self) -> str:
         return json.dumps(asdict(self), sort_keys=True)
@@ -150,7 +151,7 @@ def read_grid_toml(path: str | Path) -> dict:
         raise GridError(f"{path}: invalid TOML: {exc}. Fix: correct the line shown") from None
     except UnicodeDecodeError:
         raise GridError(f"{path}: not UTF-8 text. Fix: save the file as UTF-8") from None
-    allowed = {"grid", "time", "budget", "tax", "weights", "sensitivity", "decisions"}
+    allowed = {"grid", "time", "budget", "tax", "weights", "sensitivity", "decisions", "results"}
     unknown = set(data) - allowed
     if unknown:
         raise GridError(f"{path}: unknown table(s) {sorted(unknown)}. Fix: use only {sorted(allowed)}")
@@ -197,6 +198,11 @@ def read_grid_toml(path: str | Path) -> dict:
         out["tax"] = tax
     if "weights" in data:
         out["weights"] = data["weights"]
+    if "results" in data:
+        unknown = set(data["results"]) - {"keep"}
+        if unknown:
+            raise GridError(f"{path}: unknown key(s) results.{sorted(unknown)[0]}. Fix: use results.keep")
+        out["keep"] = str(data["results"].get("keep", "all"))
     for extra in ("sensitivity", "decisions"):
         if extra in data:
             out[extra] = data[extra]
@@ -207,7 +213,7 @@ def make_grid_spec(*, toml_settings: dict | None = None, discount_rates: str | N
                    inflation: str | None = None, discount_basis: str | None = None,
                    budgets: dict | None = None, timing: str | None = None,
                    periods_per_year: float | None = None, after_tax: bool | None = None,
-                   tax_rate: str | None = None) -> GridSpec:
+                   tax_rate: str | None = None, keep: str | None = None) -> GridSpec:
     """Combine TOML settings with command-line overrides (flags win) and validate."""
     s = dict(toml_settings or {})
     s["sources"] = dict(s.get("sources", {}))
@@ -229,6 +235,8 @@ def make_grid_spec(*, toml_settings: dict | None = None, discount_rates: str | N
         s["periods_per_year"] = periods_per_year
     if after_tax is not None:
         s["after_tax"] = after_tax
+    if keep is not None:
+        s["keep"] = keep
     if tax_rate is not None:
         axes = [a for a in s.get("extra_axes", []) if a.name != "tax_rate"]
         s["extra_axes"] = axes + [Axis("tax_rate", parse_range(tax_rate, "--tax-rate"))]
@@ -293,6 +301,10 @@ def validate_grid_spec(spec: GridSpec) -> None:
             raise GridError(f"{where('budget', '--budget')}budget for period {period} must be a non-negative amount, "
                             f"got {amount!r}. Fix: give the most the investment lines of that period may spend, "
                             "e.g. 50e6")
+    if not (spec.keep in ("all", "summary") or (spec.keep.startswith("thinned:") and spec.keep[8:].isdigit()
+                                                 and int(spec.keep[8:]) >= 1)):
+        raise GridError(f"--keep {spec.keep!r} is not a choice. Fix: use all (every result row), summary (per-project "
+                        "summaries only) or thinned:K (rows of every K-th rate and inflation level, and the base)")
     names = [a.name for a in spec.axes]
     for key in spec.base:
         if key not in names + ["discount_rate", "real_rate"]:

@@ -100,6 +100,8 @@ class Plan:
     sensitivity: SensitivitySettings
     base_multipliers: dict
     tensor_before_tax: np.ndarray | None = None
+    kept: np.ndarray | None = None       # (S,) bool: scenarios whose result rows are stored
+    cubes: dict | None = None            # recomputed (P, S) worth matrices when rows are not all kept
 
     @property
     def chunk_count(self) -> int:
@@ -162,7 +164,27 @@ def _plan(con, run_id: str, spec: GridSpec, chunk_size: int | None) -> Plan:
     except ValueError as exc:
         raise RunError(f"[sensitivity] settings: {exc}") from None
     return Plan(run_id, spec, table, classes, class_index, T, tau, tensor, _scenario_weights(spec, table),
-                count, int(chunk_size), levels, irr_mult, sens, base_mult, before)
+                count, int(chunk_size), levels, irr_mult, sens, base_mult, before, kept_scenarios(spec, table))
+
+
+def kept_scenarios(spec: GridSpec, table: ScenarioTable) -> np.ndarray:
+    """Which scenarios' result rows a run stores: all, none (summary) or a thinned subset.
+
+    ``thinned:K`` keeps every K-th value of each axis (counted from the first) and the base scenario.
+    """
+    S = table.size
+    if spec.keep == "all":
+        return np.ones(S, dtype=bool)
+    if spec.keep == "summary":
+        return np.zeros(S, dtype=bool)
+    k = int(spec.keep.split(":", 1)[1])
+    keep = np.ones(S, dtype=bool)
+    for axis in spec.axes:
+        values = np.asarray(axis.values, dtype=float)
+        position = np.searchsorted(np.sort(values), table.columns[axis.name])
+        keep &= position % k == 0
+    keep[table.base_index] = True
+    return keep
 
 
 def _role_index(kind):
@@ -448,6 +470,9 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
         "change": pa.array(np.tile(sens["pct_changes"], I * P)),
         "present_worth": pa.array(sens["spider"].ravel()),
     })
+    kept = plan.kept if plan.kept is not None else np.ones(S, dtype=bool)
+    if not kept.all():
+        results = results.filter(pa.array(np.repeat(kept, P)))
     with transaction(con):
         con.register("chunk_sensitivity", sens_table)
         con.execute("INSERT INTO sensitivity SELECT ?, * FROM chunk_sensitivity", [plan.run_id])
@@ -474,9 +499,9 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
         con.execute("INSERT INTO irr_roots SELECT ?, * FROM chunk_roots", [plan.run_id])
         con.unregister("chunk_roots")
         con.execute("INSERT INTO run_chunks VALUES (?, ?, ?, ?, ?, ?, ?)",
-                    [plan.run_id, chunk_index, first, first + P - 1, P * S, _now(), seconds])
+                    [plan.run_id, chunk_index, first, first + P - 1, results.num_rows, _now(), seconds])
         con.execute("UPDATE runs SET chunks_done = chunks_done + 1 WHERE run_id = ?", [plan.run_id])
-    return P * S
+    return results.num_rows
 
 
 # Cells of the (projects x scenarios) block read back for ranking, and the largest rank matrix
@@ -509,16 +534,13 @@ def rank_statistics(con, plan: Plan) -> dict:
                        "valid": np.zeros(P, dtype=bool)}
     for a in range(0, S, block):
         b = min(S, a + block)
-        data = con.execute("""SELECT project_key, scenario_id, present_worth, profitability_index FROM results
-                              WHERE run_id = ? AND scenario_id >= ? AND scenario_id < ?""",
-                           [plan.run_id, a, b]).fetchnumpy()
-        rows = np.asarray(data["project_key"], dtype=np.int64)
-        cols = np.asarray(data["scenario_id"], dtype=np.int64) - a
+        blocks = result_block(con, plan, a, b)
+        if blocks is None:
+            log("ranks: result rows are not all kept and the worth matrix is too large to recompute in memory; "
+                "rank statistics are left empty")
+            return {}
         for name, column in (("pw", "present_worth"), ("pi", "profitability_index")):
-            values = np.full((P, b - a), np.nan)
-            raw = data[column]
-            vals = np.ma.filled(raw.astype(float), np.nan) if np.ma.isMaskedArray(raw) else np.asarray(raw, float)
-            values[rows, cols] = vals
+            values = blocks[column]
             ranks = rank_projects(values)
             valid = np.isfinite(values)
             st = stats[name]
@@ -545,9 +567,58 @@ def rank_statistics(con, plan: Plan) -> dict:
     return out
 
 
+# Largest pair of recomputed (P, S) worth matrices held when result rows are not all stored.
+CUBE_BYTES = 1_600_000_000
+
+
+def result_block(con, plan: Plan, a: int, b: int) -> dict | None:
+    """Present worth and profitability index (P, b - a) of scenarios [a, b) for every project.
+
+    Read back from the stored results when every row is kept; otherwise recomputed once, chunk by
+    chunk with the run's own kernel (the same numbers the chunks produced), and held in memory if
+    it fits in CUBE_BYTES (None when it does not).
+    """
+    P = plan.project_count
+    if plan.kept is None or plan.kept.all():
+        data = con.execute("""SELECT project_key, scenario_id, present_worth, profitability_index FROM results
+                              WHERE run_id = ? AND scenario_id >= ? AND scenario_id < ?""",
+                           [plan.run_id, a, b]).fetchnumpy()
+        rows = np.asarray(data["project_key"], dtype=np.int64)
+        cols = np.asarray(data["scenario_id"], dtype=np.int64) - a
+        out = {}
+        for column in ("present_worth", "profitability_index"):
+            values = np.full((P, b - a), np.nan)
+            raw = data[column]
+            values[rows, cols] = (np.ma.filled(raw.astype(float), np.nan) if np.ma.isMaskedArray(raw)
+                                  else np.asarray(raw, dtype=float))
+            out[column] = values
+        return out
+    if plan.cubes is None:
+        S = plan.scenarios.size
+        if 16 * P * S > CUBE_BYTES:
+            return None
+        pw = np.empty((P, S))
+        pi = np.empty((P, S))
+        for first in range(0, P, plan.chunk_size):
+            stop = min(first + plan.chunk_size, P)
+            A_by_role, _, _ = _chunk_amounts(con, plan, first, stop)
+            pw[first:stop] = present_worth_classes(A_by_role.sum(axis=0), plan.tensor)
+            outlay = -present_worth_classes(A_by_role[0], plan.tensor)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                pi[first:stop] = np.where(outlay > 0, 1.0 + pw[first:stop] / outlay, np.nan)
+        plan.cubes = {"present_worth": pw, "profitability_index": pi}
+    return {k: v[:, a:b] for k, v in plan.cubes.items()}
+
+
 def _finalize(con, plan: Plan) -> None:
     """Rank statistics across all projects per scenario, the decision stage, then mark the run done."""
     stats = rank_statistics(con, plan)
+    if not stats:
+        with transaction(con):
+            run_decisions(con, plan)
+            con.execute("UPDATE runs SET status = 'done', finished_at = ?, message = ? WHERE run_id = ?",
+                        [_now(), "rank statistics skipped: worth matrix too large without stored rows", plan.run_id])
+        return
     table = pa.table({"project_key": pa.array(np.arange(plan.project_count, dtype=np.int32)),
                       **{k: pa.array(v, mask=(v < 0) if v.dtype.kind == "i" else ~np.isfinite(v))
                          for k, v in stats.items()}})
