@@ -109,3 +109,17 @@ def test_query_on_missing_database(tmp_path):
 def test_python_dash_m_entry_point(files):
     out = subprocess.run([sys.executable, "-m", "ratescape", "--version"], capture_output=True, text=True)
     assert out.returncode == 0 and out.stdout.startswith("ratescape, version ")
+
+
+def test_export_writes_parquet_per_table(files):
+    import polars as pl
+    db = files / "plan.duckdb"
+    assert run("load", "--projects", files / "p.csv", "--cash-flows", files / "c.csv", "--db", db).exit_code == 0
+    assert run("screen", "--db", db, "--discount-rates", "0:0.2:5", "--inflation", "0:0.1:3", "--quiet").exit_code == 0
+    r = run("export", "--db", db, "--table", "results", "--table", "project_summary", "--out", files / "pq")
+    assert r.exit_code == 0
+    assert r.stdout.splitlines()[0] == f"results: 60 rows -> {files / 'pq' / 'results.parquet'}"
+    frame = pl.read_parquet(files / "pq" / "results.parquet")
+    assert frame.height == 60 and {"project_id", "scenario_id", "present_worth", "accepted"} <= set(frame.columns)
+    r = run("export", "--db", db, "--table", "runs", "--out", files / "pq")
+    assert r.exit_code == 1 and "cannot export table 'runs'" in r.stderr

@@ -227,6 +227,25 @@ def chart(db_path, kind, run_id, projects, group, out_path):
     click.echo(f"Wrote {out_path}")
 
 
+@main.command(cls=Command)
+@click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
+@click.option("--run", "run_id", help="Run id (default: the newest finished run).")
+@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Folder for the Parquet files.")
+@click.option("--table", "tables", multiple=True, help="Table to export (default: every table of the run). Repeatable.")
+def export(db_path, run_id, out_dir, tables):
+    """Export a run's tables as Parquet files (one per table) for other tools.
+
+    \b
+    Example:
+      ratescape export --db plan.duckdb --out ./run-parquet
+      ratescape export --db plan.duckdb --table results --table scenarios --out ./cube
+    """
+    from .store.export import export_run
+    info = export_run(db_path, out_dir, run_id=run_id, tables=list(tables) or None)
+    for table, rows in info["tables"].items():
+        click.echo(f"{table}: {rows} rows -> {Path(out_dir) / (table + '.parquet')}")
+
+
 def run() -> None:
     """Console-script entry point: ``ratescape ...``."""
     from ._startup import import_extensions_then_honour_ctrl_c

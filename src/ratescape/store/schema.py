@@ -90,7 +90,13 @@ TABLES = {
 
 
 def create_schema(con) -> None:
-    """Create every table that does not exist yet (idempotent)."""
+    """Create every table that does not exist yet (idempotent); refuse a database of another schema version."""
+    if table_exists(con, "meta"):
+        row = con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchall()
+        if row and row[0][0] != str(SCHEMA_VERSION):
+            from ..errors import RatescapeError
+            raise RatescapeError(f"this database has schema version {row[0][0]}, this ratescape writes version "
+                                 f"{SCHEMA_VERSION}. Fix: load the portfolio into a new database file")
     for ddl in TABLES.values():
         con.execute(ddl)
     con.execute("INSERT OR REPLACE INTO meta VALUES ('schema_version', ?)", [str(SCHEMA_VERSION)])
