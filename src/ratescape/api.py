@@ -30,7 +30,7 @@ def load_portfolio(projects, cash_flows=None, db=None) -> dict:
 
 def screen_portfolio(db, *, grid=None, discount_rates=None, inflation=None, discount_basis=None, budgets=None,
                      timing=None, periods_per_year=None, after_tax=None, tax_rate=None, keep=None, chunk_size=None,
-                     resume=None,
+                     resume=None, cluster=None, workers=None,
                      progress=False, stop_after_chunks=None) -> str:
     """Screen the loaded portfolio over a grid (TOML path and/or overrides); return the run id."""
     from .screen import screen
@@ -45,7 +45,7 @@ def screen_portfolio(db, *, grid=None, discount_rates=None, inflation=None, disc
     con = connect_write(db)
     try:
         return screen(con, spec, resume=resume, chunk_size=chunk_size, progress=progress,
-                      stop_after_chunks=stop_after_chunks)
+                      stop_after_chunks=stop_after_chunks, cluster=cluster, workers=workers)
     finally:
         con.close()
 

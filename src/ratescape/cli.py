@@ -111,9 +111,11 @@ def load(projects_path, cash_flows_path, db_path):
               help="Result rows to store: all (default), summary (per-project summaries only), "
                    "or thinned:K (every K-th rate and inflation level, and the base scenario).")
 @click.option("--resume", "resume", metavar="RUN_ID", help="Finish an interrupted run.")
+@click.option("--cluster", metavar="tcp://HOST:PORT", help="Evaluate chunks on this Dask scheduler's workers.")
+@click.option("--workers", type=click.IntRange(min=1), help="Evaluate chunks on a local Dask cluster of N processes.")
 @click.option("--quiet", is_flag=True, help="No progress output.")
 def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budgets, timing, periods_per_year,
-           after_tax, tax_rate, chunk_size, keep, resume, quiet):
+           after_tax, tax_rate, chunk_size, keep, resume, cluster, workers, quiet):
     """Evaluate every project in every scenario of the grid and store the results.
 
     Rates are fractions (0.07 = 7 %). Flags override the TOML file. The run
@@ -125,16 +127,19 @@ def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budget
       ratescape screen --db plan.duckdb --discount-rates 0:0.2:41 --inflation 0:0.1:21 --discount-basis nominal
       ratescape screen --db plan.duckdb --grid grid.toml --budget 0=50e6 --budget 1=20e6
       ratescape screen --db plan.duckdb --after-tax --tax-rate 0.15:0.35:5
+      ratescape screen --db plan.duckdb --cluster tcp://10.0.0.5:8786
       ratescape screen --db plan.duckdb --resume run-20261201-101500-ab12cd
     """
     from .api import screen_portfolio
+    if cluster and workers:
+        raise click.UsageError("give --cluster (an existing scheduler) or --workers (a local cluster), not both")
     if resume and (any(v is not None for v in (grid_path, discount_rates, inflation, discount_basis, timing,
                                                 periods_per_year, after_tax, tax_rate, keep)) or bool(budgets)):
         raise click.UsageError("--resume continues a run with its stored grid; give no grid options with it")
     run_id = screen_portfolio(db_path, grid=grid_path, discount_rates=discount_rates, inflation=inflation,
                               discount_basis=discount_basis, budgets=list(budgets), timing=timing,
                               periods_per_year=periods_per_year, after_tax=after_tax, tax_rate=tax_rate,
-                              keep=keep, chunk_size=chunk_size,
+                              keep=keep, chunk_size=chunk_size, cluster=cluster, workers=workers,
                               resume=resume, progress=not quiet)
     click.echo(CAUTION, err=True)
     click.echo(run_id)

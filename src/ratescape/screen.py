@@ -644,12 +644,15 @@ def run_decisions(con, plan: Plan) -> None:
 
 
 def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chunk_size: int | None = None,
-           progress: bool = True, stop_after_chunks: int | None = None) -> str:
+           progress: bool = True, stop_after_chunks: int | None = None, cluster: str | None = None,
+           workers: int | None = None) -> str:
     """Evaluate every project in every scenario and store the results; return the run id.
 
     ``resume`` continues an interrupted run with its stored grid and chunk
     size. ``stop_after_chunks`` (testing aid) stops after that many chunks,
-    leaving the run resumable.
+    leaving the run resumable. ``cluster`` (a Dask scheduler address) or
+    ``workers`` (a local Dask cluster of that many processes) evaluate the
+    chunks elsewhere; reading and writing stay in this process.
     """
     con.execute(f"SET memory_limit = '{DUCKDB_MEMORY_LIMIT}'")   # bound DuckDB's buffers; spill beyond
     if resume:
@@ -700,24 +703,45 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
     done = {r[0] for r in con.execute("SELECT chunk_index FROM run_chunks WHERE run_id = ?", [plan.run_id]).fetchall()}
     todo = [c for c in range(plan.chunk_count) if c not in done]
     bar = Progress(len(todo), "screen", enabled=progress)
-    written = 0
+    evaluator = None
     try:
+        if cluster or workers:
+            from .cluster import DaskEvaluator
+            evaluator = DaskEvaluator(evaluate_chunk, plan, address=cluster, workers=workers)
+        else:
+            from .cluster import LocalEvaluator
+            evaluator = LocalEvaluator(evaluate_chunk, plan)
+
+        def write(done):
+            for (chunk, first, ids, t0), out in done:
+                _write_chunk(con, plan, chunk, first, ids, out, time.perf_counter() - t0)
+                bar.update()
+
         for n, chunk in enumerate(todo):
             if stop_after_chunks is not None and n >= stop_after_chunks:
+                write(evaluator.drain())
                 con.execute("UPDATE runs SET status = 'interrupted', message = ? WHERE run_id = ?",
                             [f"stopped after {n} chunks; resume with --resume {plan.run_id}", plan.run_id])
+                bar.close()
                 return plan.run_id
             first = chunk * plan.chunk_size
             stop = min(first + plan.chunk_size, plan.project_count)
             t0 = time.perf_counter()
             A, ids, horizon = _chunk_amounts(con, plan, first, stop)
-            out = evaluate_chunk(plan, A, horizon)
-            written += _write_chunk(con, plan, chunk, first, ids, out, time.perf_counter() - t0)
-            bar.update()
+            evaluator.submit((chunk, first, ids, t0), A, horizon)
+            write(evaluator.ready())
+        write(evaluator.drain())
+        evaluator.close()
+        evaluator = None
         bar.close()
         _finalize(con, plan)
     except BaseException as exc:
         bar.close()
+        if evaluator is not None:
+            try:
+                evaluator.close()
+            except Exception:
+                pass
         if is_interrupt(exc):
             con.execute("UPDATE runs SET status = 'interrupted', message = ? WHERE run_id = ?",
                         [f"interrupted; resume with --resume {plan.run_id}", plan.run_id])
