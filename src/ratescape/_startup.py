@@ -10,14 +10,26 @@ import sys
 
 
 def import_extensions_then_honour_ctrl_c() -> None:
+    """Import the command line's dependencies with Ctrl-C deferred, then honour it."""
     caught = []
     previous = signal.signal(signal.SIGINT, lambda signum, frame: caught.append(signum))
     try:
+        import click  # noqa: F401
         import duckdb  # noqa: F401
         import numpy  # noqa: F401
         import polars  # noqa: F401
+        import pyarrow  # noqa: F401
+
+        from . import cli  # noqa: F401
     finally:
         signal.signal(signal.SIGINT, previous)
     if caught:
         print("Interrupted.", file=sys.stderr)
         sys.exit(130)
+
+
+def run() -> None:
+    """Entry point of the ``ratescape`` console script and ``python -m ratescape``."""
+    import_extensions_then_honour_ctrl_c()
+    from .cli import main
+    main(prog_name="ratescape")

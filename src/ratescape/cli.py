@@ -31,7 +31,7 @@ class Command(click.Command):
         except KeyboardInterrupt:
             click.echo("Interrupted.", err=True)
             sys.exit(130)
-        except RuntimeError as exc:   # DuckDB's form of Ctrl-C during a query
+        except Exception as exc:   # DuckDB's forms of Ctrl-C during a query
             from .store.database import is_interrupt
             if not is_interrupt(exc):
                 raise
@@ -251,12 +251,6 @@ def export(db_path, run_id, out_dir, tables):
         click.echo(f"{table}: {rows} rows -> {Path(out_dir) / (table + '.parquet')}")
 
 
-def run() -> None:
-    """Console-script entry point: ``ratescape ...``."""
-    from ._startup import import_extensions_then_honour_ctrl_c
-    import_extensions_then_honour_ctrl_c()
-    main(prog_name="ratescape")
-
-
 if __name__ == "__main__":  # pragma: no cover
+    from ._startup import run
     run()

@@ -48,8 +48,9 @@ def connect_read(path: str | Path) -> duckdb.DuckDBPyConnection:
 
 def is_interrupt(exc: BaseException) -> bool:
     """True for Ctrl-C, including DuckDB's own form of it (a query interrupted by SIGINT)."""
+    text = str(exc).lower()
     return isinstance(exc, KeyboardInterrupt) or (
-        isinstance(exc, (RuntimeError, duckdb.Error)) and "interrupted" in str(exc).lower())
+        isinstance(exc, (RuntimeError, duckdb.Error)) and ("interrupted" in text or "keyboardinterrupt" in text))
 
 
 @contextmanager
