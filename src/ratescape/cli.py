@@ -141,6 +141,20 @@ def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budget
                               periods_per_year=periods_per_year, after_tax=after_tax, tax_rate=tax_rate,
                               keep=keep, chunk_size=chunk_size, cluster=cluster, workers=workers,
                               resume=resume, progress=not quiet)
+    from .store.database import connect_read
+    con = connect_read(db_path)
+    try:
+        spec_json = con.execute("SELECT grid_spec FROM runs WHERE run_id = ?", [run_id]).fetchall()[0][0]
+    finally:
+        con.close()
+    spec = json.loads(spec_json)
+    if spec.get("weights"):
+        click.echo("Note: the scenario weights are your judgement, not a forecast; probabilities of acceptance "
+                   "and expected worths rest on them.", err=True)
+    if spec.get("after_tax"):
+        click.echo("Note: after-tax results assume one tax rate per scenario, losses offset against the firm's "
+                   "other income, and the depreciation rules given; tax law varies by jurisdiction and year.",
+                   err=True)
     click.echo(CAUTION, err=True)
     click.echo(run_id)
 

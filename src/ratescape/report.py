@@ -459,6 +459,15 @@ def _project_table(ctx: _Run, where: str, order: str, columns: str, params: Sequ
     return frame, count
 
 
+WEIGHTS_NOTE = ("Probability weights on the axes are the user's judgement, not a forecast; probabilities of "
+                "acceptance and expected present worth are only as good as those weights.")
+AFTER_TAX_NOTE = ("One income-tax rate per scenario applied to every taxable line in the year it arises; a "
+                  "project's loss offsets the firm's other taxable income that year; the investment is "
+                  "depreciated (fixed in then-current money, so inflation erodes the tax shield) and the gain "
+                  "over book value at disposal is taxed at the ordinary rate. Tax law varies by jurisdiction "
+                  "and year: screening only, not for filing.")
+
+
 def _metadata(ctx: _Run) -> list[tuple[str, Any]]:
     run = ctx.run
     meta: list[tuple[str, Any]] = [("Run id", run["run_id"])]
@@ -492,7 +501,13 @@ def _metadata(ctx: _Run) -> list[tuple[str, Any]]:
             parsed = None
         if isinstance(parsed, dict):
             for k, v in parsed.items():
+                if k == "sources":
+                    continue
                 meta.append((f"Setting: {k}", v if isinstance(v, str) else json.dumps(v)))
+            if parsed.get("weights"):
+                meta.append(("Scenario weights", WEIGHTS_NOTE))
+            if parsed.get("after_tax"):
+                meta.append(("After-tax assumptions", AFTER_TAX_NOTE))
         else:
             meta.append(("Grid settings", str(spec)))
     if run.get("message"):
