@@ -25,7 +25,7 @@ from .decide.ranking import kendall_tau_b
 from .decide.rationing import core_portfolio, min_max_regret, ration_capital, selection_share
 from .evaluate.kernel import discount_tensor, present_worth_classes, then_current_streams
 from .progress import log
-from .store.database import fetch_frame
+from .store.database import append_rows, fetch_frame
 
 DO_NOTHING_LABEL = "do nothing"
 # Largest projects x scenarios cube the decision stage holds in memory (float64: 8 bytes a cell).
@@ -36,16 +36,14 @@ FRONTIER_KINDS = {0: "edge", 1: "transversal", 2: "triple"}
 def _insert(con, table: str, data: dict, run_id: str) -> None:
     if not data or len(next(iter(data.values()))) == 0:
         return
+
     def column(v):
         a = np.asarray(v) if not isinstance(v, list) else None
         if a is not None and a.dtype.kind == "f":
             return pa.array(a, mask=~np.isfinite(a))     # NaN / inf are stored as NULL, never silently
         return pa.array(v)
 
-    arrow = pa.table({k: column(v) for k, v in data.items()})
-    con.register("decision_rows", arrow)
-    con.execute(f"INSERT INTO {table} ({', '.join(['run_id', *data])}) SELECT ?, * FROM decision_rows", [run_id])
-    con.unregister("decision_rows")
+    append_rows(con, table, pa.table({k: column(v) for k, v in data.items()}), run_id)
 
 
 def _projects(con):

@@ -32,7 +32,7 @@ from .evaluate.tax import after_tax_lines
 from .evaluate.timing import discount_exponents
 from .grid import GridSpec, ScenarioTable, build_scenarios
 from .progress import Progress, log
-from .store.database import fetch_frame, is_interrupt, transaction
+from .store.database import append_rows, fetch_frame, is_interrupt, transaction
 
 SWITCH_LABELS = {0: "one", 1: "several", 2: "none", 3: "at_base"}
 
@@ -401,6 +401,12 @@ def _per_period_to_annual(rate, m: float):
     return np.power(1.0 + rate, m) - 1.0
 
 
+def _floats(values) -> pa.Array:
+    """An Arrow float column in which NaN and infinities are NULL (never stored silently)."""
+    a = np.asarray(values, dtype=float)
+    return pa.array(a, mask=~np.isfinite(a))
+
+
 def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out: dict, seconds: float) -> int:
     P, S = out["pw"].shape
     # scenario-major order within the chunk: each row group spans a narrow range of scenario ids,
@@ -454,50 +460,32 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
     sens_table = pa.table({
         "project_id": pa.array(np.tile(ids, I).tolist(), type=pa.string()),
         "input": pa.array(np.repeat(sens["inputs"], P).tolist(), type=pa.string()),
-        "base_value": pa.array(np.repeat(sens["base_value"], P)),
-        "low_value": pa.array(np.repeat(sens["low"], P)),
-        "high_value": pa.array(np.repeat(sens["high"], P)),
-        "worth_base": pa.array(np.tile(sens["worth_base"], I)),
-        "worth_low": pa.array(sens["worth_low"].ravel()),
-        "worth_high": pa.array(sens["worth_high"].ravel()),
-        "switching_value": pa.array(sens["switching_value"].ravel(), mask=np.isnan(sens["switching_value"].ravel())),
-        "switching_change": pa.array(sens["switching_change"].ravel(), mask=np.isnan(sens["switching_change"].ravel())),
+        "base_value": _floats(np.repeat(sens["base_value"], P)),
+        "low_value": _floats(np.repeat(sens["low"], P)),
+        "high_value": _floats(np.repeat(sens["high"], P)),
+        "worth_base": _floats(np.tile(sens["worth_base"], I)),
+        "worth_low": _floats(sens["worth_low"].ravel()),
+        "worth_high": _floats(sens["worth_high"].ravel()),
+        "switching_value": _floats(sens["switching_value"].ravel()),
+        "switching_change": _floats(sens["switching_change"].ravel()),
         "switching_status": pa.array([SWITCH_LABELS[int(v)] for v in sens["switching_status"].ravel()], type=pa.string()),
     })
     spider_table = pa.table({
         "project_id": pa.array(np.tile(np.repeat(ids, K), I).tolist(), type=pa.string()),
         "input": pa.array(np.repeat(sens["inputs"], P * K).tolist(), type=pa.string()),
         "change": pa.array(np.tile(sens["pct_changes"], I * P)),
-        "present_worth": pa.array(sens["spider"].ravel()),
+        "present_worth": _floats(sens["spider"].ravel()),
     })
     kept = plan.kept if plan.kept is not None else np.ones(S, dtype=bool)
     if not kept.all():
         results = results.filter(pa.array(np.repeat(kept, P)))
     with transaction(con):
-        con.register("chunk_sensitivity", sens_table)
-        con.execute("INSERT INTO sensitivity SELECT ?, * FROM chunk_sensitivity", [plan.run_id])
-        con.unregister("chunk_sensitivity")
-        con.register("chunk_spider", spider_table)
-        con.execute("INSERT INTO spider SELECT ?, * FROM chunk_spider", [plan.run_id])
-        con.unregister("chunk_spider")
-        con.register("chunk_results", results)
-        con.execute("INSERT INTO results (run_id, project_id, scenario_id, present_worth, annual_worth, accepted, "
-                    "profitability_index, present_worth_before_tax, project_key) SELECT ?, project_id::VARCHAR, "
-                    "scenario_id, present_worth, annual_worth, accepted, profitability_index, "
-                    "present_worth_before_tax, project_key FROM chunk_results",
-                    [plan.run_id])
-        con.unregister("chunk_results")
-        con.register("chunk_summary", summary)
-        names = list(out["summary"])
-        con.execute(f"INSERT INTO project_summary (run_id, project_id, {', '.join(names)}) "
-                    f"SELECT ?, project_id, {', '.join(names)} FROM chunk_summary", [plan.run_id])
-        con.unregister("chunk_summary")
-        con.register("chunk_irr", irr_table)
-        con.execute("INSERT INTO irr_results SELECT ?, * FROM chunk_irr", [plan.run_id])
-        con.unregister("chunk_irr")
-        con.register("chunk_roots", roots_table)
-        con.execute("INSERT INTO irr_roots SELECT ?, * FROM chunk_roots", [plan.run_id])
-        con.unregister("chunk_roots")
+        append_rows(con, "sensitivity", sens_table, plan.run_id)
+        append_rows(con, "spider", spider_table, plan.run_id)
+        append_rows(con, "results", results, plan.run_id)   # dictionary-encoded ids: DuckDB casts them
+        append_rows(con, "project_summary", summary, plan.run_id)
+        append_rows(con, "irr_results", irr_table, plan.run_id)
+        append_rows(con, "irr_roots", roots_table, plan.run_id)
         con.execute("INSERT INTO run_chunks VALUES (?, ?, ?, ?, ?, ?, ?)",
                     [plan.run_id, chunk_index, first, first + P - 1, results.num_rows, _now(), seconds])
         con.execute("UPDATE runs SET chunks_done = chunks_done + 1 WHERE run_id = ?", [plan.run_id])

@@ -321,6 +321,10 @@ class PointEvaluator:
             raise ValueError("rates must be > -1")
         if P == 0:
             return np.zeros(0)
+        with np.errstate(over="ignore", invalid="ignore"):   # extreme scan points: inf/NaN, flagged by callers
+            return self._evaluate(P, i, f, shift, cm, bm)
+
+    def _evaluate(self, P, i, f, shift, cm, bm):
         if all(np.all(v == v[0]) for v in (i, f, shift)):
             shifted = [LineClass(c.basis, c.escalation + (shift[0] if c.basis == "real" else 0.0), c.multiplier)
                        for c in self.classes]

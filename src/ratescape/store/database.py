@@ -82,3 +82,20 @@ def fetch_frame(con, sql: str, params=None):
         warnings.simplefilter("ignore", UserWarning)
         table = con.execute(sql, params if params else []).to_arrow_table()
     return pl.from_arrow(table)
+
+
+def append_rows(con, table: str, rows, run_id: str) -> None:
+    """Append an Arrow table's rows to ``table`` with the run id in front (inside the caller's transaction).
+
+    Columns are matched by name, so the Arrow table may hold any subset of the table's columns.
+    ``table`` comes from the code, never from user text.
+    """
+    if rows.num_rows == 0:
+        return
+    view = f"incoming_{table}"
+    names = ", ".join(rows.column_names)
+    con.register(view, rows)
+    try:
+        con.execute(f"INSERT INTO {table} (run_id, {names}) SELECT ?, {names} FROM {view}", [run_id])
+    finally:
+        con.unregister(view)
