@@ -37,9 +37,9 @@ from .store.database import append_rows, fetch_frame, is_interrupt, transaction
 SWITCH_LABELS = {0: "one", 1: "several", 2: "none", 3: "at_base"}
 
 # Cells (projects x scenarios) evaluated per chunk when no chunk size is given:
-# about 5e6 cells keeps a chunk's arrays near 150 MB whatever the portfolio size, and the
+# about 1e7 cells keeps a chunk's arrays near 80 MB each whatever the portfolio size, and the
 # matrix product cache-friendly (bench/bench_kernel.py).
-DEFAULT_CELLS_PER_CHUNK = 5_000_000
+DEFAULT_CELLS_PER_CHUNK = 10_000_000
 IRR_SEARCH = (-0.99, 10.0)
 DUCKDB_MEMORY_LIMIT = "1GB"
 
