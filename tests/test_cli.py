@@ -123,3 +123,21 @@ def test_export_writes_parquet_per_table(files):
     assert frame.height == 60 and {"project_id", "scenario_id", "present_worth", "accepted"} <= set(frame.columns)
     r = run("export", "--db", db, "--table", "runs", "--out", files / "pq")
     assert r.exit_code == 1 and "cannot export table 'runs'" in r.stderr
+
+
+def test_cli_reference_in_developers_guide_is_generated_from_the_help():
+    from pathlib import Path
+
+    from ratescape.cli import REFERENCE_END, REFERENCE_START, reference_markdown
+    text = (Path(__file__).resolve().parents[1] / "DEVELOPERS.md").read_text(encoding="utf-8")
+    stored = text[text.index(REFERENCE_START):text.index(REFERENCE_END) + len(REFERENCE_END)]
+    assert stored == reference_markdown(), "regenerate the CLI reference in DEVELOPERS.md (see its instructions)"
+
+
+def test_ci_runs_the_readme_test_command():
+    from pathlib import Path
+    root = Path(__file__).resolve().parents[1]
+    readme = (root / "README.md").read_text(encoding="utf-8")
+    command = 'python3 -m venv .venv && .venv/bin/pip install -q -e ".[test]" && .venv/bin/python -m pytest -q'
+    assert command in readme
+    assert command in (root / ".ci" / "run").read_text(encoding="utf-8")
