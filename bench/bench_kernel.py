@@ -8,6 +8,8 @@ scenarios). Prints, in one run on the same data:
   the screen stage runs it, with one and with three line classes;
 * a numpy-financial loop (npf.npv per project and scenario) on a sample,
   extrapolated to the full shape;
+* the same present worths as a DuckDB SQL cross join (cash-flow rows x scenarios,
+  grouped) and as a Polars cross join, on a sample of projects, extrapolated;
 * the ratios.
 
 Usage:  .venv/bin/python bench/bench_kernel.py [--projects N] [--periods T] [--grid K]
@@ -39,6 +41,7 @@ def main(argv=None):
     ap.add_argument("--grid", type=int, default=51)
     ap.add_argument("--chunk", type=int, default=3_844, help="projects per chunk (the screen default for 2,601 scenarios)")
     ap.add_argument("--sample", type=int, default=20, help="projects in the numpy-financial loop sample")
+    ap.add_argument("--frame-sample", type=int, default=200, help="projects in the SQL / Polars cross-join sample")
     args = ap.parse_args(argv)
     P, T, K = args.projects, args.periods + 1, args.grid
     S = K * K
@@ -80,6 +83,26 @@ def main(argv=None):
             npf.npv(i[s], A[p])
     t_npf = (time.perf_counter() - t0) / (n * S) * (P * S)
 
+    # the same present worths in SQL and in a dataframe library: long cash-flow rows x scenarios
+    import duckdb
+    import polars as pl
+    m = args.frame_sample
+    flows = pl.DataFrame({"project": np.repeat(np.arange(m), T), "t": np.tile(np.arange(T), m),
+                          "amount": A[:m].ravel()})
+    scen = pl.DataFrame({"scenario": np.arange(S), "i": i})
+    con = duckdb.connect()
+    con.register("flows", flows.to_arrow())
+    con.register("scen", scen.to_arrow())
+    t0 = time.perf_counter()
+    con.execute("SELECT project, scenario, sum(amount * power(1 + i, -t)) AS pw FROM flows CROSS JOIN scen "
+                "GROUP BY ALL").fetchall()
+    t_sql = (time.perf_counter() - t0) / m * P
+    t0 = time.perf_counter()
+    (flows.join(scen, how="cross")
+          .with_columns((pl.col("amount") * (1 + pl.col("i")).pow(-pl.col("t"))).alias("v"))
+          .group_by("project", "scenario").agg(pl.col("v").sum()))
+    t_polars = (time.perf_counter() - t0) / m * P
+
     flops = 2.0 * P * T * S
     print(f"shape: {P:,} projects x {T} periods x {S:,} scenarios ({K} x {K}); chunk {args.chunk:,} projects")
     print(f"{'method':<44}{'seconds':>10}{'GFLOP/s':>10}{'vs raw matmul':>15}")
@@ -87,6 +110,8 @@ def main(argv=None):
     print(f"{'engine kernel, 1 line class (chunked)':<44}{t_engine:>10.2f}{flops / t_engine / 1e9:>10.1f}{t_engine / t_raw:>15.2f}")
     print(f"{'engine kernel, 3 line classes (chunked)':<44}{t_engine3:>10.2f}{3 * flops / t_engine3 / 1e9:>10.1f}{t_engine3 / t_raw:>15.2f}")
     print(f"{'numpy-financial npv loop (extrapolated)':<44}{t_npf:>10.0f}{'':>10}{t_npf / t_raw:>15.0f}")
+    print(f"{'DuckDB SQL cross join (extrapolated)':<44}{t_sql:>10.0f}{'':>10}{t_sql / t_raw:>15.0f}")
+    print(f"{'Polars cross join (extrapolated)':<44}{t_polars:>10.0f}{'':>10}{t_polars / t_raw:>15.0f}")
 
 
 if __name__ == "__main__":

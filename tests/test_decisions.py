@@ -150,3 +150,31 @@ def test_switching_value_of_the_discount_rate_is_the_irr(run):
                     [run_id]).fetchone()[0]
     # base inflation 4 %: then-current stream of A, IRR by numpy-financial
     assert v == pytest.approx(npf.irr(streams(con, 0.04)["A"]), abs=1e-9)
+
+
+def test_frontier_on_the_discount_rate_by_cost_multiplier_plane(tmp_path):
+    """A decision map against an extra axis: buy (first cost x m) versus lease; independent check with
+    numpy-financial: buy - lease = -(300 - 0.01) m + 60 (P/A, i, 8) (the lease's token first cost of 0.01
+    scales with m too; the real benefits are the same)."""
+    (tmp_path / "p.csv").write_text(PROJECTS)
+    db = tmp_path / "plan.duckdb"
+    load_portfolio(tmp_path / "p.csv", None, db)
+    grid = tmp_path / "g.toml"
+    grid.write_text("""
+[grid]
+discount_rates = { start = 0.02, stop = 0.16, count = 8 }
+inflation = { values = [0.0, 0.04] }
+cost_multiplier = { values = [0.8, 1.0, 1.2, 1.4] }
+base = { discount_rate = 0.08, inflation = 0.04, cost_multiplier = 1.0 }
+""")
+    run_id = screen_portfolio(db, grid=grid)
+    con = duckdb.connect(str(db), read_only=True)
+    pts = con.execute("""SELECT alternative_a, alternative_b, x, y FROM frontiers
+                         WHERE run_id = ? AND group_name = 'depot' AND y_axis = 'cost_multiplier'""",
+                      [run_id]).fetchall()
+    con.close()
+    assert len(pts) >= 3
+    for a, b, i, m in pts:
+        assert {a, b} == {"C", "D"}
+        buy_minus_lease = -(300 - 0.01) * m + 60 * npf.pv(i, 8, -1.0)   # P/A(i, 8) from numpy-financial's pv
+        assert abs(buy_minus_lease) <= 1e-9 * 300 * m, (i, m, buy_minus_lease)

@@ -96,68 +96,108 @@ def _member_amounts(con, plan, keys, reader) -> np.ndarray:
     return np.concatenate(parts, axis=1)
 
 
-def _decide_groups(con, plan, groups: dict, reader) -> None:
+def _planes(plan) -> list[dict]:
+    """Decision-map planes: the discount axis against inflation and against each extra axis.
+
+    Each plane holds the other axes at their base values; returns the y axis name and values, the
+    (S,) mask of its scenarios (ordered y-major, x-minor as scenario ids are) and how a point's
+    y value enters the evaluation.
+    """
     cols = plan.scenarios.columns
+    spec = plan.spec
+    base = plan.scenarios.base_index
+    axes = [("inflation", np.asarray(spec.inflation, dtype=float))]
+    axes += [(a.name, np.asarray(a.values, dtype=float)) for a in spec.extra_axes]
+    planes = []
+    for y_name, y_values in axes:
+        if y_values.size < 2:
+            continue
+        mask = np.ones(plan.scenarios.size, dtype=bool)
+        for other, _ in axes:
+            if other != y_name:
+                mask &= cols[other] == cols[other][base]
+        planes.append({"y_axis": y_name, "y": y_values, "mask": mask})
+    return planes
+
+
+def _point_evaluator(plan, y_axis: str):
+    """worth(A (C, A, T), x (n,), y (n,)) -> (A, n): exact worth at points of a decision-map plane."""
+    cols = plan.scenarios.columns
+    base = plan.scenarios.base_index
+    f_base = float(cols["inflation"][base])
+    x_is_nominal = plan.spec.discount_basis == "nominal"
+
+    def worth(A, x, y):
+        x = np.asarray(x, dtype=float)
+        y = np.asarray(y, dtype=float)
+        f = y if y_axis == "inflation" else np.full(x.size, f_base)
+        i = x if x_is_nominal else (1 + x) * (1 + f) - 1
+        mult = {k: np.full(x.size, v) for k, v in plan.base_multipliers.items()}
+        if y_axis == "tax_rate":
+            mult["tax"] = y if plan.spec.after_tax else np.zeros(x.size)
+            mult["after_tax"] = 1 - mult["tax"]
+        elif y_axis in ("cost_multiplier", "benefit_multiplier"):
+            mult[y_axis] = y
+        return present_worth_classes(A, discount_tensor(plan.classes, plan.exponents, i, f, mult))
+    return worth
+
+
+def _decide_groups(con, plan, groups: dict, reader) -> None:
     S = plan.scenarios.size
     spec = plan.spec
     x_name = "discount_rate" if spec.discount_basis == "nominal" else "real_rate"
     x_axis = np.asarray(spec.discount_rates, dtype=float)
-    y_axis = np.asarray(spec.inflation, dtype=float)
-    base = plan.scenarios.base_index
-    plane = np.ones(S, dtype=bool)
-    for a in spec.extra_axes:
-        plane &= cols[a.name] == cols[a.name][base]
-    base_mult = plan.base_multipliers
+    planes = _planes(plan) if x_axis.size >= 2 else []
+    evaluators = {p["y_axis"]: _point_evaluator(plan, p["y_axis"]) for p in planes}
     rows = {k: [] for k in ("group_name", "scenario_id", "preferred", "runner_up", "margin", "preferred_worth")}
     fr = {k: [] for k in ("group_name", "alternative_a", "alternative_b", "x_axis", "x", "y_axis", "y", "segment",
                           "point", "kind", "residual", "converged")}
     for name, g in sorted(groups.items()):
         A = _member_amounts(con, plan, g["keys"], reader)                 # (C, A, T)
         pw = present_worth_classes(A, plan.tensor)                        # (A, S)
-        pref = preferred_alternative(pw, do_nothing=not g["mandatory"])
+        optional = not g["mandatory"]
+        pref = preferred_alternative(pw, do_nothing=optional)
+        n_alt = len(g["ids"])
         labels = np.array(g["ids"] + [DO_NOTHING_LABEL, ""], dtype=object)   # index -1 -> do nothing, -2 -> none
+
+        def label(index):
+            index = np.asarray(index)
+            return labels[np.where(index == DO_NOTHING, n_alt, np.where(index == NO_ALTERNATIVE, n_alt + 1, index))]
+
         best = np.asarray(pref.best)
-        runner = np.asarray(pref.runner_up)
         rows["group_name"] += [name] * S
         rows["scenario_id"] += list(range(S))
-        rows["preferred"] += labels[np.where(best == DO_NOTHING, len(g["ids"]), np.where(best == NO_ALTERNATIVE, len(g["ids"]) + 1, best))].tolist()
-        rows["runner_up"] += labels[np.where(runner == DO_NOTHING, len(g["ids"]), np.where(runner == NO_ALTERNATIVE, len(g["ids"]) + 1, runner))].tolist()
+        rows["preferred"] += label(best).tolist()
+        rows["runner_up"] += label(pref.runner_up).tolist()
         rows["margin"] += np.asarray(pref.margin, dtype=float).tolist()
         rows["preferred_worth"] += np.where(best >= 0, pw[np.clip(best, 0, None), np.arange(S)], 0.0).tolist()
-        # decision map on the (discount axis, inflation) plane; other axes at base
-        if x_axis.size < 2 or y_axis.size < 2:
-            continue
-        grid_pw = pw[:, plane].reshape(len(g["ids"]), y_axis.size, x_axis.size)
-        names = list(g["ids"])
-        if not g["mandatory"]:
-            grid_pw = np.concatenate([grid_pw, np.zeros((1,) + grid_pw.shape[1:])])
-            names.append(DO_NOTHING_LABEL)
+        names = list(g["ids"]) + ([DO_NOTHING_LABEL] if optional else [])
+        for plane in planes:   # a decision map per plane; other axes at their base values
+            y_values = plane["y"]
+            grid_pw = pw[:, plane["mask"]].reshape(n_alt, y_values.size, x_axis.size)
+            if optional:
+                grid_pw = np.concatenate([grid_pw, np.zeros((1,) + grid_pw.shape[1:])])
 
-        def worth_at(x, y, A=A, do_nothing=not g["mandatory"]):
-            x = np.asarray(x, dtype=float)
-            y = np.asarray(y, dtype=float)
-            i = x if x_name == "discount_rate" else (1 + x) * (1 + y) - 1
-            mult = {k: np.full(x.size, v) for k, v in base_mult.items()}
-            D = discount_tensor(plan.classes, plan.exponents, i, y, mult)
-            w = present_worth_classes(A, D)                               # (A, n)
-            return np.concatenate([w, np.zeros((1, x.size))]) if do_nothing else w
+            def worth_at(x, y, A=A, evaluate=evaluators[plane["y_axis"]]):
+                w = evaluate(A, x, y)
+                return np.concatenate([w, np.zeros((1, w.shape[1]))]) if optional else w
 
-        front = indifference_frontier(x_axis, y_axis, grid_pw, worth_at, densify=2)
-        n = len(front)
-        if n == 0:
-            continue
-        fr["group_name"] += [name] * n
-        fr["alternative_a"] += [names[k] for k in np.asarray(front.alternative_a)]
-        fr["alternative_b"] += [names[k] for k in np.asarray(front.alternative_b)]
-        fr["x_axis"] += [x_name] * n
-        fr["y_axis"] += ["inflation"] * n
-        fr["x"] += np.asarray(front.x, dtype=float).tolist()
-        fr["y"] += np.asarray(front.y, dtype=float).tolist()
-        fr["segment"] += np.asarray(front.segment, dtype=np.int32).tolist()
-        fr["point"] += np.asarray(front.point, dtype=np.int32).tolist()
-        fr["kind"] += [FRONTIER_KINDS.get(int(k), str(k)) for k in np.asarray(front.kind)]
-        fr["residual"] += np.asarray(front.residual, dtype=float).tolist()
-        fr["converged"] += np.asarray(front.converged, dtype=bool).tolist()
+            front = indifference_frontier(x_axis, y_values, grid_pw, worth_at, densify=2)
+            n = len(front)
+            if n == 0:
+                continue
+            fr["group_name"] += [name] * n
+            fr["alternative_a"] += [names[k] for k in np.asarray(front.alternative_a)]
+            fr["alternative_b"] += [names[k] for k in np.asarray(front.alternative_b)]
+            fr["x_axis"] += [x_name] * n
+            fr["y_axis"] += [plane["y_axis"]] * n
+            fr["x"] += np.asarray(front.x, dtype=float).tolist()
+            fr["y"] += np.asarray(front.y, dtype=float).tolist()
+            fr["segment"] += np.asarray(front.segment, dtype=np.int32).tolist()
+            fr["point"] += np.asarray(front.point, dtype=np.int32).tolist()
+            fr["kind"] += [FRONTIER_KINDS.get(int(k), str(k)) for k in np.asarray(front.kind)]
+            fr["residual"] += np.asarray(front.residual, dtype=float).tolist()
+            fr["converged"] += np.asarray(front.converged, dtype=bool).tolist()
     _insert(con, "group_decisions", rows, plan.run_id)
     _insert(con, "frontiers", fr, plan.run_id)
 

@@ -494,7 +494,7 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
 
 # Cells of the (projects x scenarios) block read back for ranking, and the largest rank matrix
 # kept in memory for exact medians (uint32: 4 bytes a cell; ~1 GB = 100,000 x 2,601).
-RANK_BLOCK_CELLS = 20_000_000
+RANK_BLOCK_CELLS = 5_000_000
 RANK_MATRIX_BYTES = 1_100_000_000
 
 
