@@ -59,6 +59,15 @@ def summarize_run(db, run_id: str, report_path: Path | None = None) -> str:
         top = fetch_frame(con, """
             SELECT s.project_id, p.name, s.pw_base FROM project_summary s JOIN projects p USING (project_id)
             WHERE s.run_id = ? AND s.accept_share = 1 ORDER BY s.pw_base DESC LIMIT 5""", [run_id])
+        groups = fetch_frame(con, """
+            SELECT count(*) AS groups, count(*) FILTER (WHERE n > 1) AS switching
+            FROM (SELECT group_name, count(DISTINCT preferred) AS n FROM group_decisions WHERE run_id = ?
+                  GROUP BY group_name)""", [run_id]).row(0, named=True)
+        budget = fetch_frame(con, """
+            SELECT count(*) AS scenarios, min(objective) AS lo, max(objective) AS hi,
+                   avg(1 - greedy_objective / nullif(objective, 0)) AS greedy_loss,
+                   (SELECT count(*) FROM portfolio_summary WHERE run_id = $1 AND in_core) AS core
+            FROM portfolios WHERE run_id = $1""", [run_id]).row(0, named=True)
     finally:
         con.close()
     lines = [
@@ -69,6 +78,13 @@ def summarize_run(db, run_id: str, report_path: Path | None = None) -> str:
         f"Accepted in every scenario: {s['everywhere']}; in none: {s['nowhere']}; "
         f"decision depends on the scenario: {s['depends']}.",
     ]
+    if groups["groups"]:
+        lines.append(f"Groups of alternatives: {groups['groups']}; the preferred alternative changes across the "
+                     f"scenarios in {groups['switching']} (see the decision maps).")
+    if budget["scenarios"]:
+        lines.append(f"Capital budget: the best portfolio is worth {budget['lo']:,.0f} to {budget['hi']:,.0f} across "
+                     f"{budget['scenarios']} scenarios; ranking by profitability index alone loses "
+                     f"{budget['greedy_loss']:.1%} on average; {budget['core']} projects are in the core portfolio.")
     if top.height:
         lines.append("Largest base-case present worth among projects accepted everywhere:")
         for pid, name, pw in top.iter_rows():
