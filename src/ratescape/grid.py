@@ -117,7 +117,8 @@ def _linspace(start: float, stop: float, count: int, what: str) -> list[float]:
         raise GridError(f"{what}: the range {start}:{stop} runs backwards. Fix: give START below STOP, e.g. {stop}:{start}:{count}")
     if count > 1 and stop == start:
         raise GridError(f"{what}: START equals STOP with COUNT {count} (a zero step). Fix: use COUNT 1 or widen the range")
-    return [float(v) for v in np.linspace(start, stop, count)]
+    # rounded to 12 decimals so 0:0.2:41 gives 0.175, not 0.17500000000000002
+    return [float(v) for v in np.round(np.linspace(start, stop, count), 12)]
 
 
 def _axis_from_toml(value, what: str) -> list[float]:

@@ -1,0 +1,12 @@
+"""Shared test settings.
+
+Hypothesis runs derandomized (the same examples on every run) so that CI results are repeatable;
+set HYPOTHESIS_PROFILE=explore to search with fresh random examples locally.
+"""
+import os
+
+from hypothesis import settings
+
+settings.register_profile("repeatable", derandomize=True, deadline=None)
+settings.register_profile("explore", deadline=None)
+settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE", "repeatable"))
