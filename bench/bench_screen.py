@@ -12,8 +12,6 @@ Each size runs `python -m ratescape screen` in a fresh process so its peak RSS
 from __future__ import annotations
 
 import argparse
-import os
-import resource
 import subprocess
 import sys
 import tempfile
@@ -24,15 +22,13 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from make_portfolio import write_portfolio  # noqa: E402
 
 
-def run(args, **kw):
+def run(args):
+    """Run `python -m ratescape ARGS`; return its wall time [s]."""
     t0 = time.perf_counter()
-    before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
-    out = subprocess.run([sys.executable, "-m", "ratescape", *args], capture_output=True, text=True, **kw)
-    seconds = time.perf_counter() - t0
-    peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    out = subprocess.run([sys.executable, "-m", "ratescape", *args], capture_output=True, text=True)
     if out.returncode != 0:
         raise SystemExit(f"ratescape {' '.join(args)} failed:\n{out.stderr}")
-    return seconds, max(peak, before), out
+    return time.perf_counter() - t0
 
 
 def main(argv=None):
@@ -55,7 +51,7 @@ def main(argv=None):
             if f.exists():
                 f.unlink()
         write_portfolio(n, str(csv), life=a.periods)
-        t_load, _, _ = run(["load", "--projects", str(csv), "--db", str(db)])
+        t_load = run(["load", "--projects", str(csv), "--db", str(db)])
         args = ["screen", "--db", str(db), "--discount-rates", f"0:0.2:{a.grid}", "--inflation", f"0:0.1:{a.grid}",
                 "--quiet"]
         if a.chunk_size:

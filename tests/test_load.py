@@ -1,7 +1,6 @@
 """Loading CSV files: every problem reported at once, with file, line, column, value and fix."""
 from pathlib import Path
 
-import polars as pl
 import pytest
 
 from ratescape.errors import ValidationError

@@ -1,9 +1,7 @@
 """Tests of ratescape.evaluate.tax: after-tax line classes against an independent cash-flow table."""
 from __future__ import annotations
 
-import ast
 import doctest
-from pathlib import Path
 
 import numpy as np
 import numpy_financial as npf
@@ -350,13 +348,4 @@ def test_doctests():
     result = doctest.testmod(taxmod, optionflags=doctest.NORMALIZE_WHITESPACE)
     assert result.attempted > 0 and result.failed == 0
 
-
-def test_module_imports_only_numpy_scipy_stdlib():
-    tree = ast.parse(Path(taxmod.__file__).read_text())
-    roots = set()
-    for node in ast.walk(tree):
-        if isinstance(node, ast.Import):
-            roots |= {a.name.split(".")[0] for a in node.names}
-        elif isinstance(node, ast.ImportFrom) and node.level == 0:
-            roots.add(node.module.split(".")[0])
-    assert not roots & {"duckdb", "polars", "pyarrow", "altair", "pandas"}
+# (purity of this module: tests/test_architecture.py covers every module of evaluate/ and decide/)

@@ -1,7 +1,6 @@
 """The Python API: the same operations as the command line, returning Polars frames."""
 from __future__ import annotations
 
-from pathlib import Path
 
 import polars as pl
 

@@ -537,7 +537,7 @@ def _headline_sections(ctx: _Run, top_n: int) -> tuple[list[Section], list[str]]
     else:
         k = max(1, len(levels) // 4)
         low_max, high_min = levels[k - 1], levels[-k]
-        sql = f"""
+        sql = """
             WITH s AS (
                 SELECT scenario_id,
                        CASE WHEN inflation <= ? THEN 'low' WHEN inflation >= ? THEN 'high' END AS band

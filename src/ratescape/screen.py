@@ -327,7 +327,7 @@ def irr_over_inflation(plan: Plan, A: np.ndarray) -> IrrTable:
     convention; the discount-rate switching value in ``sensitivity`` honours the convention.
     """
     levels = plan.inflation_levels
-    F, (C, P, T) = levels.size, A.shape
+    F, (_, P, T) = levels.size, A.shape
     nominal = np.array([c.basis == "nominal" for c in plan.classes])
     mixed = np.any(A[nominal] != 0, axis=(0, 2)) if nominal.any() else np.zeros(P, dtype=bool)
     m = float(plan.spec.periods_per_year)
