@@ -558,7 +558,7 @@ def _headline_sections(ctx: _Run, top_n: int) -> tuple[list[Section], list[str]]
         total = int(frame["total"][0]) if frame.height else 0
         secs.append(Section(
             "Fails under high inflation",
-            f"{total:,} projects are accepted in a share of scenarios at least 25 points lower when "
+            f"{total:,} project{'' if total == 1 else 's'} {'is' if total == 1 else 'are'} accepted in a share of scenarios at least 25 points lower when "
             f"inflation is high (at or above {high_min:.2%}) than when it is low (at or below "
             f"{low_max:.2%}), over the same discount rates. Shown: the {min(top_n, total):,} largest drops.",
             table=frame.drop("total")))
