@@ -8,6 +8,8 @@ GROUP is an SQL keyword).
 from __future__ import annotations
 
 BASES = ("real", "nominal")
+DEPRECIATION_METHODS = ("straight-line", "declining-balance", "macrs")
+DEPRECIATION_CONVENTIONS = ("half-year", "mid-quarter")
 KINDS = ("investment", "benefit", "cost", "salvage", "other")
 
 # Cash-flow file: header -> (canonical name, required, type)
@@ -41,7 +43,9 @@ PROJECT_COLUMNS = {
     "salvage": ("salvage", False, "money"),
     "life": ("life", False, "period"),
     # after-tax columns (used by `screen --after-tax`)
-    "depreciation_method": ("depreciation_method", False, "text"),
+    "depreciation_method": ("depreciation_method", False, "choice"),
+    "depreciation_convention": ("depreciation_convention", False, "choice"),
+    "service_quarter": ("service_quarter", False, "period"),
     "recovery_years": ("recovery_years", False, "period"),
     "depreciable_basis": ("depreciable_basis", False, "money"),
     "loan_amount": ("loan_amount", False, "money"),

@@ -237,8 +237,8 @@ def _add_tax_lines(con, plan: Plan, first: int, stop: int, A: np.ndarray, horizo
     project's horizon, where its remaining book value is written off.
     """
     p = fetch_frame(con, """
-        SELECT pr.project_key, pr.depreciation_method, pr.recovery_years, pr.depreciable_basis, pr.salvage,
-               pr.loan_amount, pr.loan_rate, pr.loan_term,
+        SELECT pr.project_key, pr.depreciation_method, pr.depreciation_convention, pr.service_quarter,
+               pr.recovery_years, pr.depreciable_basis, pr.salvage, pr.loan_amount, pr.loan_rate, pr.loan_term,
                coalesce((SELECT -sum(amount) FROM cash_flows c WHERE c.project_id = pr.project_id
                          AND c.kind = 'investment'), 0) AS invested,
                coalesce((SELECT sum(amount) FROM cash_flows c WHERE c.project_id = pr.project_id
@@ -247,22 +247,31 @@ def _add_tax_lines(con, plan: Plan, first: int, stop: int, A: np.ndarray, horizo
     tax = plan.spec.tax
     default_method = tax.get("default_method", "straight-line")
     methods = np.array([m or default_method for m in p["depreciation_method"].to_list()], dtype=object)
-    horizon_years = horizon
     recovery = np.array([r if r is not None else (tax.get("default_recovery_years") or int(h))
-                         for r, h in zip(p["recovery_years"].to_list(), horizon_years)], dtype=np.int64)
-    basis = p["depreciable_basis"].fill_null(p["invested"]).to_numpy().astype(float)
-    salvage = p["salvage"].fill_null(p["salvage_lines"]).to_numpy().astype(float)
+                         for r, h in zip(p["recovery_years"].to_list(), horizon)], dtype=np.int64)
+    basis = np.clip(p["depreciable_basis"].fill_null(p["invested"]).to_numpy().astype(float), 0.0, None)
+    salvage = np.clip(p["salvage"].fill_null(p["salvage_lines"]).to_numpy().astype(float), 0.0, None)
     loan = p["loan_amount"].fill_null(0.0).to_numpy().astype(float)
     loan_rate = p["loan_rate"].fill_null(0.0).to_numpy().astype(float)
     loan_term = p["loan_term"].fill_null(1).to_numpy().astype(np.int64)
-    try:
-        extra = after_tax_lines(np.clip(basis, 0.0, None), horizon, plan.n_periods, method=methods,
-                                recovery_years=recovery, salvage=np.clip(salvage, 0.0, None),
-                                itc_rate=float(tax.get("investment_tax_credit", 0.0)),
-                                loan_amount=loan, loan_rate=loan_rate, loan_term=loan_term)
-    except ValueError as exc:
-        raise RunError(f"after-tax lines of projects {first}..{stop - 1}: {exc}. Fix: check depreciation_method "
-                       "(straight-line, declining-balance, macrs), recovery_years and loan columns") from None
+    # the MACRS convention is one value per call: one call per (convention, quarter) present in the chunk
+    conventions = [("mid-quarter", int(q or 4)) if c == "mid-quarter" else (None, None)
+                   for c, q in zip(p["depreciation_convention"].to_list(), p["service_quarter"].to_list())]
+    extra: dict = {}
+    for convention, quarter in sorted(set(conventions), key=str):
+        rows = np.array([c == (convention, quarter) for c in conventions])
+        try:
+            part = after_tax_lines(basis[rows], horizon[rows], plan.n_periods, method=methods[rows],
+                                   recovery_years=recovery[rows], salvage=salvage[rows], convention=convention,
+                                   quarter=quarter, itc_rate=float(tax.get("investment_tax_credit", 0.0)),
+                                   loan_amount=loan[rows], loan_rate=loan_rate[rows], loan_term=loan_term[rows])
+        except ValueError as exc:
+            raise RunError(f"after-tax lines of projects {first}..{stop - 1}: {exc}. Fix: check depreciation_method "
+                           "(straight-line, declining-balance, macrs), recovery_years, the convention and the loan "
+                           "columns") from None
+        for key, amounts in part.items():
+            full = extra.setdefault(key, np.zeros((len(conventions), plan.n_periods)))
+            full[rows] = amounts
     other = ROLES.index("other")
     for (b, e, m), amounts in extra.items():
         key = TAX_SHIELD_CLASS if m == "tax" else AFTER_TAX_ONLY_CLASS

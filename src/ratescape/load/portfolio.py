@@ -13,7 +13,7 @@ from pathlib import Path
 
 import polars as pl
 
-from ..columns import BASES, CASH_FLOW_COLUMNS, KINDS, PARAMETRIC_MONEY, PROJECT_COLUMNS
+from ..columns import BASES, CASH_FLOW_COLUMNS, DEPRECIATION_CONVENTIONS, DEPRECIATION_METHODS, KINDS, PARAMETRIC_MONEY, PROJECT_COLUMNS
 from ..errors import Issue, ValidationError
 from .reader import open_table, read_table
 from .validate import Cells, check_unique_ids
@@ -152,7 +152,10 @@ def _read_projects(path, issues: list[Issue], notes: list[str]) -> tuple[pl.Data
     cols += [cells.choice("benefit_basis", BASES, default="real"), cells.rate("benefit_escalation"),
              cells.choice("cost_basis", BASES, default="real"), cells.rate("cost_escalation"),
              cells.integer("life", required=False, minimum=1, what="a life in periods")]
-    cols += [cells.text("depreciation_method").str.to_lowercase().alias("depreciation_method"),
+    cols += [cells.choice("depreciation_method", DEPRECIATION_METHODS, default=""),
+             cells.choice("depreciation_convention", DEPRECIATION_CONVENTIONS, default=""),
+             cells.integer("service_quarter", required=False, minimum=1, maximum=4,
+                           what="the quarter the asset is placed in service (1-4)"),
              cells.integer("recovery_years", required=False, minimum=1, maximum=100, what="a recovery period in years"),
              cells.number("depreciable_basis", required=False, what="an amount of money"),
              cells.number("loan_amount", required=False, what="an amount of money"),

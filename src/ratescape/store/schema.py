@@ -13,7 +13,8 @@ TABLES = {
         requires VARCHAR, mandatory BOOLEAN, category VARCHAR,
         first_cost DOUBLE, annual_benefit DOUBLE, benefit_basis VARCHAR, benefit_escalation DOUBLE,
         annual_cost DOUBLE, cost_basis VARCHAR, cost_escalation DOUBLE, salvage DOUBLE, life INTEGER,
-        depreciation_method VARCHAR, recovery_years INTEGER, depreciable_basis DOUBLE,
+        depreciation_method VARCHAR, depreciation_convention VARCHAR, service_quarter INTEGER,
+        recovery_years INTEGER, depreciable_basis DOUBLE,
         loan_amount DOUBLE, loan_rate DOUBLE, loan_term INTEGER, source_line INTEGER)""",
     "cash_flows": """CREATE TABLE IF NOT EXISTS cash_flows (
         project_id VARCHAR NOT NULL, period INTEGER NOT NULL, amount DOUBLE NOT NULL, basis VARCHAR NOT NULL,
