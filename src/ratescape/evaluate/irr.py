@@ -58,6 +58,7 @@ __all__ = ["IrrStatus", "IrrResult", "irr_roots", "irr", "sign_changes"]
 
 _EPS = np.finfo(float).eps
 _CHUNK_ELEMENTS = 2_000_000  # rows x grid points per matrix product
+_COARSE_POINTS = 129  # grid of rows with one sign change (at most one root)
 
 
 class IrrStatus(IntEnum):
@@ -299,30 +300,40 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
     tc_rows, tc_g, tc_sign = [], [], []
     chunk = max(1, _CHUNK_ELEMENTS // G)
     # rows grouped by their last non-zero period L: each group's factors are scaled by
-    # L * min(u, 0) so they stay <= 1 without underflowing a short stream to zero
+    # L * min(u, 0) so they stay <= 1 without underflowing a short stream to zero.
+    # Rows whose amounts change sign once have at most one root (Descartes' rule of signs) and no
+    # touching root, so a coarse grid brackets it as surely as the fine one and they skip the
+    # touch search.
+    u_coarse = np.linspace(u[0], u[-1], _COARSE_POINTS)
     blocks = []
-    for L in np.unique(last[search]):  # a loop over distinct horizons, not over rows
-        group = search[last[search] == L]
-        D = np.exp(-np.outer(t[:L + 1], u) + L * np.minimum(u, 0.0))  # (L+1, G), entries <= 1
-        blocks += [(group[k:k + chunk], L, D) for k in range(0, group.size, chunk)]
-    for rows, L, D in blocks:  # loop over blocks of rows, not rows
+    for simple in (True, False):
+        chosen = search[(sc[search] == 1) == simple]
+        grid = u_coarse if simple else u
+        for L in np.unique(last[chosen]):  # a loop over distinct horizons, not over rows
+            group = chosen[last[chosen] == L]
+            D = np.exp(-np.outer(t[:L + 1], grid) + L * np.minimum(grid, 0.0))  # (L+1, G), entries <= 1
+            step = max(1, _CHUNK_ELEMENTS // grid.size)
+            blocks += [(group[k:k + step], L, D, grid, simple) for k in range(0, group.size, step)]
+    for rows, L, D, ug, simple in blocks:  # loop over blocks of rows, not rows
         F = A[rows, :L + 1] @ D
         n_g = F.shape[1]
         # exact zeros at grid points (flat indices are much faster than 2-D nonzero)
         k0 = np.flatnonzero(F == 0)
         node_rows.append(rows[k0 // n_g])
-        node_u.append(u[k0 % n_g])
+        node_u.append(ug[k0 % n_g])
         # sign changes between neighbours (0 counts as non-negative)
         neg = F < 0
         k1 = np.flatnonzero(neg[:, :-1] != neg[:, 1:])
         g1 = k1 % (n_g - 1)
         r1 = k1 // (n_g - 1)
         br_rows.append(rows[r1])
-        br_lo.append(u[g1])
-        br_hi.append(u[g1 + 1])
+        br_lo.append(ug[g1])
+        br_hi.append(ug[g1 + 1])
         f_a, f_b = F[r1, g1], F[r1, g1 + 1]
-        br_x0.append(u[g1] + (u[g1 + 1] - u[g1]) * f_a / (f_a - f_b))  # secant guess
+        br_x0.append(ug[g1] + (ug[g1 + 1] - ug[g1]) * f_a / (f_a - f_b))  # secant guess
         br_slo.append(np.where(f_a < 0, -1.0, 1.0))
+        if simple:
+            continue
         # touch candidates: strict local minimum of |F| with no sign change
         absF = np.abs(F)
         cand = (absF[:, 1:-1] <= absF[:, :-2]) & (absF[:, 1:-1] < absF[:, 2:])
