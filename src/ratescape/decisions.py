@@ -7,7 +7,6 @@ of :mod:`ratescape.decide`, and writes
   runner-up and margin (an implicit "do nothing" competes unless the group is mandatory);
 * ``frontiers``: the indifference frontier of every group on the plane of the discount axis
   and inflation (other axes at their base values), root-found, not a staircase;
-* ``scenario_ranks``: Kendall's tau-b of each scenario's ranking with the base scenario's;
 * with budgets: ``portfolios``, ``selections``, ``greedy_selections``, ``portfolio_summary``
   and ``portfolio_regret`` (capital rationing in every scenario as a 0-1 program);
 * selection shares and weighted probabilities in ``project_summary``.
@@ -21,7 +20,6 @@ import pyarrow as pa
 
 from .decide.alternatives import DO_NOTHING, NO_ALTERNATIVE, preferred_alternative
 from .decide.frontier import indifference_frontier
-from .decide.ranking import kendall_tau_b
 from .decide.rationing import core_portfolio, min_max_regret, ration_capital, selection_share
 from .evaluate.kernel import discount_tensor, present_worth_classes, then_current_streams
 from .progress import log
@@ -65,18 +63,15 @@ def decide_run(con, plan) -> None:
     groups = _group_members(projects)
     if groups:
         _decide_groups(con, plan, groups, _chunk_amounts)
+    if not plan.spec.budgets:
+        return
     cells = plan.project_count * plan.scenarios.size
-    if cells > CUBE_CELL_LIMIT:
-        log(f"decision stage: {cells:,} project-scenario cells exceed {CUBE_CELL_LIMIT:,}; rank correlations and "
-            "capital rationing are skipped for this run (query the results table instead)")
-        return
-    pw = _pw_cube(con, plan)
+    pw = _pw_cube(con, plan) if cells <= CUBE_CELL_LIMIT else None
     if pw is None:
-        log("decision stage: the worth matrix is too large to recompute; rank correlations and rationing skipped")
+        log(f"decision stage: {cells:,} project-scenario cells are more than capital rationing holds in memory "
+            f"({CUBE_CELL_LIMIT:,}); rationing is skipped for this run")
         return
-    _rank_correlation(con, plan, pw)
-    if plan.spec.budgets:
-        _ration(con, plan, projects, pw, _chunk_amounts)
+    _ration(con, plan, projects, pw, _chunk_amounts)
 
 
 def _group_members(projects) -> dict:
@@ -200,18 +195,6 @@ def _decide_groups(con, plan, groups: dict, reader) -> None:
             fr["converged"] += np.asarray(front.converged, dtype=bool).tolist()
     _insert(con, "group_decisions", rows, plan.run_id)
     _insert(con, "frontiers", fr, plan.run_id)
-
-
-def _rank_correlation(con, plan, pw: np.ndarray) -> None:
-    base = plan.scenarios.base_index
-    tau = np.asarray(kendall_tau_b(pw, base), dtype=float)
-    pi = _pw_cube(con, plan, "profitability_index")
-    has_pi = np.all(np.isfinite(pi), axis=1)
-    tau_pi = (np.asarray(kendall_tau_b(pi[has_pi], base), dtype=float) if has_pi.sum() >= 2
-              else np.full(plan.scenarios.size, np.nan))
-    S = plan.scenarios.size
-    _insert(con, "scenario_ranks", {"scenario_id": np.arange(S, dtype=np.int32), "kendall_tau": tau,
-                                    "kendall_tau_pi": tau_pi}, plan.run_id)
 
 
 def _budget_outlays(con, plan, reader):

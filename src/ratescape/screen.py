@@ -22,7 +22,7 @@ import pyarrow as pa
 from . import __version__
 from .errors import RunError
 from .evaluate.irr import irr_roots
-from .decide.ranking import rank_projects
+from .decide.ranking import kendall_tau_b, rank_projects
 from .decide.sensitivity import SensitivitySettings, one_at_a_time
 from .evaluate.kernel import (ROLES, LineClass, capital_recovery_factor, discount_tensor, present_worth_classes,
                               then_current_streams)
@@ -515,6 +515,8 @@ def rank_statistics(con, plan: Plan) -> dict:
     "competition ranking"; projects without an investment outlay have no PI rank), and keeps
     min, max, the base scenario's rank and the top-K count. Medians are exact while the
     (P, S) rank matrix fits in RANK_MATRIX_BYTES; beyond that they are left empty (logged).
+    Also returns, per scenario, Kendall's tau-b of its ranking against the base scenario's (by PW,
+    and by PI over the projects that have one), computed in the same pass.
     """
     P, S = plan.project_count, plan.scenarios.size
     base = plan.scenarios.base_index
@@ -523,6 +525,16 @@ def rank_statistics(con, plan: Plan) -> dict:
     exact_median = P * S * 4 <= RANK_MATRIX_BYTES
     if not exact_median:
         log(f"ranks: {P:,} x {S:,} ranks exceed the in-memory limit; median ranks are left empty")
+    base_block = result_block(con, plan, base, base + 1)
+    if base_block is None:
+        log("ranks: result rows are not all kept and the worth matrix is too large to recompute in memory; "
+            "rank statistics are left empty")
+        return {}
+    base_pw = base_block["present_worth"][:, 0]
+    base_pi = base_block["profitability_index"][:, 0]
+    has_pi = np.isfinite(base_pi)
+    tau = np.full(S, np.nan)
+    tau_pi = np.full(S, np.nan)
     stats = {}
     for name in ("pw", "pi"):
         stats[name] = {"min": np.full(P, np.iinfo(np.int64).max), "max": np.zeros(P, dtype=np.int64),
@@ -536,6 +548,11 @@ def rank_statistics(con, plan: Plan) -> dict:
             log("ranks: result rows are not all kept and the worth matrix is too large to recompute in memory; "
                 "rank statistics are left empty")
             return {}
+        # Kendall's tau-b of each scenario's ranking against the base scenario's, block by block
+        if P >= 2:
+            tau[a:b] = kendall_tau_b(blocks["present_worth"], base_pw)
+        if has_pi.sum() >= 2:
+            tau_pi[a:b] = kendall_tau_b(blocks["profitability_index"][has_pi], base_pi[has_pi])
         for name, column in (("pw", "present_worth"), ("pi", "profitability_index")):
             values = blocks[column]
             ranks = rank_projects(values)
@@ -561,7 +578,7 @@ def rank_statistics(con, plan: Plan) -> dict:
         if name == "pw":
             out["rank_base"] = np.where(ok, st["base"], -1)
             out["top_k_share"] = np.where(ok, st["top"] / S, np.nan)
-    return out
+    return out, {"kendall_tau": tau, "kendall_tau_pi": tau_pi}
 
 
 # Largest pair of recomputed (P, S) worth matrices held when result rows are not all stored.
@@ -609,13 +626,14 @@ def result_block(con, plan: Plan, a: int, b: int) -> dict | None:
 
 def _finalize(con, plan: Plan) -> None:
     """Rank statistics across all projects per scenario, the decision stage, then mark the run done."""
-    stats = rank_statistics(con, plan)
-    if not stats:
+    result = rank_statistics(con, plan)
+    if not result:
         with transaction(con):
             run_decisions(con, plan)
             con.execute("UPDATE runs SET status = 'done', finished_at = ?, message = ? WHERE run_id = ?",
                         [_now(), "rank statistics skipped: worth matrix too large without stored rows", plan.run_id])
         return
+    stats, taus = result
     table = pa.table({"project_key": pa.array(np.arange(plan.project_count, dtype=np.int32)),
                       **{k: pa.array(v, mask=(v < 0) if v.dtype.kind == "i" else ~np.isfinite(v))
                          for k, v in stats.items()}})
@@ -626,6 +644,9 @@ def _finalize(con, plan: Plan) -> None:
             FROM (SELECT p.project_id, rs.* FROM rank_stats rs JOIN projects p USING (project_key)) AS r
             WHERE s.run_id = ? AND s.project_id = r.project_id""", [plan.run_id])
         con.unregister("rank_stats")
+        append_rows(con, "scenario_ranks", pa.table({
+            "scenario_id": pa.array(np.arange(plan.scenarios.size, dtype=np.int32)),
+            **{k: _floats(v) for k, v in taus.items()}}), plan.run_id)
         run_decisions(con, plan)
         con.execute("UPDATE runs SET status = 'done', finished_at = ?, message = NULL WHERE run_id = ?",
                     [_now(), plan.run_id])
