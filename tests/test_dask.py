@@ -21,7 +21,8 @@ for k in range(40):
 def rows(path, run_id, table, order):
     con = duckdb.connect(str(path), read_only=True)
     try:
-        return con.execute(f"SELECT * EXCLUDE (run_id) FROM {table} WHERE run_id = ? ORDER BY {order}", [run_id]).fetchall()
+        drop = "run_id, scenario_key" if table == "scenarios" else "run_id"   # scenario_key differs between runs
+        return con.execute(f"SELECT * EXCLUDE ({drop}) FROM {table} WHERE run_id = ? ORDER BY {order}", [run_id]).fetchall()
     finally:
         con.close()
 

@@ -209,7 +209,7 @@ class _Interrupting:
         self._con, self._left = con, after
 
     def execute(self, sql, *args, **kw):
-        if sql.lstrip().upper().startswith("INSERT INTO RESULTS"):
+        if sql.lstrip().upper().startswith("INSERT INTO RESULT_ROWS"):
             self._left -= 1
             if self._left < 0:
                 raise RuntimeError("Query interrupted")   # what duckdb 2.0 raises on SIGINT during a query

@@ -75,6 +75,12 @@ def create_tables(con) -> None:
             con.execute(ddl)
     else:
         create_schema(con)
+        # `results` is a view over the narrow result_rows table; these invented databases write
+        # the view's columns directly, so stand a plain table with the same columns in its place
+        con.execute("DROP VIEW results")
+        con.execute("""CREATE TABLE results (run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL,
+            scenario_id INTEGER NOT NULL, present_worth DOUBLE NOT NULL, annual_worth DOUBLE, accepted BOOLEAN,
+            profitability_index DOUBLE, present_worth_before_tax DOUBLE, project_key INTEGER)""")
 
 
 def insert_rows(con, table: str, columns: list[str], rows: list[tuple]) -> None:

@@ -22,10 +22,10 @@ import pyarrow as pa
 from . import __version__
 from .errors import RunError
 from .evaluate.irr import irr_roots
-from .decide.ranking import kendall_tau_b, rank_projects
+from .decide.rank_kernel import BaseOrdering, mean_ranks, rank_rows, ranks_and_tau
 from .decide.sensitivity import SensitivitySettings, one_at_a_time
 from .evaluate.kernel import (ROLES, LineClass, capital_recovery_factor, discount_tensor, present_worth_classes,
-                              then_current_streams)
+                              present_worth_scenario_major, scenario_major_tensor, then_current_streams)
 from .evaluate.measures import (benefit_cost_ratio, discounted_payback_period, mirr, payback_period,
                                 present_worth)
 from .evaluate.tax import after_tax_lines
@@ -33,6 +33,7 @@ from .evaluate.timing import discount_exponents
 from .grid import GridSpec, ScenarioTable, build_scenarios
 from .progress import Progress, log
 from .store.database import append_rows, fetch_frame, is_interrupt, transaction
+from .store.scratch import RankScratch, WorthScratch, scratch_folder
 
 SWITCH_LABELS = {0: "one", 1: "several", 2: "none", 3: "at_base"}
 
@@ -101,7 +102,10 @@ class Plan:
     base_multipliers: dict
     tensor_before_tax: np.ndarray | None = None
     kept: np.ndarray | None = None       # (S,) bool: scenarios whose result rows are stored
-    cubes: dict | None = None            # recomputed (P, S) worth matrices when rows are not all kept
+    tensor_sm: np.ndarray | None = None  # the tensor as (S, C*T), for scenario-major products
+    tensor_before_tax_sm: np.ndarray | None = None
+    scenario_key_base: int = 0           # scenario s of this run is stored as scenario_key base + s
+    scratch: WorthScratch | None = None  # per-chunk worth files for the rank pass (not sent to workers)
 
     @property
     def chunk_count(self) -> int:
@@ -164,7 +168,8 @@ def _plan(con, run_id: str, spec: GridSpec, chunk_size: int | None) -> Plan:
     except ValueError as exc:
         raise RunError(f"[sensitivity] settings: {exc}") from None
     return Plan(run_id, spec, table, classes, class_index, T, tau, tensor, _scenario_weights(spec, table),
-                count, int(chunk_size), levels, irr_mult, sens, base_mult, before, kept_scenarios(spec, table))
+                count, int(chunk_size), levels, irr_mult, sens, base_mult, before, kept_scenarios(spec, table),
+                scenario_major_tensor(tensor), None if before is None else scenario_major_tensor(before))
 
 
 def kept_scenarios(spec: GridSpec, table: ScenarioTable) -> np.ndarray:
@@ -280,35 +285,49 @@ def _add_tax_lines(con, plan: Plan, first: int, stop: int, A: np.ndarray, horizo
         A[other, plan.class_index[key]] += amounts
 
 
+def worth_and_index(plan: Plan, A_by_role: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Present worth and profitability index (S, P), scenario-major, of a chunk's amounts (R, C, P, T).
+
+    PI = 1 + PW / (PW of the investment outlays), where the outlay's present worth is positive;
+    NaN otherwise (a project without an investment has no PI).
+    """
+    pw = present_worth_scenario_major(A_by_role.sum(axis=0), plan.tensor_sm)
+    outlay = present_worth_scenario_major(A_by_role[0], plan.tensor_sm)
+    np.negative(outlay, out=outlay)
+    has = outlay > 0
+    pi = np.full(pw.shape, np.nan)
+    np.divide(pw, outlay, out=pi, where=has)
+    np.add(pi, 1.0, out=pi, where=has)
+    return pw, pi
+
+
 def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> dict:
-    """Pure evaluation of one chunk: present/annual worth, acceptance, summaries, IRRs, sensitivity."""
+    """Pure evaluation of one chunk: present worth and PI (S, P), summaries, IRRs, sensitivity."""
     cols = plan.scenarios.columns
     A = A_by_role.sum(axis=0)
-    pw = present_worth_classes(A, plan.tensor)                          # (P, S)
-    outlay = -present_worth_classes(A_by_role[0], plan.tensor)          # PW of investment outlays (P, S)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        pi = np.where(outlay > 0, 1.0 + pw / outlay, np.nan)            # profitability index
+    pw, pi = worth_and_index(plan, A_by_role)                           # (S, P) each
     years = horizon / float(plan.spec.periods_per_year)
-    crf = capital_recovery_factor(cols["real_rate"][None, :], years[:, None])
-    aw = pw * crf                                                        # base-year money per year
-    accepted = pw >= 0.0
     w = plan.weights
     b = plan.scenarios.base_index
+    accepted = pw >= 0.0
     summary = {
-        "accept_share": accepted.mean(axis=1), "accept_probability": accepted @ w,
-        "pw_min": pw.min(axis=1), "pw_max": pw.max(axis=1), "pw_mean": pw.mean(axis=1),
-        "pw_expected": pw @ w, "pw_base": pw[:, b], "accepted_base": accepted[:, b],
-        "annual_worth_base": aw[:, b], "horizon": horizon.astype(np.int32),
+        "accept_share": accepted.mean(axis=0), "accept_probability": w @ accepted,
+        "pw_min": pw.min(axis=0), "pw_max": pw.max(axis=0), "pw_mean": pw.mean(axis=0),
+        "pw_expected": w @ pw, "pw_base": pw[b].copy(), "accepted_base": accepted[b].copy(),
+        "annual_worth_base": pw[b] * capital_recovery_factor(cols["real_rate"][b], years),
+        "horizon": horizon.astype(np.int32),
     }
+    del accepted
     irr = irr_over_inflation(plan, A)
     F, P = plan.inflation_levels.size, A.shape[1]
     summary.update(base_measures(plan, A_by_role, horizon))
     sens = one_at_a_time(A_by_role, plan.classes, plan.exponents, float(cols["discount_rate"][b]),
                          float(cols["inflation"][b]), plan.sensitivity, plan.base_multipliers)
-    if plan.tensor_before_tax is not None:
-        summary["pw_before_tax_base"] = present_worth_classes(A, plan.tensor_before_tax[:, :, b:b + 1])[:, 0]
-    pw_before = present_worth_classes(A, plan.tensor_before_tax) if plan.tensor_before_tax is not None else None
-    return {"pw": pw, "pw_before_tax": pw_before, "aw": aw, "pi": pi, "accepted": accepted, "summary": summary, "irr": irr, "irr_shape": (F, P),
+    pw_before = None
+    if plan.tensor_before_tax_sm is not None:
+        pw_before = present_worth_scenario_major(A, plan.tensor_before_tax_sm)
+        summary["pw_before_tax_base"] = pw_before[b].copy()
+    return {"pw": pw, "pw_before_tax": pw_before, "pi": pi, "summary": summary, "irr": irr, "irr_shape": (F, P),
             "sensitivity": sens}
 
 
@@ -417,25 +436,23 @@ def _floats(values) -> pa.Array:
 
 
 def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out: dict, seconds: float) -> int:
-    P, S = out["pw"].shape
-    # scenario-major order within the chunk: each row group spans a narrow range of scenario ids,
-    # so reading results back one block of scenarios at a time skips most row groups
-    dictionary = pa.array(ids.tolist(), type=pa.string())
-    indices = pa.array(np.tile(np.arange(P, dtype=np.int32), S))
-    flat = lambda a: np.ascontiguousarray(a.T).ravel()  # noqa: E731
-    pi = flat(out["pi"])
-    results = pa.table({
-        "project_id": pa.DictionaryArray.from_arrays(indices, dictionary),
-        "scenario_id": pa.array(np.repeat(np.arange(S, dtype=np.int32), P)),
-        "present_worth": pa.array(flat(out["pw"])),
-        "annual_worth": pa.array(flat(out["aw"])),
-        "accepted": pa.array(flat(out["accepted"])),
+    S, P = out["pw"].shape
+    kept = plan.kept if plan.kept is not None else np.ones(S, dtype=bool)
+    rows_of = (lambda a: a.ravel()) if kept.all() else (lambda a: a[kept].ravel())  # noqa: E731
+    keys = plan.scenario_key_base + np.flatnonzero(kept).astype(np.int32)
+    pi = rows_of(out["pi"])
+    columns = {
+        "scenario_key": pa.array(np.repeat(keys.astype(np.int32), P)),
+        "project_key": pa.array(np.tile(np.arange(first, first + P, dtype=np.int32), keys.size)),
+        "present_worth": pa.array(rows_of(out["pw"])),
         "profitability_index": pa.array(pi, mask=np.isnan(pi)),
-        "present_worth_before_tax": (pa.array(flat(out["pw_before_tax"])) if out["pw_before_tax"] is not None
-                                     else pa.nulls(P * S, pa.float64())),
-        "project_key": pa.array(np.tile(np.arange(first, first + P, dtype=np.int32), S)),
-    })
+    }
+    if out["pw_before_tax"] is not None:
+        columns["present_worth_before_tax"] = pa.array(rows_of(out["pw_before_tax"]))
+    results = pa.table(columns)
+    del pi
     summary = pa.table({"project_id": pa.array(ids.tolist(), type=pa.string()),
+                        "project_key": pa.array(np.arange(first, first + P, dtype=np.int32)),
                         **{k: pa.array(v, mask=np.isnan(v) if np.asarray(v).dtype.kind == "f" else None)
                            for k, v in out["summary"].items()}})
     irr = out["irr"]
@@ -485,13 +502,16 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
         "change": pa.array(np.tile(sens["pct_changes"], I * P)),
         "present_worth": _floats(sens["spider"].ravel()),
     })
-    kept = plan.kept if plan.kept is not None else np.ones(S, dtype=bool)
-    if not kept.all():
-        results = results.filter(pa.array(np.repeat(kept, P)))
+    if plan.scratch is not None:
+        plan.scratch.write(chunk_index, out["pw"], out["pi"])   # before the commit: a done chunk has its files
     with transaction(con):
         append_rows(con, "sensitivity", sens_table, plan.run_id)
         append_rows(con, "spider", spider_table, plan.run_id)
-        append_rows(con, "results", results, plan.run_id)   # dictionary-encoded ids: DuckDB casts them
+        if results.num_rows:
+            con.register("incoming_result_rows", results)
+            names = ", ".join(results.column_names)
+            con.execute(f"INSERT INTO result_rows ({names}) SELECT {names} FROM incoming_result_rows")
+            con.unregister("incoming_result_rows")
         append_rows(con, "project_summary", summary, plan.run_id)
         append_rows(con, "irr_results", irr_table, plan.run_id)
         append_rows(con, "irr_roots", roots_table, plan.run_id)
@@ -501,139 +521,107 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
     return results.num_rows
 
 
-# Cells of the (projects x scenarios) block read back for ranking, and the largest rank matrix
-# kept in memory for exact medians (uint32: 4 bytes a cell; ~1 GB = 100,000 x 2,601).
+# Cells of the (scenarios x projects) block ranked at once (reused buffers of ~40 MB each).
 RANK_BLOCK_CELLS = 5_000_000
-RANK_MATRIX_BYTES = 1_100_000_000
+# Kendall's tau-b costs a merge sort per scenario and measure (about 15 ms at 100,000 projects);
+# above this many projects only Spearman's rho (nearly free once the ranks are known) is stored.
+KENDALL_MAX_PROJECTS = 10_000
 
 
-def rank_statistics(con, plan: Plan) -> dict:
-    """Per-project rank statistics by present worth and by profitability index, in scenario blocks.
+def _ensure_scratch(con, plan: Plan) -> None:
+    """Rebuild the worth files of done chunks that lack them (resumed run, cleaned folder)."""
+    missing = plan.scratch.missing()
+    if missing:
+        log(f"ranks: rebuilding the worth files of {len(missing)} chunk(s)")
+    for c in missing:
+        first = c * plan.chunk_size
+        stop = min(first + plan.chunk_size, plan.project_count)
+        A_by_role, _, _ = _chunk_amounts(con, plan, first, stop)
+        plan.scratch.write(c, *worth_and_index(plan, A_by_role))
 
-    Reads the run's stored results back one block of scenarios at a time (bounded memory),
-    ranks every project within each scenario (1 = largest; ties share the smallest rank,
-    "competition ranking"; projects without an investment outlay have no PI rank), and keeps
-    min, max, the base scenario's rank and the top-K count. Medians are exact while the
-    (P, S) rank matrix fits in RANK_MATRIX_BYTES; beyond that they are left empty (logged).
-    Also returns, per scenario, Kendall's tau-b of its ranking against the base scenario's (by PW,
-    and by PI over the projects that have one), computed in the same pass.
+
+def rank_statistics(con, plan: Plan):
+    """Per-project rank statistics by present worth and by profitability index, per scenario block.
+
+    Reads the run's worth files one block of scenarios at a time (memory bounded by the block,
+    not the portfolio), ranks every project within each scenario (1 = largest; ties share the
+    smallest rank, "competition ranking"; projects without a PI in every scenario get no PI
+    rank statistics), and keeps min, max, the base scenario's rank and the top-K count. Each
+    block's ranks go to per-chunk rank files, from which exact medians are taken one chunk at a
+    time. Also returns, per scenario, Spearman's rho of its ranking against the base scenario's
+    (by PW, and by PI over the projects that have one) and, up to KENDALL_MAX_PROJECTS projects,
+    Kendall's tau-b.
     """
+    _ensure_scratch(con, plan)
     P, S = plan.project_count, plan.scenarios.size
     base = plan.scenarios.base_index
     k = int(plan.spec.decisions.get("top_k", 10))
     block = max(1, min(S, RANK_BLOCK_CELLS // max(P, 1)))
-    exact_median = P * S * 4 <= RANK_MATRIX_BYTES
-    if not exact_median:
-        log(f"ranks: {P:,} x {S:,} ranks exceed the in-memory limit; median ranks are left empty")
-    base_block = result_block(con, plan, base, base + 1)
-    if base_block is None:
-        log("ranks: result rows are not all kept and the worth matrix is too large to recompute in memory; "
-            "rank statistics are left empty")
-        return {}
-    base_pw = base_block["present_worth"][:, 0]
-    base_pi = base_block["profitability_index"][:, 0]
-    has_pi = np.isfinite(base_pi)
-    tau = np.full(S, np.nan)
-    tau_pi = np.full(S, np.nan)
+    with_tau = P <= KENDALL_MAX_PROJECTS
+    if not with_tau:
+        log(f"ranks: {P:,} projects; Kendall's tau is computed up to {KENDALL_MAX_PROJECTS:,}, "
+            "Spearman's rho is stored for every scenario")
+    values = np.empty((block, P))
+    ranks_buffer = np.empty((block, P), dtype=np.uint32)
+    names = {"pw": "", "pi": "_pi"}
+    agreement = {f"{stat}{suffix}": np.full(S, np.nan) for stat in ("kendall_tau", "spearman_rho")
+                 for suffix in names.values()}
     stats = {}
-    for name in ("pw", "pi"):
-        stats[name] = {"min": np.full(P, np.iinfo(np.int64).max), "max": np.zeros(P, dtype=np.int64),
-                       "base": np.zeros(P, dtype=np.int64), "top": np.zeros(P),
-                       "all": np.zeros((P, S), dtype=np.uint32) if exact_median else None,
-                       "valid": np.zeros(P, dtype=bool)}
+    for name in names:
+        base_values = plan.scratch.read_block(name, base, base + 1)[0]
+        has = np.isfinite(base_values)
+        stats[name] = {"min": np.full(P, np.iinfo(np.uint32).max, dtype=np.uint32),
+                       "max": np.zeros(P, dtype=np.uint32), "top": np.zeros(P, dtype=np.int64),
+                       "base": np.zeros(P, dtype=np.uint32), "valid": has.copy(),
+                       "mean_ranks": mean_ranks(base_values), "has": has,
+                       "ordering": BaseOrdering(base_values) if with_tau else None,
+                       "files": RankScratch(plan.scratch.folder, name, S, P, plan.chunk_size)}
     for a in range(0, S, block):
         b = min(S, a + block)
-        blocks = result_block(con, plan, a, b)
-        if blocks is None:
-            log("ranks: result rows are not all kept and the worth matrix is too large to recompute in memory; "
-                "rank statistics are left empty")
-            return {}
-        # Kendall's tau-b of each scenario's ranking against the base scenario's, block by block
-        if P >= 2:
-            tau[a:b] = kendall_tau_b(blocks["present_worth"], base_pw)
-        if has_pi.sum() >= 2:
-            tau_pi[a:b] = kendall_tau_b(blocks["profitability_index"][has_pi], base_pi[has_pi])
-        for name, column in (("pw", "present_worth"), ("pi", "profitability_index")):
-            values = blocks[column]
-            ranks = rank_projects(values)
-            valid = np.isfinite(values)
+        for name, suffix in names.items():
             st = stats[name]
-            big = np.where(valid, ranks, np.iinfo(np.int64).max)
-            st["min"] = np.minimum(st["min"], big.min(axis=1))
-            st["max"] = np.maximum(st["max"], np.where(valid, ranks, 0).max(axis=1))
-            st["top"] += ((ranks <= k) & valid).sum(axis=1)
-            st["valid"] |= valid.all(axis=1)
+            vals = plan.scratch.read_block(name, a, b, out=values)
+            ranks, rho = rank_rows(vals, st["mean_ranks"], st["has"], out=ranks_buffer[: b - a])
+            agreement[f"spearman_rho{suffix}"][a:b] = rho
+            if with_tau:
+                agreement[f"kendall_tau{suffix}"][a:b] = ranks_and_tau(vals, st["ordering"])[1]
+            if name == "pi":
+                st["valid"] &= np.isfinite(vals).all(axis=0)
+            np.minimum(st["min"], ranks.min(axis=0), out=st["min"])
+            np.maximum(st["max"], ranks.max(axis=0), out=st["max"])
+            st["top"] += (ranks <= k).sum(axis=0)
             if a <= base < b:
-                st["base"] = np.where(valid[:, base - a], ranks[:, base - a], 0)
-            if st["all"] is not None:
-                st["all"][:, a:b] = np.where(valid, ranks, 0)
+                st["base"][:] = ranks[base - a]
+            st["files"].append(ranks)
     out = {}
     for name, prefix in (("pw", "rank"), ("pi", "pi_rank")):
         st = stats[name]
         ok = st["valid"]
-        med = (np.median(st["all"], axis=1) if st["all"] is not None else np.full(P, np.nan))
-        out[f"{prefix}_min"] = np.where(ok, st["min"], -1)
-        out[f"{prefix}_max"] = np.where(ok, st["max"], -1)
-        out[f"{prefix}_median"] = np.where(ok, med, np.nan)
+        median = np.empty(P)
+        for first, chunk_ranks in st["files"].chunks():
+            median[first:first + chunk_ranks.shape[1]] = np.median(chunk_ranks, axis=0)
+        out[f"{prefix}_min"] = np.where(ok, st["min"].astype(np.int64), -1)
+        out[f"{prefix}_max"] = np.where(ok, st["max"].astype(np.int64), -1)
+        out[f"{prefix}_median"] = np.where(ok, median, np.nan)
         if name == "pw":
-            out["rank_base"] = np.where(ok, st["base"], -1)
+            out["rank_base"] = np.where(ok, st["base"].astype(np.int64), -1)
             out["top_k_share"] = np.where(ok, st["top"] / S, np.nan)
-    return out, {"kendall_tau": tau, "kendall_tau_pi": tau_pi}
-
-
-# Largest pair of recomputed (P, S) worth matrices held when result rows are not all stored.
-CUBE_BYTES = 1_600_000_000
+    return out, agreement
 
 
 def result_block(con, plan: Plan, a: int, b: int) -> dict | None:
     """Present worth and profitability index (P, b - a) of scenarios [a, b) for every project.
 
-    Read back from the stored results when every row is kept; otherwise recomputed once, chunk by
-    chunk with the run's own kernel (the same numbers the chunks produced), and held in memory if
-    it fits in CUBE_BYTES (None when it does not).
+    Read from the run's worth files (the numbers the chunks produced, whatever ``--keep`` stored).
     """
-    P = plan.project_count
-    if plan.kept is None or plan.kept.all():
-        data = con.execute("""SELECT project_key, scenario_id, present_worth, profitability_index FROM results
-                              WHERE run_id = ? AND scenario_id >= ? AND scenario_id < ?""",
-                           [plan.run_id, a, b]).fetchnumpy()
-        rows = np.asarray(data["project_key"], dtype=np.int64)
-        cols = np.asarray(data["scenario_id"], dtype=np.int64) - a
-        out = {}
-        for column in ("present_worth", "profitability_index"):
-            values = np.full((P, b - a), np.nan)
-            raw = data[column]
-            values[rows, cols] = (np.ma.filled(raw.astype(float), np.nan) if np.ma.isMaskedArray(raw)
-                                  else np.asarray(raw, dtype=float))
-            out[column] = values
-        return out
-    if plan.cubes is None:
-        S = plan.scenarios.size
-        if 16 * P * S > CUBE_BYTES:
-            return None
-        pw = np.empty((P, S))
-        pi = np.empty((P, S))
-        for first in range(0, P, plan.chunk_size):
-            stop = min(first + plan.chunk_size, P)
-            A_by_role, _, _ = _chunk_amounts(con, plan, first, stop)
-            pw[first:stop] = present_worth_classes(A_by_role.sum(axis=0), plan.tensor)
-            outlay = -present_worth_classes(A_by_role[0], plan.tensor)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                pi[first:stop] = np.where(outlay > 0, 1.0 + pw[first:stop] / outlay, np.nan)
-        plan.cubes = {"present_worth": pw, "profitability_index": pi}
-    return {k: v[:, a:b] for k, v in plan.cubes.items()}
+    _ensure_scratch(con, plan)
+    return {column: np.ascontiguousarray(plan.scratch.read_block(name, a, b).T)
+            for column, name in (("present_worth", "pw"), ("profitability_index", "pi"))}
 
 
 def _finalize(con, plan: Plan) -> None:
     """Rank statistics across all projects per scenario, the decision stage, then mark the run done."""
-    result = rank_statistics(con, plan)
-    if not result:
-        with transaction(con):
-            run_decisions(con, plan)
-            con.execute("UPDATE runs SET status = 'done', finished_at = ?, message = ? WHERE run_id = ?",
-                        [_now(), "rank statistics skipped: worth matrix too large without stored rows", plan.run_id])
-        return
-    stats, taus = result
+    stats, agreement = rank_statistics(con, plan)
     table = pa.table({"project_key": pa.array(np.arange(plan.project_count, dtype=np.int32)),
                       **{k: pa.array(v, mask=(v < 0) if v.dtype.kind == "i" else ~np.isfinite(v))
                          for k, v in stats.items()}})
@@ -641,15 +629,16 @@ def _finalize(con, plan: Plan) -> None:
         con.register("rank_stats", table)
         con.execute(f"""
             UPDATE project_summary AS s SET {', '.join(f'{c} = r.{c}' for c in stats)}
-            FROM (SELECT p.project_id, rs.* FROM rank_stats rs JOIN projects p USING (project_key)) AS r
-            WHERE s.run_id = ? AND s.project_id = r.project_id""", [plan.run_id])
+            FROM rank_stats AS r
+            WHERE s.run_id = ? AND s.project_key = r.project_key""", [plan.run_id])
         con.unregister("rank_stats")
         append_rows(con, "scenario_ranks", pa.table({
             "scenario_id": pa.array(np.arange(plan.scenarios.size, dtype=np.int32)),
-            **{k: _floats(v) for k, v in taus.items()}}), plan.run_id)
+            **{k: _floats(v) for k, v in agreement.items()}}), plan.run_id)
         run_decisions(con, plan)
         con.execute("UPDATE runs SET status = 'done', finished_at = ?, message = NULL WHERE run_id = ?",
                     [_now(), plan.run_id])
+    plan.scratch.remove()
 
 
 def run_decisions(con, plan: Plan) -> None:
@@ -687,6 +676,8 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
                            "Fix: start a new run with `ratescape screen`")
         spec = GridSpec.from_json(grid_json)
         plan = _plan(con, resume, spec, stored_chunk)
+        plan.scenario_key_base = int(con.execute("SELECT min(scenario_key) FROM scenarios WHERE run_id = ?",
+                                                 [resume]).fetchall()[0][0])
         con.execute("UPDATE runs SET status = 'running', process_id = ?, message = NULL WHERE run_id = ?",
                     [os.getpid(), resume])
         log(f"resuming run {resume}")
@@ -700,6 +691,15 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
         inputs_hash, _, _ = _current_inputs(con)
         cols = plan.scenarios.columns
         S = plan.scenarios.size
+        plan.scenario_key_base = int(con.execute("SELECT coalesce(max(scenario_key) + 1, 0) FROM scenarios")
+                                     .fetchall()[0][0])
+        scenario_keys = plan.scenario_key_base + np.arange(S, dtype=np.int32)
+        horizons = np.arange(1, plan.n_periods + 1)
+        factors = capital_recovery_factor(cols["real_rate"][None, :],
+                                          horizons[:, None] / float(spec.periods_per_year))   # (H, S)
+        annual = pa.table({"scenario_key": pa.array(np.tile(scenario_keys, horizons.size)),
+                           "horizon": pa.array(np.repeat(horizons.astype(np.int32), S)),
+                           "capital_recovery": pa.array(factors.ravel())})
         scen = pa.table({
             "scenario_id": pa.array(cols["scenario_id"].astype(np.int32)),
             "discount_rate": pa.array(cols["discount_rate"]), "real_rate": pa.array(cols["real_rate"]),
@@ -708,6 +708,7 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
                for k in ("tax_rate", "cost_multiplier", "benefit_multiplier")},
             "weight": pa.array(plan.weights),
             "is_base": pa.array(cols["scenario_id"] == plan.scenarios.base_index),
+            "scenario_key": pa.array(scenario_keys),
         })
         with transaction(con):
             con.execute("INSERT INTO runs VALUES (?, 'running', ?, NULL, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0, ?, NULL)", [
@@ -717,7 +718,12 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
             con.register("new_scenarios", scen)
             con.execute("INSERT INTO scenarios SELECT ?, * FROM new_scenarios", [run_id])
             con.unregister("new_scenarios")
+            con.register("new_annual_factors", annual)
+            con.execute("INSERT INTO annual_factors SELECT * FROM new_annual_factors")
+            con.unregister("new_annual_factors")
         log(f"run {run_id}: {plan.project_count} projects x {S} scenarios in {plan.chunk_count} chunk(s)")
+    plan.scratch = WorthScratch(scratch_folder(con, plan.run_id), plan.scenarios.size, plan.project_count,
+                                plan.chunk_size)
     done = {r[0] for r in con.execute("SELECT chunk_index FROM run_chunks WHERE run_id = ?", [plan.run_id]).fetchall()}
     todo = [c for c in range(plan.chunk_count) if c not in done]
     bar = Progress(len(todo), "screen", enabled=progress)

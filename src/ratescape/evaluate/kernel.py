@@ -137,6 +137,28 @@ def present_worth_classes(amounts: np.ndarray, tensor: np.ndarray, *, out: np.nd
     return np.matmul(flat, np.ascontiguousarray(D.reshape(C * T, S)), out=out)
 
 
+def present_worth_scenario_major(amounts: np.ndarray, tensor_t: np.ndarray, *,
+                                 out: np.ndarray | None = None) -> np.ndarray:
+    """Present worth (S, P), scenario-major, of class-stacked amounts (C, P, T).
+
+    ``tensor_t`` is the discount tensor laid out (S, C*T) (see :func:`scenario_major_tensor`).
+    The same product as :func:`present_worth_classes`, transposed: (S, C*T) @ (C*T, P), so rows
+    come out one scenario at a time, ready to be written scenario by scenario without a transpose.
+    """
+    A = np.asarray(amounts, dtype=float)
+    C, P, T = A.shape
+    if tensor_t.ndim != 2 or tensor_t.shape[1] != C * T:
+        raise ValueError(f"amounts (C, P, T) {A.shape} and tensor (S, C*T) {tensor_t.shape} do not match")
+    flat = A[0] if C == 1 else np.ascontiguousarray(A.transpose(1, 0, 2)).reshape(P, C * T)
+    return np.matmul(tensor_t, flat.T, out=out)
+
+
+def scenario_major_tensor(tensor: np.ndarray) -> np.ndarray:
+    """The discount tensor (C, T, S) as a contiguous (S, C*T) matrix."""
+    C, T, S = tensor.shape
+    return np.ascontiguousarray(tensor.reshape(C * T, S).T)
+
+
 def present_worth_grid(amounts, rates, *, timing: str = "end", periods_per_year: float = 1.0) -> np.ndarray:
     """Present worth of P cash-flow rows at S discount rates: (P, T), (S,) -> (P, S).
 

@@ -5,7 +5,7 @@ from pathlib import Path
 
 from ..errors import RunError
 from .database import connect_read
-from .schema import TABLES
+from .schema import TABLES, VIEWS
 
 # Tables holding rows of a run (every one has a run_id column), in the order they are written.
 RUN_TABLES = ("scenarios", "results", "project_summary", "irr_results", "irr_roots", "sensitivity", "spider",
@@ -36,7 +36,7 @@ def export_run(db_path, out_dir, *, run_id: str | None = None, tables: list[str]
             raise RunError(f"no run {run_id!r} in this database. Fix: list runs with `ratescape query --db DB runs`")
         counts = {}
         for table in chosen:
-            assert table in TABLES  # names come from the fixed list above, never from user text
+            assert table in TABLES or table in VIEWS  # names come from the fixed list above, never from user text
             rel = con.sql(f"SELECT * EXCLUDE (run_id) FROM {table} WHERE run_id = ?", params=[run_id])
             target = out / f"{table}.parquet"
             tmp = target.with_name(f".{target.name}.tmp")

@@ -1,7 +1,7 @@
 """The DuckDB schema of a ratescape database (see README, "Database schema")."""
 from __future__ import annotations
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 
 TABLES = {
     "meta": """CREATE TABLE IF NOT EXISTS meta (key VARCHAR PRIMARY KEY, value VARCHAR)""",
@@ -31,11 +31,18 @@ TABLES = {
     "scenarios": """CREATE TABLE IF NOT EXISTS scenarios (
         run_id VARCHAR NOT NULL, scenario_id INTEGER NOT NULL, discount_rate DOUBLE NOT NULL,
         real_rate DOUBLE NOT NULL, inflation DOUBLE NOT NULL, tax_rate DOUBLE, cost_multiplier DOUBLE,
-        benefit_multiplier DOUBLE, weight DOUBLE, is_base BOOLEAN, PRIMARY KEY (run_id, scenario_id))""",
-    "results": """CREATE TABLE IF NOT EXISTS results (
-        run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, scenario_id INTEGER NOT NULL,
-        present_worth DOUBLE NOT NULL, annual_worth DOUBLE NOT NULL, accepted BOOLEAN NOT NULL,
-        profitability_index DOUBLE, present_worth_before_tax DOUBLE, project_key INTEGER)""",
+        benefit_multiplier DOUBLE, weight DOUBLE, is_base BOOLEAN, scenario_key INTEGER UNIQUE,
+        PRIMARY KEY (run_id, scenario_id))""",
+    # One row per project and kept scenario: the narrow physical table behind the `results` view
+    # (scenario_key is unique across runs, so a row needs no run id; annual worth and acceptance
+    # are derived in the view).
+    "result_rows": """CREATE TABLE IF NOT EXISTS result_rows (
+        scenario_key INTEGER NOT NULL, project_key INTEGER NOT NULL, present_worth DOUBLE NOT NULL,
+        profitability_index DOUBLE, present_worth_before_tax DOUBLE)""",
+    # Capital recovery factor (A/P, real rate of the scenario, horizon in years) per scenario and horizon
+    "annual_factors": """CREATE TABLE IF NOT EXISTS annual_factors (
+        scenario_key INTEGER NOT NULL, horizon INTEGER NOT NULL, capital_recovery DOUBLE NOT NULL,
+        PRIMARY KEY (scenario_key, horizon))""",
     "project_summary": """CREATE TABLE IF NOT EXISTS project_summary (
         run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, accept_share DOUBLE, accept_probability DOUBLE,
         pw_min DOUBLE, pw_max DOUBLE, pw_mean DOUBLE, pw_expected DOUBLE, pw_base DOUBLE, accepted_base BOOLEAN,
@@ -44,7 +51,7 @@ TABLES = {
         pi_rank_min INTEGER, pi_rank_median DOUBLE, pi_rank_max INTEGER, top_k_share DOUBLE,
         selected_share DOUBLE, selected_probability DOUBLE,
         future_worth_base DOUBLE, bc_ratio_base DOUBLE, bc_ratio_modified_base DOUBLE, payback_periods DOUBLE,
-        discounted_payback_base DOUBLE, mirr_base DOUBLE, pw_before_tax_base DOUBLE,
+        discounted_payback_base DOUBLE, mirr_base DOUBLE, pw_before_tax_base DOUBLE, project_key INTEGER,
         PRIMARY KEY (run_id, project_id))""",
     "irr_results": """CREATE TABLE IF NOT EXISTS irr_results (
         run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, inflation DOUBLE NOT NULL,
@@ -72,7 +79,7 @@ TABLES = {
         converged BOOLEAN)""",
     "scenario_ranks": """CREATE TABLE IF NOT EXISTS scenario_ranks (
         run_id VARCHAR NOT NULL, scenario_id INTEGER NOT NULL, kendall_tau DOUBLE, kendall_tau_pi DOUBLE,
-        PRIMARY KEY (run_id, scenario_id))""",
+        spearman_rho DOUBLE, spearman_rho_pi DOUBLE, PRIMARY KEY (run_id, scenario_id))""",
     "portfolios": """CREATE TABLE IF NOT EXISTS portfolios (
         run_id VARCHAR NOT NULL, scenario_id INTEGER NOT NULL, objective DOUBLE, lp_bound DOUBLE, mip_gap DOUBLE,
         greedy_objective DOUBLE, projects_selected INTEGER, budget_used VARCHAR, status VARCHAR,
@@ -90,6 +97,20 @@ TABLES = {
 }
 
 
+VIEWS = {
+    # Every result row with the run and project named, annual worth (base-year money per year) and
+    # the acceptance flag (present worth >= 0) derived from the stored present worth.
+    "results": """CREATE VIEW IF NOT EXISTS results AS
+        SELECT s.run_id, ps.project_id, s.scenario_id, x.present_worth,
+               x.present_worth * f.capital_recovery AS annual_worth, x.present_worth >= 0 AS accepted,
+               x.profitability_index, x.present_worth_before_tax, x.project_key
+        FROM result_rows x
+        JOIN scenarios s ON s.scenario_key = x.scenario_key
+        JOIN project_summary ps ON ps.run_id = s.run_id AND ps.project_key = x.project_key
+        JOIN annual_factors f ON f.scenario_key = x.scenario_key AND f.horizon = ps.horizon""",
+}
+
+
 def create_schema(con) -> None:
     """Create every table that does not exist yet (idempotent); refuse a database of another schema version."""
     if table_exists(con, "meta"):
@@ -99,6 +120,8 @@ def create_schema(con) -> None:
             raise RatescapeError(f"this database has schema version {row[0][0]}, this ratescape writes version "
                                  f"{SCHEMA_VERSION}. Fix: load the portfolio into a new database file")
     for ddl in TABLES.values():
+        con.execute(ddl)
+    for ddl in VIEWS.values():
         con.execute(ddl)
     con.execute("INSERT OR REPLACE INTO meta VALUES ('schema_version', ?)", [str(SCHEMA_VERSION)])
 
