@@ -358,17 +358,23 @@ class PointEvaluator:
             if np.any(bm != 1.0):
                 out = out + (bm - 1.0) * (self.flat_benefit @ d)
             return out
+        from .compiled import weighted_exponential_sums
         log_i = np.log1p(i)
         out = np.zeros(P)
-        for c, cls in enumerate(self.classes):  # a handful of classes; vectorised over projects and periods
+        scaled_invest, scaled_benefit = np.any(cm != 1.0), np.any(bm != 1.0)
+        for c, cls in enumerate(self.classes):  # a handful of classes; compiled loop over projects and periods
             if cls.basis == "real":
                 with np.errstate(invalid="ignore"):
                     log_g = np.log1p(cls.escalation + shift) + np.log1p(f)
             else:
                 log_g = np.zeros(P)
-            factor = np.exp(np.multiply.outer(log_g - log_i, self.tau))          # (P, T)
+            lines = self.total[c]
+            if scaled_invest:
+                lines = lines + (cm - 1.0)[:, None] * self.A[0, c]
+            if scaled_benefit:
+                lines = lines + (bm - 1.0)[:, None] * self.A[1, c]
+            worth = weighted_exponential_sums(lines, log_g - log_i, self.tau)
             if cls.multiplier != "one":
-                factor = factor * multiplier_values(cls.multiplier, self.multipliers, (P,))[:, None]
-            lines = self.total[c] + (cm - 1.0)[:, None] * self.A[0, c] + (bm - 1.0)[:, None] * self.A[1, c]
-            out += np.einsum("pt,pt->p", lines, factor)
+                worth = worth * multiplier_values(cls.multiplier, self.multipliers, (P,))
+            out += worth
         return out
