@@ -650,6 +650,53 @@ def run_decisions(con, plan: Plan) -> None:
     decide_run(con, plan)
 
 
+class ChunkWriter:
+    """Writes evaluated chunks on one background thread while the next chunk is evaluated.
+
+    DuckDB and NumPy release the GIL in their heavy work, so writing chunk n (scratch files, then
+    one transaction) overlaps evaluating chunk n + 1. At most one chunk is being written; submitting
+    the next waits for it, and re-raises its error, so chunks commit in order, each whole or not at
+    all. Only this thread uses the write connection while chunks flow.
+    """
+
+    def __init__(self, con, plan: Plan, bar):
+        from concurrent.futures import ThreadPoolExecutor
+        self.con, self.plan, self.bar = con, plan, bar
+        self.pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-writer")
+        self.pending = None
+
+    def _write(self, key, out) -> None:
+        chunk, first, ids, t0 = key
+        _write_chunk(self.con, self.plan, chunk, first, ids, out, time.perf_counter() - t0)
+
+    def _wait(self) -> None:
+        if self.pending is not None:
+            pending, self.pending = self.pending, None
+            pending.result()
+            self.bar.update()
+
+    def submit(self, key, out) -> None:
+        self._wait()
+        self.pending = self.pool.submit(self._write, key, out)
+
+    def finish(self) -> None:
+        """Wait for the last chunk; errors are raised here."""
+        try:
+            self._wait()
+        finally:
+            self.pool.shutdown(wait=True)
+
+    def abandon(self) -> None:
+        """After an error elsewhere: wait for a chunk in progress to commit or roll back, ignore its outcome."""
+        pending, self.pending = self.pending, None
+        if pending is not None:
+            try:
+                pending.result()
+            except BaseException:
+                pass
+        self.pool.shutdown(wait=True)
+
+
 def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chunk_size: int | None = None,
            progress: bool = True, stop_after_chunks: int | None = None, cluster: str | None = None,
            workers: int | None = None) -> str:
@@ -728,6 +775,7 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
     todo = [c for c in range(plan.chunk_count) if c not in done]
     bar = Progress(len(todo), "screen", enabled=progress)
     evaluator = None
+    writer = None
     try:
         if cluster or workers:
             from .cluster import DaskEvaluator
@@ -736,14 +784,17 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
             from .cluster import LocalEvaluator
             evaluator = LocalEvaluator(evaluate_chunk, plan)
 
+        writer = ChunkWriter(con, plan, bar)
+        reader = con.cursor()      # the chunk reader's own connection: the writer thread uses `con`
+
         def write(done):
-            for (chunk, first, ids, t0), out in done:
-                _write_chunk(con, plan, chunk, first, ids, out, time.perf_counter() - t0)
-                bar.update()
+            for key, out in done:
+                writer.submit(key, out)
 
         for n, chunk in enumerate(todo):
             if stop_after_chunks is not None and n >= stop_after_chunks:
                 write(evaluator.drain())
+                writer.finish()
                 con.execute("UPDATE runs SET status = 'interrupted', message = ? WHERE run_id = ?",
                             [f"stopped after {n} chunks; resume with --resume {plan.run_id}", plan.run_id])
                 bar.close()
@@ -751,15 +802,19 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
             first = chunk * plan.chunk_size
             stop = min(first + plan.chunk_size, plan.project_count)
             t0 = time.perf_counter()
-            A, ids, horizon = _chunk_amounts(con, plan, first, stop)
+            A, ids, horizon = _chunk_amounts(reader, plan, first, stop)
             evaluator.submit((chunk, first, ids, t0), A, horizon)
             write(evaluator.ready())
         write(evaluator.drain())
+        writer.finish()
+        reader.close()
         evaluator.close()
         evaluator = None
         bar.close()
         _finalize(con, plan)
     except BaseException as exc:
+        if writer is not None:
+            writer.abandon()       # let a chunk already being written commit (or roll back) first
         bar.close()
         if evaluator is not None:
             try:

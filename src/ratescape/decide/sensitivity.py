@@ -95,6 +95,17 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
         args.update(kw)
         return evaluate(args.pop("discount_rate"), args.pop("inflation"), **args)
 
+    def pw_rows(rows, **kw):
+        args = dict(discount_rate=base_rate, inflation=base_inflation, escalation_shift=0.0,
+                    cost_multiplier=1.0, benefit_multiplier=1.0)
+        args.update(kw)
+        return evaluate.at_rows(rows, args.pop("discount_rate"), args.pop("inflation"), **args)
+
+    rows_fns = {
+        "discount_rate": lambda v, j: pw_rows(j, discount_rate=v),
+        "inflation": lambda v, j: pw_rows(j, inflation=v),
+        "escalation": lambda v, j: pw_rows(j, escalation_shift=v),
+    }
     fns = {
         "discount_rate": lambda v: pw(discount_rate=v),
         "inflation": lambda v: pw(inflation=v),
@@ -127,7 +138,7 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
             values = b * (1.0 + pct)
         else:
             lo, hi = DEFAULT_SEARCH[name]
-            res = switching_value(fns[name], np.full(P, b), lo, hi)
+            res = switching_value(fns[name], np.full(P, b), lo, hi, rows_fn=rows_fns[name])
             out["switching_value"][n] = res.value
             out["switching_status"][n] = res.status
             if name == "escalation":

@@ -80,7 +80,7 @@ def _call(worth_fn, vals, n):
     return w
 
 
-def switching_value(worth_fn, base, low, high, *, n_scan=65):
+def switching_value(worth_fn, base, low, high, *, n_scan=65, rows_fn=None):
     """Value of one input, within [low, high], at which worth crosses zero.
 
     Parameters
@@ -95,6 +95,10 @@ def switching_value(worth_fn, base, low, high, *, n_scan=65):
         Range searched, low < high [same units].
     n_scan : int, optional
         Points of the scan that brackets the crossings (default 65).
+    rows_fn : callable, optional
+        ``rows_fn(values (J,), rows (J,)) -> (J,)``: the worth of only the projects ``rows``
+        with the input at ``values`` (the others at base). When given, the root finder
+        evaluates only the projects still iterating instead of all P each time.
 
     Returns
     -------
@@ -170,8 +174,10 @@ def switching_value(worth_fn, base, low, high, *, n_scan=65):
             k = (pr[br] - 1) // 2
 
             def f(x, j):
-                vals = base_.copy()
                 j = j.astype(int)
+                if rows_fn is not None:
+                    return np.asarray(rows_fn(np.asarray(x, dtype=float), j), dtype=float)
+                vals = base_.copy()
                 vals[j] = x
                 return _call(worth_fn, vals, n)[j]
 

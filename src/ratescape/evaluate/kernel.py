@@ -334,6 +334,33 @@ class PointEvaluator:
         flat = lambda x: np.ascontiguousarray(x.transpose(1, 0, 2)).reshape(P, C * T)  # noqa: E731
         self.flat_total, self.flat_invest, self.flat_benefit = flat(self.total), flat(A[0]), flat(A[1])
 
+    def at_rows(self, rows, discount_rate, inflation, *, escalation_shift=0.0, cost_multiplier=1.0,
+                benefit_multiplier=1.0) -> np.ndarray:
+        """Present worth (J,) of only the projects ``rows`` (J,) at their own points (each argument
+        scalar or (J,)); the cost is that of J projects, not P."""
+        from .compiled import weighted_exponential_sums
+        rows = np.asarray(rows, dtype=np.int64)
+        J = rows.size
+        i, f, shift, cm, bm = (np.broadcast_to(np.asarray(v, dtype=float), (J,)) for v in
+                               (discount_rate, inflation, escalation_shift, cost_multiplier, benefit_multiplier))
+        if np.any(i <= -1) or np.any(f <= -1):
+            raise ValueError("rates must be > -1")
+        out = np.zeros(J)
+        with np.errstate(over="ignore", invalid="ignore"):
+            log_i = np.log1p(i)
+            for c, cls in enumerate(self.classes):
+                log_g = np.log1p(cls.escalation + shift) + np.log1p(f) if cls.basis == "real" else np.zeros(J)
+                lines = self.total[c][rows]
+                if np.any(cm != 1.0):
+                    lines = lines + (cm - 1.0)[:, None] * self.A[0, c][rows]
+                if np.any(bm != 1.0):
+                    lines = lines + (bm - 1.0)[:, None] * self.A[1, c][rows]
+                worth = weighted_exponential_sums(lines, log_g - log_i, self.tau)
+                if cls.multiplier != "one":
+                    worth = worth * multiplier_values(cls.multiplier, self.multipliers, (J,))
+                out += worth
+        return out
+
     def __call__(self, discount_rate, inflation, *, escalation_shift=0.0, cost_multiplier=1.0,
                  benefit_multiplier=1.0) -> np.ndarray:
         P = self.P
