@@ -43,3 +43,38 @@ def test_point_evaluator_per_project_rates_follow_the_definition():
         growth = (1 + cls.escalation) * (1 + f) if cls.basis == "real" else np.ones(25)
         want += (total[c] * (growth[:, None] / (1 + i[:, None])) ** tau).sum(axis=1)
     np.testing.assert_allclose(got, want, rtol=1e-12, atol=1e-9)
+
+
+def test_single_sign_change_roots_equal_numpy_financial():
+    """Conventional streams (one sign change): the compiled Newton root equals numpy_financial.irr
+    (reference library) to 1e-12, and a root outside the range is reported as none."""
+    import numpy_financial as npf
+    from ratescape.evaluate.compiled import single_sign_change_roots
+    rng = np.random.default_rng(7)
+    A = np.zeros((300, 31))
+    A[:, 0] = -rng.uniform(100, 5000, 300)
+    last = rng.integers(1, 31, 300)
+    for r in range(300):
+        A[r, 1:last[r] + 1] = -A[r, 0] * rng.uniform(0.005, 0.9)
+    u, found = single_sign_change_roots(A, last, np.log1p(-0.99), np.log1p(10.0))
+    want = np.array([npf.irr(A[r, :last[r] + 1]) for r in range(300)])
+    inside = (want > -0.99) & (want < 10.0)
+    assert (found == inside).all()
+    np.testing.assert_allclose(np.expm1(u[found]), want[found], rtol=1e-12, atol=1e-13)
+    # a narrower range leaves out roots beyond it
+    u2, found2 = single_sign_change_roots(A, last, np.log1p(0.0), np.log1p(0.05))
+    assert (found2 == ((want >= 0.0) & (want <= 0.05))).all()
+
+
+def test_single_sign_change_roots_long_horizon_does_not_overflow():
+    """1,200 monthly periods at rates from -99 % to 1000 % per period: the scaled Horner form stays finite."""
+    from ratescape.evaluate.compiled import single_sign_change_roots
+    A = np.full((2, 1201), 1.0)
+    A[:, 0] = [-100.0, -1300.0]
+    u, found = single_sign_change_roots(A, np.array([1200, 1200]), np.log1p(-0.99), np.log1p(10.0))
+    assert found.all() and np.all(np.isfinite(u))
+    r = np.expm1(u)
+    # annuity of 1 for 1,200 periods: price 100 -> r = 1 % (1/r to 1e-6); price 1,300 -> a negative rate
+    assert r[0] == pytest.approx(0.01, abs=1e-6)
+    v = 1.0 / (1.0 + r[1])
+    assert 1300.0 == pytest.approx(sum(v ** t for t in range(1, 1201)), rel=1e-10)

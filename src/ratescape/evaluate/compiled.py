@@ -51,3 +51,95 @@ def weighted_exponential_sums(lines, log_ratio, tau) -> np.ndarray:
     out = np.empty(lines.shape[0])
     _weighted_geometric_sums(lines, x, tau, uniform, out)
     return out
+
+
+_EPS = np.finfo(float).eps
+
+
+@njit(cache=True, nogil=True)
+def _scaled_worth(a, L, u):
+    """Worth of a[0..L] at u = log(1 + r), scaled by a positive factor so no term exceeds |a_t|.
+
+    u >= 0: f = sum a_t e^(-u t); u < 0: e^(u L) f = sum a_t e^(u (L - t)). Returns the value, its
+    derivative in u (of the same scaled form) and sum |terms| (the rounding scale).
+    """
+    value = 0.0
+    slope = 0.0
+    size = 0.0
+    if u >= 0.0:
+        v = np.exp(-u)
+        for t in range(L, -1, -1):                # Horner in v <= 1
+            slope = slope * v + value
+            value = value * v + a[t]
+            size = size * v + abs(a[t])
+        # d/du sum a_t v^t = -v d/dv (...)
+        slope = -v * slope
+    else:
+        w = np.exp(u)
+        for t in range(0, L + 1):                 # Horner in w < 1, from t = 0 (highest power L - t)
+            slope = slope * w + value
+            value = value * w + a[t]
+            size = size * w + abs(a[t])
+        slope = w * slope
+    return value, slope, size
+
+
+@njit(cache=True, nogil=True)
+def _single_roots(A, last, u_lo, u_hi, roots, found):
+    N = A.shape[0]
+    for r in range(N):
+        a = A[r]
+        L = last[r]
+        fa, _, _ = _scaled_worth(a, L, u_lo)
+        fb, _, _ = _scaled_worth(a, L, u_hi)
+        found[r] = False
+        roots[r] = np.nan
+        if fa == 0.0:
+            roots[r] = u_lo
+            found[r] = True
+            continue
+        if fb == 0.0:
+            roots[r] = u_hi
+            found[r] = True
+            continue
+        if (fa < 0.0) == (fb < 0.0):
+            continue
+        lo = u_lo
+        hi = u_hi
+        sign_lo = fa < 0.0
+        x = lo - fa * (hi - lo) / (fb - fa)       # secant first guess
+        for _ in range(200):
+            f, df, size = _scaled_worth(a, L, x)
+            if f == 0.0 or abs(f) <= 8.0 * _EPS * size:
+                break
+            if (f < 0.0) == sign_lo:
+                lo = x
+            else:
+                hi = x
+            xn = x - f / df if df != 0.0 else np.nan
+            if not (xn > lo and xn < hi):
+                xn = 0.5 * (lo + hi)
+            tol = 4.0 * _EPS * (abs(xn) + 1.0)
+            if abs(xn - x) <= tol or hi - lo <= tol:
+                x = xn
+                break
+            x = xn
+        roots[r] = x
+        found[r] = True
+
+
+def single_sign_change_roots(amounts, last, u_low: float, u_high: float):
+    """The IRR of streams whose amounts change sign once, in u = log(1 + r) within [u_low, u_high].
+
+    By Descartes' rule of signs such a stream has exactly one root in r > -1, so a root lies in
+    the range iff the worth differs in sign at its ends. Safeguarded Newton on the worth
+    polynomial (Horner form, scaled so that no term overflows), one row at a time: (N, T), (N,)
+    last non-zero period -> u (N,), found (N,) bool. Stops where |worth| is at the rounding level
+    of its terms or the step is below 4 eps.
+    """
+    A = np.ascontiguousarray(amounts, dtype=float)
+    last = np.ascontiguousarray(last, dtype=np.int64)
+    roots = np.empty(A.shape[0])
+    found = np.empty(A.shape[0], dtype=np.bool_)
+    _single_roots(A, last, float(u_low), float(u_high), roots, found)
+    return roots, found

@@ -1,6 +1,6 @@
 """Internal rate of return with every root in a search range, vectorised over rows.
 
-Pure numpy. A cash-flow stream with more than one sign change can have no
+NumPy, plus one compiled loop. A cash-flow stream with more than one sign change can have no
 IRR or several; this module never silently picks one. :func:`irr_roots`
 returns every root it finds in a documented range together with a root
 count, a status code, the Descartes sign-change count and the Norstrom
@@ -28,6 +28,11 @@ so no factor exceeds 1 and nothing overflows. Then:
    iteration (Newton step, bisection when the step leaves the bracket) on
    arrays, to machine precision in u. No Python loop runs over rows.
 
+Rows whose amounts change sign exactly once (the conventional investment) skip the grid: by
+Descartes' rule they have exactly one simple root r > -1, inside [low, high] iff PW differs in sign
+at the two ends, and a compiled safeguarded Newton iteration on the Horner form finds it row by
+row (:func:`ratescape.evaluate.compiled.single_sign_change_roots`), to the same tolerance.
+
 Limits: roots outside [low, high] are not reported; three or more roots
 within one grid step (e.g. a double root next to a simple one), or a root of
 even multiplicity higher than two, can be missed; raise ``grid_points`` to
@@ -52,13 +57,14 @@ from __future__ import annotations
 from enum import IntEnum
 from typing import NamedTuple
 
+import os
+
 import numpy as np
 
 __all__ = ["IrrStatus", "IrrResult", "irr_roots", "irr", "sign_changes"]
 
 _EPS = np.finfo(float).eps
 _CHUNK_ELEMENTS = 2_000_000  # rows x grid points per matrix product
-_COARSE_POINTS = 129  # grid of rows with one sign change (at most one root)
 
 
 class IrrStatus(IntEnum):
@@ -230,6 +236,22 @@ def _newton_bisect(A, lo, hi, order, s_lo, x0=None, maxiter=200, length=None):
     return out
 
 
+def _single_roots_threaded(A, last, u_low, u_high):
+    """:func:`ratescape.evaluate.compiled.single_sign_change_roots` over row blocks on all cores."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from .compiled import single_sign_change_roots
+    n = A.shape[0]
+    workers = max(1, min(4, os.cpu_count() or 1, n // 20_000))
+    if workers == 1:
+        return single_sign_change_roots(A, last, u_low, u_high)
+    cuts = np.linspace(0, n, workers + 1).astype(int)
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        parts = list(pool.map(lambda ab: single_sign_change_roots(A[ab[0]:ab[1]], last[ab[0]:ab[1]], u_low, u_high),
+                              zip(cuts[:-1], cuts[1:])))
+    return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts])
+
+
 def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-12):
     """Every internal rate of return in [low, high] of each cash-flow stream.
 
@@ -299,22 +321,21 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
     br_rows, br_lo, br_hi, br_x0, br_slo = [], [], [], [], []
     tc_rows, tc_g, tc_sign = [], [], []
     chunk = max(1, _CHUNK_ELEMENTS // G)
-    # rows grouped by their last non-zero period L: each group's factors are scaled by
+    # Rows whose amounts change sign once have exactly one root r > -1 (Descartes' rule of signs),
+    # simple and never touching: it is in range iff PW differs in sign at the ends, and a compiled
+    # safeguarded Newton finds it row by row (evaluate/compiled.py), with no grid.
+    single = search[sc[search] == 1]
+    single_u, single_found = _single_roots_threaded(A[single], last[single], u[0], u[-1])
+    search = search[sc[search] != 1]
+    # the other rows, grouped by their last non-zero period L: each group's factors are scaled by
     # L * min(u, 0) so they stay <= 1 without underflowing a short stream to zero.
-    # Rows whose amounts change sign once have at most one root (Descartes' rule of signs) and no
-    # touching root, so a coarse grid brackets it as surely as the fine one and they skip the
-    # touch search.
-    u_coarse = np.linspace(u[0], u[-1], _COARSE_POINTS)
     blocks = []
-    for simple in (True, False):
-        chosen = search[(sc[search] == 1) == simple]
-        grid = u_coarse if simple else u
-        for L in np.unique(last[chosen]):  # a loop over distinct horizons, not over rows
-            group = chosen[last[chosen] == L]
-            D = np.exp(-np.outer(t[:L + 1], grid) + L * np.minimum(grid, 0.0))  # (L+1, G), entries <= 1
-            step = max(1, _CHUNK_ELEMENTS // grid.size)
-            blocks += [(group[k:k + step], L, D, grid, simple) for k in range(0, group.size, step)]
-    for rows, L, D, ug, simple in blocks:  # loop over blocks of rows, not rows
+    for L in np.unique(last[search]):  # a loop over distinct horizons, not over rows
+        group = search[last[search] == L]
+        D = np.exp(-np.outer(t[:L + 1], u) + L * np.minimum(u, 0.0))  # (L+1, G), entries <= 1
+        step = max(1, _CHUNK_ELEMENTS // u.size)
+        blocks += [(group[k:k + step], L, D, u) for k in range(0, group.size, step)]
+    for rows, L, D, ug in blocks:  # loop over blocks of rows, not rows
         F = A[rows, :L + 1] @ D
         n_g = F.shape[1]
         # exact zeros at grid points (flat indices are much faster than 2-D nonzero)
@@ -332,8 +353,6 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
         f_a, f_b = F[r1, g1], F[r1, g1 + 1]
         br_x0.append(ug[g1] + (ug[g1 + 1] - ug[g1]) * f_a / (f_a - f_b))  # secant guess
         br_slo.append(np.where(f_a < 0, -1.0, 1.0))
-        if simple:
-            continue
         # touch candidates: strict local minimum of |F| with no sign change
         absF = np.abs(F)
         cand = (absF[:, 1:-1] <= absF[:, :-2]) & (absF[:, 1:-1] < absF[:, 2:])
@@ -356,6 +375,8 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
     def cat(parts, dtype=float):
         return np.concatenate(parts) if parts else np.empty(0, dtype=dtype)
 
+    node_rows.append(single[single_found])
+    node_u.append(single_u[single_found])
     node_rows = cat(node_rows, int)
     node_u = cat(node_u)
     br_rows = cat(br_rows, int)
