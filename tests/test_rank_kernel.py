@@ -103,3 +103,20 @@ def test_tau_of_a_reversed_order_is_minus_one_and_identity_is_one():
 def test_rank_rows_refuses_a_wrong_out_buffer():
     with pytest.raises(ValueError, match="uint32"):
         rank_rows(np.ones((2, 3)), out=np.empty((2, 3)))
+
+
+def test_rank_tally_matches_numpy_reductions_over_several_calls():
+    """Lowest and highest rank, top-K count and NaN flags accumulated block by block equal the
+    reductions of the whole rank matrix (scipy.stats.rankdata, method="min")."""
+    from ratescape.decide.rank_kernel import RankTally
+    rng = np.random.default_rng(8)
+    values = rng.integers(0, 9, size=(23, 40)).astype(float)
+    values[rng.random(values.shape) < 0.05] = np.nan
+    tally = RankTally(40, top_k=5)
+    for a in range(0, 23, 6):
+        rank_rows(values[a:a + 6], tally=tally)
+    want = _scipy_ranks(values)
+    np.testing.assert_array_equal(tally.min, want.min(axis=0))
+    np.testing.assert_array_equal(tally.max, want.max(axis=0))
+    np.testing.assert_array_equal(tally.top, (want <= 5).sum(axis=0))
+    np.testing.assert_array_equal(tally.any_nan, np.isnan(values).any(axis=0))

@@ -12,6 +12,7 @@ from __future__ import annotations
 import os
 import time
 import uuid
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from datetime import datetime, timezone
 
@@ -22,7 +23,7 @@ import pyarrow as pa
 from . import __version__
 from .errors import RunError
 from .evaluate.irr import irr_roots
-from .decide.rank_kernel import BaseOrdering, mean_ranks, rank_rows, ranks_and_tau
+from .decide.rank_kernel import BaseOrdering, RankTally, mean_ranks, rank_rows, ranks_and_tau
 from .decide.sensitivity import SensitivitySettings, one_at_a_time
 from .evaluate.kernel import (ROLES, LineClass, capital_recovery_factor, discount_tensor, present_worth_classes,
                               present_worth_scenario_major, scenario_major_tensor, then_current_streams)
@@ -570,9 +571,7 @@ def rank_statistics(con, plan: Plan):
     for name in names:
         base_values = plan.scratch.read_block(name, base, base + 1)[0]
         has = np.isfinite(base_values)
-        stats[name] = {"min": np.full(P, np.iinfo(np.uint32).max, dtype=np.uint32),
-                       "max": np.zeros(P, dtype=np.uint32), "top": np.zeros(P, dtype=np.int64),
-                       "base": np.zeros(P, dtype=np.uint32), "valid": has.copy(),
+        stats[name] = {"tally": RankTally(P, k), "base": np.zeros(P, dtype=np.uint32),
                        "mean_ranks": mean_ranks(base_values), "has": has,
                        "ordering": BaseOrdering(base_values) if with_tau else None,
                        "files": RankScratch(plan.scratch.folder, name, S, P, plan.chunk_size)}
@@ -581,31 +580,40 @@ def rank_statistics(con, plan: Plan):
         for name, suffix in names.items():
             st = stats[name]
             vals = plan.scratch.read_block(name, a, b, out=values)
-            ranks, rho = rank_rows(vals, st["mean_ranks"], st["has"], out=ranks_buffer[: b - a])
+            ranks, rho = rank_rows(vals, st["mean_ranks"], st["has"], out=ranks_buffer[: b - a], tally=st["tally"])
             agreement[f"spearman_rho{suffix}"][a:b] = rho
             if with_tau:
                 agreement[f"kendall_tau{suffix}"][a:b] = ranks_and_tau(vals, st["ordering"])[1]
-            if name == "pi":
-                st["valid"] &= np.isfinite(vals).all(axis=0)
-            np.minimum(st["min"], ranks.min(axis=0), out=st["min"])
-            np.maximum(st["max"], ranks.max(axis=0), out=st["max"])
-            st["top"] += (ranks <= k).sum(axis=0)
             if a <= base < b:
                 st["base"][:] = ranks[base - a]
             st["files"].append(ranks)
     out = {}
     for name, prefix in (("pw", "rank"), ("pi", "pi_rank")):
         st = stats[name]
-        ok = st["valid"]
+        tally = st["tally"]
+        ok = st["has"] & ~tally.any_nan          # a value in every scenario
         median = np.empty(P)
-        for first, chunk_ranks in st["files"].chunks():
-            median[first:first + chunk_ranks.shape[1]] = np.median(chunk_ranks, axis=0)
-        out[f"{prefix}_min"] = np.where(ok, st["min"].astype(np.int64), -1)
-        out[f"{prefix}_max"] = np.where(ok, st["max"].astype(np.int64), -1)
+
+        def chunk_median(item):
+            first, chunk_ranks = item
+            median[first:first + chunk_ranks.shape[1]] = np.median(np.ascontiguousarray(chunk_ranks.T), axis=1)
+
+        with ThreadPoolExecutor(max_workers=2) as pool:   # NumPy's partition releases the GIL
+            in_flight = []
+            for item in st["files"].chunks():             # two chunks' ranks in memory at a time
+                in_flight.append(pool.submit(chunk_median, item))
+                if len(in_flight) == 2:
+                    for job in in_flight:
+                        job.result()
+                    in_flight = []
+            for job in in_flight:
+                job.result()
+        out[f"{prefix}_min"] = np.where(ok, tally.min.astype(np.int64), -1)
+        out[f"{prefix}_max"] = np.where(ok, tally.max.astype(np.int64), -1)
         out[f"{prefix}_median"] = np.where(ok, median, np.nan)
         if name == "pw":
             out["rank_base"] = np.where(ok, st["base"].astype(np.int64), -1)
-            out["top_k_share"] = np.where(ok, st["top"] / S, np.nan)
+            out["top_k_share"] = np.where(ok, tally.top / S, np.nan)
     return out, agreement
 
 
@@ -621,7 +629,11 @@ def result_block(con, plan: Plan, a: int, b: int) -> dict | None:
 
 def _finalize(con, plan: Plan) -> None:
     """Rank statistics across all projects per scenario, the decision stage, then mark the run done."""
+    t0 = time.perf_counter()
     stats, agreement = rank_statistics(con, plan)
+    log(f"ranks: {plan.project_count:,} projects x {plan.scenarios.size:,} scenarios in "
+        f"{time.perf_counter() - t0:.1f} s")
+    t0 = time.perf_counter()
     table = pa.table({"project_key": pa.array(np.arange(plan.project_count, dtype=np.int32)),
                       **{k: pa.array(v, mask=(v < 0) if v.dtype.kind == "i" else ~np.isfinite(v))
                          for k, v in stats.items()}})
@@ -638,6 +650,7 @@ def _finalize(con, plan: Plan) -> None:
         run_decisions(con, plan)
         con.execute("UPDATE runs SET status = 'done', finished_at = ?, message = NULL WHERE run_id = ?",
                     [_now(), plan.run_id])
+    log(f"decisions and summaries stored in {time.perf_counter() - t0:.1f} s")
     plan.scratch.remove()
 
 
@@ -784,6 +797,7 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
             from .cluster import LocalEvaluator
             evaluator = LocalEvaluator(evaluate_chunk, plan)
 
+        started = time.perf_counter()
         writer = ChunkWriter(con, plan, bar)
         reader = con.cursor()      # the chunk reader's own connection: the writer thread uses `con`
 
@@ -807,6 +821,7 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
             write(evaluator.ready())
         write(evaluator.drain())
         writer.finish()
+        log(f"chunks: {len(todo)} evaluated and written in {time.perf_counter() - started:.1f} s")
         reader.close()
         evaluator.close()
         evaluator = None

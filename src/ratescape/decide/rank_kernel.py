@@ -255,12 +255,13 @@ def _pack(bits_of_keys, bits, packed):
 
 
 @njit(cache=True, nogil=True)
-def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, sk):
+def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, sk, acc_min, acc_max, acc_top, acc_nan, top_k):
     """Order from the sorted packed integers (re-sorted exactly where the kept bits tie), then
     competition ranks, and Spearman's rho against ``base_mean`` over ``valid`` projects."""
     B, P = keys.shape
     low = np.uint64((1 << bits) - 1)
     with_rho = base_mean.size == P
+    with_acc = acc_min.size == P
     for b in range(B):
         exact = True
         for k in range(P):
@@ -287,6 +288,16 @@ def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, sk):
                 for t in range(start, k):
                     p = order[t]
                     ranks[b, p] = start + 1
+                    if with_acc:
+                        rank = np.uint32(start + 1)
+                        if rank < acc_min[p]:
+                            acc_min[p] = rank
+                        if rank > acc_max[p]:
+                            acc_max[p] = rank
+                        if start + 1 <= top_k:
+                            acc_top[p] += 1
+                        if sk[t] == np.inf:
+                            acc_nan[p] = True
                     if with_rho and valid[p]:
                         y = base_mean[p]
                         n += 1.0
@@ -337,7 +348,28 @@ def mean_ranks(values):
     return rankdata(np.where(np.isnan(v), np.inf, -v), method="average")
 
 
-def rank_rows(values, base_mean_ranks=None, valid=None, *, out=None):
+class RankTally:
+    """Per-project running tallies over scenarios: lowest and highest rank, top-K count, any NaN."""
+
+    def __init__(self, P: int, top_k: int):
+        self.min = np.full(P, np.iinfo(np.uint32).max, dtype=np.uint32)
+        self.max = np.zeros(P, dtype=np.uint32)
+        self.top = np.zeros(P, dtype=np.int64)
+        self.any_nan = np.zeros(P, dtype=np.bool_)
+        self.top_k = int(top_k)
+
+    def merge(self, other: "RankTally") -> None:
+        np.minimum(self.min, other.min, out=self.min)
+        np.maximum(self.max, other.max, out=self.max)
+        self.top += other.top
+        self.any_nan |= other.any_nan
+
+
+_NO_TALLY = (np.empty(0, dtype=np.uint32), np.empty(0, dtype=np.uint32), np.empty(0, dtype=np.int64),
+             np.empty(0, dtype=np.bool_))
+
+
+def rank_rows(values, base_mean_ranks=None, valid=None, *, out=None, tally: RankTally | None = None):
     """Competition ranks (B, P) of each row, 1 = highest; NaN last and tied with each other.
 
     Exactly ``scipy.stats.rankdata(-values, method="min", axis=1)`` with NaN last, but built
@@ -357,6 +389,9 @@ def rank_rows(values, base_mean_ranks=None, valid=None, *, out=None):
     -------
     ranks : ndarray of uint32, shape (B, P) (``out`` when given)
     rho : ndarray of float64, shape (B,) (NaN without ``base_mean_ranks``)
+
+    With ``tally`` (a :class:`RankTally`), each project's lowest and highest rank, count of
+    ranks <= top_k and whether any of its values is NaN are updated in the same pass.
 
     References
     ----------
@@ -382,11 +417,15 @@ def rank_rows(values, base_mean_ranks=None, valid=None, *, out=None):
         _keys(values[lo:hi], keys)
         _pack(keys.view(np.uint64), bits, packed)
         packed.sort(axis=1)
-        _unpack(packed, keys, bits, base, mask, ranks[lo:hi], rho[lo:hi], order, sk)
+        mine = RankTally(P, tally.top_k) if tally is not None else None
+        acc = (mine.min, mine.max, mine.top, mine.any_nan) if mine is not None else _NO_TALLY
+        _unpack(packed, keys, bits, base, mask, ranks[lo:hi], rho[lo:hi], order, sk, *acc,
+                tally.top_k if tally is not None else 0)
+        return mine
 
     cuts = np.linspace(0, B, min(B, _THREADS) + 1).astype(int)
-    if len(cuts) <= 2:
-        part(0, B)
-    else:
-        list(_pool().map(lambda ab: part(*ab), zip(cuts[:-1], cuts[1:])))
+    parts = [part(0, B)] if len(cuts) <= 2 else list(_pool().map(lambda ab: part(*ab), zip(cuts[:-1], cuts[1:])))
+    if tally is not None:
+        for mine in parts:
+            tally.merge(mine)
     return ranks, rho

@@ -3,6 +3,9 @@ from __future__ import annotations
 
 SCHEMA_VERSION = 2
 
+# Tables written per chunk (project_summary, irr_results, irr_roots, sensitivity, spider, result_rows)
+# carry no PRIMARY KEY: each chunk's rows are written once, in its own transaction (run_chunks
+# records it), and an index over millions of rows per chunk would cost more than the rows.
 TABLES = {
     "meta": """CREATE TABLE IF NOT EXISTS meta (key VARCHAR PRIMARY KEY, value VARCHAR)""",
     "loads": """CREATE TABLE IF NOT EXISTS loads (
@@ -51,20 +54,18 @@ TABLES = {
         pi_rank_min INTEGER, pi_rank_median DOUBLE, pi_rank_max INTEGER, top_k_share DOUBLE,
         selected_share DOUBLE, selected_probability DOUBLE,
         future_worth_base DOUBLE, bc_ratio_base DOUBLE, bc_ratio_modified_base DOUBLE, payback_periods DOUBLE,
-        discounted_payback_base DOUBLE, mirr_base DOUBLE, pw_before_tax_base DOUBLE, project_key INTEGER,
-        PRIMARY KEY (run_id, project_id))""",
+        discounted_payback_base DOUBLE, mirr_base DOUBLE, pw_before_tax_base DOUBLE, project_key INTEGER)""",
     "irr_results": """CREATE TABLE IF NOT EXISTS irr_results (
         run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, inflation DOUBLE NOT NULL,
         root_count INTEGER NOT NULL, irr_nominal DOUBLE, irr_real DOUBLE, status VARCHAR NOT NULL,
-        sign_changes INTEGER, PRIMARY KEY (run_id, project_id, inflation))""",
+        sign_changes INTEGER)""",
     "irr_roots": """CREATE TABLE IF NOT EXISTS irr_roots (
         run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, inflation DOUBLE NOT NULL,
         root_index INTEGER NOT NULL, irr_nominal DOUBLE NOT NULL, irr_real DOUBLE NOT NULL)""",
     "sensitivity": """CREATE TABLE IF NOT EXISTS sensitivity (
         run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, input VARCHAR NOT NULL, base_value DOUBLE,
         low_value DOUBLE, high_value DOUBLE, worth_base DOUBLE, worth_low DOUBLE, worth_high DOUBLE,
-        switching_value DOUBLE, switching_change DOUBLE, switching_status VARCHAR,
-        PRIMARY KEY (run_id, project_id, input))""",
+        switching_value DOUBLE, switching_change DOUBLE, switching_status VARCHAR)""",
     "spider": """CREATE TABLE IF NOT EXISTS spider (
         run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, input VARCHAR NOT NULL, change DOUBLE NOT NULL,
         present_worth DOUBLE NOT NULL)""",
