@@ -22,7 +22,7 @@ import pyarrow as pa
 
 from . import __version__
 from .errors import RunError
-from .evaluate.irr import irr_roots
+from .evaluate.irr import _STATUS_LABELS, irr_roots
 from .decide.rank_kernel import BaseOrdering, RankTally, mean_ranks, rank_rows, ranks_and_tau
 from .decide.sensitivity import SensitivitySettings, one_at_a_time
 from .evaluate.kernel import (ROLES, LineClass, capital_recovery_factor, discount_tensor, present_worth_classes,
@@ -338,8 +338,12 @@ class IrrTable:
 
     roots: np.ndarray
     count: np.ndarray
-    labels: np.ndarray
+    status: np.ndarray            # IrrStatus codes (int8)
     sign_changes: np.ndarray
+
+    @property
+    def labels(self) -> np.ndarray:
+        return _STATUS_LABELS[self.status.astype(int)]
 
 
 def irr_over_inflation(plan: Plan, A: np.ndarray) -> IrrTable:
@@ -374,12 +378,12 @@ def irr_over_inflation(plan: Plan, A: np.ndarray) -> IrrTable:
         parts["mixed"] = q
     roots = np.full((F, P, K), np.nan)
     count = np.zeros((F, P), dtype=np.int64)
-    labels = np.empty((F, P), dtype=object)
+    status = np.zeros((F, P), dtype=np.int8)
     signs = np.zeros((F, P), dtype=np.int64)
     rr = np.asarray(r.roots)
     roots[:, ~mixed, :rr.shape[-1]] = growth[:, None, None] * (1.0 + rr[None]) - 1.0
     count[:, ~mixed] = np.asarray(r.count)[None]
-    labels[:, ~mixed] = np.asarray(r.labels)[None]
+    status[:, ~mixed] = np.asarray(r.status)[None]
     signs[:, ~mixed] = np.asarray(r.sign_changes)[None]
     if mixed.any():
         q = parts["mixed"]
@@ -387,9 +391,9 @@ def irr_over_inflation(plan: Plan, A: np.ndarray) -> IrrTable:
         qr = np.asarray(q.roots).reshape(F, n, -1)
         roots[:, mixed, :qr.shape[-1]] = qr
         count[:, mixed] = np.asarray(q.count).reshape(F, n)
-        labels[:, mixed] = np.asarray(q.labels).reshape(F, n)
+        status[:, mixed] = np.asarray(q.status).reshape(F, n)
         signs[:, mixed] = np.asarray(q.sign_changes).reshape(F, n)
-    return IrrTable(roots.reshape(F * P, K), count.ravel(), labels.ravel(), signs.ravel())
+    return IrrTable(roots.reshape(F * P, K), count.ravel(), status.ravel(), signs.ravel())
 
 
 def base_measures(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> dict:
@@ -430,6 +434,13 @@ def _per_period_to_annual(rate, m: float):
     return np.power(1.0 + rate, m) - 1.0
 
 
+def _labels(codes, names) -> pa.DictionaryArray:
+    """A text column from integer codes into ``names`` (DuckDB stores it as VARCHAR) without
+    building one Python string per row."""
+    return pa.DictionaryArray.from_arrays(pa.array(np.asarray(codes, dtype=np.int32)),
+                                          pa.array([str(n) for n in names], type=pa.string()))
+
+
 def _floats(values) -> pa.Array:
     """An Arrow float column in which NaN and infinities are NULL (never stored silently)."""
     a = np.asarray(values, dtype=float)
@@ -465,17 +476,17 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
     unique_root = np.where(count == 1, roots_nominal[:, 0] if roots_nominal.shape[1] else np.nan, np.nan)
     f_rows = np.repeat(levels, P)
     irr_table = pa.table({
-        "project_id": pa.array(np.tile(ids, F).tolist(), type=pa.string()),
+        "project_id": _labels(np.tile(np.arange(P), F), ids),
         "inflation": pa.array(f_rows),
         "root_count": pa.array(count.astype(np.int32)),
         "irr_nominal": pa.array(unique_root, mask=np.isnan(unique_root)),
         "irr_real": pa.array((1 + unique_root) / (1 + f_rows) - 1, mask=np.isnan(unique_root)),
-        "status": pa.array(np.asarray(irr.labels).tolist(), type=pa.string()),
+        "status": _labels(irr.status, _STATUS_LABELS),
         "sign_changes": pa.array(np.asarray(irr.sign_changes).astype(np.int32)),
     })
     rr, kk = np.nonzero(np.isfinite(roots_nominal))
     roots_table = pa.table({
-        "project_id": pa.array(np.tile(ids, F)[rr].tolist(), type=pa.string()),
+        "project_id": _labels(np.tile(np.arange(P), F)[rr], ids),
         "inflation": pa.array(f_rows[rr]),
         "root_index": pa.array(kk.astype(np.int32)),
         "irr_nominal": pa.array(roots_nominal[rr, kk]),
@@ -485,8 +496,8 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
     I = len(sens["inputs"])
     K = len(sens["pct_changes"])
     sens_table = pa.table({
-        "project_id": pa.array(np.tile(ids, I).tolist(), type=pa.string()),
-        "input": pa.array(np.repeat(sens["inputs"], P).tolist(), type=pa.string()),
+        "project_id": _labels(np.tile(np.arange(P), I), ids),
+        "input": _labels(np.repeat(np.arange(I), P), sens["inputs"]),
         "base_value": _floats(np.repeat(sens["base_value"], P)),
         "low_value": _floats(np.repeat(sens["low"], P)),
         "high_value": _floats(np.repeat(sens["high"], P)),
@@ -495,11 +506,11 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
         "worth_high": _floats(sens["worth_high"].ravel()),
         "switching_value": _floats(sens["switching_value"].ravel()),
         "switching_change": _floats(sens["switching_change"].ravel()),
-        "switching_status": pa.array([SWITCH_LABELS[int(v)] for v in sens["switching_status"].ravel()], type=pa.string()),
+        "switching_status": _labels(sens["switching_status"].ravel(), [SWITCH_LABELS[k] for k in range(len(SWITCH_LABELS))]),
     })
     spider_table = pa.table({
-        "project_id": pa.array(np.tile(np.repeat(ids, K), I).tolist(), type=pa.string()),
-        "input": pa.array(np.repeat(sens["inputs"], P * K).tolist(), type=pa.string()),
+        "project_id": _labels(np.tile(np.repeat(np.arange(P), K), I), ids),
+        "input": _labels(np.repeat(np.arange(I), P * K), sens["inputs"]),
         "change": pa.array(np.tile(sens["pct_changes"], I * P)),
         "present_worth": _floats(sens["spider"].ravel()),
     })
