@@ -78,3 +78,25 @@ def test_single_sign_change_roots_long_horizon_does_not_overflow():
     assert r[0] == pytest.approx(0.01, abs=1e-6)
     v = 1.0 / (1.0 + r[1])
     assert 1300.0 == pytest.approx(sum(v ** t for t in range(1, 1201)), rel=1e-10)
+
+
+def test_stream_facts_equal_the_numpy_definitions():
+    """Sign changes skipping zeros (Descartes' count), of the running sums (Norstrom's condition),
+    last non-zero period and finiteness, against their NumPy forms (irr.sign_changes; common practice)."""
+    from ratescape.evaluate.compiled import stream_facts
+    from ratescape.evaluate.irr import sign_changes
+    rng = np.random.default_rng(9)
+    A = rng.integers(-2, 3, size=(500, 12)).astype(float)
+    A[::7] = 0.0
+    A[3, 4] = np.nan
+    A[5, 2] = np.inf
+    sc, sc_cum, last, finite, total_nonzero = stream_facts(A)
+    ok = np.isfinite(A).all(axis=1)
+    np.testing.assert_array_equal(finite, ok)
+    clean = np.where(ok[:, None], A, 0.0)
+    np.testing.assert_array_equal(sc[ok], sign_changes(clean)[ok])
+    np.testing.assert_array_equal(sc_cum[ok], sign_changes(np.cumsum(clean, axis=1))[ok])
+    nz = clean != 0
+    want_last = np.where(nz.any(axis=1), 11 - np.argmax(nz[:, ::-1], axis=1), 0)
+    np.testing.assert_array_equal(last[ok], want_last[ok])
+    np.testing.assert_array_equal(total_nonzero[ok], clean.sum(axis=1)[ok] != 0)

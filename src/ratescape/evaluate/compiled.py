@@ -143,3 +143,53 @@ def single_sign_change_roots(amounts, last, u_low: float, u_high: float):
     found = np.empty(A.shape[0], dtype=np.bool_)
     _single_roots(A, last, float(u_low), float(u_high), roots, found)
     return roots, found
+
+
+@njit(cache=True, nogil=True)
+def _stream_facts(A, sc, sc_cum, last, finite, total_nonzero):
+    N, T = A.shape
+    for r in range(N):
+        changes = 0
+        changes_cum = 0
+        prev = 0.0          # last non-zero sign seen (0 = none yet)
+        prev_cum = 0.0
+        cum = 0.0
+        lst = 0
+        ok = True
+        for t in range(T):
+            a = A[r, t]
+            if not np.isfinite(a):
+                ok = False
+            cum += a
+            if a != 0.0:
+                lst = t
+                s = 1.0 if a > 0.0 else -1.0
+                if prev != 0.0 and s != prev:
+                    changes += 1
+                prev = s
+            if cum != 0.0:
+                s = 1.0 if cum > 0.0 else -1.0
+                if prev_cum != 0.0 and s != prev_cum:
+                    changes_cum += 1
+                prev_cum = s
+        sc[r] = changes
+        sc_cum[r] = changes_cum
+        last[r] = lst
+        finite[r] = ok
+        total_nonzero[r] = cum != 0.0
+
+
+def stream_facts(amounts):
+    """Per row of (N, T) amounts: sign changes of the non-zero amounts and of their running sums,
+    the last non-zero period (0 if none), whether every amount is finite, and whether the total is
+    non-zero. One pass per row (the NumPy form needs several full-size temporaries).
+    """
+    A = np.ascontiguousarray(amounts, dtype=float)
+    N = A.shape[0]
+    sc = np.empty(N, dtype=np.int64)
+    sc_cum = np.empty(N, dtype=np.int64)
+    last = np.empty(N, dtype=np.int64)
+    finite = np.empty(N, dtype=np.bool_)
+    total_nonzero = np.empty(N, dtype=np.bool_)
+    _stream_facts(A, sc, sc_cum, last, finite, total_nonzero)
+    return sc, sc_cum, last, finite, total_nonzero

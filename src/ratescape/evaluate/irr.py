@@ -303,17 +303,17 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
     A = a.reshape(-1, T)
     P = A.shape[0]
 
-    finite = np.isfinite(A).all(axis=1)
-    A = np.where(finite[:, None], A, 0.0)
-    zero_rows = finite & ~(A != 0).any(axis=1)
-    sc = _sign_changes(A)
-    cum = np.cumsum(A, axis=1)
-    norstrom = (_sign_changes(cum) == 1) & (cum[:, -1] != 0) & finite
+    from .compiled import stream_facts
+    sc, sc_cum, last, finite, total_nonzero = stream_facts(A)       # one compiled pass per row
+    if not finite.all():
+        A = np.where(finite[:, None], A, 0.0)
+        sc = np.where(finite, sc, 0)
+        last = np.where(finite, last, 0)
+    zero_rows = finite & (sc == 0) & ~(A[np.arange(P), last] != 0)
+    norstrom = (sc_cum == 1) & total_nonzero & finite
 
     t = np.arange(T, dtype=float)
     u = np.linspace(np.log1p(low), np.log1p(high), G)
-    nonzero = A != 0
-    last = np.where(nonzero.any(axis=1), T - 1 - np.argmax(nonzero[:, ::-1], axis=1), 0)
 
     # only rows that can have a root need the grid
     search = np.flatnonzero(finite & (sc > 0))
