@@ -216,3 +216,72 @@ def test_keep_summary_and_thinned_store_fewer_rows_with_the_same_summaries(db):
     want = sorted(fetch(db, f"SELECT {cols} FROM project_summary WHERE run_id = ?", [full]))
     for run_id in (summary, thinned):
         assert sorted(fetch(db, f"SELECT {cols} FROM project_summary WHERE run_id = ?", [run_id])) == want
+
+
+def test_worth_files_are_removed_when_done_and_rebuilt_when_missing_on_resume(db):
+    """The rank pass's per-chunk worth files live beside the database only while a run is unfinished;
+    a resumed run whose files were deleted rebuilds them and ends with the same ranks (identity)."""
+    import shutil
+    from pathlib import Path
+    args = dict(discount_rates="0:0.2:9", inflation="0:0.1:5", chunk_size=4)
+    full = screen_portfolio(db, **args)
+    scratch_root = Path(f"{db}.scratch")
+    assert not (scratch_root / full).exists()
+    part = screen_portfolio(db, stop_after_chunks=3, **args)
+    assert sorted(p.name for p in (scratch_root / part).iterdir())[:2] == ["pi-0000000.f8", "pi-0000001.f8"]
+    shutil.rmtree(scratch_root / part)                     # e.g. a cleaned temporary folder
+    assert screen_portfolio(db, resume=part) == part
+    assert not (scratch_root / part).exists()
+    cols = "project_id, rank_min, rank_median, rank_max, rank_base, pi_rank_min, pi_rank_median, pi_rank_max, top_k_share"
+    assert (sorted(fetch(db, f"SELECT {cols} FROM project_summary WHERE run_id = ?", [part]))
+            == sorted(fetch(db, f"SELECT {cols} FROM project_summary WHERE run_id = ?", [full])))
+    rho = "SELECT scenario_id, spearman_rho, spearman_rho_pi, kendall_tau FROM scenario_ranks WHERE run_id = ? ORDER BY 1"
+    assert fetch(db, rho, [part]) == fetch(db, rho, [full])
+
+
+def test_scenario_rank_agreement_matches_scipy(db):
+    """Spearman's rho and Kendall's tau-b of each scenario's PW ranking against the base scenario's,
+    recomputed from the stored rows with scipy.stats.spearmanr / kendalltau (reference library)."""
+    from scipy.stats import kendalltau, spearmanr
+    run_id = screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5")
+    rows = fetch(db, "SELECT project_id, scenario_id, present_worth FROM results WHERE run_id = ?", [run_id])
+    ids = sorted({r[0] for r in rows})
+    pw = np.zeros((len(ids), 45))
+    for pid, sid, v in rows:
+        pw[ids.index(pid), sid] = v
+    base = fetch(db, "SELECT scenario_id FROM scenarios WHERE run_id = ? AND is_base", [run_id])[0][0]
+    got = fetch(db, "SELECT scenario_id, spearman_rho, kendall_tau FROM scenario_ranks WHERE run_id = ? ORDER BY 1", [run_id])
+    for sid, rho, tau in got:
+        assert rho == pytest.approx(spearmanr(pw[:, sid], pw[:, base]).statistic, abs=1e-12)
+        assert tau == pytest.approx(kendalltau(pw[:, base], pw[:, sid]).statistic, abs=1e-12)
+
+
+def test_kendall_tau_is_left_out_above_its_project_limit(db, monkeypatch):
+    """Above KENDALL_MAX_PROJECTS only Spearman's rho is stored (tau would cost a merge sort per scenario)."""
+    monkeypatch.setattr(screen_module, "KENDALL_MAX_PROJECTS", 5)
+    run_id = screen_portfolio(db, discount_rates="0:0.2:3", inflation="0:0.1:2")
+    rows = fetch(db, "SELECT kendall_tau, kendall_tau_pi, spearman_rho FROM scenario_ranks WHERE run_id = ?", [run_id])
+    assert len(rows) == 6 and all(t is None and tp is None and r is not None for t, tp, r in rows)
+
+
+def test_results_view_derives_annual_worth_and_acceptance(db):
+    """annual_worth = PW x (A/P, real rate, horizon in years) and accepted = PW >= 0 (common practice),
+    derived in the `results` view from the narrow stored rows."""
+    from ratescape.evaluate.kernel import capital_recovery_factor
+    run_id = screen_portfolio(db, discount_rates="0:0.2:5", inflation="0:0.1:3")
+    rows = fetch(db, """SELECT r.present_worth, r.annual_worth, r.accepted, s.real_rate, ps.horizon
+                        FROM results r JOIN scenarios s USING (run_id, scenario_id)
+                        JOIN project_summary ps USING (run_id, project_id) WHERE r.run_id = ?""", [run_id])
+    assert len(rows) == 24 * 15
+    for pw, aw, accepted, real, horizon in rows:
+        assert aw == pytest.approx(pw * capital_recovery_factor(real, horizon), rel=1e-14, abs=1e-9)
+        assert accepted == (pw >= 0)
+
+
+def test_default_chunk_follows_available_memory():
+    """A quarter of the available memory at BYTES_PER_CELL, clamped to [1e6, DEFAULT_CELLS_PER_CHUNK] cells."""
+    cells = screen_module.chunk_cells_for_memory
+    assert cells(64 * 2**30) == screen_module.DEFAULT_CELLS_PER_CHUNK
+    assert cells(2 * 2**30) == 2 * 2**30 // 4 // screen_module.BYTES_PER_CELL
+    assert cells(100 * 2**20) == 1_000_000
+    assert 1_000_000 <= cells() <= screen_module.DEFAULT_CELLS_PER_CHUNK

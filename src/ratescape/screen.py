@@ -42,7 +42,38 @@ SWITCH_LABELS = {0: "one", 1: "several", 2: "none", 3: "at_base"}
 # about 1e7 cells keeps a chunk's arrays near 80 MB each whatever the portfolio size, and the
 # matrix product cache-friendly (bench/bench_kernel.py).
 DEFAULT_CELLS_PER_CHUNK = 10_000_000
+# Bytes a chunk needs per project-scenario cell: its PW, PI and outlay matrices, the Arrow row
+# columns and the acceptance flags, twice over (one chunk is written while the next is evaluated).
+BYTES_PER_CELL = 120
 IRR_SEARCH = (-0.99, 10.0)
+
+
+def available_memory() -> int | None:
+    """Bytes of memory available to new allocations (Linux MemAvailable), or None if unknown."""
+    try:
+        with open("/proc/meminfo") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    try:
+        return int(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
+    except (ValueError, OSError, AttributeError):
+        return None
+
+
+def chunk_cells_for_memory(available: int | None = None) -> int:
+    """Cells (projects x scenarios) per chunk when no chunk size is given.
+
+    A quarter of the available memory at BYTES_PER_CELL, between 1 million and
+    DEFAULT_CELLS_PER_CHUNK cells (beyond ~10 million cells the matrix product gains nothing and
+    the chunk's arrays only take memory away from DuckDB and the page cache).
+    """
+    available = available_memory() if available is None else available
+    if not available:
+        return DEFAULT_CELLS_PER_CHUNK
+    return int(min(DEFAULT_CELLS_PER_CHUNK, max(1_000_000, available // 4 // BYTES_PER_CELL)))
 DUCKDB_MEMORY_LIMIT = "1GB"
 
 
@@ -158,7 +189,7 @@ def _plan(con, run_id: str, spec: GridSpec, chunk_size: int | None) -> Plan:
         raise RunError("discount factors overflow for this horizon and these rates "
                        f"({T - 1} periods). Fix: narrow the rate range or shorten the horizon")
     if chunk_size is None:
-        chunk_size = max(1, min(max(count, 1), DEFAULT_CELLS_PER_CHUNK // max(table.size, 1)))
+        chunk_size = max(1, min(max(count, 1), chunk_cells_for_memory() // max(table.size, 1)))
     levels = np.unique(table.columns["inflation"])
     base = table.base_index
     base_mult = {name: float(v[base]) for name, v in multipliers.items()}
