@@ -1,7 +1,8 @@
 """Benchmark the whole `ratescape screen` on an invented synthetic portfolio.
 
-Prints, for each portfolio size: load time, screen time (chunks, ranks, decisions), result rows,
-rows per second, database size and the peak resident memory of the screening process.
+Prints, for each portfolio size: load time, screen time, result rows, rows per second, database
+size and the peak resident memory of the screening process, then the screen's own phase timings
+(chunks evaluated and written, rank pass, decisions and summaries).
 
 Usage:
   .venv/bin/python bench/bench_screen.py --projects 10000 100000 --grid 51 [--chunk-size N] [--keep all]
@@ -72,6 +73,10 @@ def main(argv=None):
         size = db.stat().st_size / 1e9
         print(f"{n:>10,}{t_load:>9.1f}{t_screen:>10.1f}{rows:>15,}{rows / t_screen:>13,.0f}{size:>8.2f}"
               f"{peak_kb / 1e6:>13.2f}")
+        phases = [l for l in out.stderr.splitlines()
+                  if l.startswith(("chunks:", "decisions and")) or (l.startswith("ranks:") and " in " in l)]
+        for line in phases:                          # the screen's own phase timings
+            print(f"{'':>10}  {line}")
 
 
 if __name__ == "__main__":

@@ -66,3 +66,11 @@ def test_queries_that_write_or_read_files_are_refused(db, tmp_path, sql, fragmen
     with pytest.raises(QueryError, match=fragment):
         run_query(db, str(f))
     assert hashlib.sha256(db.read_bytes()).hexdigest() == before
+
+
+def test_rank_agreement_lists_least_alike_scenarios_first(db):
+    """The base scenario agrees with itself (rho = tau = 1, common practice); others sort below it."""
+    frame = run_query(db, "rank-agreement", {"limit": "100"})
+    rho = frame["spearman_rho"].to_list()
+    assert len(rho) == 55 and rho == sorted(rho)
+    assert max(rho) == pytest.approx(1.0) and max(frame["kendall_tau"].to_list()) == pytest.approx(1.0)

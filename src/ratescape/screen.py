@@ -25,7 +25,7 @@ from .errors import RunError
 from .evaluate.irr import _STATUS_LABELS, irr_roots
 from .decide.rank_kernel import BaseOrdering, RankTally, mean_ranks, rank_rows, ranks_and_tau
 from .decide.sensitivity import SensitivitySettings, one_at_a_time
-from .evaluate.kernel import (ROLES, LineClass, capital_recovery_factor, discount_tensor, present_worth_classes,
+from .evaluate.kernel import (ROLES, LineClass, capital_recovery_factor, discount_tensor,
                               present_worth_scenario_major, scenario_major_tensor, then_current_streams)
 from .evaluate.measures import (benefit_cost_ratio, discounted_payback_period, mirr, payback_period,
                                 present_worth)

@@ -320,7 +320,6 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
     node_rows, node_u = [], []
     br_rows, br_lo, br_hi, br_x0, br_slo = [], [], [], [], []
     tc_rows, tc_g, tc_sign = [], [], []
-    chunk = max(1, _CHUNK_ELEMENTS // G)
     # Rows whose amounts change sign once have exactly one root r > -1 (Descartes' rule of signs),
     # simple and never touching: it is in range iff PW differs in sign at the ends, and a compiled
     # safeguarded Newton finds it row by row (evaluate/compiled.py), with no grid.
