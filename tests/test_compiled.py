@@ -100,3 +100,33 @@ def test_stream_facts_equal_the_numpy_definitions():
     want_last = np.where(nz.any(axis=1), 11 - np.argmax(nz[:, ::-1], axis=1), 0)
     np.testing.assert_array_equal(last[ok], want_last[ok])
     np.testing.assert_array_equal(total_nonzero[ok], clean.sum(axis=1)[ok] != 0)
+
+
+def test_shared_points_in_one_product_equal_point_by_point_evaluation():
+    """PointEvaluator.at_shared_points (one matrix product for K points) equals K single-point calls."""
+    rng = np.random.default_rng(10)
+    classes = [LineClass("real", 0.0, "one"), LineClass("real", 0.03, "one"), LineClass("nominal", 0.0, "one")]
+    A = rng.normal(size=(3, 3, 17, 21))
+    ev = PointEvaluator(A, classes, discount_exponents(21, "end", 1.0))
+    i = np.linspace(0.0, 0.3, 7)
+    f = np.linspace(0.0, 0.1, 7)
+    shift = np.linspace(-0.02, 0.02, 7)
+    got = ev.at_shared_points(i, f, shift)
+    want = np.column_stack([ev(np.full(17, i[k]), np.full(17, f[k]), escalation_shift=shift[k]) for k in range(7)])
+    np.testing.assert_allclose(got, want, rtol=1e-12, atol=1e-10)
+
+
+def test_switching_value_scan_in_one_call_equals_point_by_point():
+    """switching_value with scan_fn and rows_fn returns the same crossings as with worth_fn alone."""
+    from ratescape.decide.switching import switching_value
+    rng = np.random.default_rng(11)
+    a = rng.normal(size=(30, 8))
+    a[:, 0] = -np.abs(a[:, 0]) * 5
+    t = np.arange(8)
+    fn = lambda r: (a / (1 + r[:, None]) ** t).sum(axis=1)                      # noqa: E731
+    scan = lambda v: (a[:, None, :] / (1 + v[None, :, None]) ** t).sum(axis=2)  # noqa: E731
+    rows = lambda v, j: (a[j] / (1 + v[:, None]) ** t).sum(axis=1)              # noqa: E731
+    plain = switching_value(fn, np.full(30, 0.05), -0.5, 2.0)
+    fast = switching_value(fn, np.full(30, 0.05), -0.5, 2.0, scan_fn=scan, rows_fn=rows)
+    np.testing.assert_array_equal(plain.status, fast.status)
+    np.testing.assert_allclose(plain.value, fast.value, rtol=1e-12, equal_nan=True)

@@ -106,6 +106,11 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
         "inflation": lambda v, j: pw_rows(j, inflation=v),
         "escalation": lambda v, j: pw_rows(j, escalation_shift=v),
     }
+    scan_fns = {
+        "discount_rate": lambda v: evaluate.at_shared_points(v, np.full(v.shape, base_inflation)),
+        "inflation": lambda v: evaluate.at_shared_points(np.full(v.shape, base_rate), v),
+        "escalation": lambda v: evaluate.at_shared_points(np.full(v.shape, base_rate), np.full(v.shape, base_inflation), v),
+    }
     fns = {
         "discount_rate": lambda v: pw(discount_rate=v),
         "inflation": lambda v: pw(inflation=v),
@@ -138,7 +143,7 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
             values = b * (1.0 + pct)
         else:
             lo, hi = DEFAULT_SEARCH[name]
-            res = switching_value(fns[name], np.full(P, b), lo, hi, rows_fn=rows_fns[name])
+            res = switching_value(fns[name], np.full(P, b), lo, hi, rows_fn=rows_fns[name], scan_fn=scan_fns[name])
             out["switching_value"][n] = res.value
             out["switching_status"][n] = res.status
             if name == "escalation":
@@ -147,8 +152,11 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
             else:
                 out["switching_change"][n] = (res.value - b) / abs(b) if b != 0 else np.nan
                 values = b * (1.0 + pct)
-        for k, v in enumerate(values):
-            spider[n, :, k] = fns[name](np.full(P, v))
+        if name in scan_fns:
+            spider[n] = scan_fns[name](np.asarray(values, dtype=float))          # every change at once
+        else:
+            for k, v in enumerate(values):
+                spider[n, :, k] = fns[name](np.full(P, v))
     out.update(inputs=np.array(INPUTS), base_value=np.array([base[n] for n in INPUTS]),
                low=np.array([settings.ranges[n][0] for n in INPUTS]),
                high=np.array([settings.ranges[n][1] for n in INPUTS]),

@@ -80,7 +80,7 @@ def _call(worth_fn, vals, n):
     return w
 
 
-def switching_value(worth_fn, base, low, high, *, n_scan=65, rows_fn=None):
+def switching_value(worth_fn, base, low, high, *, n_scan=65, rows_fn=None, scan_fn=None):
     """Value of one input, within [low, high], at which worth crosses zero.
 
     Parameters
@@ -99,6 +99,10 @@ def switching_value(worth_fn, base, low, high, *, n_scan=65, rows_fn=None):
         ``rows_fn(values (J,), rows (J,)) -> (J,)``: the worth of only the projects ``rows``
         with the input at ``values`` (the others at base). When given, the root finder
         evaluates only the projects still iterating instead of all P each time.
+    scan_fn : callable, optional
+        ``scan_fn(values (K,)) -> (P, K)``: the worth of every project at each of K values shared
+        by all projects. When given and ``low`` and ``high`` are the same for every project, the
+        scan is one call instead of ``n_scan``.
 
     Returns
     -------
@@ -151,7 +155,12 @@ def switching_value(worth_fn, base, low, high, *, n_scan=65, rows_fn=None):
     n_scan = int(n_scan)
 
     grid = lo[:, None] + (hi - lo)[:, None] * np.linspace(0.0, 1.0, n_scan)[None, :]  # (P, K)
-    W = np.column_stack([_call(worth_fn, grid[:, k], n) for k in range(n_scan)])  # loop over scan points
+    if scan_fn is not None and np.all(lo == lo[0]) and np.all(hi == hi[0]):
+        W = np.asarray(scan_fn(grid[0]), dtype=float)                       # all scan points at once
+        if W.shape != (n, n_scan):
+            raise ValueError(f"scan_fn must return shape ({n}, {n_scan}), got shape {W.shape}")
+    else:
+        W = np.column_stack([_call(worth_fn, grid[:, k], n) for k in range(n_scan)])  # loop over scan points
     zero = W == 0.0
     sign_change = np.sign(W[:, :-1]) * np.sign(W[:, 1:]) < 0  # (P, K-1)
     n_cross = zero.sum(axis=1) + sign_change.sum(axis=1)

@@ -334,6 +334,26 @@ class PointEvaluator:
         flat = lambda x: np.ascontiguousarray(x.transpose(1, 0, 2)).reshape(P, C * T)  # noqa: E731
         self.flat_total, self.flat_invest, self.flat_benefit = flat(self.total), flat(A[0]), flat(A[1])
 
+    def at_shared_points(self, discount_rates, inflations, escalation_shifts=None) -> np.ndarray:
+        """Present worth (P, K) of every project at K points shared by all projects (multipliers at
+        their base values): one (P, C*T) @ (C*T, K) product instead of K separate evaluations."""
+        i = np.atleast_1d(np.asarray(discount_rates, dtype=float))
+        f = np.broadcast_to(np.asarray(inflations, dtype=float), i.shape)
+        shift = np.broadcast_to(np.asarray(0.0 if escalation_shifts is None else escalation_shifts, dtype=float),
+                                i.shape)
+        if np.any(i <= -1) or np.any(f <= -1):
+            raise ValueError("rates must be > -1")
+        K, C, T = i.size, len(self.classes), self.tau.size
+        D = np.empty((C, T, K))
+        with np.errstate(over="ignore", invalid="ignore"):
+            log_i = np.log1p(i)
+            for c, cls in enumerate(self.classes):
+                log_g = np.log1p(cls.escalation + shift) + np.log1p(f) if cls.basis == "real" else np.zeros(K)
+                D[c] = np.exp(np.multiply.outer(self.tau, log_g - log_i))
+                if cls.multiplier != "one":
+                    D[c] *= multiplier_values(cls.multiplier, self.multipliers, (K,))[None, :]
+            return self.flat_total @ D.reshape(C * T, K)
+
     def at_rows(self, rows, discount_rate, inflation, *, escalation_shift=0.0, cost_multiplier=1.0,
                 benefit_multiplier=1.0) -> np.ndarray:
         """Present worth (J,) of only the projects ``rows`` (J,) at their own points (each argument
