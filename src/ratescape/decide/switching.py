@@ -190,7 +190,11 @@ def switching_value(worth_fn, base, low, high, *, n_scan=65, rows_fn=None, scan_
                 vals[j] = x
                 return _call(worth_fn, vals, n)[j]
 
-            res = _elementwise.find_root(f, (grid[idx, k], grid[idx, k + 1]), args=(idx.astype(float),))
+            # absolute tolerance at the rounding level of the input's scale: a crossing at or near
+            # zero is not chased down to the smallest normal number (about a thousand bisections)
+            xatol = 4.0 * np.finfo(float).eps * max(1.0, float(np.max(np.abs(grid[idx]))))
+            res = _elementwise.find_root(f, (grid[idx, k], grid[idx, k + 1]), args=(idx.astype(float),),
+                                         tolerances={"xatol": xatol})
             crossings[idx, r] = res.x
 
     dist = np.abs(crossings - base_[:, None])
