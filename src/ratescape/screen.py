@@ -831,6 +831,7 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
     bar = Progress(len(todo), "screen", enabled=progress)
     evaluator = None
     writer = None
+    blas_limit = None
     try:
         if cluster or workers:
             from .cluster import DaskEvaluator
@@ -840,6 +841,10 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
             evaluator = LocalEvaluator(evaluate_chunk, plan)
 
         started = time.perf_counter()
+        # While one thread evaluates and the writer thread's DuckDB insert uses the other core, a
+        # multi-threaded BLAS only oversubscribes the cores (its threads spin-wait): one BLAS thread
+        from threadpoolctl import threadpool_limits
+        blas_limit = threadpool_limits(limits=1, user_api="blas")
         writer = ChunkWriter(con, plan, bar)
         reader = con.cursor()      # the chunk reader's own connection: the writer thread uses `con`
 
@@ -851,6 +856,8 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
             if stop_after_chunks is not None and n >= stop_after_chunks:
                 write(evaluator.drain())
                 writer.finish()
+                blas_limit.restore_original_limits()
+                blas_limit = None
                 con.execute("UPDATE runs SET status = 'interrupted', message = ? WHERE run_id = ?",
                             [f"stopped after {n} chunks; resume with --resume {plan.run_id}", plan.run_id])
                 bar.close()
@@ -863,6 +870,8 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
             write(evaluator.ready())
         write(evaluator.drain())
         writer.finish()
+        blas_limit.restore_original_limits()
+        blas_limit = None
         log(f"chunks: {len(todo)} evaluated and written in {time.perf_counter() - started:.1f} s")
         reader.close()
         evaluator.close()
@@ -872,6 +881,8 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
     except BaseException as exc:
         if writer is not None:
             writer.abandon()       # let a chunk already being written commit (or roll back) first
+        if blas_limit is not None:
+            blas_limit.restore_original_limits()
         bar.close()
         if evaluator is not None:
             try:
