@@ -120,3 +120,12 @@ def test_rank_tally_matches_numpy_reductions_over_several_calls():
     np.testing.assert_array_equal(tally.max, want.max(axis=0))
     np.testing.assert_array_equal(tally.top, (want <= 5).sum(axis=0))
     np.testing.assert_array_equal(tally.any_nan, np.isnan(values).any(axis=0))
+
+
+def test_mean_ranks_equal_scipy_average_ranks():
+    rng = np.random.default_rng(12)
+    for _ in range(50):
+        v = rng.integers(0, 5, size=int(rng.integers(1, 40))).astype(float)
+        v[rng.random(v.size) < 0.2] = np.nan
+        want = rankdata(-np.where(np.isnan(v), -np.inf, v), method="average")
+        np.testing.assert_allclose(mean_ranks(v), want)

@@ -604,8 +604,6 @@ def rank_statistics(con, plan: Plan):
     if not with_tau:
         log(f"ranks: {P:,} projects; Kendall's tau is computed up to {KENDALL_MAX_PROJECTS:,}, "
             "Spearman's rho is stored for every scenario")
-    values = np.empty((block, P))
-    ranks_buffer = np.empty((block, P), dtype=np.uint32)
     names = {"pw": "", "pi": "_pi"}
     agreement = {f"{stat}{suffix}": np.full(S, np.nan) for stat in ("kendall_tau", "spearman_rho")
                  for suffix in names.values()}
@@ -617,18 +615,43 @@ def rank_statistics(con, plan: Plan):
                        "mean_ranks": mean_ranks(base_values), "has": has,
                        "ordering": BaseOrdering(base_values) if with_tau else None,
                        "files": RankScratch(plan.scratch.folder, name, S, P, plan.chunk_size)}
-    for a in range(0, S, block):
-        b = min(S, a + block)
-        for name, suffix in names.items():
-            st = stats[name]
-            vals = plan.scratch.read_block(name, a, b, out=values)
-            ranks, rho = rank_rows(vals, st["mean_ranks"], st["has"], out=ranks_buffer[: b - a], tally=st["tally"])
-            agreement[f"spearman_rho{suffix}"][a:b] = rho
-            if with_tau:
-                agreement[f"kendall_tau{suffix}"][a:b] = ranks_and_tau(vals, st["ordering"])[1]
-            if a <= base < b:
-                st["base"][:] = ranks[base - a]
-            st["files"].append(ranks)
+    # file reads and rank-file appends run on an I/O thread, one block ahead of the ranking;
+    # two sets of buffers alternate (reused: fresh pages are costly to fault in)
+    buffers = [{name: (np.empty((block, P)), np.empty((block, P), dtype=np.uint32)) for name in names}
+               for _ in range(2)]
+    blocks = [(a, min(S, a + block)) for a in range(0, S, block)]
+
+    def load(n):
+        a, b = blocks[n]
+        for name in names:
+            plan.scratch.read_block(name, a, b, out=buffers[n % 2][name][0])
+
+    def store(n):
+        a, b = blocks[n]
+        for name in names:
+            stats[name]["files"].append(buffers[n % 2][name][1][: b - a])
+
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-rank-io") as io:
+        loaded = io.submit(load, 0)
+        stored = None
+        for n, (a, b) in enumerate(blocks):
+            loaded.result()
+            if stored is not None:
+                stored.result()                    # block n - 1's ranks are out of the other buffer
+            if n + 1 < len(blocks):
+                loaded = io.submit(load, n + 1)
+            for name, suffix in names.items():
+                st = stats[name]
+                vals = buffers[n % 2][name][0][: b - a]
+                ranks, rho = rank_rows(vals, st["mean_ranks"], st["has"], out=buffers[n % 2][name][1][: b - a],
+                                       tally=st["tally"])
+                agreement[f"spearman_rho{suffix}"][a:b] = rho
+                if with_tau:
+                    agreement[f"kendall_tau{suffix}"][a:b] = ranks_and_tau(vals, st["ordering"])[1]
+                if a <= base < b:
+                    st["base"][:] = ranks[base - a]
+            stored = io.submit(store, n)
+        stored.result()
     out = {}
     for name, prefix in (("pw", "rank"), ("pi", "pi_rank")):
         st = stats[name]

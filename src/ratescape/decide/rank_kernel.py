@@ -342,10 +342,23 @@ def _work_buffers(rows: int, P: int):
 
 
 def mean_ranks(values):
-    """Average ranks (P,) of one scenario, 1 = highest, ties share the mean place, NaN last."""
-    from scipy.stats import rankdata
+    """Average ranks (P,) of one scenario, 1 = highest, ties share the mean place, NaN last.
+
+    Equals ``scipy.stats.rankdata(-values, method="average")`` with NaN last.
+    """
     v = np.asarray(values, dtype=float)
-    return rankdata(np.where(np.isnan(v), np.inf, -v), method="average")
+    keys = np.where(np.isnan(v), np.inf, -v)
+    order = np.argsort(keys, kind="stable")
+    sorted_keys = keys[order]
+    P = v.size
+    new = np.ones(P, dtype=bool)
+    new[1:] = sorted_keys[1:] != sorted_keys[:-1]
+    starts = np.flatnonzero(new)
+    ends = np.append(starts[1:], P) - 1                 # last place of each tie run (0-based)
+    run = np.cumsum(new) - 1
+    out = np.empty(P)
+    out[order] = (starts[run] + ends[run]) / 2.0 + 1.0
+    return out
 
 
 class RankTally:
