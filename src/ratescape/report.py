@@ -421,6 +421,37 @@ class _Run:
             "SELECT count(*) FROM project_summary WHERE run_id = ?", [self.run_id]).fetchall()[0][0]
         self.base = self._base_scenario()
         self.plane_filter, self.plane_params = self._plane_filter()
+        self.narrow = self._has_narrow_rows()
+
+    def _has_narrow_rows(self) -> bool:
+        """True when the run's rows are in `result_rows` (schema 2): read them there, joining the
+        run's scenarios by key, instead of through the `results` view's wider joins."""
+        if "result_rows" not in self.tables or "scenario_key" not in _columns(self.con, "scenarios"):
+            return False
+        return bool(self.con.execute("SELECT count(*) FROM scenarios WHERE run_id = ? AND scenario_key IS NOT NULL",
+                                     [self.run_id]).fetchall()[0][0])
+
+    def rows(self, *, projects: list[str] | None = None) -> tuple[str, list[Any]]:
+        """A relation of the run's result rows: scenario_id, project_id, present_worth, accepted.
+
+        Returns SQL (for a FROM clause) and its parameters; ``projects`` restricts it to those ids
+        (filtered by project key before the join, so the other rows are never joined).
+        """
+        if not self.narrow:
+            where = " AND list_contains(?, project_id)" if projects is not None else ""
+            return (f"(SELECT scenario_id, project_id, present_worth, accepted FROM results "
+                    f"WHERE run_id = ?{where})", [self.run_id] + ([projects] if projects is not None else []))
+        keys = ""
+        params: list[Any] = [self.run_id, self.run_id]
+        if projects is not None:
+            keys = " AND list_contains(?, ps.project_id)"
+            params.append(projects)
+        return (f"""(SELECT sc.scenario_id, ps.project_id, x.present_worth, x.present_worth >= 0 AS accepted
+                    FROM result_rows x
+                    JOIN (SELECT scenario_key, scenario_id FROM scenarios WHERE run_id = ?) sc
+                      ON sc.scenario_key = x.scenario_key
+                    JOIN (SELECT project_key, project_id FROM project_summary ps WHERE run_id = ?{keys}) ps
+                      ON ps.project_key = x.project_key)""", params)
 
     def _base_scenario(self) -> dict[str, Any] | None:
         f = _q(self.con, "SELECT * FROM scenarios WHERE run_id = ? ORDER BY is_base DESC, scenario_id LIMIT 1"
@@ -435,7 +466,8 @@ class _Run:
 
     def _plane_filter(self) -> tuple[str, list[Any]]:
         """SQL keeping the x-y plane through the base scenario when other axes exist."""
-        known = {"run_id", "scenario_id", "discount_rate", "real_rate", "inflation", "weight", "is_base"}
+        known = {"run_id", "scenario_id", "discount_rate", "real_rate", "inflation", "weight", "is_base",
+                 "scenario_key"}
         others = [c for c in _columns(self.con, "scenarios") if c not in known]
         if not others or self.base is None:
             return "TRUE", []
@@ -546,15 +578,16 @@ def _headline_sections(ctx: _Run, top_n: int) -> tuple[list[Section], list[str]]
                 SELECT r.project_id,
                        avg(CASE WHEN s.band = 'low' THEN CAST(r.accepted AS INTEGER) END) AS share_low,
                        avg(CASE WHEN s.band = 'high' THEN CAST(r.accepted AS INTEGER) END) AS share_high
-                FROM results r JOIN s ON s.scenario_id = r.scenario_id
-                WHERE r.run_id = ? AND s.band IS NOT NULL
+                FROM {rows} r JOIN s ON s.scenario_id = r.scenario_id
+                WHERE s.band IS NOT NULL
                 GROUP BY r.project_id),
             hit AS (SELECT *, share_low - share_high AS drop FROM agg WHERE share_low - share_high >= 0.25)
             SELECT hit.project_id, p.name, hit.share_low, hit.share_high, hit.drop,
                    count(*) OVER () AS total
             FROM hit LEFT JOIN projects p ON p.project_id = hit.project_id
             ORDER BY hit.drop DESC, hit.share_low DESC, hit.project_id LIMIT ?"""
-        frame = _q(ctx.con, sql, [low_max, high_min, ctx.run_id, ctx.run_id, top_n])
+        rows, rows_params = ctx.rows()
+        frame = _q(ctx.con, sql.replace("{rows}", rows), [low_max, high_min, ctx.run_id, *rows_params, top_n])
         total = int(frame["total"][0]) if frame.height else 0
         secs.append(Section(
             "Fails under high inflation",
@@ -653,12 +686,22 @@ def _portfolio_chart_sections(ctx: _Run, top_n: int) -> list[Section]:
                         f"The {top.height:,} projects accepted in the largest share of scenarios "
                         f"(of {ctx.project_count:,}).",
                         chart=charts.acceptance_share_bars(top)))
-    by_scen = _q(ctx.con, f"""
-        WITH a AS (SELECT scenario_id, avg(CAST(accepted AS INTEGER)) AS accept_share
-                   FROM results WHERE run_id = ? GROUP BY scenario_id)
-        SELECT s.{_ident(ctx.y)} AS inflation, s.{_ident(ctx.x)} AS series, a.accept_share
-        FROM a JOIN scenarios s ON s.run_id = ? AND s.scenario_id = a.scenario_id
-        WHERE {ctx.plane_filter}""", [ctx.run_id, ctx.run_id, *ctx.plane_params])
+    if ctx.narrow:   # aggregate by scenario key, on the narrow rows alone
+        by_scen = _q(ctx.con, f"""
+            WITH a AS (SELECT x.scenario_key, avg(CAST(x.present_worth >= 0 AS INTEGER)) AS accept_share
+                       FROM result_rows x
+                       WHERE x.scenario_key IN (SELECT scenario_key FROM scenarios WHERE run_id = ?)
+                       GROUP BY x.scenario_key)
+            SELECT s.{_ident(ctx.y)} AS inflation, s.{_ident(ctx.x)} AS series, a.accept_share
+            FROM a JOIN scenarios s ON s.run_id = ? AND s.scenario_key = a.scenario_key
+            WHERE {ctx.plane_filter}""", [ctx.run_id, ctx.run_id, *ctx.plane_params])
+    else:
+        by_scen = _q(ctx.con, f"""
+            WITH a AS (SELECT scenario_id, avg(CAST(accepted AS INTEGER)) AS accept_share
+                       FROM results WHERE run_id = ? GROUP BY scenario_id)
+            SELECT s.{_ident(ctx.y)} AS inflation, s.{_ident(ctx.x)} AS series, a.accept_share
+            FROM a JOIN scenarios s ON s.run_id = ? AND s.scenario_id = a.scenario_id
+            WHERE {ctx.plane_filter}""", [ctx.run_id, ctx.run_id, *ctx.plane_params])
     series_levels = _thin(sorted(by_scen["series"].unique().to_list()), 21)
     by_scen = by_scen.filter(pl.col("series").is_in(series_levels)).rename({"series": ctx.x})
     secs.append(Section("Acceptance against inflation",
@@ -701,14 +744,14 @@ def _drill_sections(ctx: _Run, ids: list[str]) -> list[Section]:
         "SELECT project_id, name FROM projects WHERE list_contains(?, project_id)", [ids]).fetchall())
     # worth curves: every x level, up to MAX_CURVE_LINES inflation levels
     curve_ys = _thin(ys_all, MAX_CURVE_LINES)
+    rows, rows_params = ctx.rows(projects=ids)
     curve = _q(ctx.con, f"""
         SELECT r.project_id, p.name, s.{_ident(x)} AS {_ident(x)}, s.inflation, r.present_worth
-        FROM results r JOIN scenarios s ON s.run_id = r.run_id AND s.scenario_id = r.scenario_id
+        FROM {rows} r JOIN scenarios s ON s.run_id = ? AND s.scenario_id = r.scenario_id
         LEFT JOIN projects p ON p.project_id = r.project_id
-        WHERE r.run_id = ? AND list_contains(?, r.project_id) AND list_contains(?, s.inflation)
-          AND {ctx.plane_filter}
+        WHERE list_contains(?, s.inflation) AND {ctx.plane_filter}
         ORDER BY r.project_id, s.inflation, s.{_ident(x)}""",
-               [ctx.run_id, ids, curve_ys, *ctx.plane_params])
+               [*rows_params, ctx.run_id, curve_ys, *ctx.plane_params])
     irr = None
     irr_col = "irr_real" if x == "real_rate" else "irr_nominal"
     # irr_roots holds every root of streams with several; irr_results one row per inflation level
@@ -738,10 +781,9 @@ def _drill_sections(ctx: _Run, ids: list[str]) -> list[Section]:
     sx, sy = _thin(xs_all, keep), _thin(ys_all, keep)
     surf = _q(ctx.con, f"""
         SELECT r.project_id, s.{_ident(x)} AS {_ident(x)}, s.inflation, r.present_worth
-        FROM results r JOIN scenarios s ON s.run_id = r.run_id AND s.scenario_id = r.scenario_id
-        WHERE r.run_id = ? AND list_contains(?, r.project_id)
-          AND list_contains(?, s.{_ident(x)}) AND list_contains(?, s.inflation) AND {ctx.plane_filter}""",
-              [ctx.run_id, ids, sx, sy, *ctx.plane_params])
+        FROM {rows} r JOIN scenarios s ON s.run_id = ? AND s.scenario_id = r.scenario_id
+        WHERE list_contains(?, s.{_ident(x)}) AND list_contains(?, s.inflation) AND {ctx.plane_filter}""",
+              [*rows_params, ctx.run_id, sx, sy, *ctx.plane_params])
     for pid in ids:
         one = surf.filter(pl.col("project_id") == pid).drop("project_id")
         label = f"{names.get(pid) or pid} ({pid})"

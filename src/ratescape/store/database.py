@@ -31,13 +31,20 @@ def connect_write(path: str | Path) -> duckdb.DuckDBPyConnection:
     return con
 
 
+# DuckDB's own default is 80 % of the machine's memory; queries over a 260-million-row run spill to
+# disk beyond this instead.
+READ_MEMORY_LIMIT = "2GB"
+
+
 def connect_read(path: str | Path) -> duckdb.DuckDBPyConnection:
     """Open an existing database read-only (queries and reports)."""
     p = Path(path)
     if not p.is_file():
         raise RatescapeError(f"{path}: no such database. Fix: run `ratescape load` first or check --db")
     try:
-        return duckdb.connect(str(p), read_only=True)
+        con = duckdb.connect(str(p), read_only=True)
+        con.execute(f"SET memory_limit = '{READ_MEMORY_LIMIT}'")   # large joins spill instead of growing
+        return con
     except duckdb.IOException as exc:
         if "lock" in str(exc).lower():
             raise DatabaseBusyError(_busy_message(path, exc)) from None
