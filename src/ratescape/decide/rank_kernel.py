@@ -255,26 +255,41 @@ def _pack(bits_of_keys, bits, packed):
 
 
 @njit(cache=True, nogil=True)
-def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, sk, acc_min, acc_max, acc_top, acc_nan, top_k):
+def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, new, acc_min, acc_max, acc_top, acc_nan,
+            top_k, inf_high):
     """Order from the sorted packed integers (re-sorted exactly where the kept bits tie), then
-    competition ranks, and Spearman's rho against ``base_mean`` over ``valid`` projects."""
+    competition ranks, and Spearman's rho against ``base_mean`` over ``valid`` projects.
+
+    Neighbours whose kept high bits differ are ordered and distinct without looking at their
+    values; only neighbours that agree in the kept bits are compared exactly (``keys``).
+    """
     B, P = keys.shape
     low = np.uint64((1 << bits) - 1)
+    high_mask = ~low
     with_rho = base_mean.size == P
     with_acc = acc_min.size == P
     for b in range(B):
         exact = True
+        previous = np.uint64(0)
         for k in range(P):
-            o = np.int64(packed[b, k] & low)
+            w = packed[b, k]
+            o = np.int64(w & low)
             order[k] = o
-            sk[k] = keys[b, o]
-            if k > 0 and sk[k] < sk[k - 1]:
-                exact = False
+            high = w & high_mask
+            if k == 0 or high != previous:
+                new[k] = True
+            else:
+                before = keys[b, order[k - 1]]
+                here = keys[b, o]
+                if here < before:
+                    exact = False
+                new[k] = here != before
+            previous = high
         if not exact:                                   # values closer than the kept bits: exact sort
             exact_order = np.argsort(keys[b], kind="mergesort")
             for k in range(P):
                 order[k] = exact_order[k]
-                sk[k] = keys[b, order[k]]
+                new[k] = k == 0 or keys[b, order[k]] != keys[b, order[k - 1]]
         n = 0.0
         sx = 0.0
         sy = 0.0
@@ -283,20 +298,20 @@ def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, sk, acc_min
         sxy = 0.0
         start = 0
         for k in range(P + 1):
-            if k == P or (k > 0 and sk[k] != sk[k - 1]):
+            if k == P or (k > 0 and new[k]):
                 mean = (start + k - 1) / 2.0 + 1.0
+                rank = np.uint32(start + 1)
                 for t in range(start, k):
                     p = order[t]
-                    ranks[b, p] = start + 1
+                    ranks[b, p] = rank
                     if with_acc:
-                        rank = np.uint32(start + 1)
                         if rank < acc_min[p]:
                             acc_min[p] = rank
                         if rank > acc_max[p]:
                             acc_max[p] = rank
                         if start + 1 <= top_k:
                             acc_top[p] += 1
-                        if sk[t] == np.inf:
+                        if (packed[b, t] & high_mask) == inf_high and keys[b, p] == np.inf:
                             acc_nan[p] = True
                     if with_rho and valid[p]:
                         y = base_mean[p]
@@ -314,6 +329,14 @@ def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, sk, acc_min
             if cxx > 0.0 and cyy > 0.0:
                 r = (sxy - sx * sy / n) / np.sqrt(cxx * cyy)
                 rho[b] = min(1.0, max(-1.0, r))
+
+
+def _packed_high(key: float, bits: int) -> np.uint64:
+    """The kept high bits of one key as :func:`_pack` writes them."""
+    keys = np.array([[key]])
+    packed = np.empty((1, 1), dtype=np.uint64)
+    _pack(keys.view(np.uint64), bits, packed)
+    return np.uint64(packed[0, 0] & ~np.uint64((1 << bits) - 1))
 
 
 _THREADS = max(1, min(4, os.cpu_count() or 1))
@@ -335,10 +358,10 @@ def _work_buffers(rows: int, P: int):
     cached = getattr(_LOCAL, "buffers", None)
     if cached is None or cached[0].shape[1] != P or cached[0].shape[0] < rows:
         cached = (np.empty((rows, P)), np.empty((rows, P), dtype=np.uint64), np.empty(P, dtype=np.int64),
-                  np.empty(P))
+                  np.empty(P, dtype=np.bool_))
         _LOCAL.buffers = cached
-    keys, packed, order, sk = cached
-    return keys[:rows], packed[:rows], order, sk
+    keys, packed, order, new = cached
+    return keys[:rows], packed[:rows], order, new
 
 
 def mean_ranks(values):
@@ -424,16 +447,17 @@ def rank_rows(values, base_mean_ranks=None, valid=None, *, out=None, tally: Rank
     if base.size not in (0, P) or mask.size != P:
         raise ValueError(f"base_mean_ranks and valid must have {P} entries")
     bits = max(1, int(P - 1).bit_length())
+    inf_high = _packed_high(np.inf, bits)
 
     def part(lo, hi):          # compiled kernels and NumPy's sort release the GIL: rows in parallel
-        keys, packed, order, sk = _work_buffers(hi - lo, P)
+        keys, packed, order, new = _work_buffers(hi - lo, P)
         _keys(values[lo:hi], keys)
         _pack(keys.view(np.uint64), bits, packed)
         packed.sort(axis=1)
         mine = RankTally(P, tally.top_k) if tally is not None else None
         acc = (mine.min, mine.max, mine.top, mine.any_nan) if mine is not None else _NO_TALLY
-        _unpack(packed, keys, bits, base, mask, ranks[lo:hi], rho[lo:hi], order, sk, *acc,
-                tally.top_k if tally is not None else 0)
+        _unpack(packed, keys, bits, base, mask, ranks[lo:hi], rho[lo:hi], order, new, *acc,
+                tally.top_k if tally is not None else 0, inf_high)
         return mine
 
     cuts = np.linspace(0, B, min(B, _THREADS) + 1).astype(int)
