@@ -478,7 +478,17 @@ def _floats(values) -> pa.Array:
     return pa.array(a, mask=~np.isfinite(a))
 
 
-def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out: dict, seconds: float) -> int:
+@dataclass
+class ChunkTables:
+    """A chunk's rows as Arrow tables, ready for its transaction (built off the writer thread)."""
+
+    results: pa.Table
+    by_table: dict          # table name -> Arrow table (appended with the run id)
+    projects: int
+
+
+def chunk_tables(plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out: dict) -> ChunkTables:
+    """Arrow tables of one evaluated chunk; also writes its worth files for the rank pass."""
     S, P = out["pw"].shape
     kept = plan.kept if plan.kept is not None else np.ones(S, dtype=bool)
     rows_of = (lambda a: a.ravel()) if kept.all() else (lambda a: a[kept].ravel())  # noqa: E731
@@ -547,19 +557,26 @@ def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray,
     })
     if plan.scratch is not None:
         plan.scratch.write(chunk_index, out["pw"], out["pi"])   # before the commit: a done chunk has its files
+    return ChunkTables(results, {"sensitivity": sens_table, "spider": spider_table, "project_summary": summary,
+                                 "irr_results": irr_table, "irr_roots": roots_table}, P)
+
+
+def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out, seconds: float) -> int:
+    """Write one chunk (an evaluation dict, or its ChunkTables) in ONE transaction with its done mark."""
+    tables = out if isinstance(out, ChunkTables) else chunk_tables(plan, chunk_index, first, ids, out)
+    results = tables.results
     with transaction(con):
-        append_rows(con, "sensitivity", sens_table, plan.run_id)
-        append_rows(con, "spider", spider_table, plan.run_id)
+        for name in ("sensitivity", "spider"):
+            append_rows(con, name, tables.by_table[name], plan.run_id)
         if results.num_rows:
             con.register("incoming_result_rows", results)
             names = ", ".join(results.column_names)
             con.execute(f"INSERT INTO result_rows ({names}) SELECT {names} FROM incoming_result_rows")
             con.unregister("incoming_result_rows")
-        append_rows(con, "project_summary", summary, plan.run_id)
-        append_rows(con, "irr_results", irr_table, plan.run_id)
-        append_rows(con, "irr_roots", roots_table, plan.run_id)
+        for name in ("project_summary", "irr_results", "irr_roots"):
+            append_rows(con, name, tables.by_table[name], plan.run_id)
         con.execute("INSERT INTO run_chunks VALUES (?, ?, ?, ?, ?, ?, ?)",
-                    [plan.run_id, chunk_index, first, first + P - 1, results.num_rows, _now(), seconds])
+                    [plan.run_id, chunk_index, first, first + tables.projects - 1, results.num_rows, _now(), seconds])
         con.execute("UPDATE runs SET chunks_done = chunks_done + 1 WHERE run_id = ?", [plan.run_id])
     return results.num_rows
 
@@ -731,8 +748,9 @@ def run_decisions(con, plan: Plan) -> None:
 class ChunkWriter:
     """Writes evaluated chunks on one background thread while the next chunk is evaluated.
 
-    DuckDB and NumPy release the GIL in their heavy work, so writing chunk n (scratch files, then
-    one transaction) overlaps evaluating chunk n + 1. At most one chunk is being written; submitting
+    DuckDB and NumPy release the GIL in their heavy work, so writing chunk n (one transaction)
+    overlaps evaluating chunk n + 1; the chunk's Arrow tables and worth files are prepared on the
+    calling thread, which would otherwise wait for the writer. At most one chunk is being written; submitting
     the next waits for it, and re-raises its error, so chunks commit in order, each whole or not at
     all. Only this thread uses the write connection while chunks flow.
     """
@@ -743,9 +761,9 @@ class ChunkWriter:
         self.pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-writer")
         self.pending = None
 
-    def _write(self, key, out) -> None:
+    def _write(self, key, tables) -> None:
         chunk, first, ids, t0 = key
-        _write_chunk(self.con, self.plan, chunk, first, ids, out, time.perf_counter() - t0)
+        _write_chunk(self.con, self.plan, chunk, first, ids, tables, time.perf_counter() - t0)
 
     def _wait(self) -> None:
         if self.pending is not None:
@@ -754,8 +772,11 @@ class ChunkWriter:
             self.bar.update()
 
     def submit(self, key, out) -> None:
+        chunk, first, ids, _ = key
+        tables = chunk_tables(self.plan, chunk, first, ids, out)   # on this thread: the writer only writes
+        del out
         self._wait()
-        self.pending = self.pool.submit(self._write, key, out)
+        self.pending = self.pool.submit(self._write, key, tables)
 
     def finish(self) -> None:
         """Wait for the last chunk; errors are raised here."""
