@@ -130,3 +130,19 @@ def test_switching_value_scan_in_one_call_equals_point_by_point():
     fast = switching_value(fn, np.full(30, 0.05), -0.5, 2.0, scan_fn=scan, rows_fn=rows)
     np.testing.assert_array_equal(plain.status, fast.status)
     np.testing.assert_allclose(plain.value, fast.value, rtol=1e-12, equal_nan=True)
+
+
+def test_shared_points_with_an_escalation_shift_follow_the_definition():
+    """PW at shared points with every real line's escalation shifted by d: real factors
+    ((1+e_c+d)(1+f))^tau / (1+i)^tau, nominal 1/(1+i)^tau (common practice)."""
+    rng = np.random.default_rng(13)
+    classes = [LineClass("real", 0.01, "one"), LineClass("nominal", 0.0, "one")]
+    A = rng.normal(size=(3, 2, 9, 15))
+    tau = discount_exponents(15, "end", 1.0)
+    i, f, d = np.array([0.05, 0.12]), np.array([0.02, 0.04]), np.array([-0.01, 0.03])
+    got = PointEvaluator(A, classes, tau).at_shared_points(i, f, d)
+    total = A.sum(axis=0)
+    for k in range(2):
+        want = (total[0] * (((1 + 0.01 + d[k]) * (1 + f[k])) / (1 + i[k])) ** tau).sum(axis=1)
+        want += (total[1] * (1 + i[k]) ** -tau).sum(axis=1)
+        np.testing.assert_allclose(got[:, k], want, rtol=1e-12, atol=1e-10)

@@ -561,9 +561,8 @@ def chunk_tables(plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out:
                                  "irr_results": irr_table, "irr_roots": roots_table}, P)
 
 
-def _write_chunk(con, plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out, seconds: float) -> int:
-    """Write one chunk (an evaluation dict, or its ChunkTables) in ONE transaction with its done mark."""
-    tables = out if isinstance(out, ChunkTables) else chunk_tables(plan, chunk_index, first, ids, out)
+def _write_chunk(con, plan: Plan, chunk_index: int, first: int, tables: ChunkTables, seconds: float) -> int:
+    """Write one chunk's tables in ONE transaction with its done mark; return its result rows."""
     results = tables.results
     with transaction(con):
         for name in ("sensitivity", "spider"):
@@ -762,8 +761,8 @@ class ChunkWriter:
         self.pending = None
 
     def _write(self, key, tables) -> None:
-        chunk, first, ids, t0 = key
-        _write_chunk(self.con, self.plan, chunk, first, ids, tables, time.perf_counter() - t0)
+        chunk, first, _, t0 = key
+        _write_chunk(self.con, self.plan, chunk, first, tables, time.perf_counter() - t0)
 
     def _wait(self) -> None:
         if self.pending is not None:

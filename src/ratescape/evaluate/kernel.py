@@ -82,7 +82,7 @@ def _rates(x, name: str) -> np.ndarray:
 
 
 def discount_tensor(classes: Sequence[LineClass], exponents: np.ndarray, discount_rate, inflation,
-                    multipliers: Mapping[str, np.ndarray] | None = None) -> np.ndarray:
+                    multipliers: Mapping[str, np.ndarray] | None = None, escalation_shift=0.0) -> np.ndarray:
     """Discount-factor tensor D (C, T, S) for line classes over scenarios.
 
     Parameters
@@ -92,6 +92,8 @@ def discount_tensor(classes: Sequence[LineClass], exponents: np.ndarray, discoun
     discount_rate : (S,) nominal rate i [fraction per year]
     inflation : (S,) general inflation f [fraction per year]
     multipliers : mapping name -> (S,) per-scenario multiplier; "one" is implicit.
+    escalation_shift : scalar or (S,) [fraction per year] added to every real line's escalation
+        (the escalation input of one-at-a-time sensitivity); 0 by default.
 
     Returns
     -------
@@ -105,11 +107,12 @@ def discount_tensor(classes: Sequence[LineClass], exponents: np.ndarray, discoun
     if tau.ndim != 1:
         raise ValueError(f"exponents must be 1-D (T,), got shape {tau.shape}")
     multipliers = dict(multipliers or {})
+    shift = np.broadcast_to(np.asarray(escalation_shift, dtype=float), i.shape)
     log_i = np.log1p(i)
     log_f = np.log1p(f)
     out = np.empty((len(classes), tau.size, i.size))
     for c, cls in enumerate(classes):  # loop over a handful of classes, not projects or scenarios
-        log_growth = (np.log1p(cls.escalation) + log_f) if cls.basis == "real" else np.zeros_like(log_f)
+        log_growth = (np.log1p(cls.escalation + shift) + log_f) if cls.basis == "real" else np.zeros_like(log_f)
         np.exp(np.multiply.outer(tau, log_growth - log_i), out=out[c])
         if cls.multiplier != "one":
             out[c] *= multiplier_values(cls.multiplier, multipliers, i.shape)[None, :]
@@ -339,47 +342,24 @@ class PointEvaluator:
         their base values): one (P, C*T) @ (C*T, K) product instead of K separate evaluations."""
         i = np.atleast_1d(np.asarray(discount_rates, dtype=float))
         f = np.broadcast_to(np.asarray(inflations, dtype=float), i.shape)
-        shift = np.broadcast_to(np.asarray(0.0 if escalation_shifts is None else escalation_shifts, dtype=float),
-                                i.shape)
-        if np.any(i <= -1) or np.any(f <= -1):
-            raise ValueError("rates must be > -1")
-        K, C, T = i.size, len(self.classes), self.tau.size
-        D = np.empty((C, T, K))
+        shift = 0.0 if escalation_shifts is None else escalation_shifts
+        point = {k: np.full(i.size, v) for k, v in self.multipliers.items()}
         with np.errstate(over="ignore", invalid="ignore"):
-            log_i = np.log1p(i)
-            for c, cls in enumerate(self.classes):
-                log_g = np.log1p(cls.escalation + shift) + np.log1p(f) if cls.basis == "real" else np.zeros(K)
-                D[c] = np.exp(np.multiply.outer(self.tau, log_g - log_i))
-                if cls.multiplier != "one":
-                    D[c] *= multiplier_values(cls.multiplier, self.multipliers, (K,))[None, :]
-            return self.flat_total @ D.reshape(C * T, K)
+            D = discount_tensor(self.classes, self.tau, i, f, point, escalation_shift=shift)
+            return self.flat_total @ D.reshape(-1, i.size)
 
     def at_rows(self, rows, discount_rate, inflation, *, escalation_shift=0.0, cost_multiplier=1.0,
                 benefit_multiplier=1.0) -> np.ndarray:
         """Present worth (J,) of only the projects ``rows`` (J,) at their own points (each argument
         scalar or (J,)); the cost is that of J projects, not P."""
-        from .compiled import weighted_exponential_sums
         rows = np.asarray(rows, dtype=np.int64)
         J = rows.size
         i, f, shift, cm, bm = (np.broadcast_to(np.asarray(v, dtype=float), (J,)) for v in
                                (discount_rate, inflation, escalation_shift, cost_multiplier, benefit_multiplier))
         if np.any(i <= -1) or np.any(f <= -1):
             raise ValueError("rates must be > -1")
-        out = np.zeros(J)
         with np.errstate(over="ignore", invalid="ignore"):
-            log_i = np.log1p(i)
-            for c, cls in enumerate(self.classes):
-                log_g = np.log1p(cls.escalation + shift) + np.log1p(f) if cls.basis == "real" else np.zeros(J)
-                lines = self.total[c][rows]
-                if np.any(cm != 1.0):
-                    lines = lines + (cm - 1.0)[:, None] * self.A[0, c][rows]
-                if np.any(bm != 1.0):
-                    lines = lines + (bm - 1.0)[:, None] * self.A[1, c][rows]
-                worth = weighted_exponential_sums(lines, log_g - log_i, self.tau)
-                if cls.multiplier != "one":
-                    worth = worth * multiplier_values(cls.multiplier, self.multipliers, (J,))
-                out += worth
-        return out
+            return self._per_project(rows, i, f, shift, cm, bm)
 
     def __call__(self, discount_rate, inflation, *, escalation_shift=0.0, cost_multiplier=1.0,
                  benefit_multiplier=1.0) -> np.ndarray:
@@ -395,33 +375,34 @@ class PointEvaluator:
 
     def _evaluate(self, P, i, f, shift, cm, bm):
         if all(np.all(v == v[0]) for v in (i, f, shift)):
-            shifted = [LineClass(c.basis, c.escalation + (shift[0] if c.basis == "real" else 0.0), c.multiplier)
-                       for c in self.classes]
             point = {k: np.array([v]) for k, v in self.multipliers.items()}
-            d = discount_tensor(shifted, self.tau, i[:1], f[:1], point)[:, :, 0].ravel()   # (C*T,)
+            d = discount_tensor(self.classes, self.tau, i[:1], f[:1], point, escalation_shift=shift[:1]).ravel()
             out = self.flat_total @ d
             if np.any(cm != 1.0):
                 out = out + (cm - 1.0) * (self.flat_invest @ d)
             if np.any(bm != 1.0):
                 out = out + (bm - 1.0) * (self.flat_benefit @ d)
             return out
+        return self._per_project(None, i, f, shift, cm, bm)
+
+    def _per_project(self, rows, i, f, shift, cm, bm) -> np.ndarray:
+        """Worth of the projects ``rows`` (all when None), each at its own point: per class, a
+        compiled sum of its lines times its geometric discount factors."""
         from .compiled import weighted_exponential_sums
+        pick = (lambda a: a) if rows is None else (lambda a: a[rows])   # noqa: E731
+        n = i.size
         log_i = np.log1p(i)
-        out = np.zeros(P)
+        out = np.zeros(n)
         scaled_invest, scaled_benefit = np.any(cm != 1.0), np.any(bm != 1.0)
         for c, cls in enumerate(self.classes):  # a handful of classes; compiled loop over projects and periods
-            if cls.basis == "real":
-                with np.errstate(invalid="ignore"):
-                    log_g = np.log1p(cls.escalation + shift) + np.log1p(f)
-            else:
-                log_g = np.zeros(P)
-            lines = self.total[c]
+            log_g = np.log1p(cls.escalation + shift) + np.log1p(f) if cls.basis == "real" else np.zeros(n)
+            lines = pick(self.total[c])
             if scaled_invest:
-                lines = lines + (cm - 1.0)[:, None] * self.A[0, c]
+                lines = lines + (cm - 1.0)[:, None] * pick(self.A[0, c])
             if scaled_benefit:
-                lines = lines + (bm - 1.0)[:, None] * self.A[1, c]
+                lines = lines + (bm - 1.0)[:, None] * pick(self.A[1, c])
             worth = weighted_exponential_sums(lines, log_g - log_i, self.tau)
             if cls.multiplier != "one":
-                worth = worth * multiplier_values(cls.multiplier, self.multipliers, (P,))
+                worth = worth * multiplier_values(cls.multiplier, self.multipliers, (n,))
             out += worth
         return out
