@@ -146,3 +146,40 @@ def test_shared_points_with_an_escalation_shift_follow_the_definition():
         want = (total[0] * (((1 + 0.01 + d[k]) * (1 + f[k])) / (1 + i[k])) ** tau).sum(axis=1)
         want += (total[1] * (1 + i[k]) ** -tau).sum(axis=1)
         np.testing.assert_allclose(got[:, k], want, rtol=1e-12, atol=1e-10)
+
+
+def test_column_summaries_equal_the_numpy_reductions():
+    # reference: NumPy's own reductions over the scenario axis (common practice)
+    from ratescape.evaluate.compiled import column_summaries
+    rng = np.random.default_rng(11)
+    pw = rng.normal(0.0, 1e5, size=(257, 93))
+    pw[:, 3] = 0.0                                  # PW exactly 0 counts as accepted
+    pw[:, 4] = -1.0                                 # never accepted
+    w = rng.uniform(size=257)
+    w /= w.sum()
+    got = column_summaries(pw, w)
+    accepted = pw >= 0.0
+    np.testing.assert_array_equal(got["pw_min"], pw.min(axis=0))
+    np.testing.assert_array_equal(got["pw_max"], pw.max(axis=0))
+    np.testing.assert_allclose(got["pw_mean"], pw.mean(axis=0), rtol=1e-12, atol=1e-9)
+    np.testing.assert_allclose(got["pw_expected"], w @ pw, rtol=1e-12, atol=1e-9)
+    np.testing.assert_array_equal(got["accept_share"], accepted.mean(axis=0))
+    np.testing.assert_allclose(got["accept_probability"], w @ accepted, rtol=1e-13)
+    assert got["accept_share"][3] == 1.0 and got["accept_share"][4] == 0.0
+
+
+def test_index_from_worth_equals_the_where_formulation():
+    # PI = 1 + PW / PW(investment) where the investment's PW is an outlay (Park, from memory)
+    from ratescape.evaluate.compiled import index_from_worth
+    rng = np.random.default_rng(12)
+    pw = rng.normal(0.0, 1e5, size=(31, 17))
+    outlay = -rng.uniform(1e4, 1e6, size=(31, 17))
+    outlay[:, 2] = 0.0                              # no investment: no PI
+    outlay[5, 6] = 3.0                              # an inflow in the investment role: no PI
+    want = np.where(-outlay > 0, 1 + pw / np.where(-outlay > 0, -outlay, 1.0), np.nan)
+    got = index_from_worth(pw, outlay)
+    np.testing.assert_array_equal(np.isnan(got), np.isnan(want))
+    np.testing.assert_allclose(got[~np.isnan(want)], want[~np.isnan(want)], rtol=1e-15)
+    assert index_from_worth(np.array([[50.0]]), np.array([[-100.0]]))[0, 0] == 1.5
+    with pytest.raises(ValueError):
+        index_from_worth(pw, outlay[:, :3])

@@ -205,13 +205,17 @@ def test_interrupt_during_start_up_prints_no_traceback(tmp_path):
 class _Interrupting:
     """A DuckDB connection stand-in whose n-th INSERT fails as DuckDB fails when Ctrl-C arrives mid-query."""
 
-    def __init__(self, con, after: int):
-        self._con, self._left = con, after
+    def __init__(self, con, after: int, _left=None):
+        self._con = con
+        self._left = _left if _left is not None else {"n": after}   # shared with its cursors
+
+    def cursor(self):         # the writer threads' own connections count (and fail) too
+        return _Interrupting(self._con.cursor(), 0, self._left)
 
     def execute(self, sql, *args, **kw):
         if sql.lstrip().upper().startswith("INSERT INTO RESULT_ROWS"):
-            self._left -= 1
-            if self._left < 0:
+            self._left["n"] -= 1
+            if self._left["n"] < 0:
                 raise RuntimeError("Query interrupted")   # what duckdb 2.0 raises on SIGINT during a query
         return self._con.execute(sql, *args, **kw)
 

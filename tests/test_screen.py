@@ -115,35 +115,91 @@ def test_resumed_run_equals_an_uninterrupted_run(db):
     assert _table_dump(db, part) == _table_dump(db, full)
 
 
-def test_failure_in_the_middle_of_a_chunk_write_leaves_no_partial_rows(db, monkeypatch):
+def _failing_on(real, statement, nth):
+    """Wrap a stage writer so that its ``nth`` call fails inside its transaction at ``statement``."""
     calls = {"n": 0}
-    real_write = screen_module._write_chunk
 
-    def failing_write(con, plan, *args, **kwargs):
+    def failing(con, plan, *args, **kwargs):
         calls["n"] += 1
-        if calls["n"] == 3:
-            # fail inside the transaction, after this chunk's results rows were inserted
-            class FailingConnection:
-                def __getattr__(self, name):
-                    return getattr(con, name)
+        if calls["n"] != nth:
+            return real(con, plan, *args, **kwargs)
 
-                def execute(self, sql, *a, **k):
-                    if sql.startswith("INSERT INTO project_summary"):
-                        raise OSError("disk full (simulated)")
-                    return con.execute(sql, *a, **k)
-            return real_write(FailingConnection(), plan, *args, **kwargs)
-        return real_write(con, plan, *args, **kwargs)
+        class FailingConnection:
+            def __getattr__(self, name):
+                return getattr(con, name)
 
-    monkeypatch.setattr(screen_module, "_write_chunk", failing_write)
+            def execute(self, sql, *a, **k):
+                if sql.startswith(statement):
+                    raise OSError("disk full (simulated)")
+                return con.execute(sql, *a, **k)
+        return real(FailingConnection(), plan, *args, **kwargs)
+    return failing
+
+
+def test_failure_in_the_middle_of_a_result_row_write_leaves_no_partial_rows(db, monkeypatch):
+    """Stage 2 (result rows) fails on the third chunk after its rows were inserted: the rows roll
+    back with the chunk's done mark; a resume stores them once, and no summary is duplicated."""
+    monkeypatch.setattr(screen_module, "_write_result_rows",
+                        _failing_on(screen_module._write_result_rows, "INSERT INTO run_chunks", 3))
     with pytest.raises(Exception, match="disk full"):
         screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5", chunk_size=4)
     monkeypatch.undo()
     run_id, status, done = fetch(db, "SELECT run_id, status, chunks_done FROM runs")[0]
     assert status == "failed" and done == 2
     assert fetch(db, "SELECT count(*) FROM results WHERE run_id = ?", [run_id])[0][0] == 8 * 45
-    assert fetch(db, "SELECT count(*) FROM project_summary WHERE run_id = ?", [run_id])[0][0] == 8
+    assert fetch(db, "SELECT count(*) FROM result_rows")[0][0] == 8 * 45
+    summarised = fetch(db, "SELECT count(*) FROM run_chunk_summaries WHERE run_id = ?", [run_id])[0][0]
+    assert fetch(db, "SELECT count(*) FROM project_summary WHERE run_id = ?", [run_id])[0][0] == 4 * summarised
     screen_portfolio(db, resume=run_id)
     assert fetch(db, "SELECT count(*) FROM results WHERE run_id = ?", [run_id])[0][0] == 24 * 45
+    assert fetch(db, "SELECT count(*) FROM project_summary WHERE run_id = ?", [run_id])[0][0] == 24
+    assert fetch(db, "SELECT count(*), count(DISTINCT (scenario_key, project_key)) FROM result_rows")[0] == (
+        24 * 45, 24 * 45)
+
+
+def test_failure_in_the_middle_of_a_summaries_write_leaves_no_partial_rows(db, monkeypatch):
+    """Stage 1 (per-project tables) fails on the third chunk after some of its tables were written:
+    nothing of that chunk stays; the resumed run equals an uninterrupted one."""
+    full = screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5", chunk_size=4)
+    monkeypatch.setattr(screen_module, "_write_summaries",
+                        _failing_on(screen_module._write_summaries, "INSERT INTO run_chunk_summaries", 3))
+    with pytest.raises(Exception, match="disk full"):
+        screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5", chunk_size=4)
+    monkeypatch.undo()
+    run_id, status, done = fetch(db, "SELECT run_id, status, chunks_done FROM runs WHERE run_id <> ?", [full])[0]
+    assert status == "failed" and done <= 2
+    assert fetch(db, "SELECT count(*) FROM project_summary WHERE run_id = ?", [run_id])[0][0] == 8
+    assert fetch(db, "SELECT count(*) FROM sensitivity WHERE run_id = ?", [run_id])[0][0] == \
+        8 * fetch(db, "SELECT count(*) FROM sensitivity WHERE run_id = ?", [full])[0][0] // 24
+    assert screen_portfolio(db, resume=run_id) == run_id
+    assert _table_dump(db, run_id) == _table_dump(db, full)
+
+
+def test_resume_stores_the_rows_of_summarised_chunks(db):
+    """A run stopped between the two stages of its chunks (summaries committed, result rows not)
+    stores those rows on resume from its worth files, rebuilt when they are gone (identity)."""
+    import shutil
+    from pathlib import Path
+    args = dict(discount_rates="0:0.2:9", inflation="0:0.1:5", chunk_size=4)
+    full = screen_portfolio(db, **args)
+    part = screen_portfolio(db, stop_after_chunks=4, **args)
+    from ratescape.store.database import connect_write
+    con = connect_write(db)
+    try:          # undo the rows of chunks 1 and 3, as if the process had died before storing them
+        keys = "SELECT scenario_key FROM scenarios WHERE run_id = ?"
+        for chunk in (1, 3):
+            con.execute(f"DELETE FROM result_rows WHERE scenario_key IN ({keys}) AND project_key BETWEEN ? AND ?",
+                        [part, 4 * chunk, 4 * chunk + 3])
+            con.execute("DELETE FROM run_chunks WHERE run_id = ? AND chunk_index = ?", [part, chunk])
+        con.execute("UPDATE runs SET chunks_done = 2 WHERE run_id = ?", [part])
+    finally:
+        con.close()
+    (Path(f"{db}.scratch") / part / "pw-0000003.f8").unlink()        # one worth file lost as well
+    assert fetch(db, "SELECT count(*) FROM results WHERE run_id = ?", [part])[0][0] == 8 * 45
+    assert screen_portfolio(db, resume=part) == part
+    assert fetch(db, "SELECT status, chunks_done FROM runs WHERE run_id = ?", [part])[0] == ("done", 6)
+    assert _table_dump(db, part) == _table_dump(db, full)
+    shutil.rmtree(Path(f"{db}.scratch"), ignore_errors=True)
 
 
 def test_irr_fisher_shortcut_equals_a_search_at_every_inflation_level(db):

@@ -14,14 +14,19 @@ from .errors import RatescapeError
 
 
 class LocalEvaluator:
-    """Evaluate chunks in this process, one at a time."""
+    """Evaluate chunks in this process, one at a time.
+
+    The chunk's large matrices reuse the same buffers from chunk to chunk (``fn``'s ``buffers``):
+    a result must be consumed (written) before the next chunk is submitted.
+    """
 
     def __init__(self, fn, plan):
         self.fn, self.plan = fn, plan
         self.pending = deque()
+        self.buffers = {}
 
     def submit(self, key, A, horizon):
-        self.pending.append((key, self.fn(self.plan, A, horizon)))
+        self.pending.append((key, self.fn(self.plan, A, horizon, buffers=self.buffers)))
 
     def ready(self):
         """Yield finished (key, result) pairs that should be written now."""

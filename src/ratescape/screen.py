@@ -23,6 +23,7 @@ import pyarrow as pa
 from . import __version__
 from .errors import RunError
 from .evaluate.irr import _STATUS_LABELS, irr_roots
+from .evaluate.compiled import column_summaries, index_from_worth
 from .decide.rank_kernel import BaseOrdering, RankTally, mean_ranks, rank_rows, ranks_and_tau
 from .decide.sensitivity import SensitivitySettings, one_at_a_time
 from .evaluate.kernel import (ROLES, LineClass, capital_recovery_factor, discount_tensor,
@@ -34,7 +35,7 @@ from .evaluate.timing import discount_exponents
 from .grid import GridSpec, ScenarioTable, build_scenarios
 from .progress import Progress, log
 from .store.database import append_rows, fetch_frame, is_interrupt, transaction
-from .store.scratch import RankScratch, WorthScratch, scratch_folder
+from .store.scratch import BEFORE_TAX, RankScratch, WorthScratch, scratch_folder
 
 SWITCH_LABELS = {0: "one", 1: "several", 2: "none", 3: "at_base"}
 
@@ -317,39 +318,62 @@ def _add_tax_lines(con, plan: Plan, first: int, stop: int, A: np.ndarray, horizo
         A[other, plan.class_index[key]] += amounts
 
 
-def worth_and_index(plan: Plan, A_by_role: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _reused(buffers: dict | None, name: str, shape: tuple) -> np.ndarray | None:
+    """A buffer of ``buffers`` (a caller's dict kept across chunks) of at least this shape, or None."""
+    if buffers is None:
+        return None
+    size = int(np.prod(shape))
+    if name not in buffers or buffers[name].size < size:
+        buffers[name] = np.empty(size)
+    return buffers[name][:size].reshape(shape)
+
+
+def _nonzero_columns_product(tensor_sm: np.ndarray, amounts: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+    """(S, C*T) @ (C*T, P) of class-stacked amounts (C, P, T), skipping the (class, period)
+    columns that are zero for every project of the chunk (they add exactly zero: the tensor is
+    checked finite when the run is planned). Investments sit in a few periods, so their
+    product shrinks from C*T columns to a handful."""
+    C, P, T = amounts.shape
+    flat = amounts[0] if C == 1 else np.ascontiguousarray(amounts.transpose(1, 0, 2)).reshape(P, C * T)
+    used = np.flatnonzero(np.any(flat != 0.0, axis=0))
+    if used.size == C * T:
+        return np.matmul(tensor_sm, flat.T, out=out)
+    return np.matmul(np.ascontiguousarray(tensor_sm[:, used]), np.ascontiguousarray(flat[:, used]).T, out=out)
+
+
+def worth_and_index(plan: Plan, A_by_role: np.ndarray, buffers: dict | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Present worth and profitability index (S, P), scenario-major, of a chunk's amounts (R, C, P, T).
 
     PI = 1 + PW / (PW of the investment outlays), where the outlay's present worth is positive;
-    NaN otherwise (a project without an investment has no PI).
+    NaN otherwise (a project without an investment has no PI). With ``buffers`` (a dict the
+    caller keeps across chunks and does not read between them) the two results reuse its arrays.
     """
-    pw = present_worth_scenario_major(A_by_role.sum(axis=0), plan.tensor_sm)
-    outlay = present_worth_scenario_major(A_by_role[0], plan.tensor_sm)
-    np.negative(outlay, out=outlay)
-    has = outlay > 0
-    pi = np.full(pw.shape, np.nan)
-    np.divide(pw, outlay, out=pi, where=has)
-    np.add(pi, 1.0, out=pi, where=has)
+    shape = (plan.tensor_sm.shape[0], A_by_role.shape[2])
+    pw = _nonzero_columns_product(plan.tensor_sm, A_by_role.sum(axis=0), out=_reused(buffers, "pw", shape))
+    outlay = _nonzero_columns_product(plan.tensor_sm, A_by_role[0], out=_reused(buffers, "pi", shape))
+    pi = index_from_worth(pw, outlay, out=outlay)          # in place: the outlay is not needed again
     return pw, pi
 
 
-def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> dict:
-    """Pure evaluation of one chunk: present worth and PI (S, P), summaries, IRRs, sensitivity."""
+def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray, buffers: dict | None = None) -> dict:
+    """Pure evaluation of one chunk: present worth and PI (S, P), summaries, IRRs, sensitivity.
+
+    ``buffers``: see :func:`worth_and_index` (the in-process evaluator reuses them; a chunk's
+    worth matrices are written to its worth files before the next chunk is evaluated)."""
     cols = plan.scenarios.columns
     A = A_by_role.sum(axis=0)
-    pw, pi = worth_and_index(plan, A_by_role)                           # (S, P) each
+    pw, pi = worth_and_index(plan, A_by_role, buffers)                  # (S, P) each
     years = horizon / float(plan.spec.periods_per_year)
     w = plan.weights
     b = plan.scenarios.base_index
-    accepted = pw >= 0.0
+    columns = column_summaries(pw, w)                                   # one pass over (S, P)
     summary = {
-        "accept_share": accepted.mean(axis=0), "accept_probability": w @ accepted,
-        "pw_min": pw.min(axis=0), "pw_max": pw.max(axis=0), "pw_mean": pw.mean(axis=0),
-        "pw_expected": w @ pw, "pw_base": pw[b].copy(), "accepted_base": accepted[b].copy(),
+        "accept_share": columns["accept_share"], "accept_probability": columns["accept_probability"],
+        "pw_min": columns["pw_min"], "pw_max": columns["pw_max"], "pw_mean": columns["pw_mean"],
+        "pw_expected": columns["pw_expected"], "pw_base": pw[b].copy(), "accepted_base": pw[b] >= 0.0,
         "annual_worth_base": pw[b] * capital_recovery_factor(cols["real_rate"][b], years),
         "horizon": horizon.astype(np.int32),
     }
-    del accepted
     irr = irr_over_inflation(plan, A)
     F, P = plan.inflation_levels.size, A.shape[1]
     summary.update(base_measures(plan, A_by_role, horizon))
@@ -480,30 +504,16 @@ def _floats(values) -> pa.Array:
 
 @dataclass
 class ChunkTables:
-    """A chunk's rows as Arrow tables, ready for its transaction (built off the writer thread)."""
+    """A chunk's per-project tables, ready for its summaries transaction (built off the writer threads)."""
 
-    results: pa.Table
     by_table: dict          # table name -> Arrow table (appended with the run id)
     projects: int
 
 
 def chunk_tables(plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out: dict) -> ChunkTables:
-    """Arrow tables of one evaluated chunk; also writes its worth files for the rank pass."""
-    S, P = out["pw"].shape
-    kept = plan.kept if plan.kept is not None else np.ones(S, dtype=bool)
-    rows_of = (lambda a: a.ravel()) if kept.all() else (lambda a: a[kept].ravel())  # noqa: E731
-    keys = plan.scenario_key_base + np.flatnonzero(kept).astype(np.int32)
-    pi = rows_of(out["pi"])
-    columns = {
-        "scenario_key": pa.array(np.repeat(keys.astype(np.int32), P)),
-        "project_key": pa.array(np.tile(np.arange(first, first + P, dtype=np.int32), keys.size)),
-        "present_worth": pa.array(rows_of(out["pw"])),
-        "profitability_index": pa.array(pi, mask=np.isnan(pi)),
-    }
-    if out["pw_before_tax"] is not None:
-        columns["present_worth_before_tax"] = pa.array(rows_of(out["pw_before_tax"]))
-    results = pa.table(columns)
-    del pi
+    """Arrow tables of one evaluated chunk's per-project results; also writes its worth files,
+    from which the rank pass and the result-row writer read."""
+    P = out["pw"].shape[1]
     summary = pa.table({"project_id": pa.array(ids.tolist(), type=pa.string()),
                         "project_key": pa.array(np.arange(first, first + P, dtype=np.int32)),
                         **{k: pa.array(v, mask=np.isnan(v) if np.asarray(v).dtype.kind == "f" else None)
@@ -555,29 +565,80 @@ def chunk_tables(plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out:
         "change": pa.array(np.tile(sens["pct_changes"], I * P)),
         "present_worth": _floats(sens["spider"].ravel()),
     })
-    if plan.scratch is not None:
-        plan.scratch.write(chunk_index, out["pw"], out["pi"])   # before the commit: a done chunk has its files
-    return ChunkTables(results, {"sensitivity": sens_table, "spider": spider_table, "project_summary": summary,
-                                 "irr_results": irr_table, "irr_roots": roots_table}, P)
+    if plan.scratch is not None:                 # before the summaries commit: such a chunk has its files
+        plan.scratch.write(chunk_index, out["pw"], out["pi"], out["pw_before_tax"])
+    return ChunkTables({"sensitivity": sens_table, "spider": spider_table, "project_summary": summary,
+                        "irr_results": irr_table, "irr_roots": roots_table}, P)
 
 
-def _write_chunk(con, plan: Plan, chunk_index: int, first: int, tables: ChunkTables, seconds: float) -> int:
-    """Write one chunk's tables in ONE transaction with its done mark; return its result rows."""
-    results = tables.results
+SUMMARY_TABLES = ("sensitivity", "spider", "project_summary", "irr_results", "irr_roots")
+
+
+def _write_summaries(con, plan: Plan, chunk_index: int, first: int, tables: ChunkTables, seconds: float) -> None:
+    """Stage 1 of a chunk: its per-project tables and its ``run_chunk_summaries`` mark in ONE transaction."""
     with transaction(con):
-        for name in ("sensitivity", "spider"):
+        for name in SUMMARY_TABLES:
             append_rows(con, name, tables.by_table[name], plan.run_id)
-        if results.num_rows:
-            con.register("incoming_result_rows", results)
-            names = ", ".join(results.column_names)
+        con.execute("INSERT INTO run_chunk_summaries VALUES (?, ?, ?, ?)",
+                    [plan.run_id, chunk_index, _now(), seconds])
+
+
+class RowColumns:
+    """Reused buffers for the result-row columns of one chunk (fresh pages are costly to fault in)."""
+
+    def __init__(self, plan: Plan):
+        self.plan = plan
+        S = plan.scenarios.size
+        self.kept = np.flatnonzero(plan.kept if plan.kept is not None else np.ones(S, dtype=bool))
+        self.all_kept = self.kept.size == S
+        self.keys = (plan.scenario_key_base + self.kept).astype(np.int32)
+        self.cells = self.kept.size * plan.chunk_size
+        self.full = None if self.all_kept else np.empty(S * plan.chunk_size)
+        self.values = {}
+        self.project_key = np.empty(self.cells, dtype=np.int32)
+        self.by_width = {}
+
+    def _layout(self, width: int):
+        if width not in self.by_width:
+            self.by_width[width] = (np.repeat(self.keys, width), np.tile(np.arange(width, dtype=np.int32), self.keys.size))
+        return self.by_width[width]
+
+    def table(self, chunk_index: int) -> pa.Table:
+        """The chunk's result rows (kept scenarios x its projects), scenario-major, from its worth files."""
+        scratch = self.plan.scratch
+        width = scratch.chunk_width(chunk_index)
+        n = self.kept.size * width
+        scenario_key, offsets = self._layout(width)
+        project_key = self.project_key[:n]
+        np.add(offsets, np.int32(chunk_index * self.plan.chunk_size), out=project_key)
+        columns = {"scenario_key": pa.array(scenario_key), "project_key": pa.array(project_key)}
+        for column, measure in (("present_worth", "pw"), ("profitability_index", "pi"),
+                                ("present_worth_before_tax", BEFORE_TAX)):
+            if measure not in scratch.measures:
+                continue
+            buffer = self.values.setdefault(measure, np.empty(self.cells))[:n]
+            if self.all_kept:
+                scratch.read_chunk(measure, chunk_index, out=buffer)
+            else:
+                full = scratch.read_chunk(measure, chunk_index, out=self.full)
+                np.take(full, self.kept, axis=0, out=buffer.reshape(self.kept.size, width))
+            columns[column] = pa.array(buffer, from_pandas=measure == "pi")     # PI: NaN -> NULL
+        return pa.table(columns)
+
+
+def _write_result_rows(con, plan: Plan, chunk_index: int, first: int, rows: pa.Table, seconds: float) -> int:
+    """Stage 2 of a chunk: its result rows and its ``run_chunks`` mark (the chunk is done) in ONE transaction."""
+    with transaction(con):
+        if rows.num_rows:
+            con.register("incoming_result_rows", rows)
+            names = ", ".join(rows.column_names)
             con.execute(f"INSERT INTO result_rows ({names}) SELECT {names} FROM incoming_result_rows")
             con.unregister("incoming_result_rows")
-        for name in ("project_summary", "irr_results", "irr_roots"):
-            append_rows(con, name, tables.by_table[name], plan.run_id)
         con.execute("INSERT INTO run_chunks VALUES (?, ?, ?, ?, ?, ?, ?)",
-                    [plan.run_id, chunk_index, first, first + tables.projects - 1, results.num_rows, _now(), seconds])
+                    [plan.run_id, chunk_index, first, first + plan.scratch.chunk_width(chunk_index) - 1,
+                     rows.num_rows, _now(), seconds])
         con.execute("UPDATE runs SET chunks_done = chunks_done + 1 WHERE run_id = ?", [plan.run_id])
-    return results.num_rows
+    return rows.num_rows
 
 
 # Cells of the (scenarios x projects) block ranked at once (reused buffers of ~40 MB each).
@@ -587,16 +648,26 @@ RANK_BLOCK_CELLS = 5_000_000
 KENDALL_MAX_PROJECTS = 10_000
 
 
-def _ensure_scratch(con, plan: Plan) -> None:
-    """Rebuild the worth files of done chunks that lack them (resumed run, cleaned folder)."""
-    missing = plan.scratch.missing()
+def scratch_worths(plan: Plan, A_by_role: np.ndarray) -> tuple:
+    """The matrices a chunk's worth files hold: PW, PI and (after tax) the before-tax PW, each (S, P)."""
+    pw, pi = worth_and_index(plan, A_by_role)
+    before = None
+    if plan.tensor_before_tax_sm is not None:
+        before = present_worth_scenario_major(A_by_role.sum(axis=0), plan.tensor_before_tax_sm)
+    return pw, pi, before
+
+
+def _ensure_scratch(con, plan: Plan, chunks=None) -> None:
+    """Rebuild the worth files of evaluated chunks (``chunks``, default all) that lack them
+    (resumed run, cleaned folder)."""
+    missing = plan.scratch.missing(chunks)
     if missing:
         log(f"ranks: rebuilding the worth files of {len(missing)} chunk(s)")
     for c in missing:
         first = c * plan.chunk_size
         stop = min(first + plan.chunk_size, plan.project_count)
         A_by_role, _, _ = _chunk_amounts(con, plan, first, stop)
-        plan.scratch.write(c, *worth_and_index(plan, A_by_role))
+        plan.scratch.write(c, *scratch_worths(plan, A_by_role))
 
 
 def rank_statistics(con, plan: Plan):
@@ -708,12 +779,17 @@ def result_block(con, plan: Plan, a: int, b: int) -> dict | None:
             for column, name in (("present_worth", "pw"), ("profitability_index", "pi"))}
 
 
-def _finalize(con, plan: Plan) -> None:
-    """Rank statistics across all projects per scenario, the decision stage, then mark the run done."""
+def _finalize(con, plan: Plan, writer: "ChunkWriter | None" = None, reader=None) -> None:
+    """Rank statistics across all projects per scenario (while ``writer`` still stores result rows),
+    the decision stage, then mark the run done."""
     t0 = time.perf_counter()
-    stats, agreement = rank_statistics(con, plan)
+    stats, agreement = rank_statistics(reader if reader is not None else con, plan)
     log(f"ranks: {plan.project_count:,} projects x {plan.scenarios.size:,} scenarios in "
         f"{time.perf_counter() - t0:.1f} s")
+    if writer is not None:
+        t0 = time.perf_counter()
+        writer.finish()
+        log(f"result rows: the last chunks stored {time.perf_counter() - t0:.1f} s after the rank pass")
     t0 = time.perf_counter()
     table = pa.table({"project_key": pa.array(np.arange(plan.project_count, dtype=np.int32)),
                       **{k: pa.array(v, mask=(v < 0) if v.dtype.kind == "i" else ~np.isfinite(v))
@@ -745,54 +821,100 @@ def run_decisions(con, plan: Plan) -> None:
 
 
 class ChunkWriter:
-    """Writes evaluated chunks on one background thread while the next chunk is evaluated.
+    """Writes evaluated chunks on two background threads, each with its own DuckDB connection,
+    while the next chunks are evaluated and, at the end, while the rank pass runs.
 
-    DuckDB and NumPy release the GIL in their heavy work, so writing chunk n (one transaction)
-    overlaps evaluating chunk n + 1; the chunk's Arrow tables and worth files are prepared on the
-    calling thread, which would otherwise wait for the writer. At most one chunk is being written; submitting
-    the next waits for it, and re-raises its error, so chunks commit in order, each whole or not at
-    all. Only this thread uses the write connection while chunks flow.
+    Stage 1 (summaries thread): a chunk's per-project tables, in one transaction marked in
+    ``run_chunk_summaries``. Stage 2 (rows thread): once its stage 1 has committed, the chunk's
+    result rows, read back from its worth files, in one transaction marked in ``run_chunks``
+    (the chunk is done). Both stages commit in chunk order, each whole or not at all, so an
+    interruption leaves every chunk not started, summarised, or done, and ``--resume`` takes
+    each from where it stood. The Arrow tables and worth files are prepared on the calling
+    thread; submitting waits for the previous chunk's stage 1 (so evaluation runs at most one
+    chunk ahead of it) and re-raises any writer error. Result rows, the bulk of the bytes, may
+    fall behind: they need no memory while they wait (they are on disk).
     """
 
-    def __init__(self, con, plan: Plan, bar):
-        from concurrent.futures import ThreadPoolExecutor
-        self.con, self.plan, self.bar = con, plan, bar
-        self.pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-writer")
+    def __init__(self, con, plan: Plan, bar, pending_rows=()):
+        import threading
+        self.plan, self.bar = plan, bar
+        self.summary_con, self.rows_con = con.cursor(), con.cursor()
+        self.summaries = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-summaries")
+        self.rows = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-rows")
         self.pending = None
+        self.error: BaseException | None = None
+        self.stopping = threading.Event()
+        self.columns = RowColumns(plan)
+        self.rows_stored = 0
+        for chunk in pending_rows:                  # resumed: summarised, rows not yet stored
+            self.rows.submit(self._store_rows, chunk, time.perf_counter())
 
-    def _write(self, key, tables) -> None:
+    def _summarise(self, key, tables) -> None:
         chunk, first, _, t0 = key
-        _write_chunk(self.con, self.plan, chunk, first, tables, time.perf_counter() - t0)
+        if self.stopping.is_set():
+            return
+        _write_summaries(self.summary_con, self.plan, chunk, first, tables, time.perf_counter() - t0)
+        self.rows.submit(self._store_rows, chunk, t0)
+
+    def _store_rows(self, chunk: int, t0: float) -> None:
+        if self.stopping.is_set() or self.error is not None:
+            return
+        try:
+            rows = self.columns.table(chunk)
+            self.rows_stored += _write_result_rows(self.rows_con, self.plan, chunk, chunk * self.plan.chunk_size,
+                                                   rows, time.perf_counter() - t0)
+            del rows
+            self.bar.update()
+        except BaseException as exc:               # noqa: BLE001 - re-raised on the main thread
+            self.error = exc
+
+    def _check(self) -> None:
+        if self.error is not None:
+            raise self.error
 
     def _wait(self) -> None:
         if self.pending is not None:
             pending, self.pending = self.pending, None
             pending.result()
-            self.bar.update()
 
     def submit(self, key, out) -> None:
         chunk, first, ids, _ = key
-        tables = chunk_tables(self.plan, chunk, first, ids, out)   # on this thread: the writer only writes
+        self._check()
+        tables = chunk_tables(self.plan, chunk, first, ids, out)   # on this thread: the writers only write
         del out
         self._wait()
-        self.pending = self.pool.submit(self._write, key, tables)
+        self.pending = self.summaries.submit(self._summarise, key, tables)
 
     def finish(self) -> None:
-        """Wait for the last chunk; errors are raised here."""
+        """Wait for every chunk's two stages; errors are raised here."""
         try:
             self._wait()
         finally:
-            self.pool.shutdown(wait=True)
+            self.summaries.shutdown(wait=True)
+            self.rows.shutdown(wait=True)
+            self._close()
+        self._check()
 
     def abandon(self) -> None:
-        """After an error elsewhere: wait for a chunk in progress to commit or roll back, ignore its outcome."""
+        """After an error elsewhere: let transactions in progress commit or roll back, start no
+        new one, ignore their outcome."""
+        self.stopping.set()
         pending, self.pending = self.pending, None
         if pending is not None:
             try:
                 pending.result()
             except BaseException:
                 pass
-        self.pool.shutdown(wait=True)
+        self.summaries.shutdown(wait=True)
+        self.rows.shutdown(wait=True)
+        self._close()
+
+    def _close(self) -> None:
+        for c in (self.summary_con, self.rows_con):
+            try:
+                c.close()
+            except Exception:
+                pass
 
 
 def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chunk_size: int | None = None,
@@ -868,14 +990,21 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
             con.unregister("new_annual_factors")
         log(f"run {run_id}: {plan.project_count} projects x {S} scenarios in {plan.chunk_count} chunk(s)")
     plan.scratch = WorthScratch(scratch_folder(con, plan.run_id), plan.scenarios.size, plan.project_count,
-                                plan.chunk_size)
+                                plan.chunk_size, before_tax=plan.tensor_before_tax_sm is not None)
     done = {r[0] for r in con.execute("SELECT chunk_index FROM run_chunks WHERE run_id = ?", [plan.run_id]).fetchall()}
-    todo = [c for c in range(plan.chunk_count) if c not in done]
-    bar = Progress(len(todo), "screen", enabled=progress)
+    summarised = done | {r[0] for r in con.execute("SELECT chunk_index FROM run_chunk_summaries WHERE run_id = ?",
+                                                   [plan.run_id]).fetchall()}
+    todo = [c for c in range(plan.chunk_count) if c not in summarised]
+    rows_todo = sorted(summarised - done)          # resumed: summarised chunks whose rows were not stored
+    bar = Progress(plan.chunk_count - len(done), "screen", enabled=progress)
     evaluator = None
     writer = None
     blas_limit = None
+    reader = None
     try:
+        reader = con.cursor()      # the chunk reader's own connection: the writer threads have theirs
+        if rows_todo:
+            _ensure_scratch(reader, plan, rows_todo)
         if cluster or workers:
             from .cluster import DaskEvaluator
             evaluator = DaskEvaluator(evaluate_chunk, plan, address=cluster, workers=workers)
@@ -888,8 +1017,7 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
         # multi-threaded BLAS only oversubscribes the cores (its threads spin-wait): one BLAS thread
         from threadpoolctl import threadpool_limits
         blas_limit = threadpool_limits(limits=1, user_api="blas")
-        writer = ChunkWriter(con, plan, bar)
-        reader = con.cursor()      # the chunk reader's own connection: the writer thread uses `con`
+        writer = ChunkWriter(con, plan, bar, rows_todo)
 
         def write(done):
             for key, out in done:
@@ -899,6 +1027,8 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
             if stop_after_chunks is not None and n >= stop_after_chunks:
                 write(evaluator.drain())
                 writer.finish()
+                writer = None
+                reader.close()
                 blas_limit.restore_original_limits()
                 blas_limit = None
                 con.execute("UPDATE runs SET status = 'interrupted', message = ? WHERE run_id = ?",
@@ -912,24 +1042,32 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
             evaluator.submit((chunk, first, ids, t0), A, horizon)
             write(evaluator.ready())
         write(evaluator.drain())
-        writer.finish()
+        writer._wait()                             # the last chunk's summaries are committed
         blas_limit.restore_original_limits()
         blas_limit = None
-        log(f"chunks: {len(todo)} evaluated and written in {time.perf_counter() - started:.1f} s")
-        reader.close()
+        log(f"chunks: {len(todo)} evaluated in {time.perf_counter() - started:.1f} s "
+            f"(result rows of {plan.chunk_count - len(done) - writer.bar.count} still being stored)")
         evaluator.close()
         evaluator = None
+        _finalize(con, plan, writer, reader)       # ranks while the rows thread stores the rest
+        writer = None
+        reader.close()
         bar.close()
-        _finalize(con, plan)
+        log(f"screen: done in {time.perf_counter() - started:.1f} s after planning")
     except BaseException as exc:
         if writer is not None:
-            writer.abandon()       # let a chunk already being written commit (or roll back) first
+            writer.abandon()       # let chunks already being written commit (or roll back) first
         if blas_limit is not None:
             blas_limit.restore_original_limits()
         bar.close()
         if evaluator is not None:
             try:
                 evaluator.close()
+            except Exception:
+                pass
+        if reader is not None:
+            try:
+                reader.close()
             except Exception:
                 pass
         if is_interrupt(exc):

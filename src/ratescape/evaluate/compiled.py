@@ -193,3 +193,78 @@ def stream_facts(amounts):
     total_nonzero = np.empty(N, dtype=np.bool_)
     _stream_facts(A, sc, sc_cum, last, finite, total_nonzero)
     return sc, sc_cum, last, finite, total_nonzero
+
+
+@njit(cache=True, nogil=True)
+def _index_from_worth(pw, outlay_pw, pi):
+    S, P = pw.shape
+    for s in range(S):
+        for p in range(P):
+            outlay = -outlay_pw[s, p]
+            pi[s, p] = 1.0 + pw[s, p] / outlay if outlay > 0.0 else np.nan
+
+
+def index_from_worth(present_worth, outlay_worth, out=None) -> np.ndarray:
+    """Profitability index 1 + PW / (-PW of the outlays), NaN where the outlays' PW is not negative.
+
+    (S, P), (S, P) -> (S, P), in one pass. ``outlay_worth`` is the present worth of the
+    investment lines (negative for an outlay) [currency]; the index is dimensionless. Equals
+    ``np.where(-outlay_worth > 0, 1 + present_worth / -outlay_worth, nan)``: PW of the flows
+    other than the investment per unit of PW of the investment (C. S. Park, Contemporary
+    Engineering Economics, Pearson, ch. on capital budgeting; from memory).
+    """
+    pw = np.ascontiguousarray(present_worth, dtype=float)
+    outlay = np.ascontiguousarray(outlay_worth, dtype=float)
+    if pw.shape != outlay.shape or pw.ndim != 2:
+        raise ValueError(f"present_worth {pw.shape} and outlay_worth {outlay.shape} must be the same 2-D shape")
+    pi = np.empty(pw.shape) if out is None else out
+    _index_from_worth(pw, outlay, pi)
+    return pi
+
+
+@njit(cache=True, nogil=True)
+def _column_summaries(pw, w, lo, hi, total, weighted, accepted, weighted_accepted):
+    S, P = pw.shape
+    for p in range(P):
+        lo[p] = np.inf
+        hi[p] = -np.inf
+        total[p] = 0.0
+        weighted[p] = 0.0
+        accepted[p] = 0.0
+        weighted_accepted[p] = 0.0
+    for s in range(S):
+        ws = w[s]
+        for p in range(P):
+            v = pw[s, p]
+            if v < lo[p]:
+                lo[p] = v
+            if v > hi[p]:
+                hi[p] = v
+            total[p] += v
+            weighted[p] += ws * v
+            if v >= 0.0:
+                accepted[p] += 1.0
+                weighted_accepted[p] += ws
+
+
+def column_summaries(present_worth, weights) -> dict:
+    """Per-project summaries over scenarios of a scenario-major PW matrix (S, P), in one pass.
+
+    Returns ``pw_min``, ``pw_max``, ``pw_mean`` (plain mean over scenarios), ``pw_expected``
+    (sum_s w_s PW_s), ``accept_share`` (fraction of scenarios with PW >= 0) and
+    ``accept_probability`` (sum of the weights of those scenarios), each (P,). Money in the
+    amounts' currency. Equals the NumPy reductions ``pw.min(axis=0)``, ``weights @ pw``,
+    ``(pw >= 0).mean(axis=0)``, ... to summation order. Present worth is finite here (the
+    discount tensor is checked finite before any chunk runs).
+    """
+    pw = np.ascontiguousarray(present_worth, dtype=float)
+    w = np.ascontiguousarray(weights, dtype=float)
+    if pw.ndim != 2 or w.shape != (pw.shape[0],):
+        raise ValueError(f"present_worth must be (S, P) and weights (S,), got {pw.shape} and {w.shape}")
+    S, P = pw.shape
+    out = {k: np.empty(P) for k in ("pw_min", "pw_max", "total", "pw_expected", "accepted", "accept_probability")}
+    _column_summaries(pw, w, out["pw_min"], out["pw_max"], out["total"], out["pw_expected"], out["accepted"],
+                      out["accept_probability"])
+    out["pw_mean"] = out.pop("total") / S if S else np.full(P, np.nan)
+    out["accept_share"] = out.pop("accepted") / S if S else np.full(P, np.nan)
+    return out

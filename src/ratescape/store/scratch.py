@@ -7,7 +7,9 @@ of scenarios for all projects with one contiguous read per chunk file (from the 
 which does not count towards the process's memory). The files are written before the chunk's
 transaction commits, checked by size when read, and deleted when the run is done; a missing or
 short file (a crash between the two, or a folder cleaned by hand) is rebuilt by the caller.
-Disk use: 16 bytes per project and scenario (4.2 GB for 100,000 x 2,601).
+The chunk's result rows are also written from these files (by a writer thread that may run
+behind the evaluation), so an after-tax run keeps its before-tax present worth here too ("pwb").
+Disk use: 16 bytes per project and scenario (4.2 GB for 100,000 x 2,601; 24 after tax).
 """
 from __future__ import annotations
 
@@ -19,6 +21,7 @@ from pathlib import Path
 import numpy as np
 
 MEASURES = ("pw", "pi")
+BEFORE_TAX = "pwb"
 
 
 def scratch_folder(con, run_id: str) -> Path:
@@ -31,11 +34,14 @@ def scratch_folder(con, run_id: str) -> Path:
 
 
 class WorthScratch:
-    """Per-chunk (S, P_chunk) float64 files of present worth ("pw") and profitability index ("pi")."""
+    """Per-chunk (S, P_chunk) float64 files of present worth ("pw"), profitability index ("pi")
+    and, after tax, the before-tax present worth ("pwb")."""
 
-    def __init__(self, folder: Path, scenario_count: int, project_count: int, chunk_size: int):
+    def __init__(self, folder: Path, scenario_count: int, project_count: int, chunk_size: int,
+                 before_tax: bool = False):
         self.folder = Path(folder)
         self.S, self.P, self.chunk_size = scenario_count, project_count, chunk_size
+        self.measures = MEASURES + ((BEFORE_TAX,) if before_tax else ())
 
     def _file(self, measure: str, chunk: int) -> Path:
         return self.folder / f"{measure}-{chunk:07d}.f8"
@@ -48,10 +54,12 @@ class WorthScratch:
     def chunk_count(self) -> int:
         return max(1, -(-self.P // self.chunk_size))
 
-    def write(self, chunk: int, pw: np.ndarray, pi: np.ndarray) -> None:
+    def write(self, chunk: int, pw: np.ndarray, pi: np.ndarray, pw_before_tax: np.ndarray | None = None) -> None:
         """Write a chunk's (S, P_chunk) matrices (atomically: temporary name, then rename)."""
         self.folder.mkdir(parents=True, exist_ok=True)
-        for measure, values in zip(MEASURES, (pw, pi)):
+        if (pw_before_tax is not None) != (BEFORE_TAX in self.measures):
+            raise ValueError("the before-tax present worth is written exactly when the run is after tax")
+        for measure, values in zip(self.measures, (pw, pi, pw_before_tax)):
             if values.shape != (self.S, self.chunk_width(chunk)):
                 raise ValueError(f"chunk {chunk}: {measure} has shape {values.shape}")
             target = self._file(measure, chunk)
@@ -59,14 +67,24 @@ class WorthScratch:
             np.ascontiguousarray(values, dtype=np.float64).tofile(part)
             os.replace(part, target)
 
-    def missing(self) -> list[int]:
-        """Chunks whose files are absent or not of the expected size."""
+    def missing(self, chunks=None) -> list[int]:
+        """Chunks (of ``chunks``, default all) whose files are absent or not of the expected size."""
         out = []
-        for c in range(self.chunk_count):
+        for c in (range(self.chunk_count) if chunks is None else chunks):
             size = 8 * self.S * self.chunk_width(c)
-            if any(not self._file(m, c).is_file() or self._file(m, c).stat().st_size != size for m in MEASURES):
+            if any(not self._file(m, c).is_file() or self._file(m, c).stat().st_size != size for m in self.measures):
                 out.append(c)
         return out
+
+    def read_chunk(self, measure: str, chunk: int, out: np.ndarray | None = None) -> np.ndarray:
+        """One chunk's whole (S, P_chunk) matrix, read into ``out`` (reused) when given."""
+        width = self.chunk_width(chunk)
+        values = np.empty((self.S, width)) if out is None else out[: self.S * width].reshape(self.S, width)
+        with open(self._file(measure, chunk), "rb") as fh:
+            read = fh.readinto(memoryview(values).cast("B"))
+        if read != values.nbytes:
+            raise OSError(f"scratch file {self._file(measure, chunk)} is short")
+        return values
 
     def read_block(self, measure: str, a: int, b: int, out: np.ndarray | None = None) -> np.ndarray:
         """Scenarios [a, b) of every project: (b - a, P), scenario-major, projects in key order."""
