@@ -820,6 +820,45 @@ def run_decisions(con, plan: Plan) -> None:
     decide_run(con, plan)
 
 
+class ChunkReader:
+    """Reads the cash flows of the chunks to evaluate on a background thread (its own DuckDB
+    connection), ``depth`` chunks ahead: DuckDB's worker threads are shared by every connection,
+    so a chunk's read can wait behind the writers' inserts; read ahead, it does not hold up the
+    evaluation. Iterating yields (chunk index, (amounts, ids, horizon)) in order."""
+
+    def __init__(self, con, plan: Plan, chunks, depth: int = 2):
+        from collections import deque
+        self.con, self.plan = con.cursor(), plan
+        self.pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-reader")
+        self.chunks = iter(chunks)
+        self.queue = deque()
+        for _ in range(depth):
+            self._next()
+
+    def _next(self) -> None:
+        chunk = next(self.chunks, None)
+        if chunk is not None:
+            self.queue.append((chunk, self.pool.submit(self._read, chunk)))
+
+    def _read(self, chunk: int):
+        first = chunk * self.plan.chunk_size
+        return _chunk_amounts(self.con, self.plan, first, min(first + self.plan.chunk_size, self.plan.project_count))
+
+    def __iter__(self):
+        while self.queue:
+            chunk, future = self.queue.popleft()
+            self._next()
+            yield chunk, future.result()
+
+    def close(self) -> None:
+        self.pool.shutdown(wait=True, cancel_futures=True)
+        self.queue.clear()
+        try:
+            self.con.close()
+        except Exception:
+            pass
+
+
 class ChunkWriter:
     """Writes evaluated chunks on two background threads, each with its own DuckDB connection,
     while the next chunks are evaluated and, at the end, while the rank pass runs.
@@ -1001,6 +1040,7 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
     writer = None
     blas_limit = None
     reader = None
+    prefetch = None
     try:
         reader = con.cursor()      # the chunk reader's own connection: the writer threads have theirs
         if rows_todo:
@@ -1023,8 +1063,10 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
             for key, out in done:
                 writer.submit(key, out)
 
-        for n, chunk in enumerate(todo):
+        prefetch = ChunkReader(reader, plan, todo)
+        for n, (chunk, (A, ids, horizon)) in enumerate(prefetch):
             if stop_after_chunks is not None and n >= stop_after_chunks:
+                prefetch.close()
                 write(evaluator.drain())
                 writer.finish()
                 writer = None
@@ -1035,12 +1077,9 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
                             [f"stopped after {n} chunks; resume with --resume {plan.run_id}", plan.run_id])
                 bar.close()
                 return plan.run_id
-            first = chunk * plan.chunk_size
-            stop = min(first + plan.chunk_size, plan.project_count)
-            t0 = time.perf_counter()
-            A, ids, horizon = _chunk_amounts(reader, plan, first, stop)
-            evaluator.submit((chunk, first, ids, t0), A, horizon)
+            evaluator.submit((chunk, chunk * plan.chunk_size, ids, time.perf_counter()), A, horizon)
             write(evaluator.ready())
+        prefetch.close()
         write(evaluator.drain())
         writer._wait()                             # the last chunk's summaries are committed
         blas_limit.restore_original_limits()
@@ -1055,6 +1094,8 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
         bar.close()
         log(f"screen: done in {time.perf_counter() - started:.1f} s after planning")
     except BaseException as exc:
+        if prefetch is not None:
+            prefetch.close()
         if writer is not None:
             writer.abandon()       # let chunks already being written commit (or roll back) first
         if blas_limit is not None:
