@@ -76,6 +76,7 @@ def chunk_cells_for_memory(available: int | None = None) -> int:
         return DEFAULT_CELLS_PER_CHUNK
     return int(min(DEFAULT_CELLS_PER_CHUNK, max(1_000_000, available // 4 // BYTES_PER_CELL)))
 DUCKDB_MEMORY_LIMIT = "1GB"
+CHECKPOINT_THRESHOLD = "4GB"
 
 
 def _now() -> datetime:
@@ -968,6 +969,9 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
     chunks elsewhere; reading and writing stay in this process.
     """
     con.execute(f"SET memory_limit = '{DUCKDB_MEMORY_LIMIT}'")   # bound DuckDB's buffers; spill beyond
+    # The writers commit every chunk twice; with the default 16 MB write-ahead-log threshold the
+    # summaries' commits each set off a checkpoint of the growing database. One checkpoint at the end.
+    con.execute(f"SET checkpoint_threshold = '{CHECKPOINT_THRESHOLD}'")
     if resume:
         row = con.execute("SELECT status, grid_spec, inputs_hash, chunk_size FROM runs WHERE run_id = ?",
                           [resume]).fetchone()

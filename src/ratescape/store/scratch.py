@@ -16,6 +16,7 @@ from __future__ import annotations
 import os
 import shutil
 import tempfile
+import threading
 from pathlib import Path
 
 import numpy as np
@@ -31,6 +32,17 @@ def scratch_folder(con, run_id: str) -> Path:
     if not path:
         return Path(tempfile.gettempdir()) / f"ratescape-{os.getpid()}.scratch" / run_id
     return Path(f"{path}.scratch") / run_id
+
+
+_LOCAL = threading.local()
+
+
+def _thread_buffer(size: int) -> np.ndarray:
+    """This thread's float64 read buffer of at least ``size`` values (kept between calls)."""
+    buffer = getattr(_LOCAL, "buffer", None)
+    if buffer is None or buffer.size < size:
+        buffer = _LOCAL.buffer = np.empty(size)
+    return buffer
 
 
 class WorthScratch:
@@ -89,13 +101,15 @@ class WorthScratch:
     def read_block(self, measure: str, a: int, b: int, out: np.ndarray | None = None) -> np.ndarray:
         """Scenarios [a, b) of every project: (b - a, P), scenario-major, projects in key order."""
         block = np.empty((b - a, self.P)) if out is None else out[: b - a]
+        segment = _thread_buffer((b - a) * min(self.chunk_size, self.P))     # reused: no fresh pages per read
         for c in range(self.chunk_count):
             width = self.chunk_width(c)
             first = c * self.chunk_size
+            part = segment[: (b - a) * width]
             with open(self._file(measure, c), "rb") as fh:
                 fh.seek(8 * a * width)
-                part = np.fromfile(fh, dtype=np.float64, count=(b - a) * width)
-            if part.size != (b - a) * width:
+                read = fh.readinto(memoryview(part).cast("B"))
+            if read != part.nbytes:
                 raise OSError(f"scratch file {self._file(measure, c)} is short")
             block[:, first:first + width] = part.reshape(b - a, width)
         return block
