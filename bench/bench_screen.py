@@ -74,7 +74,8 @@ def main(argv=None):
         print(f"{n:>10,}{t_load:>9.1f}{t_screen:>10.1f}{rows:>15,}{rows / t_screen:>13,.0f}{size:>8.2f}"
               f"{peak_kb / 1e6:>13.2f}")
         phases = [l for l in out.stderr.splitlines()
-                  if l.startswith(("chunks:", "decisions and")) or (l.startswith("ranks:") and " in " in l)]
+                  if l.startswith(("chunks:", "decisions and", "result rows:", "screen: done"))
+                  or (l.startswith("ranks:") and " in " in l)]
         for line in phases:                          # the screen's own phase timings
             print(f"{'':>10}  {line}")
 

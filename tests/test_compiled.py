@@ -183,3 +183,23 @@ def test_index_from_worth_equals_the_where_formulation():
     assert index_from_worth(np.array([[50.0]]), np.array([[-100.0]]))[0, 0] == 1.5
     with pytest.raises(ValueError):
         index_from_worth(pw, outlay[:, :3])
+
+
+def test_fixed_investment_is_the_outlay_where_it_never_changes():
+    # identity: the outlay's PW equal in every scenario and positive -> that value; else NaN
+    from ratescape.evaluate.compiled import index_and_fixed_investment
+    outlay = -np.array([[100.0, 50.0, 0.0, 70.0, -5.0],
+                        [100.0, 55.0, 0.0, 70.0, -5.0],
+                        [100.0, 50.0, 0.0, 70.0, -5.0]])
+    outlay[1, 3] = -np.nextafter(70.0, 71.0)         # one ulp apart is not the same
+    pw = np.arange(15.0).reshape(3, 5)
+    pi, fixed = index_and_fixed_investment(pw, outlay.copy())
+    np.testing.assert_array_equal(fixed, [100.0, np.nan, np.nan, np.nan, np.nan])
+    np.testing.assert_allclose(pi[:, 0], 1 + pw[:, 0] / 100.0, rtol=0, atol=0)
+    # in place (the outlay buffer becomes the PI), as the screen calls it
+    buffer = outlay.copy()
+    pi2, fixed2 = index_and_fixed_investment(pw, buffer, out=buffer)
+    assert pi2 is buffer
+    np.testing.assert_array_equal(np.isnan(pi2), np.isnan(pi))
+    np.testing.assert_array_equal(pi2[~np.isnan(pi)], pi[~np.isnan(pi)])
+    np.testing.assert_array_equal(np.isnan(fixed2), np.isnan(fixed))

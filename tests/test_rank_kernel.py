@@ -50,6 +50,30 @@ def test_rank_rows_large_portfolio_with_near_ties():
     np.testing.assert_array_equal(ranks, _scipy_ranks(values))
 
 
+def test_rank_rows_long_runs_within_the_dropped_bits():
+    """Runs of 5, 40 and 3,000 values a few ulps apart, in reverse project order and with exact
+    ties mixed in: short runs take the insertion sort, long ones the merge sort; ranks, tallies
+    and Spearman's rho still equal SciPy's."""
+    from ratescape.decide.rank_kernel import RankTally
+    rng = np.random.default_rng(4)
+    parts = []
+    for size in (5, 40, 3000):
+        ulps = rng.integers(0, size // 2 + 1, size=size)              # repeats give exact ties
+        parts.append(np.array([np.nextafter(1e6, np.inf) + k * np.spacing(1e6) for k in ulps])[::-1])
+    v = np.concatenate(parts + [rng.normal(size=2000) * 1e6])
+    values = np.vstack([v, v[::-1], -v])
+    base = mean_ranks(values[0])
+    tally = RankTally(v.size, 10)
+    ranks, rho = rank_rows(values, base, tally=tally)
+    want = _scipy_ranks(values)
+    np.testing.assert_array_equal(ranks, want)
+    np.testing.assert_array_equal(tally.min, want.min(axis=0))
+    np.testing.assert_array_equal(tally.max, want.max(axis=0))
+    np.testing.assert_array_equal(tally.top, (want <= 10).sum(axis=0))
+    for b in range(3):
+        assert rho[b] == pytest.approx(spearmanr(values[0], values[b]).statistic, abs=1e-12)
+
+
 def test_spearman_rho_equals_scipy_spearmanr():
     rng = np.random.default_rng(2)
     for trial in range(100):

@@ -341,3 +341,69 @@ def test_default_chunk_follows_available_memory():
     assert cells(2 * 2**30) == 2 * 2**30 // 4 // screen_module.BYTES_PER_CELL
     assert cells(100 * 2**20) == 1_000_000
     assert 1_000_000 <= cells() <= screen_module.DEFAULT_CELLS_PER_CHUNK
+
+
+def test_stored_pi_is_derived_exactly_where_the_investment_is_fixed(tmp_path):
+    """PI = 1 + PW / PW(investment) (Park, from memory). Where the investment's PW is the same in
+    every scenario (one outlay at time 0) result_rows leaves PI NULL and the results view derives
+    it; where it varies (an outlay also at period 1) the row carries it; without an investment
+    there is none. Every value against numpy-financial's npv."""
+    (tmp_path / "p.csv").write_text("project_id,name\nFIX,Fixed outlay\nSPREAD,Outlay over two periods\n"
+                                    "NONE,No investment\n")
+    (tmp_path / "c.csv").write_text(
+        "project_id,period,amount,basis,escalation,kind\n"
+        "FIX,0,-100,real,0,investment\nFIX,1,40,real,0,benefit\nFIX,2,40,real,0.02,benefit\nFIX,3,45,nominal,0,benefit\n"
+        "SPREAD,0,-60,real,0,investment\nSPREAD,1,-50,real,0,investment\nSPREAD,2,70,real,0,benefit\n"
+        "SPREAD,3,70,real,0,benefit\nNONE,1,10,real,0,benefit\nNONE,2,-3,real,0,\n")
+    db = tmp_path / "plan.duckdb"
+    load_portfolio(tmp_path / "p.csv", tmp_path / "c.csv", db)
+    run_id = screen_portfolio(db, discount_rates="0:0.2:5", inflation="0:0.1:3")
+    fixed = dict(fetch(db, "SELECT project_id, investment_worth FROM project_summary WHERE run_id = ?", [run_id]))
+    assert fixed == {"FIX": 100.0, "SPREAD": None, "NONE": None}
+    stored = dict(fetch(db, """SELECT ps.project_id, count(x.profitability_index) FROM result_rows x
+                               JOIN project_summary ps ON ps.project_key = x.project_key AND ps.run_id = ?
+                               WHERE x.scenario_key IN (SELECT scenario_key FROM scenarios WHERE run_id = ?)
+                               GROUP BY 1""", [run_id, run_id]))
+    assert stored == {"FIX": 0, "SPREAD": 15, "NONE": 0}
+    scen = {sid: (i, f) for sid, i, f in fetch(
+        db, "SELECT scenario_id, discount_rate, inflation FROM scenarios WHERE run_id = ?", [run_id])}
+    rows = fetch(db, "SELECT project_id, scenario_id, present_worth, profitability_index FROM results WHERE run_id = ?",
+                 [run_id])
+    assert len(rows) == 3 * 15
+    for pid, sid, pw, pi in rows:
+        i, f = scen[sid]
+        if pid == "NONE":
+            assert pi is None
+            continue
+        outlay = [-100.0] if pid == "FIX" else [-60.0, -50.0 * (1 + f)]      # real money inflates
+        want = 1 + pw / -npf.npv(i, outlay)
+        assert pi == pytest.approx(want, rel=1e-12)
+
+
+def test_a_database_from_before_investment_worth_is_migrated_in_place(db):
+    """A schema-2 database written before ``investment_worth`` (every row carries its PI, the old
+    view reads it) gains the column and the new view on the next write; its runs read the same."""
+    from ratescape.store.database import connect_write
+    from ratescape.store.schema import VIEWS
+    run_id = screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5")
+    want = sorted(fetch(db, "SELECT project_id, scenario_id, profitability_index FROM results WHERE run_id = ?",
+                        [run_id]))
+    con = duckdb.connect(str(db))
+    try:       # make it look like the older layout
+        con.execute("""UPDATE result_rows x SET profitability_index = 1 + x.present_worth / ps.investment_worth
+                       FROM project_summary ps WHERE ps.project_key = x.project_key AND ps.run_id = ?
+                       AND x.profitability_index IS NULL AND ps.investment_worth IS NOT NULL""", [run_id])
+        con.execute("DROP VIEW results")
+        con.execute("ALTER TABLE project_summary DROP COLUMN investment_worth")
+        con.execute(VIEWS["results"].replace("CREATE OR REPLACE VIEW", "CREATE VIEW").replace(
+            "coalesce(x.profitability_index, 1 + x.present_worth / ps.investment_worth)", "x.profitability_index"))
+    finally:
+        con.close()
+    assert sorted(fetch(db, "SELECT project_id, scenario_id, profitability_index FROM results WHERE run_id = ?",
+                        [run_id])) == want
+    connect_write(db).close()
+    assert fetch(db, "SELECT count(*) FROM project_summary WHERE investment_worth IS NOT NULL")[0][0] == 0
+    got = sorted(fetch(db, "SELECT project_id, scenario_id, profitability_index FROM results WHERE run_id = ?",
+                       [run_id]))
+    assert got == want
+    assert "investment_worth" in fetch(db, "SELECT sql FROM duckdb_views() WHERE view_name = 'results'")[0][0]

@@ -23,7 +23,7 @@ import pyarrow as pa
 from . import __version__
 from .errors import RunError
 from .evaluate.irr import _STATUS_LABELS, irr_roots
-from .evaluate.compiled import column_summaries, index_from_worth
+from .evaluate.compiled import column_summaries, index_and_fixed_investment
 from .decide.rank_kernel import BaseOrdering, RankTally, mean_ranks, rank_rows, ranks_and_tau
 from .decide.sensitivity import SensitivitySettings, one_at_a_time
 from .evaluate.kernel import (ROLES, LineClass, capital_recovery_factor, discount_tensor,
@@ -342,18 +342,26 @@ def _nonzero_columns_product(tensor_sm: np.ndarray, amounts: np.ndarray, out: np
     return np.matmul(np.ascontiguousarray(tensor_sm[:, used]), np.ascontiguousarray(flat[:, used]).T, out=out)
 
 
-def worth_and_index(plan: Plan, A_by_role: np.ndarray, buffers: dict | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """Present worth and profitability index (S, P), scenario-major, of a chunk's amounts (R, C, P, T).
+def worth_index_and_investment(plan: Plan, A_by_role: np.ndarray, buffers: dict | None = None) -> tuple:
+    """Present worth and profitability index (S, P), scenario-major, of a chunk's amounts
+    (R, C, P, T), and each project's investment PW where it is the same in every scenario (P,).
 
     PI = 1 + PW / (PW of the investment outlays), where the outlay's present worth is positive;
-    NaN otherwise (a project without an investment has no PI). With ``buffers`` (a dict the
-    caller keeps across chunks and does not read between them) the two results reuse its arrays.
+    NaN otherwise (a project without an investment has no PI). The fixed investment is NaN where
+    the outlay's PW varies between scenarios or is not positive (see
+    :func:`ratescape.evaluate.compiled.index_and_fixed_investment`). With ``buffers`` (a dict
+    the caller keeps across chunks and does not read between them) the matrices reuse its arrays.
     """
     shape = (plan.tensor_sm.shape[0], A_by_role.shape[2])
     pw = _nonzero_columns_product(plan.tensor_sm, A_by_role.sum(axis=0), out=_reused(buffers, "pw", shape))
     outlay = _nonzero_columns_product(plan.tensor_sm, A_by_role[0], out=_reused(buffers, "pi", shape))
-    pi = index_from_worth(pw, outlay, out=outlay)          # in place: the outlay is not needed again
-    return pw, pi
+    pi, fixed = index_and_fixed_investment(pw, outlay, out=outlay)   # in place: the outlay is not needed again
+    return pw, pi, fixed
+
+
+def worth_and_index(plan: Plan, A_by_role: np.ndarray, buffers: dict | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Present worth and profitability index (S, P) of a chunk (see :func:`worth_index_and_investment`)."""
+    return worth_index_and_investment(plan, A_by_role, buffers)[:2]
 
 
 def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray, buffers: dict | None = None) -> dict:
@@ -363,7 +371,7 @@ def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray, buffe
     worth matrices are written to its worth files before the next chunk is evaluated)."""
     cols = plan.scenarios.columns
     A = A_by_role.sum(axis=0)
-    pw, pi = worth_and_index(plan, A_by_role, buffers)                  # (S, P) each
+    pw, pi, fixed_investment = worth_index_and_investment(plan, A_by_role, buffers)   # (S, P), (S, P), (P,)
     years = horizon / float(plan.spec.periods_per_year)
     w = plan.weights
     b = plan.scenarios.base_index
@@ -373,7 +381,7 @@ def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray, buffe
         "pw_min": columns["pw_min"], "pw_max": columns["pw_max"], "pw_mean": columns["pw_mean"],
         "pw_expected": columns["pw_expected"], "pw_base": pw[b].copy(), "accepted_base": pw[b] >= 0.0,
         "annual_worth_base": pw[b] * capital_recovery_factor(cols["real_rate"][b], years),
-        "horizon": horizon.astype(np.int32),
+        "horizon": horizon.astype(np.int32), "investment_worth": fixed_investment,
     }
     irr = irr_over_inflation(plan, A)
     F, P = plan.inflation_levels.size, A.shape[1]
@@ -604,10 +612,22 @@ class RowColumns:
             self.by_width[width] = (np.repeat(self.keys, width), np.tile(np.arange(width, dtype=np.int32), self.keys.size))
         return self.by_width[width]
 
-    def table(self, chunk_index: int) -> pa.Table:
-        """The chunk's result rows (kept scenarios x its projects), scenario-major, from its worth files."""
+    def table(self, chunk_index: int, con=None) -> pa.Table:
+        """The chunk's result rows (kept scenarios x its projects), scenario-major, from its worth files.
+
+        With ``con``, the PI of projects whose investment is the same in every scenario
+        (``project_summary.investment_worth``, committed in the chunk's stage 1) is left NULL: the
+        ``results`` view derives it exactly as 1 + PW / investment_worth.
+        """
         scratch = self.plan.scratch
         width = scratch.chunk_width(chunk_index)
+        first = chunk_index * self.plan.chunk_size
+        derived = np.zeros(width, dtype=bool)
+        if con is not None:
+            got = con.execute("""SELECT project_key FROM project_summary WHERE run_id = ? AND project_key >= ?
+                                 AND project_key < ? AND investment_worth IS NOT NULL""",
+                              [self.plan.run_id, first, first + width]).fetchnumpy()["project_key"]
+            derived[np.asarray(got, dtype=np.int64) - first] = True
         n = self.kept.size * width
         scenario_key, offsets = self._layout(width)
         project_key = self.project_key[:n]
@@ -623,6 +643,12 @@ class RowColumns:
             else:
                 full = scratch.read_chunk(measure, chunk_index, out=self.full)
                 np.take(full, self.kept, axis=0, out=buffer.reshape(self.kept.size, width))
+            if measure == "pi" and derived.any():
+                values = buffer.reshape(self.kept.size, width)
+                if derived.all():
+                    values.fill(np.nan)
+                else:
+                    values[:, derived] = np.nan
             columns[column] = pa.array(buffer, from_pandas=measure == "pi")     # PI: NaN -> NULL
         return pa.table(columns)
 
@@ -900,7 +926,7 @@ class ChunkWriter:
         if self.stopping.is_set() or self.error is not None:
             return
         try:
-            rows = self.columns.table(chunk)
+            rows = self.columns.table(chunk, self.rows_con)
             self.rows_stored += _write_result_rows(self.rows_con, self.plan, chunk, chunk * self.plan.chunk_size,
                                                    rows, time.perf_counter() - t0)
             del rows

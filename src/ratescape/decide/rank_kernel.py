@@ -254,14 +254,18 @@ def _pack(bits_of_keys, bits, packed):
             packed[b, p] = ((w ^ flip) & keep) | np.uint64(p)
 
 
+_SHORT_RUN = 32              # longer runs of equal kept bits are ordered by a merge sort
+
+
 @njit(cache=True, nogil=True)
-def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, new, acc_min, acc_max, acc_top, acc_nan,
-            top_k, inf_high):
-    """Order from the sorted packed integers (re-sorted exactly where the kept bits tie), then
+def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, new, mean_rank, acc_min, acc_max, acc_top,
+            acc_nan, top_k):
+    """Order from the sorted packed integers (ordered exactly where the kept bits tie), then
     competition ranks, and Spearman's rho against ``base_mean`` over ``valid`` projects.
 
     Neighbours whose kept high bits differ are ordered and distinct without looking at their
-    values; only neighbours that agree in the kept bits are compared exactly (``keys``).
+    values; only runs that agree in the kept bits are re-ordered exactly by ``keys`` (stable, so
+    ties keep the project order), by insertion sort when short, by merge sort otherwise.
     """
     B, P = keys.shape
     low = np.uint64((1 << bits) - 1)
@@ -269,33 +273,35 @@ def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, new, acc_mi
     with_rho = base_mean.size == P
     with_acc = acc_min.size == P
     for b in range(B):
-        exact = True
-        previous = np.uint64(0)
-        for k in range(P):
-            w = packed[b, k]
-            o = np.int64(w & low)
-            order[k] = o
-            high = w & high_mask
-            if k == 0 or high != previous:
-                new[k] = True
-            else:
-                before = keys[b, order[k - 1]]
-                here = keys[b, o]
-                if here < before:
-                    exact = False
-                new[k] = here != before
-            previous = high
-        if not exact:                                   # values closer than the kept bits: exact sort
-            exact_order = np.argsort(keys[b], kind="mergesort")
-            for k in range(P):
-                order[k] = exact_order[k]
-                new[k] = k == 0 or keys[b, order[k]] != keys[b, order[k - 1]]
-        n = 0.0
-        sx = 0.0
-        sy = 0.0
-        sxx = 0.0
-        syy = 0.0
-        sxy = 0.0
+        k = 0
+        while k < P:                                    # runs of equal kept bits, in sorted order
+            high = packed[b, k] & high_mask
+            e = k + 1
+            while e < P and (packed[b, e] & high_mask) == high:
+                e += 1
+            for t in range(k, e):
+                order[t] = np.int64(packed[b, t] & low)
+            new[k] = True
+            if e - k > 1:                               # values within the dropped bits: order exactly
+                if e - k <= _SHORT_RUN:                 # insertion sort, stable (index order on ties)
+                    for t in range(k + 1, e):
+                        o = order[t]
+                        key = keys[b, o]
+                        j = t - 1
+                        while j >= k and keys[b, order[j]] > key:
+                            order[j + 1] = order[j]
+                            j -= 1
+                        order[j + 1] = o
+                else:
+                    run_keys = np.empty(e - k)
+                    for t in range(k, e):
+                        run_keys[t - k] = keys[b, order[t]]
+                    run_order = order[k:e][np.argsort(run_keys, kind="mergesort")]
+                    order[k:e] = run_order
+                for t in range(k + 1, e):
+                    new[t] = keys[b, order[t]] != keys[b, order[t - 1]]
+            k = e
+        # ranks by position, scattered to the projects (two random writes per project) ...
         start = 0
         for k in range(P + 1):
             if k == P or (k > 0 and new[k]):
@@ -304,24 +310,35 @@ def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, new, acc_mi
                 for t in range(start, k):
                     p = order[t]
                     ranks[b, p] = rank
-                    if with_acc:
-                        if rank < acc_min[p]:
-                            acc_min[p] = rank
-                        if rank > acc_max[p]:
-                            acc_max[p] = rank
-                        if start + 1 <= top_k:
-                            acc_top[p] += 1
-                        if (packed[b, t] & high_mask) == inf_high and keys[b, p] == np.inf:
-                            acc_nan[p] = True
-                    if with_rho and valid[p]:
-                        y = base_mean[p]
-                        n += 1.0
-                        sx += mean
-                        sy += y
-                        sxx += mean * mean
-                        syy += y * y
-                        sxy += mean * y
+                    mean_rank[p] = mean
                 start = k
+        # ... then the tallies and Spearman's sums in project order (sequential reads only)
+        n = 0.0
+        sx = 0.0
+        sy = 0.0
+        sxx = 0.0
+        syy = 0.0
+        sxy = 0.0
+        for p in range(P):
+            if with_acc:
+                rank = ranks[b, p]
+                if rank < acc_min[p]:
+                    acc_min[p] = rank
+                if rank > acc_max[p]:
+                    acc_max[p] = rank
+                if rank <= top_k:
+                    acc_top[p] += 1
+                if keys[b, p] == np.inf:
+                    acc_nan[p] = True
+            if with_rho and valid[p]:
+                x = mean_rank[p]
+                y = base_mean[p]
+                n += 1.0
+                sx += x
+                sy += y
+                sxx += x * x
+                syy += y * y
+                sxy += x * y
         rho[b] = np.nan
         if with_rho and n >= 2.0:
             cxx = sxx - sx * sx / n
@@ -329,14 +346,6 @@ def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, new, acc_mi
             if cxx > 0.0 and cyy > 0.0:
                 r = (sxy - sx * sy / n) / np.sqrt(cxx * cyy)
                 rho[b] = min(1.0, max(-1.0, r))
-
-
-def _packed_high(key: float, bits: int) -> np.uint64:
-    """The kept high bits of one key as :func:`_pack` writes them."""
-    keys = np.array([[key]])
-    packed = np.empty((1, 1), dtype=np.uint64)
-    _pack(keys.view(np.uint64), bits, packed)
-    return np.uint64(packed[0, 0] & ~np.uint64((1 << bits) - 1))
 
 
 _THREADS = max(1, min(4, os.cpu_count() or 1))
@@ -358,10 +367,10 @@ def _work_buffers(rows: int, P: int):
     cached = getattr(_LOCAL, "buffers", None)
     if cached is None or cached[0].shape[1] != P or cached[0].shape[0] < rows:
         cached = (np.empty((rows, P)), np.empty((rows, P), dtype=np.uint64), np.empty(P, dtype=np.int64),
-                  np.empty(P, dtype=np.bool_))
+                  np.empty(P, dtype=np.bool_), np.empty(P))
         _LOCAL.buffers = cached
-    keys, packed, order, new = cached
-    return keys[:rows], packed[:rows], order, new
+    keys, packed, order, new, mean_rank = cached
+    return keys[:rows], packed[:rows], order, new, mean_rank
 
 
 def mean_ranks(values):
@@ -411,9 +420,8 @@ def rank_rows(values, base_mean_ranks=None, valid=None, *, out=None, tally: Rank
     Exactly ``scipy.stats.rankdata(-values, method="min", axis=1)`` with NaN last, but built
     on NumPy's SIMD integer sort instead of an argsort: each value's order-preserving 64-bit
     pattern gives up its lowest ceil(log2 P) bits to the project index, so one plain sort of
-    packed integers yields the order. Rows where values agree in the kept bits (within about
-    2**-(52 - ceil(log2 P)) relative) and come out of order are re-sorted exactly, so the ranks
-    are exact.
+    packed integers yields the order. Runs of values that agree in the kept bits (within about
+    2**-(52 - ceil(log2 P)) relative) are then ordered exactly by value, so the ranks are exact.
 
     With ``base_mean_ranks`` (P,) (see :func:`mean_ranks`), also returns Spearman's rho of
     each row against the base: Pearson's correlation of average ranks (ties share the mean
@@ -447,17 +455,16 @@ def rank_rows(values, base_mean_ranks=None, valid=None, *, out=None, tally: Rank
     if base.size not in (0, P) or mask.size != P:
         raise ValueError(f"base_mean_ranks and valid must have {P} entries")
     bits = max(1, int(P - 1).bit_length())
-    inf_high = _packed_high(np.inf, bits)
 
     def part(lo, hi):          # compiled kernels and NumPy's sort release the GIL: rows in parallel
-        keys, packed, order, new = _work_buffers(hi - lo, P)
+        keys, packed, order, new, mean_rank = _work_buffers(hi - lo, P)
         _keys(values[lo:hi], keys)
         _pack(keys.view(np.uint64), bits, packed)
         packed.sort(axis=1)
         mine = RankTally(P, tally.top_k) if tally is not None else None
         acc = (mine.min, mine.max, mine.top, mine.any_nan) if mine is not None else _NO_TALLY
-        _unpack(packed, keys, bits, base, mask, ranks[lo:hi], rho[lo:hi], order, new, *acc,
-                tally.top_k if tally is not None else 0, inf_high)
+        _unpack(packed, keys, bits, base, mask, ranks[lo:hi], rho[lo:hi], order, new, mean_rank, *acc,
+                tally.top_k if tally is not None else 0)
         return mine
 
     cuts = np.linspace(0, B, min(B, _THREADS) + 1).astype(int)

@@ -196,12 +196,19 @@ def stream_facts(amounts):
 
 
 @njit(cache=True, nogil=True)
-def _index_from_worth(pw, outlay_pw, pi):
+def _index_from_worth(pw, outlay_pw, pi, fixed):
     S, P = pw.shape
+    for p in range(P):
+        fixed[p] = -outlay_pw[0, p] if S else np.nan
     for s in range(S):
         for p in range(P):
-            outlay = -outlay_pw[s, p]
+            outlay = -outlay_pw[s, p]                  # read before pi[s, p] (may be the same array)
+            if outlay != fixed[p]:
+                fixed[p] = np.nan                      # NaN != anything: stays NaN
             pi[s, p] = 1.0 + pw[s, p] / outlay if outlay > 0.0 else np.nan
+    for p in range(P):
+        if not fixed[p] > 0.0:
+            fixed[p] = np.nan
 
 
 def index_from_worth(present_worth, outlay_worth, out=None) -> np.ndarray:
@@ -217,9 +224,25 @@ def index_from_worth(present_worth, outlay_worth, out=None) -> np.ndarray:
     outlay = np.ascontiguousarray(outlay_worth, dtype=float)
     if pw.shape != outlay.shape or pw.ndim != 2:
         raise ValueError(f"present_worth {pw.shape} and outlay_worth {outlay.shape} must be the same 2-D shape")
+    return index_and_fixed_investment(pw, outlay, out)[0]
+
+
+def index_and_fixed_investment(present_worth, outlay_worth, out=None) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`index_from_worth` and, per project, the investment's PW where it is the same in
+    every scenario (an outlay at time 0, no cost axis): (S, P), (S, P) -> (S, P), (P,).
+
+    The second result is that positive outlay [currency] or NaN (it varies, or there is none).
+    Where it is a number, PI = 1 + PW / it exactly in every scenario, so a stored row need not
+    carry its PI (the ``results`` view derives it).
+    """
+    pw = np.ascontiguousarray(present_worth, dtype=float)
+    outlay = np.ascontiguousarray(outlay_worth, dtype=float)
+    if pw.shape != outlay.shape or pw.ndim != 2:
+        raise ValueError(f"present_worth {pw.shape} and outlay_worth {outlay.shape} must be the same 2-D shape")
     pi = np.empty(pw.shape) if out is None else out
-    _index_from_worth(pw, outlay, pi)
-    return pi
+    fixed = np.empty(pw.shape[1])
+    _index_from_worth(pw, outlay, pi, fixed)
+    return pi, fixed
 
 
 @njit(cache=True, nogil=True)
