@@ -185,3 +185,21 @@ def test_unknown_depreciation_method_is_refused_at_load(tmp_path):
                                     "Z,Odd,100,30,5,sum-of-years\n")
     with pytest.raises(ValidationError, match="column 'depreciation_method': unknown value"):
         load_portfolio(tmp_path / "p.csv", None, tmp_path / "x.duckdb")
+
+
+def test_after_tax_run_resumed_without_its_worth_files_equals_a_full_run(db):
+    """The worth files of an after-tax run also hold the before-tax PW ("pwb"), from which result
+    rows are written; a resumed run whose files were deleted rebuilds all three (identity)."""
+    import shutil
+    from pathlib import Path
+    args = dict(discount_rates="0.04:0.16:4", inflation="0:0.08:3", tax_rate="0.2,0.35", chunk_size=1)
+    full = screen_portfolio(db, **args)
+    part = screen_portfolio(db, stop_after_chunks=2, **args)
+    folder = Path(f"{db}.scratch") / part
+    assert sorted(p.name for p in folder.iterdir() if p.name.startswith("pwb")) == ["pwb-0000000.f8",
+                                                                                    "pwb-0000001.f8"]
+    shutil.rmtree(folder)
+    assert screen_portfolio(db, resume=part) == part
+    for column in ("present_worth", "profitability_index", "present_worth_before_tax"):
+        assert stored(db, part, column) == stored(db, full, column)
+    assert not folder.exists()

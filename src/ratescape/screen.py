@@ -896,18 +896,21 @@ class ChunkWriter:
     (the chunk is done). Both stages commit in chunk order, each whole or not at all, so an
     interruption leaves every chunk not started, summarised, or done, and ``--resume`` takes
     each from where it stood. The Arrow tables and worth files are prepared on the calling
-    thread; submitting waits for the previous chunk's stage 1 (so evaluation runs at most one
-    chunk ahead of it) and re-raises any writer error. Result rows, the bulk of the bytes, may
+    thread; submitting waits while ``STAGE1_AHEAD`` chunks' stage 1 is pending (so evaluation runs
+    at most that far ahead of it) and re-raises any writer error. Result rows, the bulk of the bytes, may
     fall behind: they need no memory while they wait (they are on disk).
     """
 
+    STAGE1_AHEAD = 2      # chunks whose stage 1 may be pending before submitting waits (~20 MB each)
+
     def __init__(self, con, plan: Plan, bar, pending_rows=()):
         import threading
+        from collections import deque
         self.plan, self.bar = plan, bar
         self.summary_con, self.rows_con = con.cursor(), con.cursor()
         self.summaries = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-summaries")
         self.rows = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-rows")
-        self.pending = None
+        self.pending = deque()                     # stage-1 futures, oldest first
         self.error: BaseException | None = None
         self.stopping = threading.Event()
         self.columns = RowColumns(plan)
@@ -917,9 +920,13 @@ class ChunkWriter:
 
     def _summarise(self, key, tables) -> None:
         chunk, first, _, t0 = key
-        if self.stopping.is_set():
-            return
-        _write_summaries(self.summary_con, self.plan, chunk, first, tables, time.perf_counter() - t0)
+        if self.stopping.is_set() or self.error is not None:
+            return                                  # an earlier chunk failed: keep the chunk order
+        try:
+            _write_summaries(self.summary_con, self.plan, chunk, first, tables, time.perf_counter() - t0)
+        except BaseException as exc:
+            self.error = exc
+            raise
         self.rows.submit(self._store_rows, chunk, t0)
 
     def _store_rows(self, chunk: int, t0: float) -> None:
@@ -938,18 +945,18 @@ class ChunkWriter:
         if self.error is not None:
             raise self.error
 
-    def _wait(self) -> None:
-        if self.pending is not None:
-            pending, self.pending = self.pending, None
-            pending.result()
+    def _wait(self, keep: int = 0) -> None:
+        """Wait until at most ``keep`` chunks' stage 1 is still pending (raising their errors)."""
+        while len(self.pending) > keep:
+            self.pending.popleft().result()
 
     def submit(self, key, out) -> None:
         chunk, first, ids, _ = key
         self._check()
         tables = chunk_tables(self.plan, chunk, first, ids, out)   # on this thread: the writers only write
         del out
-        self._wait()
-        self.pending = self.summaries.submit(self._summarise, key, tables)
+        self._wait(keep=self.STAGE1_AHEAD - 1)
+        self.pending.append(self.summaries.submit(self._summarise, key, tables))
 
     def finish(self) -> None:
         """Wait for every chunk's two stages; errors are raised here."""
@@ -965,10 +972,9 @@ class ChunkWriter:
         """After an error elsewhere: let transactions in progress commit or roll back, start no
         new one, ignore their outcome."""
         self.stopping.set()
-        pending, self.pending = self.pending, None
-        if pending is not None:
+        while self.pending:
             try:
-                pending.result()
+                self.pending.popleft().result()
             except BaseException:
                 pass
         self.summaries.shutdown(wait=True)

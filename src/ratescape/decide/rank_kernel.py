@@ -349,6 +349,7 @@ def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, new, mean_r
 
 
 _THREADS = max(1, min(4, os.cpu_count() or 1))
+_PARTS_PER_THREAD = 4
 _POOL = None
 
 
@@ -467,7 +468,9 @@ def rank_rows(values, base_mean_ranks=None, valid=None, *, out=None, tally: Rank
                 tally.top_k if tally is not None else 0)
         return mine
 
-    cuts = np.linspace(0, B, min(B, _THREADS) + 1).astype(int)
+    # a few parts per thread: when another thread of the process (a writer) takes a core for a
+    # while, the other rank thread takes the remaining parts instead of waiting at the end
+    cuts = np.linspace(0, B, min(B, _PARTS_PER_THREAD * _THREADS) + 1).astype(int)
     parts = [part(0, B)] if len(cuts) <= 2 else list(_pool().map(lambda ab: part(*ab), zip(cuts[:-1], cuts[1:])))
     if tally is not None:
         for mine in parts:
