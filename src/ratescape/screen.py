@@ -914,7 +914,6 @@ class ChunkWriter:
         self.error: BaseException | None = None
         self.stopping = threading.Event()
         self.columns = RowColumns(plan)
-        self.rows_stored = 0
         for chunk in pending_rows:                  # resumed: summarised, rows not yet stored
             self.rows.submit(self._store_rows, chunk, time.perf_counter())
 
@@ -934,8 +933,8 @@ class ChunkWriter:
             return
         try:
             rows = self.columns.table(chunk, self.rows_con)
-            self.rows_stored += _write_result_rows(self.rows_con, self.plan, chunk, chunk * self.plan.chunk_size,
-                                                   rows, time.perf_counter() - t0)
+            _write_result_rows(self.rows_con, self.plan, chunk, chunk * self.plan.chunk_size, rows,
+                               time.perf_counter() - t0)
             del rows
             self.bar.update()
         except BaseException as exc:               # noqa: BLE001 - re-raised on the main thread

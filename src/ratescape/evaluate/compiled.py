@@ -220,11 +220,7 @@ def index_from_worth(present_worth, outlay_worth, out=None) -> np.ndarray:
     other than the investment per unit of PW of the investment (C. S. Park, Contemporary
     Engineering Economics, Pearson, ch. on capital budgeting; from memory).
     """
-    pw = np.ascontiguousarray(present_worth, dtype=float)
-    outlay = np.ascontiguousarray(outlay_worth, dtype=float)
-    if pw.shape != outlay.shape or pw.ndim != 2:
-        raise ValueError(f"present_worth {pw.shape} and outlay_worth {outlay.shape} must be the same 2-D shape")
-    return index_and_fixed_investment(pw, outlay, out)[0]
+    return index_and_fixed_investment(present_worth, outlay_worth, out)[0]
 
 
 def index_and_fixed_investment(present_worth, outlay_worth, out=None) -> tuple[np.ndarray, np.ndarray]:
