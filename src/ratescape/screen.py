@@ -10,6 +10,7 @@ the rows an uninterrupted run would have.
 from __future__ import annotations
 
 import os
+import threading
 import time
 import uuid
 from concurrent.futures import ThreadPoolExecutor
@@ -772,21 +773,23 @@ def rank_statistics(con, plan: Plan):
         tally = st["tally"]
         ok = st["has"] & ~tally.any_nan          # a value in every scenario
         median = np.empty(P)
+        files = st["files"]
+        local = threading.local()
 
-        def chunk_median(item):
-            first, chunk_ranks = item
-            median[first:first + chunk_ranks.shape[1]] = np.median(np.ascontiguousarray(chunk_ranks.T), axis=1)
+        def chunk_median(chunk):
+            # each thread reads a chunk's (S, width) ranks into its own buffers, lays them out
+            # project-major and partitions in place (no fresh pages per chunk)
+            if not hasattr(local, "ranks"):
+                local.ranks = np.empty(S * plan.chunk_size, dtype=np.uint32)
+                local.by_project = np.empty(S * plan.chunk_size, dtype=np.uint32)
+            first, chunk_ranks = files.read(chunk, out=local.ranks)
+            width = chunk_ranks.shape[1]
+            by_project = local.by_project[: S * width].reshape(width, S)
+            np.copyto(by_project, chunk_ranks.T)
+            median[first:first + width] = np.median(by_project, axis=1, overwrite_input=True)
 
         with ThreadPoolExecutor(max_workers=2) as pool:   # NumPy's partition releases the GIL
-            in_flight = []
-            for item in st["files"].chunks():             # two chunks' ranks in memory at a time
-                in_flight.append(pool.submit(chunk_median, item))
-                if len(in_flight) == 2:
-                    for job in in_flight:
-                        job.result()
-                    in_flight = []
-            for job in in_flight:
-                job.result()
+            list(pool.map(chunk_median, range(files.chunk_count)))
         out[f"{prefix}_min"] = np.where(ok, tally.min.astype(np.int64), -1)
         out[f"{prefix}_max"] = np.where(ok, tally.max.astype(np.int64), -1)
         out[f"{prefix}_median"] = np.where(ok, median, np.nan)

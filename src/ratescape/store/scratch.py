@@ -143,11 +143,16 @@ class RankScratch:
             with open(self._file(c), "ab") as fh:
                 np.ascontiguousarray(ranks[:, first:first + self.chunk_size]).tofile(fh)
 
-    def chunks(self):
-        """Yield (first project, (S, P_chunk) ranks) per chunk."""
-        for c in range(self.chunk_count):
-            first = c * self.chunk_size
-            width = min(self.chunk_size, self.P - first)
-            data = np.fromfile(self._file(c), dtype=np.uint32)
-            yield first, data.reshape(self.S, width)
-            self._file(c).unlink()
+    def read(self, chunk: int, out: np.ndarray | None = None) -> tuple[int, np.ndarray]:
+        """(first project, the chunk's (S, P_chunk) ranks), read into ``out`` (reused) when given;
+        the file is deleted once read."""
+        first = chunk * self.chunk_size
+        width = min(self.chunk_size, self.P - first)
+        ranks = (np.empty((self.S, width), dtype=np.uint32) if out is None
+                 else out[: self.S * width].reshape(self.S, width))
+        with open(self._file(chunk), "rb") as fh:
+            read = fh.readinto(memoryview(ranks).cast("B"))
+        if read != ranks.nbytes:
+            raise OSError(f"rank file {self._file(chunk)} is short")
+        self._file(chunk).unlink()
+        return first, ranks
