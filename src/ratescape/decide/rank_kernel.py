@@ -301,17 +301,27 @@ def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, new, mean_r
                 for t in range(k + 1, e):
                     new[t] = keys[b, order[t]] != keys[b, order[t - 1]]
             k = e
-        # ranks by position, scattered to the projects (two random writes per project) ...
-        start = 0
-        for k in range(P + 1):
-            if k == P or (k > 0 and new[k]):
-                mean = (start + k - 1) / 2.0 + 1.0
-                rank = np.uint32(start + 1)
-                for t in range(start, k):
-                    p = order[t]
-                    ranks[b, p] = rank
-                    mean_rank[p] = mean
-                start = k
+        # ranks by position, scattered to the projects (two random writes per project), as if
+        # there were no ties; then the rare runs of ties are given their shared ranks ...
+        ties = False
+        for k in range(P):
+            p = order[k]
+            ranks[b, p] = np.uint32(k + 1)
+            mean_rank[p] = k + 1.0
+            if not new[k]:
+                ties = True
+        if ties:
+            start = 0
+            for k in range(1, P + 1):
+                if k == P or new[k]:
+                    if k - start > 1:
+                        mean = (start + k - 1) / 2.0 + 1.0
+                        rank = np.uint32(start + 1)
+                        for t in range(start, k):
+                            p = order[t]
+                            ranks[b, p] = rank
+                            mean_rank[p] = mean
+                    start = k
         # ... then the tallies and Spearman's sums in project order (sequential reads only)
         n = 0.0
         sx = 0.0
