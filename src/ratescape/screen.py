@@ -746,15 +746,19 @@ def rank_statistics(con, plan: Plan):
         for name in names:
             stats[name]["files"].append(buffers[n % 2][name][1][: b - a])
 
-    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-rank-io") as io:
-        loaded = io.submit(load, 0)
-        stored = None
+    # Block n is ranked while block n + 1 is read (reader thread) and block n - 1's ranks are
+    # appended to the rank files (writer thread, in block order). Buffer set n % 2 holds block n:
+    # its values are free once block n is ranked, its ranks once block n's append is done.
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-rank-read") as reads, \
+            ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-rank-write") as writes:
+        loaded = reads.submit(load, 0)
+        stored = {}
         for n, (a, b) in enumerate(blocks):
             loaded.result()
-            if stored is not None:
-                stored.result()                    # block n - 1's ranks are out of the other buffer
             if n + 1 < len(blocks):
-                loaded = io.submit(load, n + 1)
+                loaded = reads.submit(load, n + 1)  # into set (n + 1) % 2: block n - 1 is ranked
+            if n - 2 in stored:
+                stored.pop(n - 2).result()         # set n % 2's ranks were block n - 2's: appended
             for name, suffix in names.items():
                 st = stats[name]
                 vals = buffers[n % 2][name][0][: b - a]
@@ -765,8 +769,9 @@ def rank_statistics(con, plan: Plan):
                     agreement[f"kendall_tau{suffix}"][a:b] = ranks_and_tau(vals, st["ordering"])[1]
                 if a <= base < b:
                     st["base"][:] = ranks[base - a]
-            stored = io.submit(store, n)
-        stored.result()
+            stored[n] = writes.submit(store, n)
+        for job in stored.values():
+            job.result()
     out = {}
     for name, prefix in (("pw", "rank"), ("pi", "pi_rank")):
         st = stats[name]
