@@ -343,7 +343,8 @@ def test_default_chunk_follows_available_memory():
     assert 1_000_000 <= cells() <= screen_module.DEFAULT_CELLS_PER_CHUNK
 
 
-def test_stored_pi_is_derived_exactly_where_the_investment_is_fixed(tmp_path):
+@pytest.mark.parametrize("chunk_size", [None, 1])     # one chunk of all three; a chunk per project
+def test_stored_pi_is_derived_exactly_where_the_investment_is_fixed(tmp_path, chunk_size):
     """PI = 1 + PW / PW(investment) (Park, from memory). Where the investment's PW is the same in
     every scenario (one outlay at time 0) result_rows leaves PI NULL and the results view derives
     it; where it varies (an outlay also at period 1) the row carries it; without an investment
@@ -357,7 +358,7 @@ def test_stored_pi_is_derived_exactly_where_the_investment_is_fixed(tmp_path):
         "SPREAD,3,70,real,0,benefit\nNONE,1,10,real,0,benefit\nNONE,2,-3,real,0,\n")
     db = tmp_path / "plan.duckdb"
     load_portfolio(tmp_path / "p.csv", tmp_path / "c.csv", db)
-    run_id = screen_portfolio(db, discount_rates="0:0.2:5", inflation="0:0.1:3")
+    run_id = screen_portfolio(db, discount_rates="0:0.2:5", inflation="0:0.1:3", chunk_size=chunk_size)
     fixed = dict(fetch(db, "SELECT project_id, investment_worth FROM project_summary WHERE run_id = ?", [run_id]))
     assert fixed == {"FIX": 100.0, "SPREAD": None, "NONE": None}
     stored = dict(fetch(db, """SELECT ps.project_id, count(x.profitability_index) FROM result_rows x

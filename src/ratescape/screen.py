@@ -636,8 +636,8 @@ class RowColumns:
         columns = {"scenario_key": pa.array(scenario_key), "project_key": pa.array(project_key)}
         for column, measure in (("present_worth", "pw"), ("profitability_index", "pi"),
                                 ("present_worth_before_tax", BEFORE_TAX)):
-            if measure not in scratch.measures:
-                continue
+            if measure not in scratch.measures or (measure == "pi" and derived.all()):
+                continue                       # every PI of the chunk derived: the column stays NULL
             buffer = self.values.setdefault(measure, np.empty(self.cells))[:n]
             if self.all_kept:
                 scratch.read_chunk(measure, chunk_index, out=buffer)
@@ -645,11 +645,7 @@ class RowColumns:
                 full = scratch.read_chunk(measure, chunk_index, out=self.full)
                 np.take(full, self.kept, axis=0, out=buffer.reshape(self.kept.size, width))
             if measure == "pi" and derived.any():
-                values = buffer.reshape(self.kept.size, width)
-                if derived.all():
-                    values.fill(np.nan)
-                else:
-                    values[:, derived] = np.nan
+                buffer.reshape(self.kept.size, width)[:, derived] = np.nan
             columns[column] = pa.array(buffer, from_pandas=measure == "pi")     # PI: NaN -> NULL
         return pa.table(columns)
 
