@@ -13,6 +13,7 @@ import os
 import threading
 import time
 import uuid
+from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from datetime import datetime, timezone
@@ -858,7 +859,6 @@ class ChunkReader:
     evaluation. Iterating yields (chunk index, (amounts, ids, horizon)) in order."""
 
     def __init__(self, con, plan: Plan, chunks, depth: int = 2):
-        from collections import deque
         self.con, self.plan = con.cursor(), plan
         self.pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-reader")
         self.chunks = iter(chunks)
@@ -908,8 +908,6 @@ class ChunkWriter:
     STAGE1_AHEAD = 2      # chunks whose stage 1 may be pending before submitting waits (~20 MB each)
 
     def __init__(self, con, plan: Plan, bar, pending_rows=()):
-        import threading
-        from collections import deque
         self.plan, self.bar = plan, bar
         self.summary_con, self.rows_con = con.cursor(), con.cursor()
         self.summaries = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-summaries")
@@ -948,7 +946,7 @@ class ChunkWriter:
         if self.error is not None:
             raise self.error
 
-    def _wait(self, keep: int = 0) -> None:
+    def wait_for_summaries(self, keep: int = 0) -> None:
         """Wait until at most ``keep`` chunks' stage 1 is still pending (raising their errors)."""
         while len(self.pending) > keep:
             self.pending.popleft().result()
@@ -958,17 +956,15 @@ class ChunkWriter:
         self._check()
         tables = chunk_tables(self.plan, chunk, first, ids, out)   # on this thread: the writers only write
         del out
-        self._wait(keep=self.STAGE1_AHEAD - 1)
+        self.wait_for_summaries(keep=self.STAGE1_AHEAD - 1)
         self.pending.append(self.summaries.submit(self._summarise, key, tables))
 
     def finish(self) -> None:
         """Wait for every chunk's two stages; errors are raised here."""
         try:
-            self._wait()
+            self.wait_for_summaries()
         finally:
-            self.summaries.shutdown(wait=True)
-            self.rows.shutdown(wait=True)
-            self._close()
+            self._shut_down()
         self._check()
 
     def abandon(self) -> None:
@@ -980,11 +976,13 @@ class ChunkWriter:
                 self.pending.popleft().result()
             except BaseException:
                 pass
+        self._shut_down()
+
+    def _shut_down(self) -> None:
+        """Let both threads finish their queues (stage 1 first: it queues stage 2), then close
+        their connections."""
         self.summaries.shutdown(wait=True)
         self.rows.shutdown(wait=True)
-        self._close()
-
-    def _close(self) -> None:
         for c in (self.summary_con, self.rows_con):
             try:
                 c.close()
@@ -1120,7 +1118,7 @@ def screen(con, spec: GridSpec | None = None, *, resume: str | None = None, chun
             write(evaluator.ready())
         prefetch.close()
         write(evaluator.drain())
-        writer._wait()                             # the last chunk's summaries are committed
+        writer.wait_for_summaries()                             # the last chunk's summaries are committed
         blas_limit.restore_original_limits()
         blas_limit = None
         log(f"chunks: {len(todo)} evaluated in {time.perf_counter() - started:.1f} s "
