@@ -188,8 +188,9 @@ def test_resume_stores_the_rows_of_summarised_chunks(db):
     try:          # undo the rows of chunks 1 and 3, as if the process had died before storing them
         keys = "SELECT scenario_key FROM scenarios WHERE run_id = ?"
         for chunk in (1, 3):
-            con.execute(f"DELETE FROM result_rows WHERE scenario_key IN ({keys}) AND project_key BETWEEN ? AND ?",
-                        [part, 4 * chunk, 4 * chunk + 3])
+            for table in ("result_rows_pw", "result_rows_full"):
+                con.execute(f"DELETE FROM {table} WHERE scenario_key IN ({keys}) AND project_key BETWEEN ? AND ?",
+                            [part, 4 * chunk, 4 * chunk + 3])
             con.execute("DELETE FROM run_chunks WHERE run_id = ? AND chunk_index = ?", [part, chunk])
         con.execute("UPDATE runs SET chunks_done = 2 WHERE run_id = ?", [part])
     finally:
@@ -366,6 +367,14 @@ def test_stored_pi_is_derived_exactly_where_the_investment_is_fixed(tmp_path, ch
                                WHERE x.scenario_key IN (SELECT scenario_key FROM scenarios WHERE run_id = ?)
                                GROUP BY 1""", [run_id, run_id]))
     assert stored == {"FIX": 0, "SPREAD": 15, "NONE": 0}
+    # a chunk with nothing but derived or absent PIs stores PW only (no empty columns)
+    where = dict(fetch(db, """SELECT ps.project_id, string_agg(DISTINCT t.name, ',') FROM (
+                                  SELECT 'pw' AS name, project_key, scenario_key FROM result_rows_pw
+                                  UNION ALL SELECT 'full', project_key, scenario_key FROM result_rows_full) t
+                              JOIN project_summary ps ON ps.project_key = t.project_key AND ps.run_id = ?
+                              GROUP BY 1""", [run_id]))
+    assert where == ({"FIX": "pw", "SPREAD": "full", "NONE": "pw"} if chunk_size == 1 else
+                     {"FIX": "full", "SPREAD": "full", "NONE": "full"})
     scen = {sid: (i, f) for sid, i, f in fetch(
         db, "SELECT scenario_id, discount_rate, inflation FROM scenarios WHERE run_id = ?", [run_id])}
     rows = fetch(db, "SELECT project_id, scenario_id, present_worth, profitability_index FROM results WHERE run_id = ?",
@@ -382,8 +391,10 @@ def test_stored_pi_is_derived_exactly_where_the_investment_is_fixed(tmp_path, ch
 
 
 def test_a_database_from_before_investment_worth_is_migrated_in_place(db):
-    """A schema-2 database written before ``investment_worth`` (every row carries its PI, the old
-    view reads it) gains the column and the new view on the next write; its runs read the same."""
+    """A schema-2 database written before ``investment_worth`` and before the split of the result
+    rows (one physical ``result_rows`` table, every row carrying its PI, the old view reading it)
+    gains the column, the two tables and the new views on the next write; its runs read the same,
+    and a new run is stored beside them."""
     from ratescape.store.database import connect_write
     from ratescape.store.schema import VIEWS
     run_id = screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5")
@@ -391,10 +402,16 @@ def test_a_database_from_before_investment_worth_is_migrated_in_place(db):
                         [run_id]))
     con = duckdb.connect(str(db))
     try:       # make it look like the older layout
-        con.execute("""UPDATE result_rows x SET profitability_index = 1 + x.present_worth / ps.investment_worth
-                       FROM project_summary ps WHERE ps.project_key = x.project_key AND ps.run_id = ?
-                       AND x.profitability_index IS NULL AND ps.investment_worth IS NOT NULL""", [run_id])
+        con.execute("""CREATE TABLE old_rows AS SELECT x.scenario_key, x.project_key, x.present_worth,
+                           coalesce(x.profitability_index, 1 + x.present_worth / ps.investment_worth)
+                               AS profitability_index, x.present_worth_before_tax
+                       FROM result_rows x JOIN scenarios s USING (scenario_key)
+                       JOIN project_summary ps ON ps.project_key = x.project_key AND ps.run_id = s.run_id""")
         con.execute("DROP VIEW results")
+        con.execute("DROP VIEW result_rows")
+        con.execute("DROP TABLE result_rows_pw")
+        con.execute("DROP TABLE result_rows_full")
+        con.execute("ALTER TABLE old_rows RENAME TO result_rows")
         con.execute("ALTER TABLE project_summary DROP COLUMN investment_worth")
         con.execute(VIEWS["results"].replace("CREATE OR REPLACE VIEW", "CREATE VIEW").replace(
             "coalesce(x.profitability_index, 1 + x.present_worth / ps.investment_worth)", "x.profitability_index"))
@@ -408,3 +425,10 @@ def test_a_database_from_before_investment_worth_is_migrated_in_place(db):
                        [run_id]))
     assert got == want
     assert "investment_worth" in fetch(db, "SELECT sql FROM duckdb_views() WHERE view_name = 'results'")[0][0]
+    kinds = dict(fetch(db, "SELECT table_name, table_type FROM information_schema.tables"))
+    assert (kinds["result_rows"], kinds["result_rows_pw"], kinds["result_rows_full"]) == ("VIEW", "BASE TABLE",
+                                                                                         "BASE TABLE")
+    assert fetch(db, "SELECT count(*) FROM result_rows_full")[0][0] == len(want)
+    again = screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5")
+    assert sorted(fetch(db, "SELECT project_id, scenario_id, profitability_index FROM results WHERE run_id = ?",
+                        [again])) == want

@@ -614,12 +614,15 @@ class RowColumns:
             self.by_width[width] = (np.repeat(self.keys, width), np.tile(np.arange(width, dtype=np.int32), self.keys.size))
         return self.by_width[width]
 
-    def table(self, chunk_index: int, con=None) -> pa.Table:
-        """The chunk's result rows (kept scenarios x its projects), scenario-major, from its worth files.
+    def table(self, chunk_index: int, con=None) -> tuple[str, pa.Table]:
+        """The chunk's result rows (kept scenarios x its projects), scenario-major, from its worth
+        files, and the physical table they go to.
 
         With ``con``, the PI of projects whose investment is the same in every scenario
         (``project_summary.investment_worth``, committed in the chunk's stage 1) is left NULL: the
-        ``results`` view derives it exactly as 1 + PW / investment_worth.
+        ``results`` view derives it exactly as 1 + PW / investment_worth. A chunk whose every PI
+        is derived and that has no before-tax PW goes to ``result_rows_pw`` (present worth only);
+        any other to ``result_rows_full``.
         """
         scratch = self.plan.scratch
         width = scratch.chunk_width(chunk_index)
@@ -647,17 +650,22 @@ class RowColumns:
                 np.take(full, self.kept, axis=0, out=buffer.reshape(self.kept.size, width))
             if measure == "pi" and derived.any():
                 buffer.reshape(self.kept.size, width)[:, derived] = np.nan
+            if measure == "pi" and np.isnan(buffer).all():
+                continue                       # derived, or projects without an investment: no PI
             columns[column] = pa.array(buffer, from_pandas=measure == "pi")     # PI: NaN -> NULL
-        return pa.table(columns)
+        target = "result_rows_pw" if len(columns) == 3 else "result_rows_full"
+        return target, pa.table(columns)
 
 
-def _write_result_rows(con, plan: Plan, chunk_index: int, first: int, rows: pa.Table, seconds: float) -> int:
-    """Stage 2 of a chunk: its result rows and its ``run_chunks`` mark (the chunk is done) in ONE transaction."""
+def _write_result_rows(con, plan: Plan, chunk_index: int, first: int, target: str, rows: pa.Table,
+                       seconds: float) -> int:
+    """Stage 2 of a chunk: its result rows (into ``target``, a ``result_rows_*`` table) and its
+    ``run_chunks`` mark (the chunk is done) in ONE transaction."""
     with transaction(con):
         if rows.num_rows:
             con.register("incoming_result_rows", rows)
             names = ", ".join(rows.column_names)
-            con.execute(f"INSERT INTO result_rows ({names}) SELECT {names} FROM incoming_result_rows")
+            con.execute(f"INSERT INTO {target} ({names}) SELECT {names} FROM incoming_result_rows")
             con.unregister("incoming_result_rows")
         con.execute("INSERT INTO run_chunks VALUES (?, ?, ?, ?, ?, ?, ?)",
                     [plan.run_id, chunk_index, first, first + plan.scratch.chunk_width(chunk_index) - 1,
@@ -934,8 +942,8 @@ class ChunkWriter:
         if self.stopping.is_set() or self.error is not None:
             return
         try:
-            rows = self.columns.table(chunk, self.rows_con)
-            _write_result_rows(self.rows_con, self.plan, chunk, chunk * self.plan.chunk_size, rows,
+            target, rows = self.columns.table(chunk, self.rows_con)
+            _write_result_rows(self.rows_con, self.plan, chunk, chunk * self.plan.chunk_size, target, rows,
                                time.perf_counter() - t0)
             del rows
             self.bar.update()
