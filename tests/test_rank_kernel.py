@@ -20,7 +20,7 @@ def _cases(seed, n):
     rng = np.random.default_rng(seed)
     for trial in range(n):
         P, B = int(rng.integers(1, 60)), int(rng.integers(1, 5))
-        scale = [1.0, 1e-300, 1e300, 1.0 + 1e-15][trial % 4]
+        scale = [1.0, 1e-300, 1e300, 1.0 + 1e-15, 5e-324][trial % 5]     # the last: subnormal multiples
         values = rng.integers(-3, 4, size=(B, P)).astype(float) * scale
         if trial % 2:
             values[rng.random((B, P)) < 0.2] = np.nan
@@ -28,6 +28,9 @@ def _cases(seed, n):
             values += rng.normal(size=(B, P)) * 1e-13         # closer than the packed bits keep apart
         if trial % 7 == 0:
             values[:, : P // 2] = -0.0                          # signed zeros tie
+        if trial % 11 == 0:
+            values[:, -1] = np.inf                              # first; -inf ties with NaN, last
+            values[:, 0] = -np.inf
         base = rng.integers(-2, 3, size=P).astype(float)
         if trial % 3 == 0:
             base[rng.random(P) < 0.25] = np.nan
@@ -153,3 +156,23 @@ def test_mean_ranks_equal_scipy_average_ranks():
         v[rng.random(v.size) < 0.2] = np.nan
         want = rankdata(-np.where(np.isnan(v), -np.inf, v), method="average")
         np.testing.assert_allclose(mean_ranks(v), want)
+
+
+@pytest.mark.parametrize("S", [1, 2, 7, 64, 2601])
+def test_column_medians_equal_numpy_median(S):
+    """Each column's exact median (the mean of the two middle values when S is even) equals
+    ``numpy.median(axis=0)``; widths around the transpose's block of columns, ranks and floats."""
+    from ratescape.decide.rank_kernel import column_medians
+    rng = np.random.default_rng(S)
+    for W in (1, 63, 64, 65, 200):
+        ranks = rng.integers(1, 1000, size=(S, W)).astype(np.uint32)
+        ranks[:, :3] = 7                                             # constant columns
+        np.testing.assert_array_equal(column_medians(ranks), np.median(ranks, axis=0))
+        work = np.empty(S * W + 5, dtype=np.uint32)                 # a larger reused buffer
+        out = np.empty(W)
+        assert column_medians(ranks, out=out, work=work) is out
+        np.testing.assert_array_equal(out, np.median(ranks, axis=0))
+        floats = rng.normal(size=(S, W))
+        np.testing.assert_array_equal(column_medians(floats), np.median(floats, axis=0))
+    with pytest.raises(ValueError, match="work must hold"):
+        column_medians(np.ones((S, 3), dtype=np.uint32), work=np.empty(1, dtype=np.uint32))

@@ -26,7 +26,7 @@ from . import __version__
 from .errors import RunError
 from .evaluate.irr import _STATUS_LABELS, irr_roots
 from .evaluate.compiled import column_summaries, index_and_fixed_investment
-from .decide.rank_kernel import BaseOrdering, RankTally, mean_ranks, rank_rows, ranks_and_tau
+from .decide.rank_kernel import BaseOrdering, RankTally, column_medians, mean_ranks, rank_rows, ranks_and_tau
 from .decide.sensitivity import SensitivitySettings, one_at_a_time
 from .evaluate.kernel import (ROLES, LineClass, capital_recovery_factor, discount_tensor,
                               present_worth_scenario_major, scenario_major_tensor, then_current_streams)
@@ -788,15 +788,13 @@ def rank_statistics(con, plan: Plan):
 
         def chunk_median(chunk):
             # each thread reads a chunk's (S, width) ranks into its own buffers, lays them out
-            # project-major and partitions in place (no fresh pages per chunk)
+            # project-major (blocked transpose) and partitions in place (no fresh pages per chunk)
             if not hasattr(local, "ranks"):
                 local.ranks = np.empty(S * plan.chunk_size, dtype=np.uint32)
                 local.by_project = np.empty(S * plan.chunk_size, dtype=np.uint32)
             first, chunk_ranks = files.read(chunk, out=local.ranks)
             width = chunk_ranks.shape[1]
-            by_project = local.by_project[: S * width].reshape(width, S)
-            np.copyto(by_project, chunk_ranks.T)
-            median[first:first + width] = np.median(by_project, axis=1, overwrite_input=True)
+            column_medians(chunk_ranks, out=median[first:first + width], work=local.by_project)
 
         with ThreadPoolExecutor(max_workers=2) as pool:   # NumPy's partition releases the GIL
             list(pool.map(chunk_median, range(files.chunk_count)))

@@ -229,100 +229,114 @@ def ranks_and_tau(values, base: BaseOrdering):
 
 
 @njit(cache=True, nogil=True)
-def _keys(values, keys):
-    """keys = -values, NaN -> +inf, -0.0 -> 0.0 (ascending keys = descending values)."""
-    B, P = values.shape
-    for b in range(B):
-        for p in range(P):
-            v = values[b, p]
-            keys[b, p] = np.inf if np.isnan(v) else (0.0 if v == 0.0 else -v)
+def _key(v):
+    """The ascending sort key of a value: -v, NaN -> +inf, -0.0 -> 0.0 (descending values first)."""
+    return np.inf if np.isnan(v) else (0.0 if v == 0.0 else -v)
 
 
 @njit(cache=True, nogil=True)
-def _pack(bits_of_keys, bits, packed):
-    """Order-preserving unsigned form of the float64 bit patterns; the low ``bits`` hold the index."""
-    B, P = bits_of_keys.shape
+def _pack(value_bits, bits, packed):
+    """Order-preserving signed form of each value's sort key (:func:`_key`), from the float64
+    bit patterns of the values, to be sorted as int64; the low ``bits`` hold the project index."""
+    B, P = value_bits.shape
     low = np.uint64((1 << bits) - 1)
     keep = ~low
     top = np.uint64(1) << np.uint64(63)
+    magnitude = ~top
+    exponent = np.uint64(0x7FF0000000000000)
     zero = np.uint64(0)
     sixty_three = np.uint64(63)
     for b in range(B):
         for p in range(P):
-            w = bits_of_keys[b, p]
-            flip = (zero - (w >> sixty_three)) | top       # negative: flip all bits; else the sign bit
-            packed[b, p] = ((w ^ flip) & keep) | np.uint64(p)
+            v = value_bits[b, p]
+            if (v & exponent) == exponent and (v & magnitude) != exponent:
+                w = exponent                                # NaN: the key is +inf
+            elif (v & magnitude) == zero:
+                w = zero                                    # +-0.0: the key is +0.0
+            else:
+                w = v ^ top                                 # the key is -v
+            flip = (zero - (w >> sixty_three)) | top        # negative: flip all bits; else the sign bit
+            # ... then the sign bit flipped back: sorted as int64, which NumPy's SIMD sort
+            # handles faster than uint64 on AVX2 (no unsigned 64-bit compare there)
+            packed[b, p] = (((w ^ flip) & keep) | np.uint64(p)) ^ top
 
 
 _SHORT_RUN = 32              # longer runs of equal kept bits are ordered by a merge sort
 
 
 @njit(cache=True, nogil=True)
-def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, new, mean_rank, acc_min, acc_max, acc_top,
-            acc_nan, top_k):
-    """Order from the sorted packed integers (ordered exactly where the kept bits tie), then
-    competition ranks, and Spearman's rho against ``base_mean`` over ``valid`` projects.
+def _unpack(packed, values, bits, base_mean, valid, ranks, rho, order, acc_min, acc_max, acc_top, acc_nan, top_k):
+    """Competition ranks from the sorted packed integers (ordered exactly where the kept bits
+    tie), the tallies, and Spearman's rho against ``base_mean`` over ``valid`` projects.
 
-    Neighbours whose kept high bits differ are ordered and distinct without looking at their
-    values; only runs that agree in the kept bits are re-ordered exactly by ``keys`` (stable, so
-    ties keep the project order), by insertion sort when short, by merge sort otherwise.
+    Pass 1, in sorted order: a value whose kept high bits differ from both neighbours' is
+    distinct from every other, so its rank is its position and it is written straight to its
+    project (one random write into the row, which fits in cache). Only runs that agree in the
+    kept bits are re-ordered exactly by their keys (:func:`_key` of ``values``; stable, so ties
+    keep the project order), by insertion sort when short, by merge sort otherwise; ties among
+    them share the smallest rank. Pass 2, in project order (sequential reads only): the
+    tallies and Spearman's sums, taking each rank as its average place (the correction of tied
+    places was summed in pass 1).
     """
-    B, P = keys.shape
+    B, P = values.shape
     low = np.uint64((1 << bits) - 1)
     high_mask = ~low
+    # the kept high bits of the packed key of +inf (the key of NaN): exponent all ones (the
+    # sign bit is flipped twice); no finite key shares them while bits <= 52
+    nan_high = np.uint64(0x7FF0000000000000) & high_mask
     with_rho = base_mean.size == P
     with_acc = acc_min.size == P
     for b in range(B):
+        cx = 0.0          # sum of (average place - smallest place) and the matching second-order
+        cxx = 0.0         # terms over valid tied projects: Spearman uses average places
+        cxy = 0.0
         k = 0
         while k < P:                                    # runs of equal kept bits, in sorted order
             high = packed[b, k] & high_mask
             e = k + 1
             while e < P and (packed[b, e] & high_mask) == high:
                 e += 1
+            if e - k == 1:                              # distinct from every other value
+                p = np.int64(packed[b, k] & low)
+                ranks[b, p] = np.uint32(k + 1)
+                if with_acc and high == nan_high:
+                    acc_nan[p] = True
+                k = e
+                continue
             for t in range(k, e):
                 order[t] = np.int64(packed[b, t] & low)
-            new[k] = True
-            if e - k > 1:                               # values within the dropped bits: order exactly
-                if e - k <= _SHORT_RUN:                 # insertion sort, stable (index order on ties)
-                    for t in range(k + 1, e):
-                        o = order[t]
-                        key = keys[b, o]
-                        j = t - 1
-                        while j >= k and keys[b, order[j]] > key:
-                            order[j + 1] = order[j]
-                            j -= 1
-                        order[j + 1] = o
-                else:
-                    run_keys = np.empty(e - k)
-                    for t in range(k, e):
-                        run_keys[t - k] = keys[b, order[t]]
-                    run_order = order[k:e][np.argsort(run_keys, kind="mergesort")]
-                    order[k:e] = run_order
+            if e - k <= _SHORT_RUN:                     # insertion sort, stable (index order on ties)
                 for t in range(k + 1, e):
-                    new[t] = keys[b, order[t]] != keys[b, order[t - 1]]
+                    o = order[t]
+                    key = _key(values[b, o])
+                    j = t - 1
+                    while j >= k and _key(values[b, order[j]]) > key:
+                        order[j + 1] = order[j]
+                        j -= 1
+                    order[j + 1] = o
+            else:
+                run_keys = np.empty(e - k)
+                for t in range(k, e):
+                    run_keys[t - k] = _key(values[b, order[t]])
+                run_order = order[k:e][np.argsort(run_keys, kind="mergesort")]
+                order[k:e] = run_order
+            start = k
+            for t in range(k, e + 1):                   # tie groups within the run
+                if t == e or (t > start and _key(values[b, order[t]]) != _key(values[b, order[start]])):
+                    rank = np.uint32(start + 1)
+                    shift = (t - start - 1) / 2.0       # average place - smallest place
+                    x = start + 1.0
+                    for u in range(start, t):
+                        q = order[u]
+                        ranks[b, q] = rank
+                        if with_acc and _key(values[b, q]) == np.inf:
+                            acc_nan[q] = True
+                        if with_rho and shift > 0.0 and valid[q]:
+                            cx += shift
+                            cxx += (x + shift) * (x + shift) - x * x
+                            cxy += shift * base_mean[q]
+                    start = t
             k = e
-        # ranks by position, scattered to the projects (two random writes per project), as if
-        # there were no ties; then the rare runs of ties are given their shared ranks ...
-        ties = False
-        for k in range(P):
-            p = order[k]
-            ranks[b, p] = np.uint32(k + 1)
-            mean_rank[p] = k + 1.0
-            if not new[k]:
-                ties = True
-        if ties:
-            start = 0
-            for k in range(1, P + 1):
-                if k == P or new[k]:
-                    if k - start > 1:
-                        mean = (start + k - 1) / 2.0 + 1.0
-                        rank = np.uint32(start + 1)
-                        for t in range(start, k):
-                            p = order[t]
-                            ranks[b, p] = rank
-                            mean_rank[p] = mean
-                    start = k
-        # ... then the tallies and Spearman's sums in project order (sequential reads only)
         n = 0.0
         sx = 0.0
         sy = 0.0
@@ -330,18 +344,16 @@ def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, new, mean_r
         syy = 0.0
         sxy = 0.0
         for p in range(P):
+            rank = ranks[b, p]
             if with_acc:
-                rank = ranks[b, p]
                 if rank < acc_min[p]:
                     acc_min[p] = rank
                 if rank > acc_max[p]:
                     acc_max[p] = rank
                 if rank <= top_k:
                     acc_top[p] += 1
-                if keys[b, p] == np.inf:
-                    acc_nan[p] = True
             if with_rho and valid[p]:
-                x = mean_rank[p]
+                x = float(rank)
                 y = base_mean[p]
                 n += 1.0
                 sx += x
@@ -351,10 +363,13 @@ def _unpack(packed, keys, bits, base_mean, valid, ranks, rho, order, new, mean_r
                 sxy += x * y
         rho[b] = np.nan
         if with_rho and n >= 2.0:
-            cxx = sxx - sx * sx / n
+            sx += cx
+            sxx += cxx
+            sxy += cxy
+            cxx_ = sxx - sx * sx / n
             cyy = syy - sy * sy / n
-            if cxx > 0.0 and cyy > 0.0:
-                r = (sxy - sx * sy / n) / np.sqrt(cxx * cyy)
+            if cxx_ > 0.0 and cyy > 0.0:
+                r = (sxy - sx * sy / n) / np.sqrt(cxx_ * cyy)
                 rho[b] = min(1.0, max(-1.0, r))
 
 
@@ -377,11 +392,10 @@ def _work_buffers(rows: int, P: int):
     """This thread's scratch arrays, reused between calls (fresh pages are costly to fault in)."""
     cached = getattr(_LOCAL, "buffers", None)
     if cached is None or cached[0].shape[1] != P or cached[0].shape[0] < rows:
-        cached = (np.empty((rows, P)), np.empty((rows, P), dtype=np.uint64), np.empty(P, dtype=np.int64),
-                  np.empty(P, dtype=np.bool_), np.empty(P))
+        cached = (np.empty((rows, P), dtype=np.uint64), np.empty(P, dtype=np.int64))
         _LOCAL.buffers = cached
-    keys, packed, order, new, mean_rank = cached
-    return keys[:rows], packed[:rows], order, new, mean_rank
+    packed, order = cached
+    return packed[:rows], order
 
 
 def mean_ranks(values):
@@ -404,21 +418,98 @@ def mean_ranks(values):
     return out
 
 
+_TRANSPOSE_COLUMNS = 64     # columns moved per pass: a 256-byte piece of each uint32 row
+
+
+@njit(cache=True, nogil=True)
+def _transpose(values, out):
+    """out[c, s] = values[s, c], a few columns at a time: each pass reads one short contiguous
+    piece of every row and writes that many output rows sequentially (NumPy's copy of a
+    transposed view reads a new row for every element: about 3x slower here)."""
+    S, W = values.shape
+    for c0 in range(0, W, _TRANSPOSE_COLUMNS):
+        c1 = min(W, c0 + _TRANSPOSE_COLUMNS)
+        for s in range(S):
+            for c in range(c0, c1):
+                out[c, s] = values[s, c]
+
+
+def column_medians(values, out=None, work=None):
+    """Exact median of each column of a scenario-major (S, W) array, e.g. each project's median
+    rank over the scenarios: float64 (W,), equal to ``np.median(values, axis=0)`` (the mean of
+    the two middle values when S is even).
+
+    The columns are laid out as rows by a blocked transpose into ``work`` (a reused buffer of at
+    least S * W items of the values' dtype, overwritten) and partitioned in place by NumPy
+    (introselect).
+    """
+    values = np.ascontiguousarray(values)
+    if values.ndim != 2:
+        raise ValueError(f"values must be 2-D (scenarios, columns), got shape {values.shape}")
+    S, W = values.shape
+    if work is None:
+        work = np.empty(S * W, dtype=values.dtype)
+    if work.dtype != values.dtype or work.size < S * W:
+        raise ValueError(f"work must hold at least {S * W} items of {values.dtype}")
+    by_column = work[: S * W].reshape(W, S)
+    if S and W:
+        _transpose(values, by_column)
+    result = np.median(by_column, axis=1, overwrite_input=True) if S else np.full(W, np.nan)
+    if out is None:
+        return np.asarray(result, dtype=float)
+    out[:] = result
+    return out
+
+
 class RankTally:
-    """Per-project running tallies over scenarios: lowest and highest rank, top-K count, any NaN."""
+    """Per-project running tallies over scenarios: lowest and highest rank, top-K count, any NaN.
+
+    Each thread that ranks rows into it keeps its own running arrays (made on its first rows
+    and kept across calls, so no fresh pages per block); reading ``min``, ``max``, ``top`` or
+    ``any_nan`` folds them together.
+    """
 
     def __init__(self, P: int, top_k: int):
-        self.min = np.full(P, np.iinfo(np.uint32).max, dtype=np.uint32)
-        self.max = np.zeros(P, dtype=np.uint32)
-        self.top = np.zeros(P, dtype=np.int64)
-        self.any_nan = np.zeros(P, dtype=np.bool_)
+        self.P = int(P)
         self.top_k = int(top_k)
+        self._threads = {}          # thread ident -> (min, max, top, any_nan) of that thread's rows
+        self._lock = threading.Lock()
 
-    def merge(self, other: "RankTally") -> None:
-        np.minimum(self.min, other.min, out=self.min)
-        np.maximum(self.max, other.max, out=self.max)
-        self.top += other.top
-        self.any_nan |= other.any_nan
+    def for_this_thread(self) -> tuple:
+        """The calling thread's running (min, max, top, any_nan) arrays."""
+        ident = threading.get_ident()
+        mine = self._threads.get(ident)
+        if mine is None:
+            mine = (np.full(self.P, np.iinfo(np.uint32).max, dtype=np.uint32), np.zeros(self.P, dtype=np.uint32),
+                    np.zeros(self.P, dtype=np.int64), np.zeros(self.P, dtype=np.bool_))
+            with self._lock:
+                self._threads[ident] = mine
+        return mine
+
+    def _fold(self, n: int, combine, empty):
+        parts = [t[n] for t in self._threads.values()]
+        if not parts:
+            return empty
+        out = parts[0].copy()
+        for part in parts[1:]:
+            combine(out, part, out=out)
+        return out
+
+    @property
+    def min(self) -> np.ndarray:
+        return self._fold(0, np.minimum, np.full(self.P, np.iinfo(np.uint32).max, dtype=np.uint32))
+
+    @property
+    def max(self) -> np.ndarray:
+        return self._fold(1, np.maximum, np.zeros(self.P, dtype=np.uint32))
+
+    @property
+    def top(self) -> np.ndarray:
+        return self._fold(2, np.add, np.zeros(self.P, dtype=np.int64))
+
+    @property
+    def any_nan(self) -> np.ndarray:
+        return self._fold(3, np.logical_or, np.zeros(self.P, dtype=np.bool_))
 
 
 _NO_TALLY = (np.empty(0, dtype=np.uint32), np.empty(0, dtype=np.uint32), np.empty(0, dtype=np.int64),
@@ -468,21 +559,18 @@ def rank_rows(values, base_mean_ranks=None, valid=None, *, out=None, tally: Rank
     bits = max(1, int(P - 1).bit_length())
 
     def part(lo, hi):          # compiled kernels and NumPy's sort release the GIL: rows in parallel
-        keys, packed, order, new, mean_rank = _work_buffers(hi - lo, P)
-        _keys(values[lo:hi], keys)
-        _pack(keys.view(np.uint64), bits, packed)
-        packed.sort(axis=1)
-        mine = RankTally(P, tally.top_k) if tally is not None else None
-        acc = (mine.min, mine.max, mine.top, mine.any_nan) if mine is not None else _NO_TALLY
-        _unpack(packed, keys, bits, base, mask, ranks[lo:hi], rho[lo:hi], order, new, mean_rank, *acc,
+        packed, order = _work_buffers(hi - lo, P)
+        _pack(values[lo:hi].view(np.uint64), bits, packed)
+        packed.view(np.int64).sort(axis=1)
+        acc = tally.for_this_thread() if tally is not None else _NO_TALLY
+        _unpack(packed, values[lo:hi], bits, base, mask, ranks[lo:hi], rho[lo:hi], order, *acc,
                 tally.top_k if tally is not None else 0)
-        return mine
 
     # a few parts per thread: when another thread of the process (a writer) takes a core for a
     # while, the other rank thread takes the remaining parts instead of waiting at the end
     cuts = np.linspace(0, B, min(B, _PARTS_PER_THREAD * _THREADS) + 1).astype(int)
-    parts = [part(0, B)] if len(cuts) <= 2 else list(_pool().map(lambda ab: part(*ab), zip(cuts[:-1], cuts[1:])))
-    if tally is not None:
-        for mine in parts:
-            tally.merge(mine)
+    if len(cuts) <= 2:
+        part(0, B)
+    else:
+        list(_pool().map(lambda ab: part(*ab), zip(cuts[:-1], cuts[1:])))
     return ranks, rho
