@@ -361,15 +361,10 @@ def worth_index_and_investment(plan: Plan, A_by_role: np.ndarray, buffers: dict 
     return pw, pi, fixed
 
 
-def worth_and_index(plan: Plan, A_by_role: np.ndarray, buffers: dict | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """Present worth and profitability index (S, P) of a chunk (see :func:`worth_index_and_investment`)."""
-    return worth_index_and_investment(plan, A_by_role, buffers)[:2]
-
-
 def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray, buffers: dict | None = None) -> dict:
     """Pure evaluation of one chunk: present worth and PI (S, P), summaries, IRRs, sensitivity.
 
-    ``buffers``: see :func:`worth_and_index` (the in-process evaluator reuses them; a chunk's
+    ``buffers``: see :func:`worth_index_and_investment` (the in-process evaluator reuses them; a chunk's
     worth matrices are written to its worth files before the next chunk is evaluated)."""
     cols = plan.scenarios.columns
     A = A_by_role.sum(axis=0)
@@ -577,7 +572,8 @@ def chunk_tables(plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out:
         "present_worth": _floats(sens["spider"].ravel()),
     })
     if plan.scratch is not None:                 # before the summaries commit: such a chunk has its files
-        plan.scratch.write(chunk_index, out["pw"], out["pi"], out["pw_before_tax"])
+        plan.scratch.write(chunk_index, out["pw"], out["pi"], out["pw_before_tax"],
+                           investment=out["summary"]["investment_worth"])
     return ChunkTables({"sensitivity": sens_table, "spider": spider_table, "project_summary": summary,
                         "irr_results": irr_table, "irr_roots": roots_table}, P)
 
@@ -640,7 +636,8 @@ class RowColumns:
         columns = {"scenario_key": pa.array(scenario_key), "project_key": pa.array(project_key)}
         for column, measure in (("present_worth", "pw"), ("profitability_index", "pi"),
                                 ("present_worth_before_tax", BEFORE_TAX)):
-            if measure not in scratch.measures or (measure == "pi" and derived.all()):
+            if measure not in scratch.measures or (measure == "pi" and (derived.all()
+                                                                       or not scratch.stores_index(chunk_index))):
                 continue                       # every PI of the chunk derived: the column stays NULL
             buffer = self.values.setdefault(measure, np.empty(self.cells))[:n]
             if self.all_kept:
@@ -682,12 +679,13 @@ KENDALL_MAX_PROJECTS = 10_000
 
 
 def scratch_worths(plan: Plan, A_by_role: np.ndarray) -> tuple:
-    """The matrices a chunk's worth files hold: PW, PI and (after tax) the before-tax PW, each (S, P)."""
-    pw, pi = worth_and_index(plan, A_by_role)
+    """What a chunk's worth files hold: PW, PI and (after tax) the before-tax PW, each (S, P),
+    and the fixed investment PW per project (P,) (see :meth:`WorthScratch.write`)."""
+    pw, pi, fixed = worth_index_and_investment(plan, A_by_role)
     before = None
     if plan.tensor_before_tax_sm is not None:
         before = present_worth_scenario_major(A_by_role.sum(axis=0), plan.tensor_before_tax_sm)
-    return pw, pi, before
+    return pw, pi, before, fixed
 
 
 def _ensure_scratch(con, plan: Plan, chunks=None) -> None:
@@ -700,7 +698,8 @@ def _ensure_scratch(con, plan: Plan, chunks=None) -> None:
         first = c * plan.chunk_size
         stop = min(first + plan.chunk_size, plan.project_count)
         A_by_role, _, _ = _chunk_amounts(con, plan, first, stop)
-        plan.scratch.write(c, *scratch_worths(plan, A_by_role))
+        pw, pi, before, fixed = scratch_worths(plan, A_by_role)
+        plan.scratch.write(c, pw, pi, before, investment=fixed)
 
 
 def rank_statistics(con, plan: Plan):
@@ -743,8 +742,8 @@ def rank_statistics(con, plan: Plan):
 
     def load(n):
         a, b = blocks[n]
-        for name in names:
-            plan.scratch.read_block(name, a, b, out=buffers[n % 2][name][0])
+        worth = plan.scratch.read_block("pw", a, b, out=buffers[n % 2]["pw"][0])
+        plan.scratch.read_block("pi", a, b, out=buffers[n % 2]["pi"][0], worth=worth)   # derived from PW
 
     def store(n):
         a, b = blocks[n]
