@@ -18,6 +18,7 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from datetime import datetime, timezone
 
+import duckdb
 import numpy as np
 import polars as pl
 import pyarrow as pa
@@ -845,7 +846,17 @@ def _finalize(con, plan: Plan, writer: "ChunkWriter | None" = None, reader=None)
         con.execute("UPDATE runs SET status = 'done', finished_at = ?, message = NULL WHERE run_id = ?",
                     [_now(), plan.run_id])
     log(f"decisions and summaries stored in {time.perf_counter() - t0:.1f} s")
-    plan.scratch.remove()
+    # The run is done: its worth files are deleted (freeing gigabytes of cached pages takes the
+    # kernel a second or two) while DuckDB checkpoints the run into the database file, which
+    # closing the connection would otherwise do afterwards.
+    removing = threading.Thread(target=plan.scratch.remove, name="ratescape-scratch-remove")
+    removing.start()
+    try:
+        con.execute("CHECKPOINT")
+    except duckdb.Error:
+        pass                            # e.g. another transaction open: the close checkpoints instead
+    finally:
+        removing.join()
 
 
 def run_decisions(con, plan: Plan) -> None:
