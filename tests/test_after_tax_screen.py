@@ -110,6 +110,19 @@ def test_before_tax_worth_is_stored_beside_and_equals_a_before_tax_run(db):
             continue   # financing flows are after-tax lines only; L's before-tax worth equals M's
         assert v == pytest.approx(plain[(p, i, f, None)], rel=1e-12)
         assert bt[("L", i, f, _t)] == pytest.approx(v if p == "M" else bt[("L", i, f, _t)], rel=1e-12)
+    # every project has one outlay at time 0, so every PI is derived: the after-tax rows sit in
+    # the table without a PI column (no empty column stored), the before-tax run's in PW only
+    con = duckdb.connect(str(db), read_only=True)
+    try:
+        counts = {(table, run): con.execute(f"""SELECT count(*) FROM {table} x JOIN scenarios s USING (scenario_key)
+                                                WHERE s.run_id = ?""", [run]).fetchone()[0]
+                  for table in ("result_rows_pw", "result_rows_after_tax", "result_rows_full")
+                  for run in (after, before)}
+    finally:
+        con.close()
+    assert counts == {("result_rows_pw", after): 0, ("result_rows_after_tax", after): 3 * 12,
+                      ("result_rows_full", after): 0, ("result_rows_pw", before): 3 * 12,
+                      ("result_rows_after_tax", before): 0, ("result_rows_full", before): 0}
 
 
 def test_inflation_erodes_the_depreciation_shield_at_a_fixed_real_rate(db):

@@ -188,7 +188,7 @@ def test_resume_stores_the_rows_of_summarised_chunks(db):
     try:          # undo the rows of chunks 1 and 3, as if the process had died before storing them
         keys = "SELECT scenario_key FROM scenarios WHERE run_id = ?"
         for chunk in (1, 3):
-            for table in ("result_rows_pw", "result_rows_full"):
+            for table in ("result_rows_pw", "result_rows_after_tax", "result_rows_full"):
                 con.execute(f"DELETE FROM {table} WHERE scenario_key IN ({keys}) AND project_key BETWEEN ? AND ?",
                             [part, 4 * chunk, 4 * chunk + 3])
             con.execute("DELETE FROM run_chunks WHERE run_id = ? AND chunk_index = ?", [part, chunk])
@@ -412,6 +412,7 @@ def test_a_database_from_before_investment_worth_is_migrated_in_place(db):
         con.execute("DROP VIEW results")
         con.execute("DROP VIEW result_rows")
         con.execute("DROP TABLE result_rows_pw")
+        con.execute("DROP TABLE result_rows_after_tax")
         con.execute("DROP TABLE result_rows_full")
         con.execute("ALTER TABLE old_rows RENAME TO result_rows")
         con.execute("ALTER TABLE project_summary DROP COLUMN investment_worth")
@@ -434,3 +435,25 @@ def test_a_database_from_before_investment_worth_is_migrated_in_place(db):
     again = screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5")
     assert sorted(fetch(db, "SELECT project_id, scenario_id, profitability_index FROM results WHERE run_id = ?",
                         [again])) == want
+
+def test_a_database_from_before_the_after_tax_table_gains_it_on_the_next_write(db):
+    """A database whose result_rows view reads two tables (written before result_rows_after_tax)
+    gets the table and the three-table view on its next write; its rows read the same."""
+    from ratescape.store.database import connect_write
+    run_id = screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5")
+    want = sorted(fetch(db, "SELECT * FROM result_rows"))
+    con = duckdb.connect(str(db))
+    try:
+        con.execute("DROP TABLE result_rows_after_tax")
+        con.execute("""CREATE OR REPLACE VIEW result_rows AS
+            SELECT scenario_key, project_key, present_worth, CAST(NULL AS DOUBLE) AS profitability_index,
+                   CAST(NULL AS DOUBLE) AS present_worth_before_tax FROM result_rows_pw
+            UNION ALL SELECT scenario_key, project_key, present_worth, profitability_index,
+                   present_worth_before_tax FROM result_rows_full""")
+    finally:
+        con.close()
+    assert sorted(fetch(db, "SELECT * FROM result_rows")) == want
+    connect_write(db).close()
+    assert "result_rows_after_tax" in fetch(db, "SELECT sql FROM duckdb_views() WHERE view_name = 'result_rows'")[0][0]
+    assert sorted(fetch(db, "SELECT * FROM result_rows")) == want
+    assert fetch(db, "SELECT count(*) FROM results WHERE run_id = ?", [run_id])[0][0] == len(want)

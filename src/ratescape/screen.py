@@ -617,9 +617,8 @@ class RowColumns:
 
         With ``con``, the PI of projects whose investment is the same in every scenario
         (``project_summary.investment_worth``, committed in the chunk's stage 1) is left NULL: the
-        ``results`` view derives it exactly as 1 + PW / investment_worth. A chunk whose every PI
-        is derived and that has no before-tax PW goes to ``result_rows_pw`` (present worth only);
-        any other to ``result_rows_full``.
+        ``results`` view derives it exactly as 1 + PW / investment_worth. The rows go to the
+        narrowest ``result_rows_*`` table that holds their columns (see :func:`_result_table`).
         """
         scratch = self.plan.scratch
         width = scratch.chunk_width(chunk_index)
@@ -651,8 +650,16 @@ class RowColumns:
             if measure == "pi" and np.isnan(buffer).all():
                 continue                       # derived, or projects without an investment: no PI
             columns[column] = pa.array(buffer, from_pandas=measure == "pi")     # PI: NaN -> NULL
-        target = "result_rows_pw" if len(columns) == 3 else "result_rows_full"
-        return target, pa.table(columns)
+        return _result_table(set(columns)), pa.table(columns)
+
+
+def _result_table(columns: set) -> str:
+    """The physical table for result rows with these columns: every PI derived (no PI column)
+    goes to ``result_rows_pw``, or after tax ``result_rows_after_tax``; a stored PI to
+    ``result_rows_full``. An all-NULL column would cost DuckDB as much as one of values."""
+    if "profitability_index" in columns:
+        return "result_rows_full"
+    return "result_rows_after_tax" if "present_worth_before_tax" in columns else "result_rows_pw"
 
 
 def _write_result_rows(con, plan: Plan, chunk_index: int, first: int, target: str, rows: pa.Table,

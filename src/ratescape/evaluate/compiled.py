@@ -287,3 +287,33 @@ def column_summaries(present_worth, weights) -> dict:
     out["pw_mean"] = out.pop("total") / S if S else np.full(P, np.nan)
     out["accept_share"] = out.pop("accepted") / S if S else np.full(P, np.nan)
     return out
+
+
+@njit(cache=True, nogil=True)
+def _class_weighted_streams(amounts, growth, out):
+    C, P, T = amounts.shape
+    F = growth.shape[1]
+    for f in range(F):
+        for p in range(P):
+            for t in range(T):
+                acc = 0.0
+                for c in range(C):
+                    acc += amounts[c, p, t] * growth[c, f, t]
+                out[f, p, t] = acc
+
+
+def class_weighted_streams(amounts, growth) -> np.ndarray:
+    """out[f, p, t] = sum_c amounts[c, p, t] * growth[c, f, t]: (C, P, T), (C, F, T) -> (F, P, T).
+
+    Then-current streams at F inflation levels from amounts by line class and each class's growth
+    factors, in one pass that writes the result once (NumPy's ``out += amounts[c] * growth[c]``
+    makes a full-size temporary per class). The classes are summed in order from 0.0, as that
+    NumPy loop does, so the two agree bit for bit.
+    """
+    A = np.ascontiguousarray(amounts, dtype=float)
+    g = np.ascontiguousarray(growth, dtype=float)
+    if A.ndim != 3 or g.ndim != 3 or g.shape[0] != A.shape[0] or g.shape[2] != A.shape[2]:
+        raise ValueError(f"amounts (C, P, T) {A.shape} and growth (C, F, T) {g.shape} do not match")
+    out = np.empty((g.shape[1], A.shape[1], A.shape[2]))
+    _class_weighted_streams(A, g, out)
+    return out

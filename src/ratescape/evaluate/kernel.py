@@ -239,11 +239,12 @@ def then_current_streams(amounts: np.ndarray, classes: Sequence[LineClass], expo
     Real lines grow by ((1 + e)(1 + f))^tau; nominal lines stay fixed.
     Multipliers, when given, are (F,) values per inflation level.
     """
+    from .compiled import class_weighted_streams
     A = np.asarray(amounts, dtype=float)
     f = _rates(np.atleast_1d(inflation), "inflation")
     tau = np.asarray(exponents, dtype=float)
     multipliers = dict(multipliers or {})
-    out = np.zeros((f.size, A.shape[1], A.shape[2]))
+    growth = np.empty((len(classes), f.size, tau.size))
     for c, cls in enumerate(classes):
         if cls.basis == "real":
             g = np.exp(np.multiply.outer(np.log1p(f) + np.log1p(cls.escalation), tau))  # (F, T)
@@ -251,8 +252,8 @@ def then_current_streams(amounts: np.ndarray, classes: Sequence[LineClass], expo
             g = np.ones((f.size, tau.size))
         if cls.multiplier != "one":
             g = g * multiplier_values(cls.multiplier, multipliers, f.shape)[:, None]
-        out += A[c][None, :, :] * g[:, None, :]
-    return out
+        growth[c] = g
+    return class_weighted_streams(A, growth)          # sum over classes, one pass
 
 
 def capital_recovery_factor(rate, years) -> np.ndarray:

@@ -47,6 +47,7 @@ TABLES = {
     # needs no run id; annual worth and acceptance are derived in the view.
     # * result_rows_pw: a chunk whose every PI is derived (see `results`) and that has no
     #   before-tax PW stores its rows here, present worth only;
+    # * result_rows_after_tax: the same after tax, with the before-tax PW;
     # * result_rows_full: every other chunk, with its PI and before-tax PW (NULL where absent).
     # Appending an all-NULL column costs DuckDB about as much as a column of values (measured:
     # two NULL columns took 1.46 instead of 0.83 CPU-s per 10 million rows), so the common case
@@ -58,6 +59,11 @@ TABLES = {
         scenario_key INTEGER NOT NULL USING COMPRESSION rle,
         project_key INTEGER NOT NULL USING COMPRESSION bitpacking,
         present_worth DOUBLE NOT NULL USING COMPRESSION alprd)""",
+    "result_rows_after_tax": """CREATE TABLE IF NOT EXISTS result_rows_after_tax (
+        scenario_key INTEGER NOT NULL USING COMPRESSION rle,
+        project_key INTEGER NOT NULL USING COMPRESSION bitpacking,
+        present_worth DOUBLE NOT NULL USING COMPRESSION alprd,
+        present_worth_before_tax DOUBLE NOT NULL USING COMPRESSION alprd)""",
     "result_rows_full": """CREATE TABLE IF NOT EXISTS result_rows_full (
         scenario_key INTEGER NOT NULL USING COMPRESSION rle,
         project_key INTEGER NOT NULL USING COMPRESSION bitpacking,
@@ -123,10 +129,14 @@ TABLES = {
 
 VIEWS = {
     # Every stored result row, whichever physical table holds it (see result_rows_pw above).
+    # (A view without result_rows_after_tax, from before that table, is replaced.)
     "result_rows": """CREATE OR REPLACE VIEW result_rows AS
         SELECT scenario_key, project_key, present_worth, CAST(NULL AS DOUBLE) AS profitability_index,
                CAST(NULL AS DOUBLE) AS present_worth_before_tax
         FROM result_rows_pw
+        UNION ALL
+        SELECT scenario_key, project_key, present_worth, CAST(NULL AS DOUBLE), present_worth_before_tax
+        FROM result_rows_after_tax
         UNION ALL
         SELECT scenario_key, project_key, present_worth, profitability_index, present_worth_before_tax
         FROM result_rows_full""",
@@ -171,7 +181,8 @@ def create_schema(con) -> None:
         con.execute("ALTER TABLE project_summary ADD COLUMN investment_worth DOUBLE")
     views = dict(con.execute("SELECT view_name, sql FROM duckdb_views() WHERE NOT internal").fetchall())
     for name, ddl in VIEWS.items():
-        if name not in views or (name == "results" and "investment_worth" not in views[name]):
+        if (name not in views or (name == "results" and "investment_worth" not in views[name])
+                or (name == "result_rows" and "result_rows_after_tax" not in views[name])):
             con.execute(ddl)
     con.execute("INSERT OR REPLACE INTO meta VALUES ('schema_version', ?)", [str(SCHEMA_VERSION)])
 
