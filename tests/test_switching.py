@@ -172,3 +172,60 @@ def test_raising_discount_rate_never_raises_pw_of_conventional_investment(case):
         reference = npf.irr(flows[0])
         if np.isfinite(reference):
             assert res.value == pytest.approx(reference, abs=1e-9)
+
+
+def _invented_chunk(seed, P=300, T=25):
+    """Invented projects by role and class: outlays at 0 and 1, benefits and costs over the
+    horizon, some with a late outlay (two crossings of zero in the discount rate)."""
+    from ratescape.evaluate.kernel import LineClass
+    rng = np.random.default_rng(seed)
+    classes = [LineClass("nominal", 0.0), LineClass("real", 0.0), LineClass("real", 0.03),
+               LineClass("nominal", 0.0, "tax")]
+    A = np.zeros((3, len(classes), P, T))
+    A[0, 0, :, 0] = -rng.uniform(50, 500, P)
+    A[0, 1, :, 1] = -rng.uniform(0, 100, P)
+    A[1, 1, :, 1:] = rng.uniform(5, 60, (P, 1)) * (rng.random((P, T - 1)) < 0.9)
+    A[1, 2, :, 2:] = rng.uniform(0, 20, (P, 1))
+    A[2, 1, :, 1:] = -rng.uniform(0, 15, (P, 1))
+    A[2, 3, :, 1:6] = rng.normal(0, 10, (P, 5))
+    late = rng.random(P) < 0.2
+    A[0, 0, late, T - 1] = -rng.uniform(200, 900, late.sum())          # a closing cost: two crossings
+    return A, classes
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_compiled_root_search_equals_scipys_find_root(seed, monkeypatch):
+    """The compiled per-project Chandrupatla search of the rate inputs' switching values gives
+    the same crossings, values and statuses as SciPy's vectorised find_root (the reference, on
+    the same point worth), to the search's tolerance."""
+    import ratescape.decide.sensitivity as sensitivity
+    from ratescape.decide.sensitivity import SensitivitySettings, one_at_a_time
+    from ratescape.evaluate.timing import discount_exponents
+    A, classes = _invented_chunk(seed)
+    settings_ = SensitivitySettings.from_spec({}, [0.0, 0.2], [0.0, 0.1])
+    args = (A, classes, discount_exponents(A.shape[3]), 0.08, 0.03, settings_, {"tax": 0.3})
+    compiled = one_at_a_time(*args)
+    real = sensitivity.switching_value
+    monkeypatch.setattr(sensitivity, "switching_value", lambda *a, **k: real(*a, **dict(k, roots_fn=None)))
+    reference = one_at_a_time(*args)
+    np.testing.assert_array_equal(compiled["switching_status"], reference["switching_status"])
+    assert (compiled["switching_status"] == SWITCH_SEVERAL).any() and (compiled["switching_status"] == SWITCH_ONE).any()
+    np.testing.assert_allclose(compiled["switching_value"], reference["switching_value"], rtol=1e-12, atol=1e-13)
+    np.testing.assert_allclose(compiled["switching_change"], reference["switching_change"], rtol=1e-10, atol=1e-12)
+
+
+def test_compiled_root_search_finds_the_irr_of_numpy_financial():
+    """For the discount rate, the crossing is the IRR (numpy-financial ``irr``, reference)."""
+    from ratescape.evaluate.compiled import MOVE_DISCOUNT_RATE
+    from ratescape.evaluate.kernel import LineClass, PointEvaluator
+    from ratescape.evaluate.timing import discount_exponents
+    flows = np.array([[-1000.0, 300, 400, 500, 200], [-500.0, 100, 150, 200, 250]])
+    A = np.zeros((3, 1, 2, 5))
+    A[1, 0] = flows                                            # one nominal class, roles irrelevant here
+    ev = PointEvaluator(A, [LineClass("nominal", 0.0)], discount_exponents(5))
+    got = ev.roots_between(MOVE_DISCOUNT_RATE, np.array([0, 1]), np.array([0.0, 0.0]), np.array([0.5, 0.5]),
+                           discount_rate=0.1, inflation=0.0, xatol=1e-15)
+    np.testing.assert_allclose(got, [npf.irr(f) for f in flows], rtol=1e-12)
+    none = ev.roots_between(MOVE_DISCOUNT_RATE, np.array([0]), np.array([0.3]), np.array([0.5]),
+                            discount_rate=0.1, inflation=0.0)
+    assert np.isnan(none[0])                                   # no sign change in the bracket

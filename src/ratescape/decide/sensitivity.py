@@ -12,7 +12,9 @@ data (worth at the low and high end of each input's range) and spider data
 * ``escalation``: shift added to every real line's escalation [fraction per year].
 
 Multipliers are linear, so their switching values are closed-form; the rates
-are root-found (vectorised bracketing, :func:`ratescape.decide.switching.switching_value`).
+are bracketed by a scan (:func:`ratescape.decide.switching.switching_value`) and each
+crossing root-found by a compiled per-project search
+(:meth:`ratescape.evaluate.kernel.PointEvaluator.roots_between`).
 
 References
 ----------
@@ -26,6 +28,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..evaluate.compiled import MOVE_DISCOUNT_RATE, MOVE_ESCALATION, MOVE_INFLATION
 from ..evaluate.kernel import PointEvaluator
 from .switching import SWITCH_AT_BASE, SWITCH_NONE, SWITCH_ONE, first_cost_switching_multiplier, \
     linear_switching_multiplier, switching_value
@@ -106,6 +109,10 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
         "inflation": lambda v, j: pw_rows(j, inflation=v),
         "escalation": lambda v, j: pw_rows(j, escalation_shift=v),
     }
+    moves = {"discount_rate": MOVE_DISCOUNT_RATE, "inflation": MOVE_INFLATION, "escalation": MOVE_ESCALATION}
+    roots_fns = {name: (lambda rows, a, b, xatol, move=move: evaluate.roots_between(
+        move, rows, a, b, discount_rate=base_rate, inflation=base_inflation, xatol=xatol))
+        for name, move in moves.items()}
     scan_fns = {
         "discount_rate": lambda v: evaluate.at_shared_points(v, np.full(v.shape, base_inflation)),
         "inflation": lambda v: evaluate.at_shared_points(np.full(v.shape, base_rate), v),
@@ -143,7 +150,8 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
             values = b * (1.0 + pct)
         else:
             lo, hi = DEFAULT_SEARCH[name]
-            res = switching_value(fns[name], np.full(P, b), lo, hi, rows_fn=rows_fns[name], scan_fn=scan_fns[name])
+            res = switching_value(fns[name], np.full(P, b), lo, hi, rows_fn=rows_fns[name], scan_fn=scan_fns[name],
+                                  roots_fn=roots_fns[name])
             out["switching_value"][n] = res.value
             out["switching_status"][n] = res.status
             if name == "escalation":

@@ -80,7 +80,7 @@ def _call(worth_fn, vals, n):
     return w
 
 
-def switching_value(worth_fn, base, low, high, *, n_scan=65, rows_fn=None, scan_fn=None):
+def switching_value(worth_fn, base, low, high, *, n_scan=65, rows_fn=None, scan_fn=None, roots_fn=None):
     """Value of one input, within [low, high], at which worth crosses zero.
 
     Parameters
@@ -103,6 +103,11 @@ def switching_value(worth_fn, base, low, high, *, n_scan=65, rows_fn=None, scan_
         ``scan_fn(values (K,)) -> (P, K)``: the worth of every project at each of K values shared
         by all projects. When given and ``low`` and ``high`` are the same for every project, the
         scan is one call instead of ``n_scan``.
+    roots_fn : callable, optional
+        ``roots_fn(rows (J,), a (J,), b (J,), xatol) -> (J,)``: the crossing of each project
+        ``rows`` within its bracket [a, b], to ``|x| * 4 eps + xatol``, NaN where the bracket holds
+        no sign change. When given it replaces SciPy's vectorised Chandrupatla search (e.g. a
+        compiled one on the same worth, :meth:`ratescape.evaluate.kernel.PointEvaluator.roots_between`).
 
     Returns
     -------
@@ -193,6 +198,9 @@ def switching_value(worth_fn, base, low, high, *, n_scan=65, rows_fn=None, scan_
             # absolute tolerance at the rounding level of the input's scale: a crossing at or near
             # zero is not chased down to the smallest normal number (about a thousand bisections)
             xatol = 4.0 * np.finfo(float).eps * max(1.0, float(np.max(np.abs(grid[idx]))))
+            if roots_fn is not None:
+                crossings[idx, r] = roots_fn(idx, grid[idx, k], grid[idx, k + 1], xatol)
+                continue
             res = _elementwise.find_root(f, (grid[idx, k], grid[idx, k + 1]), args=(idx.astype(float),),
                                          tolerances={"xatol": xatol})
             crossings[idx, r] = res.x

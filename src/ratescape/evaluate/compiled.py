@@ -13,24 +13,37 @@ _ANCHOR = 32
 
 
 @njit(cache=True, nogil=True)
+def _geometric_sum(row, xp, tau, uniform_step):
+    """sum_t row[t] * exp(xp * tau[t]) (see :func:`weighted_exponential_sums`)."""
+    T = row.size
+    acc = 0.0
+    if uniform_step > 0.0:
+        q = np.exp(xp * uniform_step)
+        factor = 1.0
+        for t in range(T):
+            if t < 2 or (t % _ANCHOR) == 0:
+                factor = np.exp(xp * tau[t])
+            else:
+                factor *= q
+            acc += row[t] * factor
+    else:
+        for t in range(T):
+            acc += row[t] * np.exp(xp * tau[t])
+    return acc
+
+
+@njit(cache=True, nogil=True)
 def _weighted_geometric_sums(lines, x, tau, uniform_step, out):
     P, T = lines.shape
     for p in range(P):
-        xp = x[p]
-        acc = 0.0
-        if uniform_step > 0.0:
-            q = np.exp(xp * uniform_step)
-            factor = 1.0
-            for t in range(T):
-                if t < 2 or (t % _ANCHOR) == 0:
-                    factor = np.exp(xp * tau[t])
-                else:
-                    factor *= q
-                acc += lines[p, t] * factor
-        else:
-            for t in range(T):
-                acc += lines[p, t] * np.exp(xp * tau[t])
-        out[p] = acc
+        out[p] = _geometric_sum(lines[p], x[p], tau, uniform_step)
+
+
+def _uniform_step(tau) -> float:
+    """The spacing of tau from period 1 on when it is even and positive (a geometric sequence
+    of factors), else 0."""
+    steps = np.diff(tau[1:])
+    return float(steps[0]) if steps.size and np.all(steps == steps[0]) and steps[0] > 0 else 0.0
 
 
 def weighted_exponential_sums(lines, log_ratio, tau) -> np.ndarray:
@@ -46,10 +59,8 @@ def weighted_exponential_sums(lines, log_ratio, tau) -> np.ndarray:
     lines = np.ascontiguousarray(lines, dtype=float)
     x = np.ascontiguousarray(log_ratio, dtype=float)
     tau = np.ascontiguousarray(tau, dtype=float)
-    steps = np.diff(tau[1:])
-    uniform = float(steps[0]) if steps.size and np.all(steps == steps[0]) and steps[0] > 0 else 0.0
     out = np.empty(lines.shape[0])
-    _weighted_geometric_sums(lines, x, tau, uniform, out)
+    _weighted_geometric_sums(lines, x, tau, _uniform_step(tau), out)
     return out
 
 
@@ -316,4 +327,119 @@ def class_weighted_streams(amounts, growth) -> np.ndarray:
         raise ValueError(f"amounts (C, P, T) {A.shape} and growth (C, F, T) {g.shape} do not match")
     out = np.empty((g.shape[1], A.shape[1], A.shape[2]))
     _class_weighted_streams(A, g, out)
+    return out
+
+
+# Which input a root search moves (the others stay at the base point).
+MOVE_DISCOUNT_RATE, MOVE_INFLATION, MOVE_ESCALATION = 0, 1, 2
+
+
+@njit(cache=True, nogil=True)
+def _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x, rate, inflation, shift):
+    """Present worth of project p with one input moved to x: the per-project point worth of
+    :class:`ratescape.evaluate.kernel.PointEvaluator` (classes summed in order from 0.0)."""
+    if move == 0:
+        log_i = np.log1p(x)
+        log_f = np.log1p(inflation)
+        d = shift
+    elif move == 1:
+        log_i = np.log1p(rate)
+        log_f = np.log1p(x)
+        d = shift
+    else:
+        log_i = np.log1p(rate)
+        log_f = np.log1p(inflation)
+        d = x
+    total = 0.0
+    for c in range(lines.shape[0]):
+        log_g = np.log1p(escalation[c] + d) + log_f if real[c] else 0.0
+        total += _geometric_sum(lines[c, p], log_g - log_i, tau, uniform_step) * multiplier[c]
+    return total
+
+
+@njit(cache=True, nogil=True)
+def _bracketed_roots(lines, real, escalation, multiplier, tau, uniform_step, move, rate, inflation, shift,
+                     rows, low, high, xatol, xrtol, out):
+    """Chandrupatla's method per row, as SciPy's vectorised ``find_root`` runs it (same steps,
+    same termination tests), on the compiled point worth."""
+    fatol = 2.2250738585072014e-308                     # smallest normal, SciPy's default
+    for j in range(rows.size):
+        p = rows[j]
+        x1 = low[j]
+        x2 = high[j]
+        f1 = _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x1, rate, inflation, shift)
+        f2 = _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x2, rate, inflation, shift)
+        x3 = x2
+        f3 = f2
+        t = 0.5
+        result = np.nan
+        for it in range(2000):
+            if abs(f1) < abs(f2):
+                xmin, fmin = x1, f1
+            else:
+                xmin, fmin = x2, f2
+            if abs(fmin) <= fatol:
+                result = xmin
+                break
+            if np.sign(f1) == np.sign(f2) or not (np.isfinite(x1) and np.isfinite(x2)) \
+                    or (np.isnan(f1) and np.isnan(f2)):
+                break                                   # no sign change, or not finite: NaN
+            dx = abs(x2 - x1)
+            tol = abs(xmin) * xrtol + xatol
+            if dx < tol:
+                result = xmin
+                break
+            if it > 0:                                  # the first step bisects (t = 0.5)
+                xi1 = (x1 - x2) / (x3 - x2)
+                phi1 = (f1 - f2) / (f3 - f2)
+                alpha = (x3 - x1) / (x2 - x1)
+                if (1.0 - np.sqrt(1.0 - xi1)) < phi1 and phi1 < np.sqrt(xi1):
+                    t = (f1 / (f1 - f2) * f3 / (f3 - f2) - alpha * f1 / (f3 - f1) * f2 / (f2 - f3))
+                else:
+                    t = 0.5
+                tl = 0.5 * tol / dx
+                t = min(max(t, tl), 1.0 - tl)
+            x = x1 + t * (x2 - x1)
+            f = _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x, rate, inflation, shift)
+            if np.sign(f) == np.sign(f1):
+                x3, f3 = x1, f1
+            else:
+                x3, f3 = x2, f2
+                x2, f2 = x1, f1
+            x1, f1 = x, f
+        out[j] = result
+
+
+def bracketed_roots(lines, real, escalation, multiplier, tau, move, rate, inflation, shift, rows, low, high,
+                    xatol, xrtol=4 * np.finfo(float).eps) -> np.ndarray:
+    """Where each project's present worth crosses zero as one input moves within its bracket.
+
+    Parameters
+    ----------
+    lines : (C, P, T) amounts by line class [currency]; real (C,) bool, escalation (C,)
+        [fraction per year] and multiplier (C,) values of the classes; tau (T,) [years].
+    move : MOVE_DISCOUNT_RATE, MOVE_INFLATION or MOVE_ESCALATION (the input searched).
+    rate, inflation, shift : the base point (nominal rate, inflation [fraction per year],
+        escalation shift).
+    rows (J,), low (J,), high (J,) : the projects and their brackets (worth differs in sign).
+
+    Returns
+    -------
+    ndarray (J,): the input value at the crossing, to ``|x| * xrtol + xatol``; NaN where the
+    bracket holds no sign change.
+
+    References
+    ----------
+    T. R. Chandrupatla, "A new hybrid quadratic/bisection algorithm for finding the zero of a
+    nonlinear function without using derivatives", Advances in Engineering Software 28(3), 1997,
+    pp. 145-149; the steps and tests follow ``scipy.optimize.elementwise.find_root``, which the
+    tests use as the reference.
+    """
+    tau = np.ascontiguousarray(tau, dtype=float)
+    out = np.empty(np.size(rows))
+    _bracketed_roots(np.ascontiguousarray(lines, dtype=float), np.ascontiguousarray(real, dtype=np.bool_),
+                     np.ascontiguousarray(escalation, dtype=float), np.ascontiguousarray(multiplier, dtype=float),
+                     tau, _uniform_step(tau), int(move), float(rate), float(inflation), float(shift),
+                     np.ascontiguousarray(rows, dtype=np.int64), np.ascontiguousarray(low, dtype=float),
+                     np.ascontiguousarray(high, dtype=float), float(xatol), float(xrtol), out)
     return out

@@ -362,6 +362,22 @@ class PointEvaluator:
         with np.errstate(over="ignore", invalid="ignore"):
             return self._per_project(rows, i, f, shift, cm, bm)
 
+    def roots_between(self, move: int, rows, low, high, *, discount_rate: float, inflation: float,
+                      escalation_shift: float = 0.0, xatol: float = 0.0) -> np.ndarray:
+        """Where the worth of projects ``rows`` (J,) crosses zero as one input (``move``: one of
+        :data:`ratescape.evaluate.compiled.MOVE_DISCOUNT_RATE`, ``MOVE_INFLATION``,
+        ``MOVE_ESCALATION``) moves within [low, high] (J,), the others at the given base point
+        (multipliers at base); NaN where the bracket has no sign change. One compiled root search
+        per project (:func:`ratescape.evaluate.compiled.bracketed_roots`)."""
+        from .compiled import bracketed_roots
+        real = np.array([c.basis == "real" for c in self.classes])
+        escalation = np.array([c.escalation for c in self.classes], dtype=float)
+        multiplier = np.array([1.0 if c.multiplier == "one" else
+                               float(multiplier_values(c.multiplier, self.multipliers, (1,))[0]) for c in self.classes])
+        with np.errstate(over="ignore", invalid="ignore"):
+            return bracketed_roots(self.total, real, escalation, multiplier, self.tau, move, discount_rate, inflation,
+                                   escalation_shift, rows, low, high, xatol)
+
     def __call__(self, discount_rate, inflation, *, escalation_shift=0.0, cost_multiplier=1.0,
                  benefit_multiplier=1.0) -> np.ndarray:
         P = self.P
