@@ -466,6 +466,12 @@ def _annuity(ratio: float, life: int) -> float:
     return float(np.sum(ratio ** t))
 
 
+def _site_and_item(site: str, item: str) -> str:
+    """"Bulk quay" + "quay wall repair" -> "Bulk quay wall repair" (no doubled word)."""
+    last, (first, _, rest) = site.split()[-1], item.partition(" ")
+    return f"{site} {rest}" if rest and last.lower() == first.lower() else f"{site} {item}"
+
+
 def _names(rng: np.random.Generator, category: str, count: int) -> list[str]:
     """Distinct invented names for ``count`` projects of a category."""
     combos = []
@@ -473,7 +479,7 @@ def _names(rng: np.random.Generator, category: str, count: int) -> list[str]:
         if sites is None:
             combos.append(item)
         else:
-            combos.extend(f"{site} {item}" for site in sites)
+            combos.extend(_site_and_item(site, item) for site in sites)
     if len(combos) < count:  # pragma: no cover - guarded by the tables above
         raise ValueError(f"only {len(combos)} names for {count} {category} projects")
     pick = rng.choice(len(combos), size=count, replace=False)
