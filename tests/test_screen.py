@@ -457,3 +457,38 @@ def test_a_database_from_before_the_after_tax_table_gains_it_on_the_next_write(d
     assert "result_rows_after_tax" in fetch(db, "SELECT sql FROM duckdb_views() WHERE view_name = 'result_rows'")[0][0]
     assert sorted(fetch(db, "SELECT * FROM result_rows")) == want
     assert fetch(db, "SELECT count(*) FROM results WHERE run_id = ?", [run_id])[0][0] == len(want)
+
+
+def test_kendall_limit_is_a_decisions_setting(db, tmp_path):
+    """``[decisions] kendall_max_projects`` moves the limit both ways: 0 leaves tau out for this
+    portfolio of 24 projects; a limit of 24 keeps it (equal to scipy.stats.kendalltau, reference)."""
+    from scipy.stats import kendalltau
+    grid = tmp_path / "grid.toml"
+    grid.write_text("[decisions]\nkendall_max_projects = 0\n")
+    off = screen_portfolio(db, grid=grid, discount_rates="0:0.2:3", inflation="0:0.1:2")
+    assert all(t is None for (t,) in fetch(db, "SELECT kendall_tau FROM scenario_ranks WHERE run_id = ?", [off]))
+    grid.write_text("[decisions]\nkendall_max_projects = 24\n")
+    on = screen_portfolio(db, grid=grid, discount_rates="0:0.2:3", inflation="0:0.1:2")
+    rows = fetch(db, "SELECT project_id, scenario_id, present_worth FROM results WHERE run_id = ?", [on])
+    ids = sorted({r[0] for r in rows})
+    pw = np.zeros((len(ids), 6))
+    for pid, sid, v in rows:
+        pw[ids.index(pid), sid] = v
+    base = fetch(db, "SELECT scenario_id FROM scenarios WHERE run_id = ? AND is_base", [on])[0][0]
+    for sid, tau in fetch(db, "SELECT scenario_id, kendall_tau FROM scenario_ranks WHERE run_id = ?", [on]):
+        assert tau == pytest.approx(kendalltau(pw[:, base], pw[:, sid]).statistic, abs=1e-12)
+
+
+@pytest.mark.parametrize("setting, message", [
+    ("kendall_max_projects = -1", "kendall_max_projects must be a whole number"),
+    ("kendall_max_projects = 2.5", "kendall_max_projects must be a whole number"),
+    ("top_k = 0", "top_k must be a whole number"),
+    ("core_share = 1.5", "core_share must be a share"),
+    ("kendal_max = 3", "unknown key 'kendal_max'"),
+])
+def test_decisions_settings_are_checked(db, tmp_path, setting, message):
+    from ratescape.errors import RatescapeError
+    grid = tmp_path / "grid.toml"
+    grid.write_text(f"[decisions]\n{setting}\n")
+    with pytest.raises(RatescapeError, match=message):
+        screen_portfolio(db, grid=grid, discount_rates="0:0.2:3", inflation="0:0.1:2")

@@ -249,6 +249,15 @@ def make_grid_spec(*, toml_settings: dict | None = None, discount_rates: str | N
     return spec
 
 
+# [decisions] settings: a test of the value and what it must be.
+DECISION_SETTINGS = {
+    "top_k": (lambda v: v == int(v) and v >= 1, "a whole number of at least 1 (the K of top-K rank stability)"),
+    "core_share": (lambda v: 0 < v <= 1, "a share above 0 and at most 1"),
+    "kendall_max_projects": (lambda v: v == int(v) and v >= 0,
+                             "a whole number of at least 0 (Kendall's tau is stored up to that many projects)"),
+}
+
+
 def validate_grid_spec(spec: GridSpec) -> None:
     """Refuse rates at or below -100 %, unknown bases and conventions, empty or huge grids.
 
@@ -306,6 +315,12 @@ def validate_grid_spec(spec: GridSpec) -> None:
                                                  and int(spec.keep[8:]) >= 1)):
         raise GridError(f"--keep {spec.keep!r} is not a choice. Fix: use all (every result row), summary (per-project "
                         "summaries only) or thinned:K (rows of every K-th rate and inflation level, and the base)")
+    for key, value in (spec.decisions or {}).items():
+        if key not in DECISION_SETTINGS:
+            raise GridError(f"[decisions] has an unknown key {key!r}. Fix: use one of {', '.join(DECISION_SETTINGS)}")
+        accepts, what = DECISION_SETTINGS[key]
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not accepts(value):
+            raise GridError(f"[decisions] {key} must be {what}, got {value!r}")
     names = [a.name for a in spec.axes]
     for key in spec.base:
         if key not in names + ["discount_rate", "real_rate"]:

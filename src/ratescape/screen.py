@@ -682,7 +682,8 @@ def _write_result_rows(con, plan: Plan, chunk_index: int, first: int, target: st
 # Cells of the (scenarios x projects) block ranked at once (reused buffers of ~40 MB each).
 RANK_BLOCK_CELLS = 5_000_000
 # Kendall's tau-b costs a merge sort per scenario and measure (about 15 ms at 100,000 projects);
-# above this many projects only Spearman's rho (nearly free once the ranks are known) is stored.
+# above this many projects (default; [decisions] kendall_max_projects) only Spearman's rho
+# (nearly free once the ranks are known) is stored.
 KENDALL_MAX_PROJECTS = 10_000
 
 
@@ -727,10 +728,11 @@ def rank_statistics(con, plan: Plan):
     base = plan.scenarios.base_index
     k = int(plan.spec.decisions.get("top_k", 10))
     block = max(1, min(S, RANK_BLOCK_CELLS // max(P, 1)))
-    with_tau = P <= KENDALL_MAX_PROJECTS
+    tau_limit = int(plan.spec.decisions.get("kendall_max_projects", KENDALL_MAX_PROJECTS))
+    with_tau = P <= tau_limit
     if not with_tau:
-        log(f"ranks: {P:,} projects; Kendall's tau is computed up to {KENDALL_MAX_PROJECTS:,}, "
-            "Spearman's rho is stored for every scenario")
+        log(f"ranks: {P:,} projects; Kendall's tau is computed up to {tau_limit:,} ([decisions] "
+            "kendall_max_projects), Spearman's rho is stored for every scenario")
     names = {"pw": "", "pi": "_pi"}
     agreement = {f"{stat}{suffix}": np.full(S, np.nan) for stat in ("kendall_tau", "spearman_rho")
                  for suffix in names.values()}
