@@ -298,17 +298,22 @@ def test_worth_files_are_removed_when_done_and_rebuilt_when_missing_on_resume(db
     assert fetch(db, rho, [part]) == fetch(db, rho, [full])
 
 
+def _stored_worths(db, run_id, scenarios):
+    """The run's stored PW as a (projects in id order, scenarios) matrix, and the base scenario id."""
+    rows = fetch(db, "SELECT project_id, scenario_id, present_worth FROM results WHERE run_id = ?", [run_id])
+    ids = sorted({r[0] for r in rows})
+    pw = np.zeros((len(ids), scenarios))
+    for pid, sid, v in rows:
+        pw[ids.index(pid), sid] = v
+    return pw, fetch(db, "SELECT scenario_id FROM scenarios WHERE run_id = ? AND is_base", [run_id])[0][0]
+
+
 def test_scenario_rank_agreement_matches_scipy(db):
     """Spearman's rho and Kendall's tau-b of each scenario's PW ranking against the base scenario's,
     recomputed from the stored rows with scipy.stats.spearmanr / kendalltau (reference library)."""
     from scipy.stats import kendalltau, spearmanr
     run_id = screen_portfolio(db, discount_rates="0:0.2:9", inflation="0:0.1:5")
-    rows = fetch(db, "SELECT project_id, scenario_id, present_worth FROM results WHERE run_id = ?", [run_id])
-    ids = sorted({r[0] for r in rows})
-    pw = np.zeros((len(ids), 45))
-    for pid, sid, v in rows:
-        pw[ids.index(pid), sid] = v
-    base = fetch(db, "SELECT scenario_id FROM scenarios WHERE run_id = ? AND is_base", [run_id])[0][0]
+    pw, base = _stored_worths(db, run_id, 45)
     got = fetch(db, "SELECT scenario_id, spearman_rho, kendall_tau FROM scenario_ranks WHERE run_id = ? ORDER BY 1", [run_id])
     for sid, rho, tau in got:
         assert rho == pytest.approx(spearmanr(pw[:, sid], pw[:, base]).statistic, abs=1e-12)
@@ -469,12 +474,7 @@ def test_kendall_limit_is_a_decisions_setting(db, tmp_path):
     assert all(t is None for (t,) in fetch(db, "SELECT kendall_tau FROM scenario_ranks WHERE run_id = ?", [off]))
     grid.write_text("[decisions]\nkendall_max_projects = 24\n")
     on = screen_portfolio(db, grid=grid, discount_rates="0:0.2:3", inflation="0:0.1:2")
-    rows = fetch(db, "SELECT project_id, scenario_id, present_worth FROM results WHERE run_id = ?", [on])
-    ids = sorted({r[0] for r in rows})
-    pw = np.zeros((len(ids), 6))
-    for pid, sid, v in rows:
-        pw[ids.index(pid), sid] = v
-    base = fetch(db, "SELECT scenario_id FROM scenarios WHERE run_id = ? AND is_base", [on])[0][0]
+    pw, base = _stored_worths(db, on, 6)
     for sid, tau in fetch(db, "SELECT scenario_id, kendall_tau FROM scenario_ranks WHERE run_id = ?", [on]):
         assert tau == pytest.approx(kendalltau(pw[:, base], pw[:, sid]).statistic, abs=1e-12)
 
