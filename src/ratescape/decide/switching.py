@@ -166,26 +166,24 @@ def switching_value(worth_fn, base, low, high, *, n_scan=65, rows_fn=None, scan_
             raise ValueError(f"scan_fn must return shape ({n}, {n_scan}), got shape {W.shape}")
     else:
         W = np.column_stack([_call(worth_fn, grid[:, k], n) for k in range(n_scan)])  # loop over scan points
-    zero = W == 0.0
-    sign_change = np.sign(W[:, :-1]) * np.sign(W[:, 1:]) < 0  # (P, K-1)
-    n_cross = zero.sum(axis=1) + sign_change.sum(axis=1)
+    # events in ascending position: a zero at scan point k sits at 2k, a sign change between
+    # points k and k + 1 at 2k + 1; nonzero() lists each project's events in that order
+    events = np.zeros((n, 2 * n_scan - 1), dtype=bool)
+    events[:, 0::2] = W == 0.0
+    events[:, 1::2] = np.sign(W[:, :-1]) * np.sign(W[:, 1:]) < 0
+    event_row, event_pos = np.nonzero(events)
+    event_rank = np.arange(event_row.size) - np.searchsorted(event_row, event_row)   # r-th crossing of its row
+    n_cross = np.bincount(event_row, minlength=n)
     R = max(int(n_cross.max()) if n_cross.size else 0, 1)
     crossings = np.full((n, R), np.nan)
-
-    # crossings at scan points, and brackets between them, in ascending order
-    ev_pos = np.concatenate([np.where(zero, np.arange(n_scan) * 2.0, np.inf),
-                             np.where(sign_change, np.arange(n_scan - 1) * 2.0 + 1.0, np.inf)], axis=1)
-    order = np.argsort(ev_pos, axis=1, kind="stable")[:, :R]
-    pos = np.take_along_axis(ev_pos, order, axis=1)  # (P, R), inf = none
+    at_point = event_pos % 2 == 0
+    crossings[event_row[at_point], event_rank[at_point]] = grid[event_row[at_point], event_pos[at_point] // 2]
+    bracketed = ~at_point
     for r in range(R):  # loop over crossing rank, not over projects
-        fin = np.isfinite(pos[:, r])
-        pr = np.where(fin, pos[:, r], 0.0).astype(np.int64)
-        at_pt = fin & (pr % 2 == 0)
-        crossings[at_pt, r] = grid[at_pt, pr[at_pt] // 2]
-        br = fin & (pr % 2 == 1)
-        if np.any(br):
-            idx = np.flatnonzero(br)
-            k = (pr[br] - 1) // 2
+        sel = bracketed & (event_rank == r)
+        if np.any(sel):
+            idx = event_row[sel]
+            k = (event_pos[sel] - 1) // 2
 
             def f(x, j):
                 j = j.astype(int)
