@@ -482,6 +482,7 @@ def test_kendall_limit_is_a_decisions_setting(db, tmp_path):
 @pytest.mark.parametrize("setting, message", [
     ("kendall_max_projects = -1", "kendall_max_projects must be a whole number"),
     ("kendall_max_projects = 2.5", "kendall_max_projects must be a whole number"),
+    ("kendall_max_projects = inf", "kendall_max_projects must be a whole number"),
     ("top_k = 0", "top_k must be a whole number"),
     ("core_share = 1.5", "core_share must be a share"),
     ("kendal_max = 3", "unknown key 'kendal_max'"),

@@ -319,7 +319,8 @@ def validate_grid_spec(spec: GridSpec) -> None:
         if key not in DECISION_SETTINGS:
             raise GridError(f"[decisions] has an unknown key {key!r}. Fix: use one of {', '.join(DECISION_SETTINGS)}")
         accepts, what = DECISION_SETTINGS[key]
-        if isinstance(value, bool) or not isinstance(value, (int, float)) or not accepts(value):
+        if (isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value)
+                or not accepts(value)):
             raise GridError(f"[decisions] {key} must be {what}, got {value!r}")
     names = [a.name for a in spec.axes]
     for key in spec.base:

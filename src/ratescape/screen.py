@@ -624,7 +624,7 @@ class RowColumns:
         width = scratch.chunk_width(chunk_index)
         first = chunk_index * self.plan.chunk_size
         derived = np.zeros(width, dtype=bool)
-        if con is not None:
+        if con is not None and "pi" in scratch.measures and scratch.stores_index(chunk_index):
             got = con.execute("""SELECT project_key FROM project_summary WHERE run_id = ? AND project_key >= ?
                                  AND project_key < ? AND investment_worth IS NOT NULL""",
                               [self.plan.run_id, first, first + width]).fetchnumpy()["project_key"]

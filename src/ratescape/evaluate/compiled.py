@@ -338,11 +338,11 @@ MOVE_DISCOUNT_RATE, MOVE_INFLATION, MOVE_ESCALATION = 0, 1, 2
 def _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x, rate, inflation, shift):
     """Present worth of project p with one input moved to x: the per-project point worth of
     :class:`ratescape.evaluate.kernel.PointEvaluator` (classes summed in order from 0.0)."""
-    if move == 0:
+    if move == MOVE_DISCOUNT_RATE:
         log_i = np.log1p(x)
         log_f = np.log1p(inflation)
         d = shift
-    elif move == 1:
+    elif move == MOVE_INFLATION:
         log_i = np.log1p(rate)
         log_f = np.log1p(x)
         d = shift

@@ -129,7 +129,6 @@ TABLES = {
 
 VIEWS = {
     # Every stored result row, whichever physical table holds it (see result_rows_pw above).
-    # (A view without result_rows_after_tax, from before that table, is replaced.)
     "result_rows": """CREATE OR REPLACE VIEW result_rows AS
         SELECT scenario_key, project_key, present_worth, CAST(NULL AS DOUBLE) AS profitability_index,
                CAST(NULL AS DOUBLE) AS present_worth_before_tax
@@ -154,6 +153,11 @@ VIEWS = {
         JOIN project_summary ps ON ps.run_id = s.run_id AND ps.project_key = x.project_key
         JOIN annual_factors f ON f.scenario_key = x.scenario_key AND f.horizon = ps.horizon""",
 }
+
+
+# A word each view's current definition has and its earlier ones lack: a stored view without it
+# is replaced (databases written before investment_worth, or before result_rows_after_tax).
+VIEW_MARKERS = {"result_rows": "result_rows_after_tax", "results": "investment_worth"}
 
 
 def create_schema(con) -> None:
@@ -181,8 +185,7 @@ def create_schema(con) -> None:
         con.execute("ALTER TABLE project_summary ADD COLUMN investment_worth DOUBLE")
     views = dict(con.execute("SELECT view_name, sql FROM duckdb_views() WHERE NOT internal").fetchall())
     for name, ddl in VIEWS.items():
-        if (name not in views or (name == "results" and "investment_worth" not in views[name])
-                or (name == "result_rows" and "result_rows_after_tax" not in views[name])):
+        if name not in views or VIEW_MARKERS[name] not in views[name]:
             con.execute(ddl)
     con.execute("INSERT OR REPLACE INTO meta VALUES ('schema_version', ?)", [str(SCHEMA_VERSION)])
 
