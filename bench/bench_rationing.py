@@ -19,14 +19,9 @@ import time
 
 import numpy as np
 
-from ratescape.decide.rationing import (
-    METHOD_LP_BOUND,
-    METHOD_MILP,
-    METHOD_MILP_FIXED,
-    greedy_selection,
-    min_max_regret,
-    ration_capital,
-)
+from ratescape.decide.portfolio_stats import min_max_regret
+from ratescape.decide.rationing import METHOD_LP_BOUND, METHOD_MILP, METHOD_MILP_FIXED, ration_capital
+from ratescape.decide.rationing_problem import greedy_selection
 
 
 def annuity_pw(rate, n):

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import polars as pl
 
-from .grid import make_grid_spec, parse_budget, read_grid_toml
+from .settings import make_run_settings, parse_budget, read_settings_toml
 from .load import read_portfolio
 from .store.database import connect_read, connect_write, fetch_frame
-from .store.portfolio import store_portfolio
+from .store.portfolio_writer import store_portfolio
 
 
 def load_portfolio(projects, cash_flows=None, db=None) -> dict:
@@ -32,12 +32,12 @@ def screen_portfolio(db, *, grid=None, discount_rates=None, inflation=None, disc
                      resume=None, cluster=None, workers=None,
                      progress=False, stop_after_chunks=None) -> str:
     """Screen the loaded portfolio over a grid (TOML path and/or overrides); return the run id."""
-    from .screen import screen
+    from .run.screen import screen
     spec = None
     if not resume:
-        toml_settings = read_grid_toml(grid) if grid else None
+        toml_settings = read_settings_toml(grid) if grid else None
         budget_map = parse_budget(budgets) if budgets and isinstance(budgets, (list, tuple)) else budgets
-        spec = make_grid_spec(toml_settings=toml_settings, discount_rates=discount_rates, inflation=inflation,
+        spec = make_run_settings(toml_settings=toml_settings, discount_rates=discount_rates, inflation=inflation,
                               discount_basis=discount_basis, budgets=budget_map or None, timing=timing,
                               periods_per_year=periods_per_year, after_tax=after_tax, tax_rate=tax_rate,
                               keep=keep)

@@ -8,11 +8,9 @@ from pathlib import Path
 import click
 
 from . import __version__
+from .caution import CAUTION
 from .errors import RatescapeError
 
-CAUTION = ("Caution: ratescape is a screening aid, not an appraisal or professional advice. Results rest on the "
-           "assumptions shown; tax and depreciation rules vary by jurisdiction and year; decisions rest with "
-           "qualified professionals under local rules.")
 
 
 def _fail(exc: Exception) -> None:
@@ -284,8 +282,3 @@ def reference_markdown() -> str:
             parts += [f"### `ratescape{'' if name is None else ' ' + name}`", "", "```text", text, "```", ""]
     parts.append(REFERENCE_END)
     return "\n".join(parts)
-
-
-if __name__ == "__main__":  # pragma: no cover
-    from ._startup import run
-    run()

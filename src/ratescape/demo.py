@@ -4,11 +4,11 @@ from __future__ import annotations
 from pathlib import Path
 
 from .api import load_portfolio, screen_portfolio
+from .caution import CAUTION
+from .report import write_report
 from .errors import RatescapeError
 from .store.database import connect_read, fetch_frame
 
-CAUTION = ("Caution: a screening aid, not an appraisal or professional advice. Tax and depreciation rules vary "
-           "by jurisdiction and year; decisions rest with qualified professionals under local rules.")
 
 
 def demo_data_dir() -> Path:
@@ -31,15 +31,8 @@ def run_demo(out_dir: Path, *, progress: bool = True) -> str:
     load_portfolio(data / "projects.csv", data / "cash_flows.csv", db)
     run_id = screen_portfolio(db, grid=data / "grid.toml", progress=progress)
     report_path = out_dir / "report.html"
-    report_note = ""
-    try:
-        from .report import write_report
-    except ImportError:
-        report_note = "(the HTML report module is not installed)"
-    else:
-        write_report(db, report_path, run_id=run_id)
-    return summarize_run(db, run_id, report_path if not report_note else None) + (
-        f"\n{report_note}" if report_note else "")
+    write_report(db, report_path, run_id=run_id)
+    return summarize_run(db, run_id, report_path)
 
 
 def summarize_run(db, run_id: str, report_path: Path | None = None) -> str:

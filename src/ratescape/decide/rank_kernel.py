@@ -11,7 +11,7 @@ are ordered much like the base, so most merges are skipped (already in order)
 and the sort is close to linear.
 
 Compiled with Numba (kernels release the GIL; rows run in a small thread pool); the
-pure-NumPy/SciPy references are :func:`ratescape.decide.ranking.rank_projects`
+pure-NumPy/SciPy references are :func:`reference.ranking.rank_projects`
 and ``scipy.stats.kendalltau``, and the tests compare against both.
 
 References

@@ -31,41 +31,57 @@ from contextlib import contextmanager
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import sparse
 from scipy.optimize import Bounds, LinearConstraint, linprog, milp
 
-from .weights import _check_weights
+from ratescape.decide.rationing_problem import (
+    FEASIBILITY_TOL,
+    greedy_fill,
+    problem_structure,
+    validate_problem,
+)
 
 __all__ = [
     "RationingResult",
-    "RegretResult",
     "ration_capital",
-    "greedy_selection",
-    "selection_share",
-    "core_portfolio",
-    "min_max_regret",
     "STATUS_OPTIMAL",
     "STATUS_LIMIT",
     "STATUS_INFEASIBLE",
     "STATUS_OTHER",
+    "STATUS_LABELS",
     "METHOD_LP_BOUND",
     "METHOD_MILP",
     "METHOD_MILP_FIXED",
 ]
 
+
 #: status codes (S,) of :class:`RationingResult`, as ``scipy.optimize.milp``'s
 STATUS_OPTIMAL = 0  # optimal within mip_rel_gap
+
+
 STATUS_LIMIT = 1  # time limit reached; best portfolio found is reported
+
+
 STATUS_INFEASIBLE = 2  # no portfolio satisfies the constraints
+
+
 STATUS_OTHER = 4
+
+#: the one table of status names, stored in ``portfolios.status``
+STATUS_LABELS = {STATUS_OPTIMAL: "optimal", STATUS_LIMIT: "limit", STATUS_INFEASIBLE: "infeasible",
+                 STATUS_OTHER: "other"}
+
 
 #: how a scenario's optimum was proved (``RationingResult.method``)
 METHOD_LP_BOUND = 0  # a heuristic portfolio within mip_rel_gap of the LP bound: no MILP needed
-METHOD_MILP = 1  # full MILP
-METHOD_MILP_FIXED = 2  # MILP after reduced-cost fixing
-METHOD_NONE = -1  # infeasible LP: nothing to solve
 
-_FEAS_TOL = 1e-9  # relative budget tolerance when checking portfolios
+
+METHOD_MILP = 1  # full MILP
+
+
+METHOD_MILP_FIXED = 2  # MILP after reduced-cost fixing
+
+
+METHOD_NONE = -1  # infeasible LP: nothing to solve
 
 
 @dataclass(frozen=True)
@@ -114,310 +130,6 @@ class RationingResult:
     solved_as: np.ndarray
 
 
-@dataclass(frozen=True)
-class RegretResult:
-    """Min-max-regret choice among the distinct per-scenario optimal portfolios.
-
-    Attributes
-    ----------
-    portfolios : ndarray of bool, shape (K, P)
-        The distinct optimal portfolios.
-    optimal_in : ndarray of int, shape (K,)
-        Number of scenarios in which each was the optimum.
-    feasible : ndarray of bool, shape (K, S)
-        Whether the portfolio fits every budget of scenario s.
-    regret : ndarray, shape (K, S) [currency]
-        objective_s - pw[:, s] @ x_k; NaN where infeasible or where the
-        scenario itself had no optimum.
-    max_regret : ndarray, shape (K,) [currency]
-        Largest regret; +inf for portfolios infeasible in some scenario.
-    max_regret_where_feasible : ndarray, shape (K,) [currency]
-        Largest regret over the scenarios where the portfolio is feasible.
-    best : int
-        Index into ``portfolios`` of the min-max-regret portfolio among those
-        feasible in every scenario; -1 if there is none.
-    best_selected : ndarray of bool, shape (P,)
-        That portfolio (all False when ``best == -1``).
-    """
-
-    portfolios: np.ndarray
-    optimal_in: np.ndarray
-    feasible: np.ndarray
-    regret: np.ndarray
-    max_regret: np.ndarray
-    max_regret_where_feasible: np.ndarray
-    best: int
-    best_selected: np.ndarray
-
-
-# --------------------------------------------------------------------------
-# validation and structure
-
-
-@dataclass
-class _Problem:
-    pw: np.ndarray  # (P, S)
-    inv: np.ndarray  # (K, B, P)
-    cls: np.ndarray  # (S,)
-    budgets: np.ndarray  # (S, B)
-    group: np.ndarray  # (P,) -1 = none
-    mandatory: np.ndarray  # (G,) bool
-    requires: np.ndarray  # (R, 2)
-    prereq_pad: np.ndarray  # (P, M) prerequisites of each project, -1 padded
-    may_be_forced: np.ndarray  # (P,) bool: in a mandatory group or a prerequisite
-
-
-def _validate(pw, investment, budgets, scenario_class, group_index, group_mandatory, requires):
-    x = np.asarray(pw, dtype=float)
-    if x.ndim != 2 or x.shape[0] == 0 or x.shape[1] == 0:
-        raise ValueError(f"pw must have shape (P, S) with P, S >= 1, got shape {x.shape}")
-    if np.any(~np.isfinite(x)):
-        raise ValueError("pw must be finite")
-    P, S = x.shape
-    inv = np.asarray(investment, dtype=float)
-    if inv.ndim == 2:
-        inv = inv[None]
-    if inv.ndim != 3 or inv.shape[2] != P or inv.shape[1] == 0:
-        raise ValueError(
-            f"investment must have shape (B, P) or (K, B, P) with P = {P}, got shape {np.shape(investment)}"
-        )
-    if np.any(~np.isfinite(inv)):
-        raise ValueError("investment must be finite")
-    K, B, _ = inv.shape
-    if scenario_class is None:
-        if K != 1:
-            raise ValueError(f"investment has K = {K} classes: give scenario_class of shape (S,) = ({S},)")
-        cls = np.zeros(S, dtype=np.intp)
-    else:
-        cls = np.asarray(scenario_class)
-        if cls.shape != (S,) or not np.issubdtype(cls.dtype, np.integer):
-            raise ValueError(f"scenario_class must be integers of shape (S,) = ({S},), got shape {cls.shape}")
-        if np.any(cls < 0) or np.any(cls >= K):
-            raise ValueError(f"scenario_class values must lie in [0, {K}) for investment of shape {inv.shape}")
-        cls = cls.astype(np.intp)
-    bud = np.asarray(budgets, dtype=float)
-    if bud.shape == (B,):
-        bud = np.broadcast_to(bud, (S, B))
-    elif bud.shape != (S, B):
-        raise ValueError(f"budgets must have shape (B,) = ({B},) or (S, B) = ({S}, {B}), got shape {bud.shape}")
-    if np.any(np.isnan(bud)):
-        raise ValueError("budgets must not be NaN (use inf for an unlimited period)")
-    if group_index is None:
-        grp = np.full(P, -1, dtype=np.intp)
-    else:
-        grp = np.asarray(group_index)
-        if grp.shape != (P,) or not np.issubdtype(grp.dtype, np.integer):
-            raise ValueError(f"group_index must be integers of shape (P,) = ({P},), got shape {grp.shape}")
-        if np.any(grp < -1):
-            raise ValueError("group_index values must be >= -1 (-1 = no group)")
-        grp = grp.astype(np.intp)
-    G = int(grp.max()) + 1 if grp.size else 0
-    if group_mandatory is None:
-        mand = np.zeros(G, dtype=bool)
-    else:
-        mand = np.asarray(group_mandatory, dtype=bool)
-        if mand.ndim != 1 or mand.size < G:
-            raise ValueError(f"group_mandatory must have shape (G,) with G >= {G}, got shape {mand.shape}")
-        G = mand.size
-    if requires is None:
-        req = np.zeros((0, 2), dtype=np.intp)
-    else:
-        req = np.asarray(requires)
-        if req.size == 0:
-            req = np.zeros((0, 2), dtype=np.intp)
-        if req.ndim != 2 or req.shape[1] != 2 or not np.issubdtype(req.dtype, np.integer):
-            raise ValueError(f"requires must be integer pairs of shape (R, 2), got shape {req.shape}")
-        if np.any(req < 0) or np.any(req >= P):
-            raise ValueError(f"requires indices must lie in [0, {P})")
-        if np.any(req[:, 0] == req[:, 1]):
-            raise ValueError("requires must not pair a project with itself")
-        req = np.unique(req.astype(np.intp), axis=0)
-    # prerequisites of each project, padded with -1
-    counts = np.bincount(req[:, 0], minlength=P) if req.size else np.zeros(P, dtype=np.intp)
-    M = int(counts.max()) if counts.size else 0
-    pad = np.full((P, max(M, 1)), -1, dtype=np.intp)
-    if req.size:
-        order = np.argsort(req[:, 0], kind="stable")
-        dep, pre = req[order, 0], req[order, 1]
-        first = np.searchsorted(dep, dep, side="left")
-        pad[dep, np.arange(dep.size) - first] = pre
-    forced = np.zeros(P, dtype=bool)
-    if G:
-        in_grp = grp >= 0
-        forced[in_grp] = mand[grp[in_grp]]
-    if req.size:
-        forced[req[:, 1]] = True
-    return _Problem(x, inv, cls, np.ascontiguousarray(bud), grp, mand, req, pad, forced)
-
-
-def _structure(prob):
-    """Per-class constraint matrices: (A_ub, A_eq) sparse and the fixed row bounds."""
-    P = prob.pw.shape[0]
-    grp, mand, req = prob.group, prob.mandatory, prob.requires
-    G = mand.size
-    members = grp >= 0
-    gmat = sparse.csr_matrix(
-        (np.ones(members.sum()), (grp[members], np.flatnonzero(members))), shape=(G, P)
-    )
-    has_member = np.bincount(grp[members], minlength=G) > 0
-    opt_rows = np.flatnonzero(~mand & has_member)
-    man_rows = np.flatnonzero(mand)
-    R = req.shape[0]
-    rmat = sparse.csr_matrix(
-        (np.r_[np.ones(R), -np.ones(R)], (np.r_[np.arange(R), np.arange(R)], np.r_[req[:, 0], req[:, 1]])),
-        shape=(R, P),
-    )
-    rest_ub = sparse.vstack([gmat[opt_rows], rmat]).tocsr()
-    rest_b = np.r_[np.ones(opt_rows.size), np.zeros(R)]
-    a_eq = gmat[man_rows].tocsr()
-    b_eq = np.ones(man_rows.size)
-    a_ub = [sparse.vstack([sparse.csr_matrix(prob.inv[k]), rest_ub]).tocsr() for k in range(prob.inv.shape[0])]
-    return a_ub, rest_b, a_eq, b_eq
-
-
-# --------------------------------------------------------------------------
-# greedy
-
-
-def _greedy(prob, pw_sp, cls, budgets, start=None):
-    """Profitability-index greedy for many scenarios at once.
-
-    pw_sp (S', P), cls (S',), budgets (S', B), start (S', P) bool or None.
-    Returns selected (S', P) bool, feasible (S',) bool.
-    """
-    Sn, P = pw_sp.shape
-    inv = prob.inv  # (K, B, P)
-    grp, mand, pad = prob.group, prob.mandatory, prob.prereq_pad
-    G = mand.size
-    tot = inv.sum(axis=1)[cls]  # (S', P) total outlay over the budget periods
-    with np.errstate(divide="ignore", invalid="ignore"):
-        pi = np.where(tot > 0, pw_sp / np.where(tot > 0, tot, 1.0), np.inf)
-    pi = np.where(pw_sp > 0, pi, -np.inf)
-    # sort by PI descending, then pw descending, then index (lexsort is stable)
-    order = np.lexsort((-pw_sp, -pi), axis=-1) if Sn else np.zeros((0, P), dtype=np.intp)
-    chosen = np.zeros((Sn, P), dtype=bool) if start is None else start.copy()
-    gcol = np.where(grp >= 0, grp, G)  # column G = "no group", never marked taken
-    taken = np.zeros((Sn, G + 1), dtype=bool)
-    rows = np.arange(Sn)
-    if start is not None and G:
-        r, c = np.nonzero(chosen & (grp >= 0))
-        taken[r, grp[c]] = True
-        taken[:, G] = False
-    inv_t = np.transpose(inv, (0, 2, 1))  # (K, P, B)
-    used = np.zeros((Sn, inv.shape[1]))
-    if start is not None:
-        for k in np.unique(cls):
-            m = cls == k
-            used[m] = chosen[m].astype(float) @ inv[k].T
-    slack = np.abs(budgets) * _FEAS_TOL + _FEAS_TOL
-    feasible = np.ones(Sn, dtype=bool)
-    # must-do first: every mandatory group still empty takes its fitting member with the
-    # highest PI before the PI pass spends the budgets (common practice: commit to
-    # obligatory projects, then rank the discretionary ones)
-    for g in np.flatnonzero(mand):
-        mem = np.flatnonzero(grp == g)
-        need = ~taken[:, g]
-        if not need.any():
-            continue
-        if mem.size == 0:
-            feasible[:] = False
-            continue
-        r = np.flatnonzero(need)
-        a = inv_t[cls[r][:, None], mem[None, :]]  # (r, m, B)
-        fits = np.all(used[r][:, None, :] + a <= (budgets[r] + slack[r])[:, None, :], axis=2)
-        pm = pad[mem]  # (m, M)
-        pre_ok = np.all(chosen[r][:, np.where(pm >= 0, pm, 0)] | (pm < 0)[None], axis=2)
-        okm = fits & pre_ok
-        tot_m = tot[r][:, mem]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            score = np.where(tot_m > 0, pw_sp[r][:, mem] / np.where(tot_m > 0, tot_m, 1.0), np.inf)
-        score = np.where(okm, score, -np.inf)
-        best = np.argmax(score, axis=1)
-        got = okm[np.arange(r.size), best]
-        rr = r[got]
-        jj = mem[best[got]]
-        chosen[rr, jj] = True
-        used[rr] += inv_t[cls[rr], jj]
-        taken[rr, g] = True
-        feasible[r[~got]] = False
-    n_pos = int((pw_sp > 0).sum(axis=1).max()) if Sn else 0
-    padv = pad >= 0
-    for k in range(n_pos):  # sequential by nature; vectorised over scenarios
-        j = order[:, k]
-        ok = (pi[rows, j] > -np.inf) & ~chosen[rows, j]
-        a = inv_t[cls, j]  # (S', B)
-        ok &= np.all(used + a <= budgets + slack, axis=1)
-        ok &= ~taken[rows, gcol[j]]
-        pj = pad[j]  # (S', M)
-        ok &= np.all(chosen[rows[:, None], np.where(padv[j], pj, 0)] | ~padv[j], axis=1)
-        if not ok.any():
-            continue
-        r = rows[ok]
-        chosen[r, j[ok]] = True
-        used[r] += a[ok]
-        taken[r, gcol[j[ok]]] = True
-        taken[:, G] = False
-    chosen[~feasible] = False
-    return chosen, feasible
-
-
-def greedy_selection(pw, investment, budgets, *, scenario_class=None, group_index=None,
-                     group_mandatory=None, requires=None):
-    """Profitability-index greedy portfolio in every scenario.
-
-    Parameters
-    ----------
-    pw, investment, budgets, scenario_class, group_index, group_mandatory, requires
-        As for :func:`ration_capital`.
-
-    Returns
-    -------
-    selected : ndarray of bool, shape (S, P)
-    objective : ndarray, shape (S,) [currency]
-        NaN where the rule finds no feasible portfolio (all False then).
-
-    Notes
-    -----
-    The rule, in each scenario:
-
-    1. Must-do first: each mandatory group takes its member with the
-       highest PI (pw <= 0 included) that fits the budgets and whose
-       prerequisites are taken. If none fits, the greedy portfolio is
-       infeasible: the selection is empty and its objective NaN.
-    2. Candidates are the projects with pw > 0, sorted by
-       PI = pw / (sum over budget periods of the project's outlay),
-       highest first (ties: higher pw first, then lower index). A project
-       with pw > 0 and total outlay <= 0 has PI = +inf and comes first.
-    3. One pass in that order. A candidate is taken if its outlay fits the
-       remaining budget of every period, no other member of its group is
-       taken, and **every prerequisite has already been taken**.
-       Prerequisites are never pulled in by a dependent, and a candidate
-       skipped for any reason is not reconsidered.
-
-    The pass is a loop over candidate positions, vectorised over scenarios.
-
-    References
-    ----------
-    J. H. Lorie, L. J. Savage, "Three problems in rationing capital",
-    Journal of Business 28(4), 1955, pp. 229-239 (ranking by
-    profitability index and its failure with several budget periods).
-
-    Examples
-    --------
-    >>> sel, obj = greedy_selection([[6.0], [5.0], [5.0]], [[4.0, 3.0, 3.0]], [6.0])
-    >>> sel.tolist(), obj.tolist()
-    ([[False, True, True]], [10.0])
-    """
-    prob = _validate(pw, investment, budgets, scenario_class, group_index, group_mandatory, requires)
-    sel, ok = _greedy(prob, prob.pw.T, prob.cls, prob.budgets)
-    obj = np.where(ok, np.einsum("sp,ps->s", sel.astype(float), prob.pw), np.nan)
-    return sel, obj
-
-
-# --------------------------------------------------------------------------
-# exact solve
-
-
 @contextmanager
 def _quiet_stdout(enabled):
     """Send file descriptor 1 to /dev/null: some HiGHS builds print debug lines there."""
@@ -444,7 +156,7 @@ def _quiet_stdout(enabled):
 def _feasible(prob, x, k, budget):
     """Whether 0-1 portfolios x (n, P) fit class k's budgets (B,); groups/requires assumed."""
     used = x.astype(float) @ prob.inv[k].T
-    return np.all(used <= budget + np.abs(budget) * _FEAS_TOL + _FEAS_TOL, axis=1)
+    return np.all(used <= budget + np.abs(budget) * FEASIBILITY_TOL + FEASIBILITY_TOL, axis=1)
 
 
 def _structurally_ok(prob, x):
@@ -519,7 +231,7 @@ def _lp_rounding_starts(prob, lp_x, cls, budgets):
     for k in np.unique(cls):
         m = np.flatnonzero(cls == k)
         used = start[m].astype(float) @ prob.inv[k].T
-        bad = np.any(used > budgets[m] + np.abs(budgets[m]) * _FEAS_TOL + _FEAS_TOL, axis=1)
+        bad = np.any(used > budgets[m] + np.abs(budgets[m]) * FEASIBILITY_TOL + FEASIBILITY_TOL, axis=1)
         start[m[bad]] = False
     return start
 
@@ -529,7 +241,7 @@ def _improve(prob, x, pw_s, ub, k, budget, max_iter=25):
     inv_k = prob.inv[k]
     grp, mand, pad = prob.group, prob.mandatory, prob.prereq_pad
     G = mand.size
-    tol = np.abs(budget) * _FEAS_TOL + _FEAS_TOL
+    tol = np.abs(budget) * FEASIBILITY_TOL + FEASIBILITY_TOL
     x = x.copy()
     for _ in range(max_iter):
         slack = budget - inv_k @ x + tol
@@ -761,7 +473,7 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
     >>> res.selected.tolist(), res.objective.tolist(), res.greedy_objective.tolist()
     ([[False, True, True]], [10.0], [10.0])
     """
-    prob = _validate(pw, investment, budgets, scenario_class, group_index, group_mandatory, requires)
+    prob = validate_problem(pw, investment, budgets, scenario_class, group_index, group_mandatory, requires)
     mip_rel_gap = float(mip_rel_gap)
     if not 0 <= mip_rel_gap < 1:
         raise ValueError(f"mip_rel_gap must lie in [0, 1), got {mip_rel_gap}")
@@ -781,11 +493,11 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
         uniq = np.arange(S)
         solved_as = np.arange(S)
 
-    a_ub, rest_b, a_eq, b_eq = _structure(prob)
+    a_ub, rest_b, a_eq, b_eq = problem_structure(prob)
     pw_u = prob.pw[:, uniq].T  # (U, P)
     cls_u = prob.cls[uniq]
     bud_u = prob.budgets[uniq]
-    g_sel, g_ok = _greedy(prob, pw_u, cls_u, bud_u)
+    g_sel, g_ok = greedy_fill(prob, pw_u, cls_u, bud_u)
 
     n_u = uniq.size
     sel_u = np.zeros((n_u, P), dtype=bool)
@@ -810,7 +522,7 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
             else:
                 st_u[i] = STATUS_INFEASIBLE if st == 2 else STATUS_OTHER
         # 2. LP solutions rounded down and filled greedily (all scenarios at once)
-        r_sel, r_ok = _greedy(prob, pw_u, cls_u, bud_u, _lp_rounding_starts(prob, lp_x, cls_u, bud_u))
+        r_sel, r_ok = greedy_fill(prob, pw_u, cls_u, bud_u, _lp_rounding_starts(prob, lp_x, cls_u, bud_u))
         # 3. certify by the LP bound, or branch and bound on what reduced costs leave free
         pool = []  # distinct optima so far, any class: feasibility is checked per scenario
         for i, s in enumerate(uniq):
@@ -874,166 +586,3 @@ def _used_by_class(prob, selected):
         m = prob.cls == k
         used[m] = selected[m].astype(float) @ prob.inv[k].T
     return used
-
-
-# --------------------------------------------------------------------------
-# summaries across scenarios
-
-
-def _as_selected(selected):
-    sel = np.asarray(selected)
-    if sel.ndim != 2:
-        raise ValueError(f"selected must have shape (S, P), got shape {sel.shape}")
-    return sel.astype(bool)
-
-
-def selection_share(selected, weights=None):
-    """Share of scenarios in which each project is in the optimal portfolio.
-
-    Parameters
-    ----------
-    selected : array_like of bool, shape (S, P)
-        ``RationingResult.selected``.
-    weights : array_like, shape (S,), optional
-        Scenario weights (the user's judgement, not a forecast; see
-        :mod:`ratescape.decide.weights`), normalised to sum to 1; the result
-        is then a weighted selection probability. Default: equal weights.
-
-    Returns
-    -------
-    share : ndarray, shape (P,) [fraction]
-
-    Examples
-    --------
-    >>> selection_share([[True, False], [True, True]]).tolist()
-    [1.0, 0.5]
-    """
-    sel = _as_selected(selected)
-    if weights is None:
-        return sel.mean(axis=0)
-    w = _check_weights(weights, sel.shape[0])
-    return w @ sel.astype(float)
-
-
-def core_portfolio(selected, threshold=0.8, weights=None):
-    """Projects selected in at least ``threshold`` of the scenarios.
-
-    Parameters
-    ----------
-    selected : array_like of bool, shape (S, P)
-    threshold : float [fraction], in (0, 1]
-        Minimum selection share (default 0.8); 1.0 = selected everywhere.
-    weights : array_like, shape (S,), optional
-        Scenario weights, as in :func:`selection_share`.
-
-    Returns
-    -------
-    core : ndarray of bool, shape (P,)
-
-    Warnings
-    --------
-    The core is a list of robust choices, not itself a portfolio: it need
-    not fit the budgets of every scenario, and a mandatory group may have
-    no member in it.
-
-    Examples
-    --------
-    >>> core_portfolio([[True, False], [True, True], [False, True]], 0.6).tolist()
-    [True, True]
-    """
-    t = float(threshold)
-    if not 0 < t <= 1:
-        raise ValueError(f"threshold must lie in (0, 1], got {threshold}")
-    return selection_share(selected, weights) >= t - 1e-12
-
-
-def min_max_regret(pw, selected, objective, investment, budgets, *, scenario_class=None):
-    """Min-max-regret portfolio among the distinct per-scenario optima.
-
-    Parameters
-    ----------
-    pw : array_like, shape (P, S) [currency]
-    selected : array_like of bool, shape (S, P)
-        Optimal portfolio of each scenario (``RationingResult.selected``).
-    objective : array_like, shape (S,) [currency]
-        Its worth (``RationingResult.objective``); NaN marks a scenario with
-        no optimum, which is skipped.
-    investment, budgets, scenario_class
-        As for :func:`ration_capital`, to check each candidate portfolio
-        against every scenario's budgets.
-
-    Returns
-    -------
-    RegretResult
-
-    Notes
-    -----
-    The candidates are the K distinct optimal portfolios. The regret of
-    portfolio k in scenario s is R_ks = objective_s - pw[:, s] @ x_k >= 0
-    (up to the solver's gap tolerance), and the choice is
-    argmin_k max_s R_ks.
-
-    Groups and requires are the same in every scenario, so every candidate
-    satisfies them everywhere. Budgets are not: when outlays are in
-    then-current money (cost classes) or budgets are per scenario, an
-    optimum of one scenario can overspend in another. Such a portfolio is
-    *excluded* from the choice (its ``max_regret`` is +inf) and *flagged*
-    in ``feasible`` (K, S); its regret where it does fit is still reported
-    in ``max_regret_where_feasible``. If no candidate fits every scenario,
-    ``best`` is -1.
-
-    References
-    ----------
-    L. J. Savage, "The theory of statistical decision", Journal of the
-    American Statistical Association 46(253), 1951, pp. 55-67 (minimax
-    regret).
-
-    Examples
-    --------
-    >>> pw = [[10.0, 1.0], [1.0, 10.0], [6.0, 6.0]]
-    >>> sel = [[True, False, False], [False, True, False]]
-    >>> r = min_max_regret(pw, sel, [10.0, 10.0], [[1.0, 1.0, 1.0]], [1.0])
-    >>> r.portfolios.astype(int).tolist(), r.max_regret.tolist(), r.best
-    ([[0, 1, 0], [1, 0, 0]], [9.0, 9.0], 0)
-    """
-    x = np.asarray(pw, dtype=float)
-    if x.ndim != 2:
-        raise ValueError(f"pw must have shape (P, S), got shape {x.shape}")
-    P, S = x.shape
-    sel = _as_selected(selected)
-    if sel.shape != (S, P):
-        raise ValueError(f"selected must have shape (S, P) = ({S}, {P}), got shape {sel.shape}")
-    obj = np.asarray(objective, dtype=float)
-    if obj.shape != (S,):
-        raise ValueError(f"objective must have shape (S,) = ({S},), got shape {obj.shape}")
-    prob = _validate(np.nan_to_num(x), investment, budgets, scenario_class, None, None, None)
-    have = np.isfinite(obj)
-    if not have.any():
-        raise ValueError("no scenario has an optimum (objective is all NaN)")
-    ports, counts = np.unique(sel[have], axis=0, return_counts=True)
-    K = ports.shape[0]
-    feas = np.zeros((K, S), dtype=bool)
-    pf = ports.astype(float)
-    for k in np.unique(prob.cls):
-        m = np.flatnonzero(prob.cls == k)
-        used = pf @ prob.inv[k].T  # (K, B)
-        b = prob.budgets[m]  # (m, B)
-        feas[:, m] = np.all(used[:, None, :] <= b[None] + np.abs(b[None]) * _FEAS_TOL + _FEAS_TOL, axis=2)
-    worth = pf @ x  # (K, S)
-    regret = np.where(feas & have[None], obj[None] - worth, np.nan)
-    where_feas = np.where(feas[:, have].any(axis=1), np.nanmax(np.where(np.isnan(regret), -np.inf, regret), axis=1),
-                          np.nan)
-    everywhere = feas[:, have].all(axis=1)
-    max_regret = np.where(everywhere, where_feas, np.inf)
-    best = int(np.argmin(max_regret)) if everywhere.any() else -1
-    best_sel = ports[best].copy() if best >= 0 else np.zeros(P, dtype=bool)
-    return RegretResult(
-        portfolios=ports,
-        optimal_in=counts,
-        feasible=feas,
-        regret=regret,
-        max_regret=max_regret,
-        max_regret_where_feasible=where_feas,
-        best=best,
-        best_selected=best_sel,
-    )

@@ -54,7 +54,7 @@ def _check_grid(grid):
     return g
 
 
-def _check_weights(weights, S=None, name="weights"):
+def check_weights(weights, S=None, name="weights"):
     """Validate scenario weights; return them normalised to sum to 1."""
     w = np.asarray(weights, dtype=float)
     if w.ndim != 1 or (S is not None and w.shape != (S,)):
@@ -121,7 +121,7 @@ def discrete_weights(grid, weights):
     [0.25, 0.5, 0.25]
     """
     g = _check_grid(grid)
-    return _check_weights(weights, g.size, name="weights")
+    return check_weights(weights, g.size, name="weights")
 
 
 def normal_weights(grid, mean, sd, *, tails="fold"):
@@ -345,7 +345,7 @@ def scenario_weights(axis_w, axis_index=None):
             if np.any(idx[a] < 0) or np.any(idx[a] >= arr.size):
                 raise ValueError(f"axis_index[{a}] out of range for an axis of {arr.size} values")
             out = out * arr[idx[a]]
-    return _check_weights(out, name="scenario weights")
+    return check_weights(out, name="scenario weights")
 
 
 def probability_of_acceptance(pw, weights):
@@ -373,7 +373,7 @@ def probability_of_acceptance(pw, weights):
     [0.75]
     """
     x = _as_pw2(pw)
-    w = _check_weights(weights, x.shape[1])
+    w = check_weights(weights, x.shape[1])
     return (x >= 0).astype(float) @ w
 
 
@@ -402,7 +402,7 @@ def expected_present_worth(pw, weights):
     x = _as_pw2(pw)
     if np.any(~np.isfinite(x)):
         raise ValueError("pw must be finite")
-    w = _check_weights(weights, x.shape[1])
+    w = check_weights(weights, x.shape[1])
     return x @ w
 
 
@@ -428,7 +428,7 @@ def weighted_selection_share(selected, weights):
     sel = np.asarray(selected)
     if sel.ndim != 2:
         raise ValueError(f"selected must have shape (S, P), got shape {sel.shape}")
-    w = _check_weights(weights, sel.shape[0])
+    w = check_weights(weights, sel.shape[0])
     return w @ sel.astype(float)
 
 

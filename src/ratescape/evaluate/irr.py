@@ -87,6 +87,8 @@ class IrrStatus(IntEnum):
 
 
 _STATUS_LABELS = np.array([s.name.lower() for s in IrrStatus])
+#: Status names by code, for storing and reading the int8 codes as text.
+STATUS_LABELS = _STATUS_LABELS
 
 
 class IrrResult(NamedTuple):

@@ -27,6 +27,7 @@ from typing import Mapping, Sequence
 
 import numpy as np
 
+from .factors import a_given_p
 from .timing import discount_exponents
 
 
@@ -273,14 +274,7 @@ def capital_recovery_factor(rate, years) -> np.ndarray:
     >>> round(float(capital_recovery_factor(0.10, 5)), 4)
     0.2638
     """
-    i = np.asarray(rate, dtype=float)
-    n = np.asarray(years, dtype=float)
-    x = n * np.log1p(i)
-    denom = -np.expm1(-x)  # 1 - (1+i)^-n
-    small = np.abs(x) < 1e-10
-    with np.errstate(divide="ignore", invalid="ignore"):
-        # series for tiny rates: 1/n + (n + 1) i / (2 n); exact 1/n at i = 0
-        crf = np.where(small, 1.0 / n + (n + 1.0) * i / (2.0 * n), i / np.where(small, 1.0, denom))
+    crf = np.asarray(a_given_p(rate, years), dtype=float)   # one implementation: factors.a_given_p
     return crf if crf.ndim else float(crf)
 
 

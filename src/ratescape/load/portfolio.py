@@ -13,7 +13,7 @@ from pathlib import Path
 
 import polars as pl
 
-from ..columns import BASES, CASH_FLOW_COLUMNS, DEPRECIATION_CONVENTIONS, DEPRECIATION_METHODS, KINDS, PARAMETRIC_MONEY, PROJECT_COLUMNS
+from .columns import BASES, CASH_FLOW_COLUMNS, DEPRECIATION_CONVENTIONS, DEPRECIATION_METHODS, KINDS, PARAMETRIC_MONEY, PROJECT_COLUMNS
 from ..errors import Issue, ValidationError
 from .reader import open_table, read_table
 from .validate import Cells, check_unique_ids

@@ -10,7 +10,7 @@ import re
 
 import polars as pl
 
-from ..columns import BASES, FALSE_WORDS, KINDS, MAX_PERIOD, TRUE_WORDS
+from .columns import BASES, FALSE_WORDS, KINDS, MAX_PERIOD, TRUE_WORDS
 from ..errors import Issue
 
 # Cap on issues recorded per column, so a 2 GB file of bad cells still

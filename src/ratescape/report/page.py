@@ -1,0 +1,303 @@
+"""The HTML page: one self-contained file (Vega, Vega-Lite and vega-embed inlined, no network),
+sections of paragraphs, escaped tables and chart specifications.
+
+Chart specifications sit in ``<script type="application/json">`` blocks written by
+:func:`ratescape.report.escaping.json_script_block`, and every table cell is HTML-escaped.
+Never use Altair's or vl-convert's own HTML writers for output: they put data into a script
+block unescaped.
+"""
+from __future__ import annotations
+
+import functools
+import math
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import altair as alt
+import polars as pl
+
+from ratescape.caution import CAUTION
+from ratescape.report.escaping import (
+    check_inline_script,
+    escape_html,
+    json_script_block,
+)
+
+
+@dataclass
+class Section:
+    """One part of the report.
+
+    Parameters
+    ----------
+    title : str
+        Heading (plain text; escaped).
+    text : str or sequence of str
+        Paragraphs (plain text; escaped).
+    table : polars.DataFrame, optional
+        Shown as an HTML table; every cell escaped.
+    chart : altair chart, optional
+        Embedded as an escaped JSON specification.
+    unavailable : str, optional
+        When set, the section shows this reason instead of a table or chart.
+    chart_kind : str, optional
+        The kind of its chart (a key of :data:`ratescape.report.publish.CHART_KINDS`), so a single
+        chart is found by what it shows, not by its title.
+    subject : str, optional
+        Whom the chart is about (a project id or a group name), for single-chart export.
+    """
+
+    title: str
+    text: str | Sequence[str] = ()
+    table: pl.DataFrame | None = None
+    chart: Any = None
+    unavailable: str | None = None
+    level: int = 2
+    notes: list[str] = field(default_factory=list)
+    chart_kind: str | None = None
+    subject: str | None = None
+
+
+@functools.lru_cache(maxsize=1)
+def vega_bundle() -> str:
+    """Vega, Vega-Lite and vega-embed as one script defining ``window.vegaEmbed``.
+
+    Returns
+    -------
+    str
+        JavaScript from ``vl_convert.javascript_bundle`` for the Vega-Lite
+        version Altair writes, checked to be safe to inline.
+    """
+    import vl_convert as vlc
+
+    return check_inline_script(vlc.javascript_bundle(vl_version=vega_lite_version()))
+
+
+_CSS = """
+body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,Arial,sans-serif;margin:0 auto;
+max-width:1100px;padding:1.5em;color:#1a1a1a;line-height:1.45}
+h1{font-size:1.6em;margin-bottom:.2em}h2{margin-top:2em;border-bottom:1px solid #ccc;padding-bottom:.2em}
+.caution{border:3px solid #D55E00;background:#fff4ec;padding:.8em 1em;font-weight:600;margin:1em 0}
+table{border-collapse:collapse;margin:.6em 0;font-size:.9em}
+th,td{border:1px solid #ccc;padding:.25em .6em;text-align:left;vertical-align:top}
+th{background:#f2f2f2}td.num{text-align:right;font-variant-numeric:tabular-nums}
+.unavailable{color:#555;font-style:italic}.chart{margin:1em 0;overflow-x:auto}
+.meta{color:#555;font-size:.9em}#render-status{display:none}
+.noscript{border:1px solid #999;padding:.5em}
+"""
+
+
+# Registered before the bundle so that errors while loading it are recorded too.
+_ERROR_HOOK = """
+window.__ratescapeErrors = [];
+window.addEventListener('error', function (e) {
+  var what = e && e.message ? e.message : (e && e.target && e.target.tagName ? 'failed to load ' + e.target.tagName : 'unknown error');
+  window.__ratescapeErrors.push(String(what));
+}, true);
+window.addEventListener('unhandledrejection', function (e) {
+  window.__ratescapeErrors.push('unhandled rejection: ' + String(e && e.reason));
+});
+(function () {
+  var original = console.error;
+  console.error = function () {
+    window.__ratescapeErrors.push('console.error: ' + Array.prototype.map.call(arguments, String).join(' '));
+    return original.apply(console, arguments);
+  };
+})();
+"""
+
+
+_RENDER = """
+(function () {
+  'use strict';
+  var errors = window.__ratescapeErrors;
+  var status = document.getElementById('render-status');
+  var blocks = document.querySelectorAll('script[type="application/json"][data-chart]');
+  function finish() {
+    var rendered = document.querySelectorAll('.vega-embed svg.marks, .vega-embed canvas.marks').length;
+    status.textContent = JSON.stringify({
+      charts: blocks.length, rendered: rendered, errors: errors,
+      pwned: typeof window.__pwned
+    });
+    status.setAttribute('data-state', 'done');
+  }
+  if (typeof window.vegaEmbed !== 'function') {
+    errors.push('vegaEmbed is not defined');
+    finish();
+    return;
+  }
+  var jobs = [];
+  Array.prototype.forEach.call(blocks, function (block) {
+    var target = document.getElementById(block.getAttribute('data-chart'));
+    var spec;
+    try {
+      spec = JSON.parse(block.textContent);
+    } catch (e) {
+      errors.push('bad chart specification ' + block.id + ': ' + e);
+      return;
+    }
+    jobs.push(window.vegaEmbed(target, spec, {actions: false, renderer: 'svg', mode: 'vega-lite'})
+      .catch(function (e) { errors.push('chart ' + target.id + ' failed: ' + e); }));
+  });
+  Promise.all(jobs).then(function () { setTimeout(finish, 50); });
+})();
+"""
+
+
+_RATE_COLS = {"discount_rate", "real_rate", "inflation", "irr_nominal", "irr_real", "marr",
+              "inflation_low_max", "inflation_high_min"}
+
+
+_SHARE_COLS = {"accept_share", "share_low", "share_high", "drop", "selected_share", "gap"}
+
+
+_MONEY_COLS = {"pw_base", "pw_min", "pw_max", "pw_mean", "present_worth", "objective",
+               "lp_bound", "greedy_objective", "margin"}
+
+
+_HEADERS = {
+    "project_id": "Project id", "name": "Name", "pw_base": "Present worth, base scenario",
+    "pw_min": "Lowest present worth", "pw_max": "Highest present worth",
+    "pw_mean": "Mean present worth", "accept_share": "Share of scenarios accepted",
+    "rank_base": "Rank, base scenario", "rank_min": "Best rank", "rank_median": "Median rank",
+    "rank_max": "Worst rank", "rank_spread": "Rank spread (worst - best)",
+    "share_low": "Accepted share, low inflation", "share_high": "Accepted share, high inflation",
+    "drop": "Drop", "selected_share": "Share of scenarios selected", "item": "Item", "value": "Value",
+    "statistic": "Statistic", "objective": "Portfolio present worth (optimum)",
+    "lp_bound": "Upper bound (LP relaxation)", "greedy_objective": "Profitability-index greedy",
+    "gap": "Greedy shortfall",
+}
+
+
+def format_cell(column: str, value: Any) -> tuple[str, bool]:
+    """Cell text and whether it is numeric."""
+    if value is None:
+        return "—", False
+    if isinstance(value, bool):
+        return ("yes" if value else "no"), False
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            return "—", True
+        if column in _SHARE_COLS:
+            return f"{value:.1%}", True
+        if column in _RATE_COLS:
+            return f"{value:.2%}", True
+        if column in _MONEY_COLS:
+            return f"{value:,.0f}", True
+        return f"{value:,.4g}", True
+    if isinstance(value, int) and column not in ("project_id",):
+        return f"{value:,}", True
+    return str(value), False
+
+
+def table_html(frame: pl.DataFrame) -> str:
+    head = "".join(f"<th>{escape_html(_HEADERS.get(c, c))}</th>" for c in frame.columns)
+    rows = []
+    for row in frame.iter_rows():
+        cells = []
+        for col, val in zip(frame.columns, row):
+            text, numeric = format_cell(col, val)
+            cls = ' class="num"' if numeric else ""
+            cells.append(f"<td{cls}>{escape_html(text)}</td>")
+        rows.append("<tr>" + "".join(cells) + "</tr>")
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(rows)}</tbody></table>"
+
+
+def paragraphs(text: str | Sequence[str]) -> str:
+    items = [text] if isinstance(text, str) else list(text)
+    return "".join(f"<p>{escape_html(t)}</p>" for t in items if t)
+
+
+def build_report_html(
+    sections: Iterable[Section],
+    *,
+    title: str = "ratescape screening report",
+    metadata: Mapping[str, Any] | Sequence[tuple[str, Any]] | None = None,
+    caution: str = CAUTION,
+    subtitle: str | None = None,
+) -> str:
+    """Assemble the self-contained offline HTML report.
+
+    Parameters
+    ----------
+    sections : iterable of Section
+        In order of appearance.
+    title : str
+        Page title and heading (escaped).
+    metadata : mapping or sequence of (label, value), optional
+        Run metadata and assumptions, shown as a two-column table.
+    caution : str
+        The screening caution shown prominently under the title.
+    subtitle : str, optional
+
+    Returns
+    -------
+    str
+        The HTML document. Its only scripts are inline: the error hook,
+        the Vega bundle, the escaped chart specifications and the render
+        script; no element loads anything from the network.
+
+    Examples
+    --------
+    >>> page = build_report_html([Section("Notes", "a <b> c")], title="T")
+    >>> "a &lt;b&gt; c" in page and "<script src" not in page
+    True
+    """
+    parts: list[str] = []
+    specs: list[str] = []
+    chart_no = 0
+    for sec in sections:
+        h = max(2, min(int(sec.level), 4))
+        parts.append(f"<section><h{h}>{escape_html(sec.title)}</h{h}>")
+        parts.append(paragraphs(sec.text))
+        if sec.unavailable:
+            parts.append(f'<p class="unavailable">{escape_html(sec.unavailable)}</p>')
+        else:
+            if sec.table is not None:
+                if sec.table.height == 0:
+                    parts.append('<p class="unavailable">No projects.</p>')
+                else:
+                    parts.append(table_html(sec.table))
+            if sec.chart is not None:
+                chart_no += 1
+                cid = f"chart-{chart_no}"
+                spec = sec.chart.to_dict() if hasattr(sec.chart, "to_dict") else dict(sec.chart)
+                parts.append(f'<div class="chart" id="{cid}"></div>')
+                specs.append(json_script_block(spec, f"spec-{chart_no}", chart=cid))
+        parts.append(paragraphs(sec.notes))
+        parts.append("</section>")
+    meta_html = ""
+    if metadata:
+        items = list(metadata.items()) if isinstance(metadata, Mapping) else list(metadata)
+        rows = "".join(
+            f"<tr><th>{escape_html(k)}</th><td>{escape_html(format_cell('', v)[0] if not isinstance(v, str) else v)}</td></tr>"
+            for k, v in items
+        )
+        meta_html = f"<h2>Run and assumptions</h2><table>{rows}</table>"
+    sub = f'<p class="meta">{escape_html(subtitle)}</p>' if subtitle else ""
+    return "".join([
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">",
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>{escape_html(title)}</title>",
+        f"<style>{_CSS}</style>",
+        f"<script>{check_inline_script(_ERROR_HOOK)}</script>",
+        f"<script>{vega_bundle()}</script>",
+        "</head><body>",
+        f"<h1>{escape_html(title)}</h1>{sub}",
+        f'<p class="caution" role="note">{escape_html(caution)}</p>',
+        '<noscript><p class="noscript">The charts need JavaScript; the tables below do not.</p></noscript>',
+        meta_html,
+        *parts,
+        *specs,
+        '<pre id="render-status" data-state="pending"></pre>',
+        f"<script>{check_inline_script(_RENDER)}</script>",
+        "</body></html>\n",
+    ])
+
+def vega_lite_version() -> str | None:
+    """vl-convert's name for the Vega-Lite version Altair writes (e.g. '6.4'), if it has it."""
+    import vl_convert as vlc
+
+    major_minor = ".".join(alt.SCHEMA_VERSION.lstrip("v").split(".")[:2])
+    return major_minor if major_minor in vlc.get_vegalite_versions() else None

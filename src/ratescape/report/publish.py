@@ -1,0 +1,136 @@
+"""Publishing: the whole report as one offline HTML file, and single charts as HTML, PNG, SVG or JSON.
+"""
+from __future__ import annotations
+
+import datetime as _dt
+import os
+from collections.abc import Sequence
+from pathlib import Path
+
+from ratescape.report import charts
+from ratescape.report.page import build_report_html
+from ratescape.report.run_data import ReportError, RunContext, pick_run
+from ratescape.report.sections import (
+    _decision_sections,
+    _drill_projects,
+    _drill_sections,
+    _headline_sections,
+    _portfolio_chart_sections,
+    _sensitivity_sections,
+    report_sections,
+)
+from ratescape.store.database import connect_read
+
+
+def write_report(
+    db_path: str | Path,
+    out_path: str | Path,
+    run_id: str | None = None,
+    projects: Sequence[str] | None = None,
+    *,
+    top_n: int = 25,
+) -> Path:
+    """Write the offline HTML report of one run.
+
+    Parameters
+    ----------
+    db_path : str or Path
+        The results database; opened read-only.
+    out_path : str or Path
+        The HTML file to write.
+    run_id : str, optional
+        Defaults to the latest finished run.
+    projects : sequence of str, optional
+        Project ids for the drill-down charts (at most
+        :data:`MAX_DRILL_PROJECTS`).
+    top_n : int
+        Rows of each headline table.
+
+    Returns
+    -------
+    Path
+        ``out_path``.
+
+    Raises
+    ------
+    ReportError
+        See :func:`report_sections`; also when ``db_path`` does not exist.
+
+    Notes
+    -----
+    All aggregation runs in DuckDB; only top-N tables, one row per scenario
+    for the portfolio chart and the drill-down projects' grids reach
+    Python, so the file size does not grow with the number of projects.
+    """
+    db = Path(db_path)
+    if not db.exists():
+        raise ReportError(f"no database at {db}; create one with `ratescape load` and `ratescape screen`")
+    con = connect_read(db)
+    try:
+        title, meta, sections = report_sections(con, run_id, projects, top_n=top_n)
+    finally:
+        con.close()
+    stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    page = build_report_html(sections, title=title, metadata=meta,
+                             subtitle=f"Written {stamp} from {db.name}.")
+    out = Path(out_path)
+    # write next to the target and rename: an interrupted write never leaves a partial page
+    tmp = out.with_name(f".{out.name}.{os.getpid()}.tmp")
+    try:
+        tmp.write_text(page, encoding="utf-8")
+        os.replace(tmp, out)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+    return out
+
+
+#: Chart kinds of ``ratescape chart`` and the stage of the report that draws each.
+CHART_KINDS = {
+    "acceptance-share": "portfolio",
+    "acceptance-vs-inflation": "portfolio",
+    "rank-stability": "portfolio",
+    "selection-share": "portfolio",
+    "worth-curve": "drill",
+    "worth-surface": "drill",
+    "decision-map": "decision",
+    "tornado": "sensitivity",
+    "spider": "sensitivity",
+}
+
+
+def write_chart(db_path: str | Path, kind: str, out_path: str | Path, *, run_id: str | None = None,
+                projects: Sequence[str] | None = None, group: str | None = None, top_n: int = 25) -> Path:
+    """Write one chart of a run to ``out_path`` (.html offline, .png, .svg or .json).
+
+    ``kind`` is one of :data:`CHART_KINDS`; drill-down kinds take ``projects``,
+    ``decision-map`` takes ``group``.
+    """
+    if kind not in CHART_KINDS:
+        raise ReportError(f"unknown chart kind {kind!r}; use one of: {', '.join(CHART_KINDS)}")
+    stage = CHART_KINDS[kind]
+    con = connect_read(db_path)
+    try:
+        ctx = RunContext(con, pick_run(con, run_id))
+        if stage == "portfolio":
+            sections = _portfolio_chart_sections(ctx, top_n)
+        else:
+            _, suggested = _headline_sections(ctx, top_n)
+            ids = _drill_projects(ctx, projects, suggested)
+            if stage == "drill":
+                sections = _drill_sections(ctx, ids[:1])
+            elif stage == "decision":
+                sections = _decision_sections(ctx, ids)
+            else:
+                sections = _sensitivity_sections(ctx, ids[:1])
+        matching = [sec for sec in sections if sec.chart_kind == kind
+                    and (kind != "decision-map" or group is None or sec.subject == group)]
+        for sec in matching:
+            if sec.chart is not None:
+                charts.save_chart(sec.chart, out_path)
+                return Path(out_path)
+        why = next((sec.unavailable for sec in matching if sec.unavailable), None)
+        raise ReportError(f"no {kind} chart for this run" + (f": {why}" if why else
+                          (f" (group {group!r} not found)" if group else "")))
+    finally:
+        con.close()

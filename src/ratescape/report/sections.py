@@ -1,0 +1,503 @@
+"""The sections of the report: headlines, portfolio charts, project drill-downs, decision maps and
+sensitivity, each a :class:`~ratescape.report.page.Section` built from small aggregates.
+"""
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Sequence
+from typing import Any
+
+import duckdb
+import polars as pl
+
+from ratescape.report import charts
+from ratescape.report.page import Section
+from ratescape.report.run_data import (
+    ReportError,
+    RunContext,
+    column_names,
+    pick_run,
+    project_table,
+    query_frame,
+    quote_ident,
+    table_names,
+    thin_levels,
+)
+
+#: Most drill-down projects a report carries (each adds one surface chart).
+MAX_DRILL_PROJECTS = 8
+
+
+#: Most grid points of one drill-down surface; larger grids are thinned evenly.
+MAX_SURFACE_POINTS = 10_000
+
+
+#: Most lines (levels of the second axis) in a worth curve.
+MAX_CURVE_LINES = 11
+
+
+#: Most mutually exclusive groups drawn as decision maps.
+MAX_GROUPS = 4
+
+
+NO_BUDGET = "Not available: this run has no budget-limited portfolios."
+
+
+NO_GROUPS = "Not available: this run has no groups of mutually exclusive alternatives."
+
+
+NO_SENSITIVITY = "Not available: this run has no one-at-a-time sensitivity results."
+
+
+WEIGHTS_NOTE = ("Probability weights on the axes are the user's judgement, not a forecast; probabilities of "
+                "acceptance and expected present worth are only as good as those weights.")
+
+
+AFTER_TAX_NOTE = ("One income-tax rate per scenario applied to every taxable line in the year it arises; a "
+                  "project's loss offsets the firm's other taxable income that year; the investment is "
+                  "depreciated (fixed in then-current money, so inflation erodes the tax shield) and the gain "
+                  "over book value at disposal is taxed at the ordinary rate. Tax law varies by jurisdiction "
+                  "and year: screening only, not for filing.")
+
+
+def run_metadata(ctx: RunContext) -> list[tuple[str, Any]]:
+    run = ctx.run
+    meta: list[tuple[str, Any]] = [("Run id", run["run_id"])]
+    labels = [("status", "Status"), ("started_at", "Started"), ("finished_at", "Finished"),
+              ("tool_version", "Tool version"), ("inputs_hash", "Hash of inputs"),
+              ("discount_basis", "Discount rates given as"), ("timing", "Cash-flow timing"),
+              ("periods_per_year", "Periods per year"), ("after_tax", "After tax")]
+    for key, label in labels:
+        if key in run and run[key] is not None:
+            meta.append((label, run[key] if isinstance(run[key], (str, bool, int, float)) else str(run[key])))
+    meta.append(("Projects screened", ctx.project_count))
+    meta.append(("Scenarios", ctx.scenario_count))
+    stats = ctx.con.execute(
+        "SELECT min(discount_rate), max(discount_rate), count(DISTINCT discount_rate), "
+        "min(real_rate), max(real_rate), min(inflation), max(inflation), count(DISTINCT inflation) "
+        "FROM scenarios WHERE run_id = ?", [ctx.run_id]).fetchall()[0]
+    if stats[0] is not None:
+        meta.append(("Discount rate, nominal", f"{stats[0]:.2%} to {stats[1]:.2%} ({stats[2]} levels)"))
+        if stats[3] is not None:
+            meta.append(("Discount rate, real", f"{stats[3]:.2%} to {stats[4]:.2%}"))
+        meta.append(("General inflation", f"{stats[5]:.2%} to {stats[6]:.2%} ({stats[7]} levels)"))
+    if ctx.base is not None:
+        meta.append(("Base scenario",
+                     f"discount rate {ctx.base['discount_rate']:.2%} nominal, inflation {ctx.base['inflation']:.2%}"))
+    meta.append(("Relation of rates", "exact Fisher relation (1 + nominal) = (1 + real)(1 + inflation)"))
+    spec = run.get("grid_spec")
+    if spec:
+        try:
+            parsed = json.loads(spec)
+        except (TypeError, ValueError):
+            parsed = None
+        if isinstance(parsed, dict):
+            for k, v in parsed.items():
+                if k == "sources":
+                    continue
+                meta.append((f"Setting: {k}", v if isinstance(v, str) else json.dumps(v)))
+            if parsed.get("weights"):
+                meta.append(("Scenario weights", WEIGHTS_NOTE))
+            if parsed.get("after_tax"):
+                meta.append(("After-tax assumptions", AFTER_TAX_NOTE))
+        else:
+            meta.append(("Grid settings", str(spec)))
+    if run.get("message"):
+        meta.append(("Run message", run["message"]))
+    return meta
+
+
+def _headline_sections(ctx: RunContext, top_n: int) -> tuple[list[Section], list[str]]:
+    """Headline tables and the ids they suggest for drill-down."""
+    cols = ("ps.project_id, p.name, ps.accept_share, ps.pw_base, ps.pw_min, ps.pw_max, ps.rank_base")
+    secs: list[Section] = []
+    suggest: list[str] = []
+
+    acc, n_acc = project_table(ctx, "ps.accept_share >= 1.0",
+                                "ps.pw_base DESC NULLS LAST, ps.project_id", cols, [], top_n)
+    secs.append(Section(
+        "Accepted in every scenario",
+        f"{n_acc:,} of {ctx.project_count:,} projects have present worth of at least zero in every "
+        f"scenario of the grid. Shown: the {min(top_n, n_acc):,} with the highest base present worth.",
+        table=acc))
+    suggest += acc["project_id"].head(1).to_list()
+
+    levels = ctx.levels("inflation")
+    if len(levels) < 2:
+        secs.append(Section("Fails under high inflation",
+                            unavailable="Not available: the run has a single inflation level."))
+    else:
+        k = max(1, len(levels) // 4)
+        low_max, high_min = levels[k - 1], levels[-k]
+        sql = """
+            WITH s AS (
+                SELECT scenario_id,
+                       CASE WHEN inflation <= ? THEN 'low' WHEN inflation >= ? THEN 'high' END AS band
+                FROM scenarios WHERE run_id = ?),
+            agg AS (
+                SELECT r.project_id,
+                       avg(CASE WHEN s.band = 'low' THEN CAST(r.accepted AS INTEGER) END) AS share_low,
+                       avg(CASE WHEN s.band = 'high' THEN CAST(r.accepted AS INTEGER) END) AS share_high
+                FROM {rows} r JOIN s ON s.scenario_id = r.scenario_id
+                WHERE s.band IS NOT NULL
+                GROUP BY r.project_id),
+            hit AS (SELECT *, share_low - share_high AS drop FROM agg WHERE share_low - share_high >= 0.25)
+            SELECT hit.project_id, p.name, hit.share_low, hit.share_high, hit.drop,
+                   count(*) OVER () AS total
+            FROM hit LEFT JOIN projects p ON p.project_id = hit.project_id
+            ORDER BY hit.drop DESC, hit.share_low DESC, hit.project_id LIMIT ?"""
+        rows, rows_params = ctx.rows()
+        frame = query_frame(ctx.con, sql.replace("{rows}", rows), [low_max, high_min, ctx.run_id, *rows_params, top_n])
+        total = int(frame["total"][0]) if frame.height else 0
+        secs.append(Section(
+            "Fails under high inflation",
+            f"{total:,} project{'' if total == 1 else 's'} {'is' if total == 1 else 'are'} accepted in a share of scenarios at least 25 points lower when "
+            f"inflation is high (at or above {high_min:.2%}) than when it is low (at or below "
+            f"{low_max:.2%}), over the same discount rates. Shown: the {min(top_n, total):,} largest drops.",
+            table=frame.drop("total")))
+        suggest += frame["project_id"].head(1).to_list()
+
+    movers, _ = project_table(
+        ctx, "ps.rank_max IS NOT NULL",
+        "(ps.rank_max - ps.rank_min) DESC, ps.rank_median, ps.project_id",
+        "ps.project_id, p.name, ps.rank_base, ps.rank_min, ps.rank_median, ps.rank_max, "
+        "ps.rank_max - ps.rank_min AS rank_spread", [], top_n)
+    secs.append(Section(
+        "Rank movers",
+        f"Projects whose rank by present worth (1 = highest) changes most across the scenarios. "
+        f"Shown: the {movers.height:,} widest spreads.",
+        table=movers))
+    suggest += movers["project_id"].head(1).to_list()
+
+    if "selections" in ctx.tables:
+        denom_sql = ("SELECT count(DISTINCT scenario_id) FROM portfolios WHERE run_id = ?"
+                     if "portfolios" in ctx.tables else
+                     "SELECT count(*) FROM scenarios WHERE run_id = ?")
+        n_port = ctx.con.execute(denom_sql, [ctx.run_id]).fetchall()[0][0] or 0
+        if n_port == 0:
+            secs.append(Section("Core portfolio", unavailable=NO_BUDGET))
+        else:
+            core = query_frame(ctx.con, """
+                WITH sel AS (SELECT project_id, count(DISTINCT scenario_id) AS k
+                             FROM selections WHERE run_id = ? GROUP BY project_id)
+                SELECT sel.project_id, p.name, sel.k / ?::DOUBLE AS selected_share,
+                       count(*) FILTER (WHERE sel.k >= ?) OVER () AS core_total
+                FROM sel LEFT JOIN projects p ON p.project_id = sel.project_id
+                ORDER BY selected_share DESC, sel.project_id LIMIT ?""",
+                [ctx.run_id, n_port, n_port, top_n])
+            n_core = int(core["core_total"][0]) if core.height else 0
+            secs.append(Section(
+                "Core portfolio",
+                f"{n_core:,} projects are in the budget-limited portfolio in every one of the "
+                f"{n_port:,} scenarios. Shown: the {core.height:,} projects selected most often.",
+                table=core.drop("core_total")))
+    else:
+        secs.append(Section("Core portfolio", unavailable=NO_BUDGET))
+    if "portfolios" in ctx.tables:
+        pcols = set(column_names(ctx.con, "portfolios"))
+        want = [c for c in ("objective", "lp_bound", "greedy_objective") if c in pcols]
+        n_rows = ctx.con.execute("SELECT count(*) FROM portfolios WHERE run_id = ?", [ctx.run_id]).fetchall()[0][0]
+        if want and n_rows:
+            stat_rows = []
+            for stat, fn in (("lowest", "min"), ("median", "median"), ("highest", "max")):
+                vals = ctx.con.execute(
+                    "SELECT " + ", ".join(f"{fn}({quote_ident(c)})" for c in want)
+                    + " FROM portfolios WHERE run_id = ?", [ctx.run_id]).fetchall()[0]
+                stat_rows.append({"statistic": stat, **dict(zip(want, vals))})
+            secs.append(Section(
+                "Budget-limited portfolio across scenarios",
+                "Total present worth of the optimal portfolio (0-1 integer program), its "
+                "LP-relaxation bound and the profitability-index greedy answer, over all scenarios.",
+                table=pl.DataFrame(stat_rows, infer_schema_length=None)))
+    return secs, suggest
+
+
+def _drill_projects(ctx: RunContext, projects: Sequence[str] | None, suggested: list[str]) -> list[str]:
+    if projects is not None:
+        ids = list(dict.fromkeys(str(p) for p in projects))
+        if len(ids) > MAX_DRILL_PROJECTS:
+            raise ReportError(f"at most {MAX_DRILL_PROJECTS} projects can be drilled into; got {len(ids)}. "
+                              "Pick fewer with --project.")
+        found = {r[0] for r in ctx.con.execute(
+            "SELECT project_id FROM project_summary WHERE run_id = ? AND list_contains(?, project_id)",
+            [ctx.run_id, ids]).fetchall()}
+        missing = [p for p in ids if p not in found]
+        if missing:
+            raise ReportError(f"project(s) {missing} are not in run {ctx.run_id!r}; "
+                              "check the ids with `ratescape query`.")
+        return ids
+    ids = list(dict.fromkeys(str(p) for p in suggested if p is not None))
+    if len(ids) < 3:
+        more = ctx.con.execute(
+            "SELECT project_id FROM project_summary WHERE run_id = ? "
+            "ORDER BY pw_base DESC NULLS LAST, project_id LIMIT 3", [ctx.run_id]).fetchall()
+        ids = list(dict.fromkeys(ids + [r[0] for r in more]))
+    return ids[:4]
+
+
+def _portfolio_chart_sections(ctx: RunContext, top_n: int) -> list[Section]:
+    secs = []
+    top = query_frame(ctx.con, """
+        SELECT ps.project_id, p.name, ps.accept_share FROM project_summary ps
+        LEFT JOIN projects p ON p.project_id = ps.project_id WHERE ps.run_id = ?
+        ORDER BY ps.accept_share DESC NULLS LAST, ps.pw_base DESC NULLS LAST, ps.project_id LIMIT ?""",
+             [ctx.run_id, top_n])
+    secs.append(Section("Acceptance share by project",
+                        f"The {top.height:,} projects accepted in the largest share of scenarios "
+                        f"(of {ctx.project_count:,}).",
+                        chart=charts.acceptance_share_bars(top), chart_kind="acceptance-share"))
+    if ctx.narrow:   # aggregate by scenario key, on the narrow rows alone
+        by_scen = query_frame(ctx.con, f"""
+            WITH a AS (SELECT x.scenario_key, avg(CAST(x.present_worth >= 0 AS INTEGER)) AS accept_share
+                       FROM result_rows x
+                       WHERE x.scenario_key IN (SELECT scenario_key FROM scenarios WHERE run_id = ?)
+                       GROUP BY x.scenario_key)
+            SELECT s.{quote_ident(ctx.y)} AS inflation, s.{quote_ident(ctx.x)} AS series, a.accept_share
+            FROM a JOIN scenarios s ON s.run_id = ? AND s.scenario_key = a.scenario_key
+            WHERE {ctx.plane_filter}""", [ctx.run_id, ctx.run_id, *ctx.plane_params])
+    else:
+        by_scen = query_frame(ctx.con, f"""
+            WITH a AS (SELECT scenario_id, avg(CAST(accepted AS INTEGER)) AS accept_share
+                       FROM results WHERE run_id = ? GROUP BY scenario_id)
+            SELECT s.{quote_ident(ctx.y)} AS inflation, s.{quote_ident(ctx.x)} AS series, a.accept_share
+            FROM a JOIN scenarios s ON s.run_id = ? AND s.scenario_id = a.scenario_id
+            WHERE {ctx.plane_filter}""", [ctx.run_id, ctx.run_id, *ctx.plane_params])
+    series_levels = thin_levels(sorted(by_scen["series"].unique().to_list()), 21)
+    by_scen = by_scen.filter(pl.col("series").is_in(series_levels)).rename({"series": ctx.x})
+    secs.append(Section("Acceptance against inflation",
+                        "Share of all projects accepted, by inflation, one line per discount rate.",
+                        chart=charts.acceptance_vs_inflation(by_scen, series=ctx.x),
+                        chart_kind="acceptance-vs-inflation"))
+    ranks = query_frame(ctx.con, """
+        SELECT ps.project_id, p.name, ps.rank_min, ps.rank_median, ps.rank_max, ps.rank_base
+        FROM project_summary ps LEFT JOIN projects p ON p.project_id = ps.project_id
+        WHERE ps.run_id = ? AND ps.rank_median IS NOT NULL
+        ORDER BY ps.rank_median, ps.project_id LIMIT ?""", [ctx.run_id, top_n])
+    secs.append(Section("Rank stability",
+                        f"Best, median and worst rank of the {ranks.height:,} projects with the best median rank.",
+                        chart=charts.rank_intervals(ranks), chart_kind="rank-stability"))
+    if "selections" in ctx.tables:
+        n_port = ctx.con.execute(
+            "SELECT count(DISTINCT scenario_id) FROM portfolios WHERE run_id = ?" if "portfolios" in ctx.tables
+            else "SELECT count(*) FROM scenarios WHERE run_id = ?", [ctx.run_id]).fetchall()[0][0] or 0
+        if not n_port:
+            secs.append(Section("Selection share in the budget-limited portfolio", unavailable=NO_BUDGET, chart_kind="selection-share"))
+        else:
+            sel = query_frame(ctx.con, """
+                SELECT s.project_id, p.name, count(DISTINCT s.scenario_id) / ?::DOUBLE AS selected_share
+                FROM selections s LEFT JOIN projects p ON p.project_id = s.project_id
+                WHERE s.run_id = ? GROUP BY s.project_id, p.name
+                ORDER BY selected_share DESC, s.project_id LIMIT ?""", [n_port, ctx.run_id, top_n])
+            secs.append(Section("Selection share in the budget-limited portfolio",
+                                chart=charts.selection_share_bars(sel), chart_kind="selection-share"))
+    else:
+        secs.append(Section("Selection share in the budget-limited portfolio", unavailable=NO_BUDGET, chart_kind="selection-share"))
+    return secs
+
+
+def _drill_sections(ctx: RunContext, ids: list[str]) -> list[Section]:
+    secs: list[Section] = []
+    if not ids:
+        return secs
+    x, y = ctx.x, ctx.y
+    xs_all, ys_all = ctx.levels(x), ctx.levels(y)
+    names = dict(ctx.con.execute(
+        "SELECT project_id, name FROM projects WHERE list_contains(?, project_id)", [ids]).fetchall())
+    # worth curves: every x level, up to MAX_CURVE_LINES inflation levels
+    curve_ys = thin_levels(ys_all, MAX_CURVE_LINES)
+    rows, rows_params = ctx.rows(projects=ids)
+    curve = query_frame(ctx.con, f"""
+        SELECT r.project_id, p.name, s.{quote_ident(x)} AS {quote_ident(x)}, s.inflation, r.present_worth
+        FROM {rows} r JOIN scenarios s ON s.run_id = ? AND s.scenario_id = r.scenario_id
+        LEFT JOIN projects p ON p.project_id = r.project_id
+        WHERE list_contains(?, s.inflation) AND {ctx.plane_filter}
+        ORDER BY r.project_id, s.inflation, s.{quote_ident(x)}""",
+               [*rows_params, ctx.run_id, curve_ys, *ctx.plane_params])
+    irr = None
+    irr_col = "irr_real" if x == "real_rate" else "irr_nominal"
+    # irr_roots holds every root of streams with several; irr_results one row per inflation level
+    irr_table = None
+    for t in ("irr_roots", "irr_results"):
+        if t in ctx.tables and {"run_id", "project_id", "inflation", irr_col} <= set(column_names(ctx.con, t)):
+            n_rows = ctx.con.execute(f"SELECT count(*) FROM {t} WHERE run_id = ? AND list_contains(?, project_id)",
+                                     [ctx.run_id, ids]).fetchall()[0][0]
+            if n_rows:
+                irr_table = t
+                break
+    if irr_table is not None:
+        irr = query_frame(ctx.con, f"""
+            SELECT project_id, inflation, {irr_col} FROM {irr_table}
+            WHERE run_id = ? AND list_contains(?, project_id) AND list_contains(?, inflation)
+              AND {irr_col} IS NOT NULL""", [ctx.run_id, ids, curve_ys])
+    secs.append(Section(
+        "Present worth against the discount rate",
+        "Drill-down projects: " + ", ".join(f"{names.get(i) or i} ({i})" for i in ids)
+        + ". Pick a project in the list under the chart. Each line is one inflation level; "
+        "diamonds mark the IRR at that inflation (several diamonds on one line mean several IRRs; "
+        "an IRR outside the range of discount rates screened is not drawn).",
+        chart=charts.worth_curve(curve, irr, x=x, irr_column=irr_col), chart_kind="worth-curve",
+        notes=[] if irr is not None else ["IRR marks not available: no IRR rows for these projects."]))
+    # surfaces: thinned to MAX_SURFACE_POINTS grid points
+    keep = max(2, int(math.sqrt(MAX_SURFACE_POINTS)))
+    sx, sy = thin_levels(xs_all, keep), thin_levels(ys_all, keep)
+    surf = query_frame(ctx.con, f"""
+        SELECT r.project_id, s.{quote_ident(x)} AS {quote_ident(x)}, s.inflation, r.present_worth
+        FROM {rows} r JOIN scenarios s ON s.run_id = ? AND s.scenario_id = r.scenario_id
+        WHERE list_contains(?, s.{quote_ident(x)}) AND list_contains(?, s.inflation) AND {ctx.plane_filter}""",
+              [*rows_params, ctx.run_id, sx, sy, *ctx.plane_params])
+    for pid in ids:
+        one = surf.filter(pl.col("project_id") == pid).drop("project_id")
+        label = f"{names.get(pid) or pid} ({pid})"
+        if len(sx) < 2 or len(sy) < 2 or one.height == 0:
+            secs.append(Section(f"Present worth surface: {label}", level=3,
+                                unavailable="Not available: the grid needs at least two levels on each axis.",
+                                chart_kind="worth-surface", subject=pid))
+            continue
+        secs.append(Section(f"Present worth surface: {label}", level=3,
+                            text="Colour shows present worth (blue above zero, orange-red below, pale near zero); "
+                                 "black lines join scenarios of equal present worth.",
+                            chart=charts.worth_surface(one, x=x, y=y,
+                                                       title=f"Present worth of {label}"),
+                            chart_kind="worth-surface", subject=pid))
+    return secs
+
+
+def _decision_sections(ctx: RunContext, ids: list[str]) -> list[Section]:
+    title = "Decision maps for mutually exclusive alternatives"
+    if "group_decisions" not in ctx.tables:
+        return [Section(title, unavailable=NO_GROUPS)]
+    groups = [r[0] for r in ctx.con.execute("""
+        SELECT g.group_name FROM (SELECT DISTINCT group_name FROM group_decisions WHERE run_id = ?) g
+        ORDER BY (SELECT count(*) FROM projects p WHERE p.group_name = g.group_name
+                  AND list_contains(?, p.project_id)) DESC, g.group_name LIMIT ?""",
+        [ctx.run_id, ids, MAX_GROUPS]).fetchall()]
+    if not groups:
+        return [Section(title, unavailable=NO_GROUPS)]
+    x, y = ctx.x, ctx.y
+    keep = max(2, int(math.sqrt(MAX_SURFACE_POINTS)))
+    sx, sy = thin_levels(ctx.levels(x), keep), thin_levels(ctx.levels(y), keep)
+    gcols = set(column_names(ctx.con, "group_decisions"))
+    runner = "g.runner_up" if "runner_up" in gcols else "NULL"
+    secs = [Section(title, "Each cell is coloured by the alternative with the highest present worth; "
+                           "the black line is the indifference frontier, found by root finding; "
+                           "hover for the margin over the runner-up. Click a legend entry to highlight it.")]
+    for group in groups:
+        cells = query_frame(ctx.con, f"""
+            SELECT s.{quote_ident(x)} AS {quote_ident(x)}, s.inflation AS inflation, g.preferred, {runner} AS runner_up, g.margin
+            FROM group_decisions g JOIN scenarios s ON s.run_id = g.run_id AND s.scenario_id = g.scenario_id
+            WHERE g.run_id = ? AND g.group_name = ? AND list_contains(?, s.{quote_ident(x)})
+              AND list_contains(?, s.inflation) AND {ctx.plane_filter}""",
+                   [ctx.run_id, group, sx, sy, *ctx.plane_params])
+        frontier = None
+        note = []
+        if "frontiers" in ctx.tables:
+            fr = query_frame(ctx.con, """
+                SELECT alternative_a, alternative_b, segment, point, x, y FROM frontiers
+                WHERE run_id = ? AND group_name = ? AND x_axis = ? AND y_axis = ?
+                ORDER BY alternative_a, alternative_b, segment, point""", [ctx.run_id, group, x, y])
+            frontier = fr if fr.height else None
+            if frontier is None:
+                note.append(f"No frontier on the {x} x {y} plane for this group.")
+        else:
+            note.append("Frontier lines not available: no frontiers table.")
+        if cells.height == 0:
+            secs.append(Section(f"Group {group}", level=3, unavailable="No decisions recorded.",
+                                chart_kind="decision-map", subject=group))
+            continue
+        secs.append(Section(f"Group {group}", level=3, notes=note,
+                            chart=charts.decision_map(cells, frontier, x=x, y=y,
+                                                      title=f"Preferred alternative in group {group}"),
+                            chart_kind="decision-map", subject=group))
+    return secs
+
+
+def _sensitivity_sections(ctx: RunContext, ids: list[str]) -> list[Section]:
+    title = "One-at-a-time sensitivity"
+    tor = sp = None
+    if "sensitivity" in ctx.tables:
+        cols = set(column_names(ctx.con, "sensitivity"))
+        base_col = next((c for c in ("worth_base", "base_worth") if c in cols), None)
+        if base_col and {"input", "worth_low", "worth_high"} <= cols:
+            tor = query_frame(ctx.con, f"""
+                SELECT t.project_id, p.name, t.input, t.worth_low, t.worth_high, t.{base_col} AS base_worth
+                FROM sensitivity t LEFT JOIN projects p ON p.project_id = t.project_id
+                WHERE t.run_id = ? AND list_contains(?, t.project_id)
+                  AND t.worth_low IS NOT NULL AND t.worth_high IS NOT NULL
+                ORDER BY t.project_id, t.input""", [ctx.run_id, ids])
+    # spider rows: `spider(input, change, present_worth)`, or long-form sensitivity with pct_change
+    for table, change in (("spider", "change"), ("spider", "pct_change"), ("sensitivity", "pct_change")):
+        if table in ctx.tables and {"input", change, "present_worth"} <= set(column_names(ctx.con, table)):
+            sp = query_frame(ctx.con, f"""
+                SELECT t.project_id, p.name, t.input, t.{change} AS pct_change, t.present_worth
+                FROM {table} t LEFT JOIN projects p ON p.project_id = t.project_id
+                WHERE t.run_id = ? AND list_contains(?, t.project_id)
+                ORDER BY t.project_id, t.input, t.{change}""", [ctx.run_id, ids])
+            break
+    have_tor = tor is not None and tor.height > 0
+    have_sp = sp is not None and sp.height > 0
+    if not have_tor and not have_sp:
+        return [Section(title, unavailable=NO_SENSITIVITY)]
+    secs = [Section(title, "Each input moved on its own, the others held at their base values, "
+                           "for the drill-down projects.")]
+    secs.append(Section("Tornado", level=3, chart=charts.tornado(tor), chart_kind="tornado") if have_tor else
+                Section("Tornado", level=3, unavailable="Not available for these projects.", chart_kind="tornado"))
+    secs.append(Section("Spider", level=3, chart=charts.spider(sp), chart_kind="spider") if have_sp else
+                Section("Spider", level=3, unavailable="Not available for these projects.", chart_kind="spider"))
+    return secs
+
+
+def report_sections(
+    con: duckdb.DuckDBPyConnection,
+    run_id: str | None = None,
+    projects: Sequence[str] | None = None,
+    *,
+    top_n: int = 25,
+) -> tuple[str, list[tuple[str, Any]], list[Section]]:
+    """Query an open results database and build the report's parts.
+
+    Parameters
+    ----------
+    con : duckdb connection
+        Preferably read-only.
+    run_id : str, optional
+        Defaults to the latest finished run.
+    projects : sequence of str, optional
+        Project ids to drill into (at most :data:`MAX_DRILL_PROJECTS`);
+        by default the leading project of each headline table.
+    top_n : int
+        Rows of each headline table and bars of each portfolio chart.
+
+    Returns
+    -------
+    (title, metadata, sections)
+
+    Raises
+    ------
+    ReportError
+        When a required table is missing, the run does not exist or is not
+        finished, or a requested project is not in the run.
+    """
+    if top_n < 1:
+        raise ReportError(f"top_n must be at least 1, got {top_n}")
+    present = table_names(con)
+    missing = [t for t in ("runs", "scenarios", "results", "project_summary", "projects") if t not in present]
+    if missing:
+        raise ReportError(f"the database lacks table(s) {missing}; run `ratescape screen` on it first")
+    ctx = RunContext(con, pick_run(con, run_id))
+    headline, suggested = _headline_sections(ctx, top_n)
+    ids = _drill_projects(ctx, projects, suggested)
+    sections = [
+        Section("Headlines", "Tables list the leading projects only; the database holds every result."),
+        *headline,
+        Section("Portfolio charts"),
+        *_portfolio_chart_sections(ctx, top_n),
+        Section("Drill-down projects",
+                "Projects chosen " + ("by the reader." if projects is not None else
+                                      "automatically: the leading project of each headline table.")),
+        *_drill_sections(ctx, ids),
+        *_decision_sections(ctx, ids),
+        *_sensitivity_sections(ctx, ids),
+    ]
+    title = f"ratescape screening report: run {ctx.run_id}"
+    return title, run_metadata(ctx), sections

@@ -1,0 +1,217 @@
+"""Plan of a run: memory sizing, chunking, line classes and the run's discount tensors.
+
+A :class:`Plan` is everything the chunk loop needs that does not change from chunk to chunk:
+the scenario table and weights, the line classes and their per-scenario multipliers, the
+discount tensors (before and after tax) and the chunk size that fits the machine's memory.
+"""
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from datetime import datetime, timezone
+
+import numpy as np
+
+from ratescape.decide.weights import scenario_weights_from_spec
+from ratescape.errors import RunError
+from ratescape.evaluate.kernel import LineClass, discount_tensor, scenario_major_tensor
+from ratescape.evaluate.sensitivity import SensitivitySettings
+from ratescape.evaluate.timing import discount_exponents
+from ratescape.grid import ScenarioTable, build_scenarios
+from ratescape.settings import RunSettings
+from ratescape.store.worth_files import WorthFiles
+
+# Cells (projects x scenarios) evaluated per chunk when no chunk size is given:
+# about 1e7 cells keeps a chunk's arrays near 80 MB each whatever the portfolio size, and the
+# matrix product cache-friendly (bench/bench_kernel.py).
+DEFAULT_CELLS_PER_CHUNK = 10_000_000
+
+
+# Bytes a chunk needs per project-scenario cell: its PW, PI and outlay matrices, the Arrow row
+# columns and the acceptance flags, twice over (one chunk is written while the next is evaluated).
+BYTES_PER_CELL = 120
+
+
+IRR_SEARCH = (-0.99, 10.0)
+
+
+def available_memory() -> int | None:
+    """Bytes of memory available to new allocations (Linux MemAvailable), or None if unknown."""
+    try:
+        with open("/proc/meminfo") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    try:
+        return int(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
+    except (ValueError, OSError, AttributeError):
+        return None
+
+
+def chunk_cells_for_memory(available: int | None = None) -> int:
+    """Cells (projects x scenarios) per chunk when no chunk size is given.
+
+    A quarter of the available memory at BYTES_PER_CELL, between 1 million and
+    DEFAULT_CELLS_PER_CHUNK cells (beyond ~10 million cells the matrix product gains nothing and
+    the chunk's arrays only take memory away from DuckDB and the page cache).
+    """
+    available = available_memory() if available is None else available
+    if not available:
+        return DEFAULT_CELLS_PER_CHUNK
+    return int(min(DEFAULT_CELLS_PER_CHUNK, max(1_000_000, available // 4 // BYTES_PER_CELL)))
+
+
+DUCKDB_MEMORY_LIMIT = "1GB"
+
+
+CHECKPOINT_THRESHOLD = "4GB"
+
+
+def utc_now() -> datetime:
+    return datetime.now(timezone.utc).replace(tzinfo=None)
+
+
+def multiplier_for(kind: str, axes: set[str], after_tax: bool = False) -> str:
+    """Per-scenario multiplier of a cash-flow line of this kind (composite names multiply).
+
+    After tax every line but the investment is taxable income, kept at (1 - tax rate);
+    the investment is capitalised and recovered through depreciation.
+    """
+    parts = []
+    if after_tax and kind != "investment":
+        parts.append("after_tax")
+    if kind == "investment" and "cost_multiplier" in axes:
+        parts.append("cost_multiplier")
+    if kind == "benefit" and "benefit_multiplier" in axes:
+        parts.append("benefit_multiplier")
+    return "*".join(parts) or "one"
+
+
+# Classes of the lines an after-tax analysis adds (see evaluate/tax.py): the tax shield of
+# depreciation, book value written off and loan interest (nominal, times the tax rate), and
+# loan flows and tax credits (nominal, present only after tax).
+TAX_SHIELD_CLASS = ("nominal", 0.0, "tax")
+
+
+AFTER_TAX_ONLY_CLASS = ("nominal", 0.0, "after_tax_only")
+
+
+def scenario_multipliers(table: ScenarioTable, after_tax: bool) -> dict:
+    """Per-scenario (S,) values of every multiplier name the line classes may use."""
+    S = table.size
+    out = {name: table.columns[name] for name in ("cost_multiplier", "benefit_multiplier") if name in table.columns}
+    tax = table.columns.get("tax_rate", np.zeros(S)) if after_tax else np.zeros(S)
+    out.update(tax=tax, after_tax=1.0 - tax, after_tax_only=np.full(S, 1.0 if after_tax else 0.0))
+    return out
+
+
+@dataclass
+class Plan:
+    """What every chunk of a run shares: scenarios, line classes, discount tensor."""
+
+    run_id: str
+    spec: RunSettings
+    scenarios: ScenarioTable
+    classes: list[LineClass]
+    class_index: dict
+    n_periods: int
+    exponents: np.ndarray
+    tensor: np.ndarray
+    weights: np.ndarray
+    project_count: int
+    chunk_size: int
+    inflation_levels: np.ndarray
+    irr_multipliers: dict
+    sensitivity: SensitivitySettings
+    base_multipliers: dict
+    tensor_before_tax: np.ndarray | None = None
+    kept: np.ndarray | None = None       # (S,) bool: scenarios whose result rows are stored
+    tensor_sm: np.ndarray | None = None  # the tensor as (S, C*T), for scenario-major products
+    tensor_before_tax_sm: np.ndarray | None = None
+    scenario_key_base: int = 0           # scenario s of this run is stored as scenario_key base + s
+    worth_files: WorthFiles | None = None  # per-chunk worth files for the rank pass (not sent to workers)
+
+    @property
+    def chunk_count(self) -> int:
+        return max(1, -(-self.project_count // self.chunk_size))
+
+
+def current_inputs(con) -> tuple[str, int, int]:
+    row = con.execute("SELECT inputs_hash FROM loads ORDER BY load_id DESC LIMIT 1").fetchone()
+    if row is None:
+        raise RunError("the database has no portfolio. Fix: run `ratescape load --projects FILE.csv --db DB` first")
+    count = con.execute("SELECT count(*) FROM projects").fetchone()[0]
+    max_period = con.execute("SELECT coalesce(max(period), 0) FROM cash_flows").fetchone()[0]
+    return row[0], int(count), int(max_period)
+
+
+def _scenario_weights(spec: RunSettings, table: ScenarioTable) -> np.ndarray:
+    """Scenario weights (S,) summing to 1: uniform unless the spec gives axis weights."""
+    if spec.weights:
+        return scenario_weights_from_spec(spec, table)
+    return np.full(table.size, 1.0 / table.size)
+
+
+def make_plan(con, run_id: str, spec: RunSettings, chunk_size: int | None) -> Plan:
+    inputs_hash, count, max_period = current_inputs(con)
+    table = build_scenarios(spec)
+    axes = {a.name for a in spec.extra_axes}
+    if spec.after_tax and "tax_rate" not in axes:
+        raise RunError("after-tax screening needs an income-tax rate. Fix: add --tax-rate 0.25 (or a range "
+                       "such as 0.15:0.35:5), or `rate = 0.25` under [tax] in the grid TOML")
+    rows = con.execute("SELECT DISTINCT basis, escalation, kind FROM cash_flows").fetchall()
+    keys = {(b, float(e), multiplier_for(k, axes, spec.after_tax)) for b, e, k in rows}
+    if spec.after_tax:
+        keys |= {TAX_SHIELD_CLASS, AFTER_TAX_ONLY_CLASS}
+    classes = [LineClass(b, e, m) for b, e, m in sorted(keys)] or [LineClass()]
+    class_index = {(c.basis, c.escalation, c.multiplier): n for n, c in enumerate(classes)}
+    T = max_period + 1 + (1 if spec.after_tax else 0)   # room for a book-value write-off after the last flow
+    tau = discount_exponents(T, spec.timing, spec.periods_per_year)
+    multipliers = scenario_multipliers(table, spec.after_tax)
+    rates = (table.columns["discount_rate"], table.columns["inflation"])
+    with np.errstate(over="ignore", invalid="ignore"):      # overflow is refused just below, cleanly
+        tensor = discount_tensor(classes, tau, *rates, multipliers)
+    before = None
+    if spec.after_tax:
+        zero_tax = dict(multipliers, tax=np.zeros(table.size), after_tax=np.ones(table.size),
+                        after_tax_only=np.zeros(table.size))
+        before = discount_tensor(classes, tau, *rates, zero_tax)
+    if not np.all(np.isfinite(tensor)):
+        raise RunError("discount factors overflow for this horizon and these rates "
+                       f"({T - 1} periods). Fix: narrow the rate range or shorten the horizon")
+    if chunk_size is None:
+        chunk_size = max(1, min(max(count, 1), chunk_cells_for_memory() // max(table.size, 1)))
+    levels = np.unique(table.columns["inflation"])
+    base = table.base_index
+    base_mult = {name: float(v[base]) for name, v in multipliers.items()}
+    irr_mult = {name: np.full(levels.size, v) for name, v in base_mult.items()}
+    try:
+        sens = SensitivitySettings.from_spec(spec.sensitivity, spec.discount_rates if spec.discount_basis == "nominal"
+                                             else list(np.unique(table.columns["discount_rate"])), spec.inflation)
+    except ValueError as exc:
+        raise RunError(f"[sensitivity] settings: {exc}") from None
+    return Plan(run_id, spec, table, classes, class_index, T, tau, tensor, _scenario_weights(spec, table),
+                count, int(chunk_size), levels, irr_mult, sens, base_mult, before, kept_scenarios(spec, table),
+                scenario_major_tensor(tensor), None if before is None else scenario_major_tensor(before))
+
+
+def kept_scenarios(spec: RunSettings, table: ScenarioTable) -> np.ndarray:
+    """Which scenarios' result rows a run stores: all, none (summary) or a thinned subset.
+
+    ``thinned:K`` keeps every K-th value of each axis (counted from the first) and the base scenario.
+    """
+    S = table.size
+    if spec.keep == "all":
+        return np.ones(S, dtype=bool)
+    if spec.keep == "summary":
+        return np.zeros(S, dtype=bool)
+    k = int(spec.keep.split(":", 1)[1])
+    keep = np.ones(S, dtype=bool)
+    for axis in spec.axes:
+        values = np.asarray(axis.values, dtype=float)
+        position = np.searchsorted(np.sort(values), table.columns[axis.name])
+        keep &= position % k == 0
+    keep[table.base_index] = True
+    return keep

@@ -1,0 +1,243 @@
+"""SIGINT and SIGKILL at seeded random points of real `load`, `screen` and `report` processes.
+
+After every trial the database must tell the truth and hold nothing partial:
+
+* load: the portfolio is the old one or the new one completely, never a mix;
+* screen: a run interrupted by SIGINT is 'interrupted', one killed by SIGKILL
+  stays 'running' (or is 'done' if it finished first); `screen --resume`
+  then finishes it with exactly the rows of an uninterrupted reference run;
+* report: the target file is either the earlier complete report or a new
+  complete one, never a truncated page.
+
+Ten trials in all; the random delays come from a seeded generator so a
+failure can be replayed. No assertion is made on elapsed time.
+"""
+from __future__ import annotations
+
+import os
+import random
+import shutil
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import duckdb
+import numpy as np
+import pytest
+
+pytestmark = pytest.mark.heavy   # subprocesses or a cluster: run by default, deselect with -m "not heavy"
+
+RNG = random.Random(20261201)
+ENV = {**os.environ, "PYTHONUNBUFFERED": "1"}
+GRID = ["--discount-rates", "0:0.2:11", "--inflation", "0:0.1:6", "--chunk-size", "8"]
+
+
+def projects_csv(n: int, seed: int) -> str:
+    """``n`` invented parametric projects (lives 3..27 periods)."""
+    rng = np.random.default_rng(seed)
+    rows = ["project_id,name,first_cost,annual_benefit,benefit_basis,benefit_escalation,annual_cost,cost_basis,salvage,life"]
+    for k in range(n):
+        rows.append(f"Q{k:03d},Invented project {k},{rng.uniform(50, 150):.2f},{rng.uniform(5, 40):.2f},"
+                    f"{'nominal' if k % 3 == 0 else 'real'},{0.01 if k % 4 == 1 else 0},{rng.uniform(0, 5):.2f},"
+                    f"real,{rng.uniform(0, 20):.2f},{3 + k % 25}")
+    return "\n".join(rows) + "\n"
+
+
+def cli(*args, **kw) -> subprocess.Popen:
+    return subprocess.Popen([sys.executable, "-m", "ratescape", *map(str, args)], stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, env=ENV, **kw)
+
+
+def finish(*args) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-m", "ratescape", *map(str, args)], capture_output=True, text=True,
+                          env=ENV)
+
+
+def _no_traceback(err: str) -> bool:
+    """No stack trace on standard error, except one raised while Python was still importing the package.
+
+    That start-up case (nothing opened yet) is tested on its own by
+    ``test_interrupt_during_start_up_prints_no_traceback``.
+    """
+    return "Traceback" not in err or ("_get_module_details" in err and err.rstrip().endswith("KeyboardInterrupt"))
+
+
+def fetch(db: Path, sql: str, params=()) -> list:
+    con = duckdb.connect(str(db), read_only=True)
+    try:
+        return con.execute(sql, list(params)).fetchall()
+    finally:
+        con.close()
+
+
+@pytest.fixture(scope="module")
+def work(tmp_path_factory) -> dict:
+    d = tmp_path_factory.mktemp("interrupt")
+    (d / "old.csv").write_text(projects_csv(40, 1))
+    (d / "new.csv").write_text(projects_csv(240, 2))
+    (d / "screen.csv").write_text(projects_csv(80, 3))
+    counts = {}
+    for name in ("old", "new"):
+        db = d / f"{name}.duckdb"
+        assert finish("load", "--projects", d / f"{name}.csv", "--db", db).returncode == 0
+        counts[name] = fetch(db, "SELECT (SELECT count(*) FROM projects), (SELECT count(*) FROM cash_flows), "
+                                 "(SELECT sum(amount) FROM cash_flows)")[0]
+    screen_db = d / "screen.duckdb"
+    assert finish("load", "--projects", d / "screen.csv", "--db", screen_db).returncode == 0
+    ref = finish("screen", "--db", screen_db, *GRID, "--quiet")
+    assert ref.returncode == 0, ref.stderr
+    return {"dir": d, "counts": counts, "screen_db": screen_db, "reference": ref.stdout.strip().splitlines()[-1]}
+
+
+@pytest.mark.parametrize("trial,sig", [(0, signal.SIGINT), (1, signal.SIGKILL), (2, signal.SIGINT), (3, signal.SIGKILL)])
+def test_interrupted_load_leaves_old_or_new_portfolio_whole(work, trial, sig, tmp_path):
+    db = tmp_path / "plan.duckdb"
+    shutil.copyfile(work["dir"] / "old.duckdb", db)
+    delay = RNG.uniform(0.5, 1.6)   # the load takes about 1.3 s on the project machine, most of it start-up
+    proc = cli("load", "--projects", work["dir"] / "new.csv", "--db", db)
+    time.sleep(delay)
+    proc.send_signal(sig)
+    out, err = proc.communicate(timeout=60)
+    state = fetch(db, "SELECT (SELECT count(*) FROM projects), (SELECT count(*) FROM cash_flows), "
+                      "(SELECT sum(amount) FROM cash_flows)")[0]
+    loads = fetch(db, "SELECT count(*) FROM loads")[0][0]
+    assert state in (work["counts"]["old"], work["counts"]["new"]), (delay, state)
+    assert loads == (1 if state == work["counts"]["old"] else 2)
+    if proc.returncode == 0:
+        assert state == work["counts"]["new"]
+    assert _no_traceback(err), err
+
+
+def _run_id_from(proc: subprocess.Popen) -> str:
+    """Read standard error until the screen logs its run id (the run row exists from then on)."""
+    for line in proc.stderr:
+        if line.startswith("run run-"):
+            return line.split()[1].rstrip(":")
+    raise AssertionError("screen ended before logging its run id")
+
+
+def _same_rows(db: Path, run: str, reference: str) -> None:
+    for table, key, values in (
+            ("results", "project_id, scenario_id", "present_worth, annual_worth, accepted::INTEGER"),
+            ("project_summary", "project_id", "pw_min, pw_max, pw_base, accept_share, rank_base"),
+            ("irr_results", "project_id, inflation", "root_count, coalesce(irr_nominal, -9)"),
+            ("irr_roots", "project_id, inflation, root_index", "irr_nominal")):
+        got = fetch(db, f"SELECT {key}, {values} FROM {table} WHERE run_id = ? ORDER BY {key}", [run])
+        want = fetch(db, f"SELECT {key}, {values} FROM {table} WHERE run_id = ? ORDER BY {key}", [reference])
+        assert len(got) == len(want), (table, len(got), len(want))
+        dupes = fetch(db, f"SELECT count(*) - count(DISTINCT ({key})) FROM {table} WHERE run_id = ?", [run])[0][0]
+        assert dupes == 0, table
+        nk = key.count(",") + 1
+        assert [r[:nk] for r in got] == [r[:nk] for r in want], table
+        np.testing.assert_allclose(np.array([r[nk:] for r in got], dtype=float),
+                                   np.array([r[nk:] for r in want], dtype=float), rtol=1e-12, atol=1e-9)
+
+
+@pytest.mark.parametrize("trial,sig", [(0, signal.SIGINT), (1, signal.SIGKILL), (2, signal.SIGKILL), (3, signal.SIGINT)])
+def test_interrupted_screen_is_truthful_and_resumes_exactly(work, trial, sig):
+    db = work["screen_db"]
+    proc = cli("screen", "--db", db, *GRID, "--quiet")
+    run_id = _run_id_from(proc)
+    delay = RNG.uniform(0.0, 2.5)   # 10 chunks take about 2 s here
+    time.sleep(delay)
+    proc.send_signal(sig)
+    out, err = proc.communicate(timeout=60)
+    status, done, count = fetch(db, "SELECT status, chunks_done, chunk_count FROM runs WHERE run_id = ?", [run_id])[0]
+    chunks = fetch(db, "SELECT count(*) FROM run_chunks WHERE run_id = ?", [run_id])[0][0]
+    assert chunks == done, "the chunk marks and the run's counter disagree"
+    if proc.returncode == 0 or status == "done":
+        # finished before the signal (or the signal came while Python was shutting down)
+        assert status == "done" and done == count, (proc.returncode, status)
+    elif sig == signal.SIGINT:
+        assert status == "interrupted", (delay, status, err[-800:])
+        assert proc.returncode == 130 and "Interrupted." in err, (proc.returncode, err[-800:])
+    else:
+        assert proc.returncode == -signal.SIGKILL
+        assert status == "running", status
+    if status != "done":
+        rows = fetch(db, "SELECT count(*) FROM results WHERE run_id = ?", [run_id])[0][0]
+        assert rows == 8 * 66 * chunks, "results of uncommitted chunks are visible"
+        resumed = finish("screen", "--db", db, "--resume", run_id, "--quiet")
+        assert resumed.returncode == 0, resumed.stderr
+        assert fetch(db, "SELECT status, chunks_done FROM runs WHERE run_id = ?", [run_id])[0] == ("done", count)
+    _same_rows(db, run_id, work["reference"])
+    assert _no_traceback(err), err
+
+
+def _complete(page: bytes) -> bool:
+    return page.lstrip().lower().startswith(b"<!doctype html") and page.rstrip().endswith(b"</html>")
+
+
+def _first_report(work) -> Path:
+    """A complete report of the reference run, written once (the earlier file a rewrite must not damage)."""
+    path = work["dir"] / "first-report.html"
+    if not path.exists():
+        first = finish("report", "--db", work["screen_db"], "--run", work["reference"], "--out", path)
+        assert first.returncode == 0, first.stderr
+    return path
+
+
+@pytest.mark.parametrize("trial,sig", [(0, signal.SIGKILL), (1, signal.SIGINT)])
+def test_interrupted_report_leaves_no_partial_page(work, trial, sig, tmp_path):
+    out = tmp_path / "report.html"
+    shutil.copyfile(_first_report(work), out)
+    old = out.read_bytes()
+    assert _complete(old)
+    delay = RNG.uniform(1.0, 3.5)   # the report takes about 3 s here
+    proc = cli("report", "--db", work["screen_db"], "--run", work["reference"], "--out", out)
+    time.sleep(delay)
+    proc.send_signal(sig)
+    _, err = proc.communicate(timeout=60)
+    page = out.read_bytes()
+    assert page == old or _complete(page), f"a partial report of {len(page)} bytes was left at the target"
+    assert _no_traceback(err), err
+
+
+def test_interrupt_during_start_up_prints_no_traceback(tmp_path):
+    proc = cli("query", "--db", tmp_path / "none.duckdb", "runs")
+    time.sleep(0.15)    # Python is still importing the package's dependencies
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=60)
+    assert proc.returncode != 0
+    assert "Traceback" not in err, err
+
+
+class _Interrupting:
+    """A DuckDB connection stand-in whose n-th INSERT fails as DuckDB fails when Ctrl-C arrives mid-query."""
+
+    def __init__(self, con, after: int, _left=None):
+        self._con = con
+        self._left = _left if _left is not None else {"n": after}   # shared with its cursors
+
+    def cursor(self):         # the writer threads' own connections count (and fail) too
+        return _Interrupting(self._con.cursor(), 0, self._left)
+
+    def execute(self, sql, *args, **kw):
+        if sql.lstrip().upper().startswith("INSERT INTO RESULT_ROWS"):
+            self._left["n"] -= 1
+            if self._left["n"] < 0:
+                raise RuntimeError("Query interrupted")   # what duckdb 2.0 raises on SIGINT during a query
+        return self._con.execute(sql, *args, **kw)
+
+    def __getattr__(self, name):
+        return getattr(self._con, name)
+
+
+def test_ctrl_c_inside_a_duckdb_query_marks_the_run_interrupted(work, tmp_path):
+    from ratescape.run import screen as screen_module
+    from ratescape.settings import make_run_settings
+    from ratescape.store.database import connect_write
+    db = tmp_path / "plan.duckdb"
+    shutil.copyfile(work["screen_db"], db)
+    con = connect_write(db)
+    try:
+        spec = make_run_settings(discount_rates="0:0.2:11", inflation="0:0.1:6")
+        with pytest.raises((KeyboardInterrupt, RuntimeError)):
+            screen_module.screen(_Interrupting(con, after=3), spec, chunk_size=8, progress=False)
+        status, done = con.execute("SELECT status, chunks_done FROM runs ORDER BY started_at DESC LIMIT 1").fetchone()
+    finally:
+        con.close()
+    assert done == 3
+    assert status == "interrupted"
