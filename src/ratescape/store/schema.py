@@ -107,6 +107,11 @@ TABLES = {
         alternative_b VARCHAR NOT NULL, x_axis VARCHAR NOT NULL, x DOUBLE NOT NULL, y_axis VARCHAR NOT NULL,
         y DOUBLE NOT NULL, segment INTEGER NOT NULL, point INTEGER NOT NULL, kind VARCHAR, residual DOUBLE,
         converged BOOLEAN)""",
+    # Assumptions and notes a run states in plain words (the report's assumptions section and the
+    # `run-notes` query show them): one row per topic, e.g. "alternatives" (the comparison basis),
+    # "loans" (the discount rate with debt), "tax" (what the after-tax lines assume).
+    "run_notes": """CREATE TABLE IF NOT EXISTS run_notes (
+        run_id VARCHAR NOT NULL, topic VARCHAR NOT NULL, note VARCHAR NOT NULL, PRIMARY KEY (run_id, topic))""",
     "scenario_ranks": """CREATE TABLE IF NOT EXISTS scenario_ranks (
         run_id VARCHAR NOT NULL, scenario_id INTEGER NOT NULL, kendall_tau DOUBLE, kendall_tau_pi DOUBLE,
         spearman_rho DOUBLE, spearman_rho_pi DOUBLE, PRIMARY KEY (run_id, scenario_id))""",
