@@ -127,32 +127,34 @@ def _single_roots(A, last, u_lo, u_hi, maxiter, roots, code):
         hi = u_hi
         sign_lo = fa < 0.0
         x = lo - fa * (hi - lo) / (fb - fa)       # secant first guess
-        width_before = hi - lo                    # bracket width two iterations ago
+        step1 = hi - lo                           # the last two step lengths
+        step2 = hi - lo
         converged = False
+        checked = False
         for it in range(maxiter):
             f, df, size = _scaled_worth(a, L, x)
             if f == 0.0 or abs(f) <= 8.0 * _EPS * size:
                 converged = True
+                checked = True
                 break
             if (f < 0.0) == sign_lo:
                 lo = x
             else:
                 hi = x
             xn = x - f / df if df != 0.0 else np.nan
-            # bisect when Newton leaves the bracket, or when two steps did not halve it (Newton
-            # creeping along a steep exponential): the bracket then halves at least every other step
-            slow = (it % 2 == 1) and (hi - lo > 0.5 * width_before)
-            if it % 2 == 1:
-                width_before = hi - lo
-            if slow or not (xn > lo and xn < hi):
+            # bisect when Newton leaves the bracket, or when its step is over half the one before
+            # last (Newton creeping along a steep exponential), as rtsafe does
+            if not (xn > lo and xn < hi) or abs(xn - x) > 0.5 * step2:
                 xn = 0.5 * (lo + hi)
+            step2 = step1
+            step1 = abs(xn - x)
             tol = 4.0 * _EPS * (abs(xn) + 1.0)
-            if abs(xn - x) <= tol or hi - lo <= tol:
+            if step1 <= tol or hi - lo <= tol:
                 x = xn
                 converged = True
                 break
             x = xn
-        if converged:
+        if converged and not checked:
             f, df, size = _scaled_worth(a, L, x)
             converged = abs(f) <= ROOT_TOL * size
         roots[r] = x if converged else np.nan
@@ -169,9 +171,10 @@ def single_sign_change_solve(amounts, last, u_low: float, u_high: float, maxiter
     [u_low, u_high]), ``ROOT_FOUND`` or ``ROOT_NOT_CONVERGED`` (u is NaN).
 
     The iteration stops where |worth| is at the rounding level of its terms (8 eps sum |terms|)
-    or the bracket is below 4 eps (1 + |u|); a Newton step that leaves the bracket, or two steps
-    that do not halve it, are replaced by a bisection, so the bracket halves at least every
-    second step and ~110 steps reach machine precision from any range. A found root is checked:
+    or a step or the bracket is below 4 eps (1 + |u|); a Newton step that leaves the bracket, or
+    is over half the step before last, is replaced by a bisection (so Newton cannot creep along a
+    steep exponential), and ``maxiter`` (300) is far above the ~60 bisections that reach machine
+    precision from any range. A root found by a small step is checked:
     |worth| <= ``ROOT_TOL`` * sum |terms|; a row that fails the check or reaches ``maxiter``
     gets ``ROOT_NOT_CONVERGED``, never a value. (Safeguarded Newton: W. H. Press et al.,
     Numerical Recipes, 3rd ed., Cambridge University Press, 2007, ``rtsafe``; from memory.)
@@ -262,13 +265,14 @@ def _certain_sign(v, err):
 @njit(cache=True, nogil=True)
 def _refine(a, L, k, p, q, order, s_lo, maxiter, m):
     """Root of g^(order) in [p, q] where it changes sign (``s_lo`` its sign at p) and has exactly
-    one root: safeguarded Newton (bisection when a step leaves the bracket or two steps do not
-    halve it). Returns (u, converged)."""
+    one root: safeguarded Newton (bisection when a step leaves the bracket or is over half the step
+    before last). Returns (u, converged)."""
     cerr = (2.0 * L + 80.0) * _EPS
     lo = p
     hi = q
     x = 0.5 * (p + q)
-    width_before = hi - lo
+    step1 = hi - lo
+    step2 = hi - lo
     for it in range(maxiter):
         _moments(a, L, k, x, m)
         f = m[order]
@@ -280,13 +284,12 @@ def _refine(a, L, k, p, q, order, s_lo, maxiter, m):
         else:
             hi = x
         xn = x - f / df if df != 0.0 else np.nan
-        slow = (it % 2 == 1) and (hi - lo > 0.5 * width_before)
-        if it % 2 == 1:
-            width_before = hi - lo
-        if slow or not (xn > lo and xn < hi):
+        if not (xn > lo and xn < hi) or abs(xn - x) > 0.5 * step2:
             xn = 0.5 * (lo + hi)
+        step2 = step1
+        step1 = abs(xn - x)
         tol = 4.0 * _EPS * (abs(xn) + 1.0)
-        if abs(xn - x) <= tol or hi - lo <= tol:
+        if step1 <= tol or hi - lo <= tol:
             return xn, True
         x = xn
     return x, False

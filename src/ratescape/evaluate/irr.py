@@ -210,6 +210,8 @@ def _cells_threaded(A, last, rows, u0, u1, touch_tol):
     from concurrent.futures import ThreadPoolExecutor
 
     from .compiled import cell_roots
+    if rows.size == 0:  # (no call: loading the compiled kernel costs ~0.1 s the first time)
+        return np.empty((0, 1)), np.empty((0, 1), bool), np.empty(0, np.int64), np.empty(0, np.int8)
     cuts = _split(rows.size, 5_000)
     if cuts.size == 2:
         return cell_roots(A, last, rows, u0, u1, touch_tol)
