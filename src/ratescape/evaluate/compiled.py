@@ -312,19 +312,18 @@ def _add_root(x, touching, roots, touch, n, cap):
 
 @njit(cache=True, nogil=True)
 def _monotone_piece(a, L, k, p, q, sa, sb, maxiter, roots, touch, n, cap, m):
-    """Roots of g on [p, q] where g is monotone: one if the end signs differ, none if they agree;
-    an end whose value is within rounding of 0 (sign 0) is itself the root. Returns the new count,
-    -1 when out of room, -2 when the refinement did not converge."""
-    if sa != 0 and sb != 0:
-        if sa == sb:
-            return n
-        x, ok = _refine(a, L, k, p, q, 0, sa, maxiter, m)
-        if not ok:
-            return -2
-        return _add_root(x, False, roots, touch, n, cap)
-    if sa == 0 and sb == 0:
-        return _add_root(0.5 * (p + q), False, roots, touch, n, cap)
-    return _add_root(p if sa == 0 else q, False, roots, touch, n, cap)
+    """Roots of g on [p, q] where g is monotone: one if the end signs differ, none if they agree.
+    An end whose value is within rounding of 0 (sign 0) leaves the count 0 or 1 undecided: the
+    piece is unresolved (-1). Returns the new count, -1 when unresolved or out of room, -2 when
+    the refinement did not converge."""
+    if sa == 0 or sb == 0:
+        return -1
+    if sa == sb:
+        return n
+    x, ok = _refine(a, L, k, p, q, 0, sa, maxiter, m)
+    if not ok:
+        return -2
+    return _add_root(x, False, roots, touch, n, cap)
 
 
 @njit(cache=True, nogil=True)
