@@ -13,33 +13,44 @@ Write u = log(1 + r). The present worth PW(u) = sum_t A_t e^(-u t) is
 evaluated for all rows on a grid of ``grid_points`` values of u, evenly
 spaced between log(1 + low) and log(1 + high), with one matrix product
 (rows x periods) @ (periods x grid). For u < 0 each column is multiplied by
-e^(u (T-1)) (the future worth at T-1, same roots and same multiplicities),
-so no factor exceeds 1 and nothing overflows. Then:
-
-1. every sign change between neighbouring grid points is a bracket;
-2. a grid point where PW is exactly 0 is a root;
-3. a grid point where |PW| has a strict local minimum without a sign change
-   and a parabola through it and its neighbours dips by half or more
-   towards zero is a *touch candidate*: the extremum of PW between the two
-   neighbours is located (root of dPW/du); if |PW| there is at most
-   ``touch_tol`` times sum_t |A_t| e^(-u t) it is a touching (double) root,
-   and if PW changes sign there the two roots on either side are bracketed;
-4. all brackets of all rows are refined together by a safeguarded Newton
-   iteration (Newton step, bisection when the step leaves the bracket) on
-   arrays, to machine precision in u. No Python loop runs over rows.
+e^(u L) (L the last non-zero period; same roots and multiplicities), so no
+factor exceeds 1 and nothing overflows. The same product on |A_t| gives the
+rounding scale S(u) = sum_t |A_t| e^(-u t) (scaled alike) and a bound B2 on
+|PW''| over each cell. A cell is *proved* free of roots when PW has one sign
+at both ends and min |PW(end)| - (rounding error) > B2 h^2 / 8 (the chord
+differs from PW by at most that). Every other cell goes to a compiled,
+certifying search (:func:`ratescape.evaluate.compiled.cell_roots`) that splits
+it until, on each piece, PW or PW' or PW'' keeps one sign (tests from the
+same magnitude bounds, rounding allowed for): no root; one root where the
+ends differ in sign (PW monotone); or at most two, either side of the one
+extremum u*. No root is left unproved: a piece that fits none of these once
+narrower than 64 eps (1 + |u|) makes the row ``unresolved``.
 
 Rows whose amounts change sign exactly once (the conventional investment) skip the grid: by
 Descartes' rule they have exactly one simple root r > -1, inside [low, high] iff PW differs in sign
 at the two ends, and a compiled safeguarded Newton iteration on the Horner form finds it row by
-row (:func:`ratescape.evaluate.compiled.single_sign_change_roots`), to the same tolerance.
+row (:func:`ratescape.evaluate.compiled.single_sign_change_solve`).
 
-Limits: roots outside [low, high] are not reported; three or more roots
-within one grid step (e.g. a double root next to a simple one), or a root of
-even multiplicity higher than two, can be missed; raise ``grid_points`` to
-resolve clustered roots. Two roots so close that PW between them dips by less
-than ``touch_tol`` times the scale are reported as one touching root. A root
-of multiplicity m is located only to about eps^(1/m). End-of-period
-amounts and per-period rates (as numpy_financial.irr).
+Tolerance
+---------
+Every root is refined by safeguarded Newton (bisection when a step leaves
+its bracket or exceeds half the step before last) until PW is at its
+rounding level or the bracket is below 4 eps (1 + |u|), and is then checked:
+|PW(r)| <= 1e-10 * sum_t |A_t| (1+r)^-t at u = log(1 + r)
+(``compiled.ROOT_TOL``; a touching root: max(1e-10, touch_tol)). A root
+that fails the check, or an iteration limit reached, gives the row the
+status ``unresolved`` and no root: never an unconverged value. (The
+returned float r carries 1 + r only to eps / (1 + r) relative, which
+matters only for r within ~1e-6 of -100 %.)
+
+Limits: roots outside [low, high] are not reported. Where PW reaches zero at
+an extremum without a certified sign change (a double root, or two roots
+whose PW dips between them by less than its rounding error or
+``touch_tol`` * S, about 1e-6 apart in u or closer) one *touching* root is
+reported. Three or more roots at one point (to ~64 eps), a triple root, or
+a flat cluster in which PW stays within its rounding error, are
+``unresolved``. End-of-period amounts and per-period rates (as
+numpy_financial.irr).
 
 References
 ----------
@@ -234,8 +245,9 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
     grid_points : int, keyword-only
         Points of the search grid in log(1 + r); default max(256, 4 T).
     touch_tol : float, keyword-only
-        A touch candidate is accepted as a double root when
-        |PW| <= touch_tol * sum |A_t| (1+r)^-t there.
+        At an extremum of PW with no certified sign change, a touching
+        (double) root is reported when |PW| <= touch_tol * sum |A_t| (1+r)^-t
+        there (or PW is within its rounding error).
 
     Returns
     -------
@@ -246,8 +258,13 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
 
     Warnings
     --------
-    Only roots inside [low, high] are reported. Roots closer together than a
-    grid step, other than a single pair, may be missed (see module notes).
+    Only roots inside [low, high] are reported. None in it is missed: each
+    grid cell is proved root-free or searched until each root is certified
+    (see module notes); where that fails the row's status is ``unresolved``
+    and it lists no roots.
+
+    Each reported root r satisfies |PW(r)| <= 1e-10 * sum_t |A_t| (1+r)^-t
+    (a touching root: max(1e-10, touch_tol)), checked at u = log(1 + r).
 
     Notes
     -----
