@@ -13,33 +13,44 @@ Write u = log(1 + r). The present worth PW(u) = sum_t A_t e^(-u t) is
 evaluated for all rows on a grid of ``grid_points`` values of u, evenly
 spaced between log(1 + low) and log(1 + high), with one matrix product
 (rows x periods) @ (periods x grid). For u < 0 each column is multiplied by
-e^(u (T-1)) (the future worth at T-1, same roots and same multiplicities),
-so no factor exceeds 1 and nothing overflows. Then:
-
-1. every sign change between neighbouring grid points is a bracket;
-2. a grid point where PW is exactly 0 is a root;
-3. a grid point where |PW| has a strict local minimum without a sign change
-   and a parabola through it and its neighbours dips by half or more
-   towards zero is a *touch candidate*: the extremum of PW between the two
-   neighbours is located (root of dPW/du); if |PW| there is at most
-   ``touch_tol`` times sum_t |A_t| e^(-u t) it is a touching (double) root,
-   and if PW changes sign there the two roots on either side are bracketed;
-4. all brackets of all rows are refined together by a safeguarded Newton
-   iteration (Newton step, bisection when the step leaves the bracket) on
-   arrays, to machine precision in u. No Python loop runs over rows.
+e^(u L) (L the last non-zero period; same roots and multiplicities), so no
+factor exceeds 1 and nothing overflows. The same product on |A_t| gives the
+rounding scale S(u) = sum_t |A_t| e^(-u t) (scaled alike) and a bound B2 on
+|PW''| over each cell. A cell is *proved* free of roots when PW has one sign
+at both ends and min |PW(end)| - (rounding error) > B2 h^2 / 8 (the chord
+differs from PW by at most that). Every other cell goes to a compiled,
+certifying search (:func:`ratescape.evaluate.compiled.cell_roots`) that splits
+it until, on each piece, PW or PW' or PW'' keeps one sign (tests from the
+same magnitude bounds, rounding allowed for): no root; one root where the
+ends differ in sign (PW monotone); or at most two, either side of the one
+extremum u*. No root is left unproved: a piece that fits none of these once
+narrower than 64 eps (1 + |u|) makes the row ``unresolved``.
 
 Rows whose amounts change sign exactly once (the conventional investment) skip the grid: by
 Descartes' rule they have exactly one simple root r > -1, inside [low, high] iff PW differs in sign
 at the two ends, and a compiled safeguarded Newton iteration on the Horner form finds it row by
-row (:func:`ratescape.evaluate.compiled.single_sign_change_roots`), to the same tolerance.
+row (:func:`ratescape.evaluate.compiled.single_sign_change_solve`).
 
-Limits: roots outside [low, high] are not reported; three or more roots
-within one grid step (e.g. a double root next to a simple one), or a root of
-even multiplicity higher than two, can be missed; raise ``grid_points`` to
-resolve clustered roots. Two roots so close that PW between them dips by less
-than ``touch_tol`` times the scale are reported as one touching root. A root
-of multiplicity m is located only to about eps^(1/m). End-of-period
-amounts and per-period rates (as numpy_financial.irr).
+Tolerance
+---------
+Every root is refined by safeguarded Newton (bisection when a step leaves
+its bracket or exceeds half the step before last) until PW is at its
+rounding level or the bracket is below 4 eps (1 + |u|), and is then checked:
+|PW(r)| <= 1e-10 * sum_t |A_t| (1+r)^-t at u = log(1 + r)
+(``compiled.ROOT_TOL``; a touching root: max(1e-10, touch_tol)). A root
+that fails the check, or an iteration limit reached, gives the row the
+status ``unresolved`` and no root: never an unconverged value. (The
+returned float r carries 1 + r only to eps / (1 + r) relative, which
+matters only for r within ~1e-6 of -100 %.)
+
+Limits: roots outside [low, high] are not reported. Where PW reaches zero at
+an extremum without a certified sign change (a double root, or two roots
+whose PW dips between them by less than its rounding error or
+``touch_tol`` * S, about 1e-6 apart in u or closer) one *touching* root is
+reported. Three or more roots at one point (to ~64 eps), a triple root, or
+a flat cluster in which PW stays within its rounding error, are
+``unresolved``. End-of-period amounts and per-period rates (as
+numpy_financial.irr).
 
 References
 ----------
@@ -76,6 +87,10 @@ class IrrStatus(IntEnum):
     NO_SIGN_CHANGE (3)  all non-zero amounts have one sign: no IRR at any rate
     ZERO_FLOWS (4)      every amount is zero: PW = 0 at every rate
     NONFINITE (5)       an amount is NaN or infinite
+    UNRESOLVED (6)      a root could not be certified or refined to tolerance (a cluster of three
+                        or more roots, or a root of multiplicity three or more, within about
+                        64 eps of each other in log(1 + r); or an iteration limit reached): no
+                        roots are reported (count 0) and ``irr`` returns NaN, rather than a guess
     """
 
     UNIQUE = 0
@@ -84,6 +99,7 @@ class IrrStatus(IntEnum):
     NO_SIGN_CHANGE = 3
     ZERO_FLOWS = 4
     NONFINITE = 5
+    UNRESOLVED = 6
 
 
 _STATUS_LABELS = np.array([s.name.lower() for s in IrrStatus])
@@ -182,76 +198,40 @@ def _check_args(amounts, low, high, grid_points):
     return a, low, high, int(grid_points)
 
 
-def _newton_bisect(A, lo, hi, order, s_lo, x0=None, maxiter=200, length=None):
-    """Roots of d^order PW / du^order in [lo, hi] for each row of A (K, T).
-
-    ``s_lo`` is the sign of the function at ``lo`` (the sign at ``hi`` is
-    the opposite); ``x0`` an optional first guess inside [lo, hi].
-    Returns u, shape (K,).
-    """
-    K, T = A.shape
-    t = np.arange(T, dtype=float)
-    w = np.stack([(-t) ** order, (-t) ** (order + 1)], axis=1)  # (T, 2)
-    aw0 = np.abs(w[:, 0])
-    out = np.empty(K)
-    idx = np.arange(K)
-    Aa = A
-    # constant scale per bracket keeps factors <= ~1; ``length`` is each row's last non-zero
-    # period, so a short stream padded with zeros is not scaled into underflow
-    span = (T - 1) if length is None else np.asarray(length, dtype=float)
-    ca = span * np.minimum(lo, 0.0)
-    # periods after a row's last non-zero one contribute nothing; mask them so their factors
-    # cannot overflow into 0 * inf
-    beyond = (np.zeros((K, T), bool) if length is None
-              else t[None, :] > np.asarray(length, dtype=float)[:, None])
-    a = np.asarray(lo, dtype=float).copy()
-    b = np.asarray(hi, dtype=float).copy()
-    sa = np.asarray(s_lo, dtype=float)
-    x = 0.5 * (a + b) if x0 is None else np.clip(x0, a, b)
-    for _ in range(maxiter):
-        if idx.size == 0:
-            break
-        M = Aa * np.exp(np.where(beyond, -np.inf, -x[:, None] * t + ca[:, None]))
-        fd = M @ w
-        f, df = fd[:, 0], fd[:, 1]
-        size = np.abs(M) @ aw0
-        same = np.sign(f) == sa
-        a = np.where(same, x, a)
-        b = np.where(same, b, x)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            xn = x - f / df
-        ok = np.isfinite(xn) & (xn > a) & (xn < b)
-        xn = np.where(ok, xn, 0.5 * (a + b))
-        # |f| at the rounding-noise level of the sum: x is as good as it gets
-        zero = np.abs(f) <= 8.0 * _EPS * size
-        xn = np.where(zero, x, xn)
-        tol = 4.0 * _EPS * (np.abs(xn) + 1.0)
-        done = zero | (np.abs(xn - x) <= tol) | (b - a <= tol)
-        out[idx[done]] = xn[done]
-        keep = ~done
-        if not keep.all():
-            idx, Aa, ca, a, b, sa = idx[keep], Aa[keep], ca[keep], a[keep], b[keep], sa[keep]
-            beyond = beyond[keep]
-            xn = xn[keep]
-        x = xn
-    out[idx] = x  # not converged within maxiter (should not happen): best estimate
-    return out
+def _split(n, min_rows):
+    """Row cuts for up to four threads (the kernels release the GIL), one block when small."""
+    workers = max(1, min(4, os.cpu_count() or 1, n // min_rows))
+    return np.linspace(0, n, workers + 1).astype(int)
 
 
 def _single_roots_threaded(A, last, u_low, u_high):
-    """:func:`ratescape.evaluate.compiled.single_sign_change_roots` over row blocks on all cores."""
+    """:func:`ratescape.evaluate.compiled.single_sign_change_solve` over row blocks on all cores."""
     from concurrent.futures import ThreadPoolExecutor
 
-    from .compiled import single_sign_change_roots
-    n = A.shape[0]
-    workers = max(1, min(4, os.cpu_count() or 1, n // 20_000))
-    if workers == 1:
-        return single_sign_change_roots(A, last, u_low, u_high)
-    cuts = np.linspace(0, n, workers + 1).astype(int)
-    with ThreadPoolExecutor(max_workers=workers) as pool:
-        parts = list(pool.map(lambda ab: single_sign_change_roots(A[ab[0]:ab[1]], last[ab[0]:ab[1]], u_low, u_high),
+    from .compiled import single_sign_change_solve
+    cuts = _split(A.shape[0], 20_000)
+    if cuts.size == 2:
+        return single_sign_change_solve(A, last, u_low, u_high)
+    with ThreadPoolExecutor(max_workers=cuts.size - 1) as pool:
+        parts = list(pool.map(lambda ab: single_sign_change_solve(A[ab[0]:ab[1]], last[ab[0]:ab[1]], u_low, u_high),
                               zip(cuts[:-1], cuts[1:])))
     return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts])
+
+
+def _cells_threaded(A, last, rows, u0, u1, touch_tol):
+    """:func:`ratescape.evaluate.compiled.cell_roots` over blocks of cells on all cores."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from .compiled import cell_roots
+    if rows.size == 0:  # (no call: loading the compiled kernel costs ~0.1 s the first time)
+        return np.empty((0, 1)), np.empty((0, 1), bool), np.empty(0, np.int64), np.empty(0, np.int8)
+    cuts = _split(rows.size, 5_000)
+    if cuts.size == 2:
+        return cell_roots(A, last, rows, u0, u1, touch_tol)
+    with ThreadPoolExecutor(max_workers=cuts.size - 1) as pool:
+        parts = list(pool.map(lambda ab: cell_roots(A, last, rows[ab[0]:ab[1]], u0[ab[0]:ab[1]], u1[ab[0]:ab[1]],
+                                                    touch_tol), zip(cuts[:-1], cuts[1:])))
+    return tuple(np.concatenate([p[i] for p in parts]) for i in range(4))
 
 
 def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-12):
@@ -267,8 +247,9 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
     grid_points : int, keyword-only
         Points of the search grid in log(1 + r); default max(256, 4 T).
     touch_tol : float, keyword-only
-        A touch candidate is accepted as a double root when
-        |PW| <= touch_tol * sum |A_t| (1+r)^-t there.
+        At an extremum of PW with no certified sign change, a touching
+        (double) root is reported when |PW| <= touch_tol * sum |A_t| (1+r)^-t
+        there (or PW is within its rounding error).
 
     Returns
     -------
@@ -279,8 +260,13 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
 
     Warnings
     --------
-    Only roots inside [low, high] are reported. Roots closer together than a
-    grid step, other than a single pair, may be missed (see module notes).
+    Only roots inside [low, high] are reported. None in it is missed: each
+    grid cell is proved root-free or searched until each root is certified
+    (see module notes); where that fails the row's status is ``unresolved``
+    and it lists no roots.
+
+    Each reported root r satisfies |PW(r)| <= 1e-10 * sum_t |A_t| (1+r)^-t
+    (a touching root: max(1e-10, touch_tol)), checked at u = log(1 + r).
 
     Notes
     -----
@@ -305,7 +291,7 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
     A = a.reshape(-1, T)
     P = A.shape[0]
 
-    from .compiled import stream_facts
+    from .compiled import ROOT_FOUND, ROOT_NOT_CONVERGED, stream_facts
     sc, sc_cum, last, finite, total_nonzero = stream_facts(A)       # one compiled pass per row
     if not finite.all():
         A = np.where(finite[:, None], A, 0.0)
@@ -319,119 +305,73 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
 
     # only rows that can have a root need the grid
     search = np.flatnonzero(finite & (sc > 0))
-    node_rows, node_u = [], []
-    br_rows, br_lo, br_hi, br_x0, br_slo = [], [], [], [], []
-    tc_rows, tc_g, tc_sign = [], [], []
     # Rows whose amounts change sign once have exactly one root r > -1 (Descartes' rule of signs),
     # simple and never touching: it is in range iff PW differs in sign at the ends, and a compiled
     # safeguarded Newton finds it row by row (evaluate/compiled.py), with no grid.
     single = search[sc[search] == 1]
-    single_u, single_found = _single_roots_threaded(A[single], last[single], u[0], u[-1])
+    single_u, single_code = _single_roots_threaded(A[single], last[single], u[0], u[-1])
     search = search[sc[search] != 1]
+    unresolved = np.zeros(P, bool)
+    unresolved[single[single_code == ROOT_NOT_CONVERGED]] = True
+    single_found = single_code == ROOT_FOUND
     # the other rows, grouped by their last non-zero period L: each group's factors are scaled by
-    # L * min(u, 0) so they stay <= 1 without underflowing a short stream to zero.
+    # e^(L min(u, 0)) so they stay <= 1 without underflowing a short stream to zero. A cell of the
+    # grid goes to the certifying kernel unless it is PROVED free of roots here: both ends of one
+    # sign and |PW| at each, less its rounding error, above B2 h^2 / 8, where B2 bounds |PW''| on
+    # the cell (the chord differs from PW by at most that: interpolation error, common practice).
+    h = u[1] - u[0]
+    cell_rows, cell_g = [], []
     blocks = []
     for L in np.unique(last[search]):  # a loop over distinct horizons, not over rows
         group = search[last[search] == L]
-        D = np.exp(-np.outer(t[:L + 1], u) + L * np.minimum(u, 0.0))  # (L+1, G), entries <= 1
-        step = max(1, _CHUNK_ELEMENTS // u.size)
-        blocks += [(group[k:k + step], L, D, u) for k in range(0, group.size, step)]
-    for rows, L, D, ug in blocks:  # loop over blocks of rows, not rows
-        F = A[rows, :L + 1] @ D
-        n_g = F.shape[1]
-        # exact zeros at grid points (flat indices are much faster than 2-D nonzero)
-        k0 = np.flatnonzero(F == 0)
-        node_rows.append(rows[k0 // n_g])
-        node_u.append(ug[k0 % n_g])
-        # sign changes between neighbours (0 counts as non-negative)
+        tt = t[:L + 1]
+        D = np.exp(-np.outer(tt, u) + L * np.minimum(u, 0.0))  # (L+1, G), entries <= 1
+        # B2 per cell: sum |A_t| d_t^2 e^(u d_t) at the end where it is largest, d_t = k - t with
+        # k = L left of u = 0 and k = 0 right of it (the same scale as D); the cell across u = 0
+        # (two scales) is never excluded here
+        left = u[1:] <= 0.0
+        d = np.where(left[None, :], L - tt[:, None], -tt[:, None])          # (L+1, G-1)
+        u_big = np.where(left, u[1:], u[:-1])
+        W2 = d * d * np.exp(d * u_big[None, :])
+        W = np.concatenate([D, W2 * (1.0 + 1e-12)], axis=1)
+        step = max(1, _CHUNK_ELEMENTS // (2 * u.size))
+        blocks += [(group[k:k + step], L, D, W) for k in range(0, group.size, step)]
+    straddle = (u[:-1] < 0.0) & (u[1:] > 0.0)
+    for rows, L, D, W in blocks:  # loop over blocks of rows, not rows
+        Ar = A[rows, :L + 1]
+        F = Ar @ D
+        S = np.abs(Ar) @ W
+        M0, B2 = S[:, :G], S[:, G:]
+        err = (2.0 * L + 80.0) * _EPS * M0        # bound on the rounding error of F
         neg = F < 0
-        k1 = np.flatnonzero(neg[:, :-1] != neg[:, 1:])
-        g1 = k1 % (n_g - 1)
-        r1 = k1 // (n_g - 1)
-        br_rows.append(rows[r1])
-        br_lo.append(ug[g1])
-        br_hi.append(ug[g1 + 1])
-        f_a, f_b = F[r1, g1], F[r1, g1 + 1]
-        br_x0.append(ug[g1] + (ug[g1 + 1] - ug[g1]) * f_a / (f_a - f_b))  # secant guess
-        br_slo.append(np.where(f_a < 0, -1.0, 1.0))
-        # touch candidates: strict local minimum of |F| with no sign change
-        absF = np.abs(F)
-        cand = (absF[:, 1:-1] <= absF[:, :-2]) & (absF[:, 1:-1] < absF[:, 2:])
-        cand &= neg[:, :-2] == neg[:, 1:-1]
-        cand &= neg[:, 1:-1] == neg[:, 2:]
-        cand &= F[:, 1:-1] != 0
-        k2 = np.flatnonzero(cand)
-        r2 = k2 // (n_g - 2)
-        g2 = k2 % (n_g - 2) + 1
-        fm, f0, fp = F[r2, g2 - 1], F[r2, g2], F[r2, g2 + 1]
-        # parabola through the three points: keep it if it dips halfway to zero
-        curv = fm - 2.0 * f0 + fp
-        with np.errstate(divide="ignore", invalid="ignore"):
-            vertex = f0 - (fp - fm) ** 2 / (8.0 * curv)
-        dips = (vertex * f0 <= 0) | (np.abs(vertex) <= 0.5 * np.abs(f0))
-        tc_rows.append(rows[r2[dips]])
-        tc_g.append(g2[dips])
-        tc_sign.append(np.sign(f0[dips]))
+        same = neg[:, :-1] == neg[:, 1:]
+        margin = np.abs(F) - err
+        clear = same & (np.minimum(margin[:, :-1], margin[:, 1:]) > B2 * (h * h / 8.0)) & ~straddle
+        k1 = np.flatnonzero(~clear)
+        cell_rows.append(rows[k1 // (G - 1)])
+        cell_g.append(k1 % (G - 1))
 
     def cat(parts, dtype=float):
         return np.concatenate(parts) if parts else np.empty(0, dtype=dtype)
 
-    node_rows.append(single[single_found])
-    node_u.append(single_u[single_found])
-    node_rows = cat(node_rows, int)
-    node_u = cat(node_u)
-    br_rows = cat(br_rows, int)
-    br_lo = cat(br_lo)
-    br_hi = cat(br_hi)
-    br_x0 = cat(br_x0)
-    br_slo = cat(br_slo)
-    tc_rows = cat(tc_rows, int)
-    tc_g = cat(tc_g, int)
-    tc_sign = cat(tc_sign)
-
-    touch_rows = np.empty(0, dtype=int)
-    touch_u = np.empty(0)
-    if tc_rows.size:
-        lo = u[tc_g - 1]
-        hi = u[tc_g + 1]
-        Ac = A[tc_rows]
-        c = last[tc_rows] * np.minimum(lo, 0.0)
-        past = t[None, :] > last[tc_rows][:, None]
-        d_lo = (Ac * np.exp(np.where(past, -np.inf, -lo[:, None] * t + c[:, None]))) @ (-t)
-        d_hi = (Ac * np.exp(np.where(past, -np.inf, -hi[:, None] * t + c[:, None]))) @ (-t)
-        keep = np.sign(d_lo) * np.sign(d_hi) < 0
-        if keep.any():
-            Ac, lo, hi, c, past = Ac[keep], lo[keep], hi[keep], c[keep], past[keep]
-            rows_k, sign_k = tc_rows[keep], tc_sign[keep]
-            ustar = _newton_bisect(Ac, lo, hi, order=1, s_lo=np.sign(d_lo[keep]), length=last[rows_k])
-            M = Ac * np.exp(np.where(past, -np.inf, -ustar[:, None] * t + c[:, None]))
-            fstar = M.sum(axis=1)
-            size = np.abs(M).sum(axis=1)
-            is_touch = np.abs(fstar) <= touch_tol * size
-            crosses = ~is_touch & (np.sign(fstar) == -sign_k)
-            touch_rows = rows_k[is_touch]
-            touch_u = ustar[is_touch]
-            br_rows = np.concatenate([br_rows, rows_k[crosses], rows_k[crosses]])
-            br_lo = np.concatenate([br_lo, lo[crosses], ustar[crosses]])
-            br_hi = np.concatenate([br_hi, ustar[crosses], hi[crosses]])
-            br_x0 = np.concatenate([br_x0, 0.5 * (lo + ustar)[crosses], 0.5 * (ustar + hi)[crosses]])
-            br_slo = np.concatenate([br_slo, sign_k[crosses], -sign_k[crosses]])
-
-    ref_u = (_newton_bisect(A[br_rows], br_lo, br_hi, order=0, s_lo=br_slo, x0=br_x0, length=last[br_rows])
-             if br_rows.size else np.empty(0))
-
-    all_rows = np.concatenate([node_rows, br_rows, touch_rows])
-    all_u = np.concatenate([node_u, ref_u, touch_u])
-    all_touch = np.concatenate([
-        np.zeros(node_rows.size, bool), np.zeros(br_rows.size, bool), np.ones(touch_rows.size, bool)
-    ])
+    cell_rows = cat(cell_rows, int)
+    cell_g = cat(cell_g, int)
+    c_roots, c_touch, c_count, c_flag = _cells_threaded(A, last, cell_rows, u[cell_g], u[cell_g + 1], touch_tol)
+    unresolved[cell_rows[c_flag != 0]] = True
+    have = ~np.isnan(c_roots)
+    all_rows = np.concatenate([single[single_found], np.broadcast_to(cell_rows[:, None], have.shape)[have]])
+    all_u = np.concatenate([single_u[single_found], c_roots[have]])
+    all_touch = np.concatenate([np.zeros(int(single_found.sum()), bool), c_touch[have]])
+    keep = ~unresolved[all_rows]  # an unresolved row reports no roots, only its status
+    all_rows, all_u, all_touch = all_rows[keep], all_u[keep], all_touch[keep]
     order = np.lexsort((all_u, all_rows))
     all_rows, all_u, all_touch = all_rows[order], all_u[order], all_touch[order]
-    if all_rows.size > 1:  # drop duplicates (same row, same root to rounding)
+    if all_rows.size > 1:  # a root at a grid point shared by two cells is listed by both
         dup = np.zeros(all_rows.size, bool)
         dup[1:] = (all_rows[1:] == all_rows[:-1]) & (
             np.abs(all_u[1:] - all_u[:-1]) <= 1e-12 * (1.0 + np.abs(all_u[1:]))
         )
+        all_touch[np.flatnonzero(dup) - 1] |= all_touch[dup]
         all_rows, all_u, all_touch = all_rows[~dup], all_u[~dup], all_touch[~dup]
 
     count = np.bincount(all_rows, minlength=P)
@@ -447,7 +387,8 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
                       np.where(count > 1, IrrStatus.MULTIPLE, IrrStatus.NONE))
     status = np.where(sc == 0, IrrStatus.NO_SIGN_CHANGE, status)
     status = np.where(zero_rows, IrrStatus.ZERO_FLOWS, status)
-    status = np.where(~finite, IrrStatus.NONFINITE, status).astype(np.int8)
+    status = np.where(~finite, IrrStatus.NONFINITE, status)
+    status = np.where(unresolved, IrrStatus.UNRESOLVED, status).astype(np.int8)
 
     if not lead:
         return IrrResult(roots[0], int(count[0]), int(status[0]), int(sc[0]),
