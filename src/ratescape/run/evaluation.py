@@ -129,7 +129,7 @@ def irr_over_inflation(plan: Plan, A: np.ndarray) -> IrrTable:
     """
     levels = plan.inflation_levels
     F, (_, P, T) = levels.size, A.shape
-    nominal = np.array([c.basis == "nominal" for c in plan.classes])
+    nominal = np.array([not c.grows_throughout for c in plan.classes])   # nominal or frozen: searched per level
     mixed = np.any(A[nominal] != 0, axis=(0, 2)) if nominal.any() else np.zeros(P, dtype=bool)
     m = float(plan.spec.periods_per_year)
     low, high = IRR_SEARCH
