@@ -58,6 +58,7 @@ __all__ = [
     "loan_schedule",
     "tax_immediate_offset",
     "after_tax_cash_flows_carry_forward",
+    "carry_forward_adjustment",
 ]
 
 MULTIPLIERS = ("one", "after_tax", "tax")
@@ -532,3 +533,73 @@ def after_tax_cash_flows_carry_forward(taxable_income, tax_rate, *, offset_limit
         paid[:, :, k] = rate * np.maximum(income - used, 0.0)
         carry = carry - used + np.maximum(-income, 0.0)
     return paid
+
+
+def carry_forward_adjustment(amounts, classes, exponents, discount_rate, inflation, multipliers):
+    """Present worth (S, P) to add to the linear after-tax worth when losses are carried forward.
+
+    The engine's after-tax worth taxes every line linearly (tax = tau x, a loss saving tax at
+    once against the firm's other income). For a stand-alone project a loss is instead carried
+    forward (:func:`after_tax_cash_flows_carry_forward`), so its worth is the linear worth plus
+    the present worth of (tau x_t - tax paid_t).
+
+    Parameters
+    ----------
+    amounts : (C, P, T) [currency] lines by class (after-tax lines included).
+    classes : C ``LineClass``; a class whose multiplier contains ``after_tax`` is taxable income
+        (times its other multiplier parts), one whose multiplier is ``tax`` a deduction; others
+        (investment, loan principal, working capital, tax credits) are not taxable.
+    exponents : (T,) [years]; discount_rate, inflation : (S,) nominal rate and inflation.
+    multipliers : name -> (S,) per-scenario values, with ``tax``.
+
+    Returns
+    -------
+    ndarray (S, P) [currency at time 0], <= 0 where the discount rate is positive.
+
+    Notes
+    -----
+    Taxable income x_t (then-current money) depends on the scenario only through inflation, the
+    tax rate and the scaling multipliers; it is built once per distinct combination U of these
+    (a loop over U, vectorised over projects), carried forward with a loop over periods, and
+    discounted for every scenario of the combination by one matrix product.
+    """
+    from .kernel import multiplier_values
+
+    A = np.asarray(amounts, dtype=float)
+    C, P, T = A.shape
+    tau = np.asarray(exponents, dtype=float)
+    i = np.asarray(discount_rate, dtype=float)
+    f = np.asarray(inflation, dtype=float)
+    S = i.size
+    names = sorted({part for c in classes for part in c.multiplier.split("*")} - {"one", "after_tax", "tax"})
+    tax = np.asarray(multipliers["tax"], dtype=float)
+    keys = np.column_stack([f, tax] + [np.asarray(multipliers[n], dtype=float) for n in names])
+    combos, which = np.unique(keys, axis=0, return_inverse=True)
+    which = which.ravel()
+    U = combos.shape[0]
+    point = {n: combos[:, 2 + k] for k, n in enumerate(names)}
+    weight = np.zeros((C, U, T))
+    for c, cls in enumerate(classes):                    # a handful of classes
+        parts = cls.multiplier.split("*")
+        if "after_tax" in parts:
+            sign = multiplier_values("*".join(p for p in parts if p != "after_tax") or "one", point, (U,))
+        elif cls.multiplier == "tax":
+            sign = -np.ones(U)
+        else:
+            continue
+        if cls.basis == "real":
+            growth = np.exp(np.multiply.outer(np.log1p(combos[:, 0]) + np.log1p(cls.escalation),
+                                              cls.growth_exponents(tau)))
+        else:
+            growth = np.ones((U, T))
+        weight[c] = sign[:, None] * growth
+    from .compiled import class_weighted_streams
+    income = class_weighted_streams(A, weight).transpose(1, 0, 2)          # (P, U, T)
+    paid = after_tax_cash_flows_carry_forward(income, combos[:, 1])
+    extra = income * combos[None, :, 1, None] - paid                         # tax no longer saved at once
+    V = np.exp(-np.multiply.outer(np.log1p(i), tau))                         # (S, T)
+    out = np.empty((S, P))
+    for u in range(U):                                                       # distinct (inflation, tax, ...) levels
+        rows = np.flatnonzero(which == u)
+        out[rows] = V[rows] @ extra[:, u, :].T
+    return out
