@@ -28,6 +28,9 @@ Assumptions (screening level; state them with every after-tax result):
   inflation erodes the value of the tax shield.
 * The whole gain on disposal (depreciation recapture and any gain above cost)
   is taxed at the ordinary rate; a loss on disposal saves tax at that rate.
+* Staged capital: each investment line is its own asset, depreciated from its own service
+  period (:func:`staged_asset_lines`); working capital and land are never deducted (land's cost
+  is deducted at its sale; see :mod:`ratescape.evaluate.kinds`).
 * MACRS: the asset is sold at the end of year ``life``; deductions of tax
   years up to ``life`` are taken in full (the disposal-year convention is not
   applied) and the book value left is written off at disposal.
