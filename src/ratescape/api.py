@@ -30,7 +30,8 @@ def load_portfolio(projects, cash_flows=None, db=None) -> dict:
 def screen_portfolio(db, *, grid=None, discount_rates=None, inflation=None, discount_basis=None, budgets=None,
                      timing=None, periods_per_year=None, after_tax=None, tax_rate=None, keep=None, chunk_size=None,
                      resume=None, cluster=None, workers=None,
-                     progress=False, stop_after_chunks=None) -> str:
+                     progress=False, stop_after_chunks=None, state_tax_rate=None, federal_tax_rate=None,
+                     losses=None) -> str:
     """Screen the loaded portfolio over a grid (TOML path and/or overrides); return the run id."""
     from .run.screen import screen
     spec = None
@@ -40,7 +41,8 @@ def screen_portfolio(db, *, grid=None, discount_rates=None, inflation=None, disc
         spec = make_run_settings(toml_settings=toml_settings, discount_rates=discount_rates, inflation=inflation,
                               discount_basis=discount_basis, budgets=budget_map or None, timing=timing,
                               periods_per_year=periods_per_year, after_tax=after_tax, tax_rate=tax_rate,
-                              keep=keep)
+                              keep=keep, state_tax_rate=state_tax_rate, federal_tax_rate=federal_tax_rate,
+                              losses=losses)
     con = connect_write(db)
     try:
         return screen(con, spec, resume=resume, chunk_size=chunk_size, progress=progress,

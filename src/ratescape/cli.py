@@ -104,6 +104,12 @@ def load(projects_path, cash_flows_path, db_path):
 @click.option("--after-tax/--before-tax", default=None,
               help="Screen after-tax cash flows (before-tax worth is stored beside them).")
 @click.option("--tax-rate", help="Income-tax rate(s) as fractions: 0.25, or START:STOP:COUNT as a grid axis. Implies --after-tax.")
+@click.option("--state-tax-rate", help="State (provincial) income-tax rate as a fraction; with --federal-tax-rate "
+              "the tax axis carries the combined rate t_s + t_f (1 - t_s). Not with --tax-rate. Implies --after-tax.")
+@click.option("--federal-tax-rate", help="Federal income-tax rate as a fraction (see --state-tax-rate).")
+@click.option("--losses", type=click.Choice(["offset", "carry-forward"]),
+              help="A project's tax losses: offset the firm's other income that year (default) or, for a "
+                   "stand-alone project, carried forward to its later profits.")
 @click.option("--chunk-size", type=click.IntRange(min=1), help="Projects per chunk (default: from memory).")
 @click.option("--keep", metavar="all|summary|thinned:K",
               help="Result rows to store: all (default), summary (per-project summaries only), "
@@ -113,7 +119,8 @@ def load(projects_path, cash_flows_path, db_path):
 @click.option("--workers", type=click.IntRange(min=1), help="Evaluate chunks on a local Dask cluster of N processes.")
 @click.option("--quiet", is_flag=True, help="No progress output.")
 def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budgets, timing, periods_per_year,
-           after_tax, tax_rate, chunk_size, keep, resume, cluster, workers, quiet):
+           after_tax, tax_rate, state_tax_rate, federal_tax_rate, losses, chunk_size, keep, resume, cluster,
+           workers, quiet):
     """Evaluate every project in every scenario of the grid and store the results.
 
     Rates are fractions (0.07 = 7 %). Flags override the TOML file. The run
@@ -132,13 +139,15 @@ def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budget
     if cluster and workers:
         raise click.UsageError("give --cluster (an existing scheduler) or --workers (a local cluster), not both")
     if resume and (any(v is not None for v in (grid_path, discount_rates, inflation, discount_basis, timing,
-                                                periods_per_year, after_tax, tax_rate, keep)) or bool(budgets)):
+                                                periods_per_year, after_tax, tax_rate, keep, state_tax_rate,
+                                                federal_tax_rate, losses)) or bool(budgets)):
         raise click.UsageError("--resume continues a run with its stored grid; give no grid options with it")
     run_id = screen_portfolio(db_path, grid=grid_path, discount_rates=discount_rates, inflation=inflation,
                               discount_basis=discount_basis, budgets=list(budgets), timing=timing,
                               periods_per_year=periods_per_year, after_tax=after_tax, tax_rate=tax_rate,
                               keep=keep, chunk_size=chunk_size, cluster=cluster, workers=workers,
-                              resume=resume, progress=not quiet)
+                              resume=resume, progress=not quiet, state_tax_rate=state_tax_rate,
+                              federal_tax_rate=federal_tax_rate, losses=losses)
     from .store.database import connect_read
     con = connect_read(db_path)
     try:
@@ -150,9 +159,11 @@ def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budget
         click.echo("Note: the scenario weights are your judgement, not a forecast; probabilities of acceptance "
                    "and expected worths rest on them.", err=True)
     if spec.get("after_tax"):
-        click.echo("Note: after-tax results assume one tax rate per scenario, losses offset against the firm's "
-                   "other income, and the depreciation rules given; tax law varies by jurisdiction and year.",
-                   err=True)
+        carried = (spec.get("tax") or {}).get("losses") == "carry-forward"
+        click.echo("Note: after-tax results assume one tax rate per scenario, "
+                   + ("each project's losses carried forward to its own later profits"
+                      if carried else "losses offset against the firm's other income")
+                   + ", and the depreciation rules given; tax law varies by jurisdiction and year.", err=True)
     click.echo(CAUTION, err=True)
     click.echo(run_id)
 

@@ -196,6 +196,14 @@ def read_settings_toml(path: str | Path) -> dict:
     tax = dict(data.get("tax", {}))
     if tax:
         out["after_tax"] = bool(tax.pop("after_tax", True))
+        if "state_rate" in tax or "federal_rate" in tax:
+            where = f"{path}: tax.state_rate/federal_rate"
+            rate = combined_rate_from_pair(tax.pop("state_rate", None), tax.pop("federal_rate", None), where,
+                                           single=tax.get("rate"))
+            src["tax_rate"] = where
+            out.setdefault("extra_axes", []).append(Axis("tax_rate", [rate]))
+        if "losses" in tax:
+            tax["losses"] = losses_choice(tax["losses"], f"{path}: tax.losses")
         if "rate" in tax:
             src["tax_rate"] = f"{path}: tax.rate"
             rate = tax.pop("rate")
@@ -215,17 +223,79 @@ def read_settings_toml(path: str | Path) -> dict:
     return out
 
 
+#: how a project's tax losses are treated: "offset" (the default: a loss offsets the firm's other taxable
+#: income in the same year) or "carry-forward" (a stand-alone project carries its losses forward)
+LOSS_TREATMENTS = ("offset", "carry-forward")
+
+
+def losses_choice(value, where: str) -> str:
+    """Validate a ``losses`` setting (``[tax] losses`` or ``--losses``)."""
+    if value not in LOSS_TREATMENTS:
+        raise GridError(f"{where}: losses must be 'offset' (a loss offsets the firm's other income that year) or "
+                        f"'carry-forward' (a stand-alone project carries its losses forward), got {value!r}. "
+                        "Fix: losses = \"offset\" or losses = \"carry-forward\"")
+    return value
+
+
+def combined_rate_from_pair(state, federal, where: str, single=None) -> float:
+    """Combined income-tax rate t = t_s + t_f (1 - t_s) from a state (provincial) and a federal rate.
+
+    State tax is deductible from federally taxable income, so each currency unit of income pays
+    t_s to the state and t_f on the remaining (1 - t_s) to the federal government.
+
+    References
+    ----------
+    W. G. Sullivan, E. M. Wicks, C. P. Koelling, Engineering Economy, Pearson, chapter
+    "Depreciation and Income Taxes", the effective (combined) income-tax rate (from memory;
+    common practice).
+
+    Examples
+    --------
+    >>> round(combined_rate_from_pair(0.06, 0.21, "x"), 6)
+    0.2574
+    """
+    if single is not None:
+        raise GridError(f"{where}: give either one income-tax rate or the state and federal rates, not both. "
+                        "Fix: remove the single rate (tax.rate / --tax-rate) or the pair")
+    if state is None or federal is None:
+        missing = "federal" if federal is None else "state"
+        raise GridError(f"{where}: the {missing} rate is missing; the combined rate needs both. "
+                        f"Fix: give the {missing} rate too (0 if there is none)")
+    out = []
+    for name, value in (("state", state), ("federal", federal)):
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) \
+                or not 0.0 <= value < 1.0:
+            raise GridError(f"{where}: the {name} rate must be one fraction at least 0 and below 1 "
+                            f"(0.21 = 21 %), got {value!r}. Fix: give it as a fraction")
+        out.append(float(value))
+    t_s, t_f = out
+    return t_s + t_f * (1.0 - t_s)
+
+
 def make_run_settings(*, toml_settings: dict | None = None, discount_rates: str | None = None,
                    inflation: str | None = None, discount_basis: str | None = None,
                    budgets: dict | None = None, timing: str | None = None,
                    periods_per_year: float | None = None, after_tax: bool | None = None,
-                   tax_rate: str | None = None, keep: str | None = None) -> RunSettings:
+                   tax_rate: str | None = None, keep: str | None = None, state_tax_rate: str | float | None = None,
+                   federal_tax_rate: str | float | None = None, losses: str | None = None) -> RunSettings:
     """Combine TOML settings with command-line overrides (flags win) and validate."""
     s = dict(toml_settings or {})
     s["sources"] = dict(s.get("sources", {}))
+    if state_tax_rate is not None or federal_tax_rate is not None:
+        pair = []
+        for flag, v in (("--state-tax-rate", state_tax_rate), ("--federal-tax-rate", federal_tax_rate)):
+            try:
+                pair.append(None if v is None else float(v))
+            except ValueError:
+                raise GridError(f"{flag} {v!r}: not a number. Fix: give a fraction, e.g. 0.06") from None
+        rate = combined_rate_from_pair(*pair, "--state-tax-rate/--federal-tax-rate", single=tax_rate)
+        tax_rate = repr(rate)
+        s["sources"]["tax_rate"] = "--state-tax-rate/--federal-tax-rate"
+    if losses is not None:
+        s["tax"] = dict(s.get("tax", {}), losses=losses_choice(losses, "--losses"))
     for flag, key, value in (("--discount-rates", "discount_rates", discount_rates), ("--inflation", "inflation", inflation),
                              ("--budget", "budget", budgets), ("--tax-rate", "tax_rate", tax_rate)):
-        if value:
+        if value and not (key == "tax_rate" and key in s["sources"] and "state" in s["sources"][key]):
             s["sources"][key] = flag
     if discount_rates is not None:
         s["discount_rates"] = parse_range(discount_rates, "--discount-rates")

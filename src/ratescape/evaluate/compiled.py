@@ -656,9 +656,10 @@ MOVE_DISCOUNT_RATE, MOVE_INFLATION, MOVE_ESCALATION = 0, 1, 2
 
 
 @njit(cache=True, nogil=True)
-def _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x, rate, inflation, shift):
+def _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step, move, x, rate, inflation, shift):
     """Present worth of project p with one input moved to x: the per-project point worth of
-    :class:`ratescape.evaluate.kernel.PointEvaluator` (classes summed in order from 0.0)."""
+    :class:`ratescape.evaluate.kernel.PointEvaluator` (classes summed in order from 0.0). A class
+    with ``frozen[c] = k >= 0`` grows only up to period k (see ``LineClass.frozen_at``)."""
     if move == MOVE_DISCOUNT_RATE:
         log_i = np.log1p(x)
         log_f = np.log1p(inflation)
@@ -674,12 +675,18 @@ def _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x
     total = 0.0
     for c in range(lines.shape[0]):
         log_g = np.log1p(escalation[c] + d) + log_f if real[c] else 0.0
-        total += _geometric_sum(lines[c, p], log_g - log_i, tau, uniform_step) * multiplier[c]
+        k = frozen[c]
+        if k < 0 or not real[c]:
+            total += _geometric_sum(lines[c, p], log_g - log_i, tau, uniform_step) * multiplier[c]
+        else:
+            head = _geometric_sum(lines[c, p, :k], log_g - log_i, tau[:k], uniform_step)
+            tail = _geometric_sum(lines[c, p, k:], -log_i, tau[k:], uniform_step) * np.exp(log_g * tau[k])
+            total += (head + tail) * multiplier[c]
     return total
 
 
 @njit(cache=True, nogil=True)
-def _bracketed_roots(lines, real, escalation, multiplier, tau, uniform_step, move, rate, inflation, shift,
+def _bracketed_roots(lines, real, frozen, escalation, multiplier, tau, uniform_step, move, rate, inflation, shift,
                      rows, low, high, xatol, xrtol, out):
     """Chandrupatla's method per row, as SciPy's vectorised ``find_root`` runs it (same steps,
     same termination tests), on the compiled point worth."""
@@ -688,8 +695,8 @@ def _bracketed_roots(lines, real, escalation, multiplier, tau, uniform_step, mov
         p = rows[j]
         x1 = low[j]
         x2 = high[j]
-        f1 = _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x1, rate, inflation, shift)
-        f2 = _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x2, rate, inflation, shift)
+        f1 = _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step, move, x1, rate, inflation, shift)
+        f2 = _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step, move, x2, rate, inflation, shift)
         x3 = x2
         f3 = f2
         t = 0.5
@@ -721,7 +728,7 @@ def _bracketed_roots(lines, real, escalation, multiplier, tau, uniform_step, mov
                 tl = 0.5 * tol / dx
                 t = min(max(t, tl), 1.0 - tl)
             x = x1 + t * (x2 - x1)
-            f = _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x, rate, inflation, shift)
+            f = _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step, move, x, rate, inflation, shift)
             if np.sign(f) == np.sign(f1):
                 x3, f3 = x1, f1
             else:
@@ -732,12 +739,14 @@ def _bracketed_roots(lines, real, escalation, multiplier, tau, uniform_step, mov
 
 
 def bracketed_roots(lines, real, escalation, multiplier, tau, move, rate, inflation, shift, rows, low, high,
-                    xatol, xrtol=4 * np.finfo(float).eps) -> np.ndarray:
+                    xatol, xrtol=4 * np.finfo(float).eps, frozen=None) -> np.ndarray:
     """Where each project's present worth crosses zero as one input moves within its bracket.
 
     Parameters
     ----------
     lines : (C, P, T) amounts by line class [currency]; real (C,) bool, escalation (C,)
+        [fraction per year]; frozen (C,) int, optional: the period after which a real class stops
+        growing (-1 = never; ``LineClass.frozen_at``),
         [fraction per year] and multiplier (C,) values of the classes; tau (T,) [years].
     move : MOVE_DISCOUNT_RATE, MOVE_INFLATION or MOVE_ESCALATION (the input searched).
     rate, inflation, shift : the base point (nominal rate, inflation [fraction per year],
@@ -758,7 +767,9 @@ def bracketed_roots(lines, real, escalation, multiplier, tau, move, rate, inflat
     """
     tau = np.ascontiguousarray(tau, dtype=float)
     out = np.empty(np.size(rows))
+    frozen = np.full(np.shape(real), -1, dtype=np.int64) if frozen is None else frozen
     _bracketed_roots(np.ascontiguousarray(lines, dtype=float), np.ascontiguousarray(real, dtype=np.bool_),
+                     np.ascontiguousarray(frozen, dtype=np.int64),
                      np.ascontiguousarray(escalation, dtype=float), np.ascontiguousarray(multiplier, dtype=float),
                      tau, _uniform_step(tau), int(move), float(rate), float(inflation), float(shift),
                      np.ascontiguousarray(rows, dtype=np.int64), np.ascontiguousarray(low, dtype=float),

@@ -28,6 +28,7 @@ from typing import Mapping, Sequence
 import numpy as np
 
 from .factors import a_given_p
+from .kinds import ROLES as _KIND_ROLES
 from .timing import discount_exponents
 
 
@@ -41,11 +42,36 @@ class LineClass:
         [fraction per year]; only meaningful for real lines.
     multiplier : name of a per-scenario multiplier ("one" for plain lines;
         "after_tax" = 1 - tax_rate, "tax" = tax_rate, "cost_multiplier", ...).
+    frozen_at : for a real class, the period k after which its amounts stop growing (-1, the
+        default: never). An amount a in period t >= k is worth a ((1+e)(1+f))^tau_k / (1+i)^tau_t:
+        money fixed in then-current terms at period k, e.g. the depreciation of an asset whose
+        real-basis cost was paid in period k (its basis is that period's price, and the tax
+        deductions are a fixed share of it). Amounts before k grow as in a plain real class.
     """
 
     basis: str = "real"
     escalation: float = 0.0
     multiplier: str = "one"
+    frozen_at: int = -1
+
+    @property
+    def key(self) -> tuple:
+        """The class's key in a plan's ``class_index``: (basis, escalation, multiplier), with
+        ``frozen_at`` appended for a frozen class."""
+        base = (self.basis, self.escalation, self.multiplier)
+        return base if self.frozen_at < 0 else base + (self.frozen_at,)
+
+    @property
+    def grows_throughout(self) -> bool:
+        """True for a real class that grows with inflation in every period (not frozen)."""
+        return self.basis == "real" and self.frozen_at < 0
+
+    def growth_exponents(self, exponents: np.ndarray) -> np.ndarray:
+        """Growth exponents (T,) [years]: tau_t, or min(tau_t, tau_k) for a class frozen at k."""
+        tau = np.asarray(exponents, dtype=float)
+        if self.frozen_at < 0:
+            return tau
+        return np.minimum(tau, tau[min(self.frozen_at, tau.size - 1)])
 
     def __post_init__(self):
         if self.basis not in ("real", "nominal"):
@@ -114,7 +140,11 @@ def discount_tensor(classes: Sequence[LineClass], exponents: np.ndarray, discoun
     out = np.empty((len(classes), tau.size, i.size))
     for c, cls in enumerate(classes):  # loop over a handful of classes, not projects or scenarios
         log_growth = (np.log1p(cls.escalation + shift) + log_f) if cls.basis == "real" else np.zeros_like(log_f)
-        np.exp(np.multiply.outer(tau, log_growth - log_i), out=out[c])
+        if cls.frozen_at >= 0 and cls.basis == "real":
+            np.exp(np.multiply.outer(cls.growth_exponents(tau), log_growth) - np.multiply.outer(tau, log_i),
+                   out=out[c])
+        else:
+            np.exp(np.multiply.outer(tau, log_growth - log_i), out=out[c])
         if cls.multiplier != "one":
             out[c] *= multiplier_values(cls.multiplier, multipliers, i.shape)[None, :]
     return out
@@ -248,7 +278,7 @@ def then_current_streams(amounts: np.ndarray, classes: Sequence[LineClass], expo
     growth = np.empty((len(classes), f.size, tau.size))
     for c, cls in enumerate(classes):
         if cls.basis == "real":
-            g = np.exp(np.multiply.outer(np.log1p(f) + np.log1p(cls.escalation), tau))  # (F, T)
+            g = np.exp(np.multiply.outer(np.log1p(f) + np.log1p(cls.escalation), cls.growth_exponents(tau)))  # (F, T)
         else:
             g = np.ones((f.size, tau.size))
         if cls.multiplier != "one":
@@ -278,7 +308,7 @@ def capital_recovery_factor(rate, years) -> np.ndarray:
     return crf if crf.ndim else float(crf)
 
 
-ROLES = ("investment", "benefit", "other")
+ROLES = _KIND_ROLES   # the one list of roles (evaluate/kinds.py)
 
 
 def present_worth_at(amounts_by_role: np.ndarray, classes: Sequence[LineClass], exponents: np.ndarray,
@@ -365,12 +395,13 @@ class PointEvaluator:
         per project (:func:`ratescape.evaluate.compiled.bracketed_roots`)."""
         from .compiled import bracketed_roots
         real = np.array([c.basis == "real" for c in self.classes])
+        frozen = np.array([c.frozen_at for c in self.classes], dtype=np.int64)
         escalation = np.array([c.escalation for c in self.classes], dtype=float)
         multiplier = np.array([1.0 if c.multiplier == "one" else
                                float(multiplier_values(c.multiplier, self.multipliers, (1,))[0]) for c in self.classes])
         with np.errstate(over="ignore", invalid="ignore"):
             return bracketed_roots(self.total, real, escalation, multiplier, self.tau, move, discount_rate, inflation,
-                                   escalation_shift, rows, low, high, xatol)
+                                   escalation_shift, rows, low, high, xatol, frozen=frozen)
 
     def __call__(self, discount_rate, inflation, *, escalation_shift=0.0, cost_multiplier=1.0,
                  benefit_multiplier=1.0) -> np.ndarray:
@@ -412,7 +443,13 @@ class PointEvaluator:
                 lines = lines + (cm - 1.0)[:, None] * pick(self.A[0, c])
             if scaled_benefit:
                 lines = lines + (bm - 1.0)[:, None] * pick(self.A[1, c])
-            worth = weighted_exponential_sums(lines, log_g - log_i, self.tau)
+            if cls.frozen_at >= 0 and cls.basis == "real":    # grows up to period k, fixed after
+                k = min(cls.frozen_at, self.tau.size - 1)
+                worth = (weighted_exponential_sums(lines[:, :k], log_g - log_i, self.tau[:k])
+                         + weighted_exponential_sums(lines[:, k:], -log_i, self.tau[k:])
+                         * np.exp(log_g * self.tau[k]))
+            else:
+                worth = weighted_exponential_sums(lines, log_g - log_i, self.tau)
             if cls.multiplier != "one":
                 worth = worth * multiplier_values(cls.multiplier, self.multipliers, (n,))
             out += worth

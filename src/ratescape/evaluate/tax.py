@@ -28,6 +28,9 @@ Assumptions (screening level; state them with every after-tax result):
   inflation erodes the value of the tax shield.
 * The whole gain on disposal (depreciation recapture and any gain above cost)
   is taxed at the ordinary rate; a loss on disposal saves tax at that rate.
+* Staged capital: each investment line is its own asset, depreciated from its own service
+  period (:func:`staged_asset_lines`); working capital and land are never deducted (land's cost
+  is deducted at its sale; see :mod:`ratescape.evaluate.kinds`).
 * MACRS: the asset is sold at the end of year ``life``; deductions of tax
   years up to ``life`` are taken in full (the disposal-year convention is not
   applied) and the book value left is written off at disposal.
@@ -47,27 +50,24 @@ from __future__ import annotations
 import numpy as np
 
 from . import depreciation as _dep
+from .kinds import KIND_RULES
 
 __all__ = [
     "MULTIPLIERS",
     "KIND_MULTIPLIER",
     "multiplier_values",
     "after_tax_lines",
+    "staged_asset_lines",
     "loan_schedule",
     "tax_immediate_offset",
     "after_tax_cash_flows_carry_forward",
+    "carry_forward_adjustment",
 ]
 
 MULTIPLIERS = ("one", "after_tax", "tax")
 
 #: multiplier name of each cash-flow ``kind`` after tax (the engine relabels its own lines with this).
-KIND_MULTIPLIER = {
-    "investment": "one",
-    "benefit": "after_tax",
-    "cost": "after_tax",
-    "other": "after_tax",
-    "salvage": "after_tax",
-}
+KIND_MULTIPLIER = {kind: rule.after_tax for kind, rule in KIND_RULES.items()}
 
 
 def _check_tax_rate(tax_rate, name="tax_rate"):
@@ -366,6 +366,85 @@ def after_tax_lines(
     return out
 
 
+def staged_asset_lines(cost, period, disposal, n_periods, *, method="macrs", recovery_years=5, salvage=0.0,
+                       convention=None, quarter=None, itc_rate=0.0, itc_period=1):
+    """Tax deductions of assets placed in service in their own periods (staged capital).
+
+    Each row r is one asset: its cost is paid in period k_r, its depreciation schedule starts
+    there (tax year j of the asset lands at period k_r + j, so the first year's convention, e.g.
+    the MACRS half-year, applies to each asset in its own first year), and whatever book value is
+    left at the project's disposal period N_r is written off there.
+
+    Parameters
+    ----------
+    cost : array_like, shape (R,) [currency of period k_r]
+        Depreciable cost of each asset, in the money of its own service period.
+    period : array_like of int, shape (R,)
+        Service period k_r (0 <= k_r <= N_r).
+    disposal : array_like of int, shape (R,)
+        Disposal period N_r (N_r <= n_periods - 1). An asset with N_r = k_r is written off in full
+        at once (placed in service and disposed of in the same period).
+    n_periods : int
+        T, periods t = 0 .. T - 1.
+    method, recovery_years, salvage, convention, quarter :
+        As :func:`after_tax_lines` (per row where it allows arrays); ``salvage`` is each asset's
+        estimated salvage for straight-line and declining balance, in the same money as its cost.
+    itc_rate, itc_period :
+        Investment tax credit (fraction of cost) received ``itc_period`` periods after service.
+
+    Returns
+    -------
+    shield, credit : ndarray, shape (R, T) [money of each asset's service period]
+        Deductions D (plus the book value written off at N_r) and tax credits. Both are fixed
+        shares of the cost, so an asset whose cost grows with inflation up to k_r has deductions
+        fixed in then-current money from k_r on: multiply by the tax rate and discount them in a
+        line class frozen at k_r (``LineClass.frozen_at``).
+
+    Notes
+    -----
+    The loop runs over distinct service periods (a handful), not over assets.
+
+    References
+    ----------
+    Internal Revenue Service, Publication 946, How to Depreciate Property: each property's
+    recovery period begins on the date it is placed in service, and the half-year convention
+    treats it as placed in service at the midpoint of that year (Table A-1).
+
+    Examples
+    --------
+    >>> shield, _ = staged_asset_lines([100.0, 50.0], [0, 2], [4, 4], 6, method="macrs", recovery_years=3)
+    >>> shield.round(3).tolist()    # 3-year MACRS 33.33/44.45/14.81/7.41 %, each from its own period
+    [[0.0, 33.33, 44.45, 14.81, 7.41, 0.0], [0.0, 0.0, 0.0, 16.665, 33.335, 0.0]]
+    """
+    c = np.asarray(cost, dtype=float)
+    if c.ndim != 1:
+        raise ValueError(f"cost must have shape (R,), got {c.shape}")
+    r = c.shape[0]
+    T = _dep._check_int(n_periods, "n_periods", minimum=2)
+    k = _as_int_vector(period, r, "period", 0)
+    N = _as_int_vector(disposal, r, "disposal", 0)
+    if np.any(N > T - 1) or np.any(k > N):
+        raise ValueError(f"each asset needs period <= disposal <= n_periods - 1 = {T - 1}")
+    methods = np.asarray(method, dtype=object)
+    methods = np.full(r, methods.item(), dtype=object) if methods.ndim == 0 else methods
+    rec = _as_int_vector(recovery_years, r, "recovery_years", 1)
+    salv = _as_vector(salvage, r, "salvage")
+    itc = _as_vector(itc_rate, r, "itc_rate")
+    shield = np.zeros((r, T))
+    credit = np.zeros((r, T))
+    at_once = N == k
+    shield[np.flatnonzero(at_once), k[at_once]] = c[at_once]
+    for start in np.unique(k[~at_once]):    # loop over distinct service periods, not assets
+        rows = np.flatnonzero((k == start) & ~at_once)
+        lines = after_tax_lines(c[rows], N[rows] - start, T - start, method=methods[rows], recovery_years=rec[rows],
+                                salvage=salv[rows], convention=convention, quarter=quarter, itc_rate=itc[rows],
+                                itc_period=min(int(itc_period), T - start - 1))
+        shield[rows, start:] = lines[("nominal", 0.0, "tax")]
+        if ("nominal", 0.0, "one") in lines:
+            credit[rows, start:] = lines[("nominal", 0.0, "one")]
+    return shield, credit
+
+
 def tax_immediate_offset(taxable_income, tax_rate):
     """Tax of each year when losses offset the firm's other income at once.
 
@@ -457,3 +536,73 @@ def after_tax_cash_flows_carry_forward(taxable_income, tax_rate, *, offset_limit
         paid[:, :, k] = rate * np.maximum(income - used, 0.0)
         carry = carry - used + np.maximum(-income, 0.0)
     return paid
+
+
+def carry_forward_adjustment(amounts, classes, exponents, discount_rate, inflation, multipliers):
+    """Present worth (S, P) to add to the linear after-tax worth when losses are carried forward.
+
+    The engine's after-tax worth taxes every line linearly (tax = tau x, a loss saving tax at
+    once against the firm's other income). For a stand-alone project a loss is instead carried
+    forward (:func:`after_tax_cash_flows_carry_forward`), so its worth is the linear worth plus
+    the present worth of (tau x_t - tax paid_t).
+
+    Parameters
+    ----------
+    amounts : (C, P, T) [currency] lines by class (after-tax lines included).
+    classes : C ``LineClass``; a class whose multiplier contains ``after_tax`` is taxable income
+        (times its other multiplier parts), one whose multiplier is ``tax`` a deduction; others
+        (investment, loan principal, working capital, tax credits) are not taxable.
+    exponents : (T,) [years]; discount_rate, inflation : (S,) nominal rate and inflation.
+    multipliers : name -> (S,) per-scenario values, with ``tax``.
+
+    Returns
+    -------
+    ndarray (S, P) [currency at time 0], <= 0 where the discount rate is positive.
+
+    Notes
+    -----
+    Taxable income x_t (then-current money) depends on the scenario only through inflation, the
+    tax rate and the scaling multipliers; it is built once per distinct combination U of these
+    (a loop over U, vectorised over projects), carried forward with a loop over periods, and
+    discounted for every scenario of the combination by one matrix product.
+    """
+    from .kernel import multiplier_values
+
+    A = np.asarray(amounts, dtype=float)
+    C, P, T = A.shape
+    tau = np.asarray(exponents, dtype=float)
+    i = np.asarray(discount_rate, dtype=float)
+    f = np.asarray(inflation, dtype=float)
+    S = i.size
+    names = sorted({part for c in classes for part in c.multiplier.split("*")} - {"one", "after_tax", "tax"})
+    tax = np.asarray(multipliers["tax"], dtype=float)
+    keys = np.column_stack([f, tax] + [np.asarray(multipliers[n], dtype=float) for n in names])
+    combos, which = np.unique(keys, axis=0, return_inverse=True)
+    which = which.ravel()
+    U = combos.shape[0]
+    point = {n: combos[:, 2 + k] for k, n in enumerate(names)}
+    weight = np.zeros((C, U, T))
+    for c, cls in enumerate(classes):                    # a handful of classes
+        parts = cls.multiplier.split("*")
+        if "after_tax" in parts:
+            sign = multiplier_values("*".join(p for p in parts if p != "after_tax") or "one", point, (U,))
+        elif cls.multiplier == "tax":
+            sign = -np.ones(U)
+        else:
+            continue
+        if cls.basis == "real":
+            growth = np.exp(np.multiply.outer(np.log1p(combos[:, 0]) + np.log1p(cls.escalation),
+                                              cls.growth_exponents(tau)))
+        else:
+            growth = np.ones((U, T))
+        weight[c] = sign[:, None] * growth
+    from .compiled import class_weighted_streams
+    income = class_weighted_streams(A, weight).transpose(1, 0, 2)          # (P, U, T)
+    paid = after_tax_cash_flows_carry_forward(income, combos[:, 1])
+    extra = income * combos[None, :, 1, None] - paid                         # tax no longer saved at once
+    V = np.exp(-np.multiply.outer(np.log1p(i), tau))                         # (S, T)
+    out = np.empty((S, P))
+    for u in range(U):                                                       # distinct (inflation, tax, ...) levels
+        rows = np.flatnonzero(which == u)
+        out[rows] = V[rows] @ extra[:, u, :].T
+    return out

@@ -10,7 +10,7 @@ from __future__ import annotations
 BASES = ("real", "nominal")
 DEPRECIATION_METHODS = ("straight-line", "declining-balance", "macrs")
 DEPRECIATION_CONVENTIONS = ("half-year", "mid-quarter")
-KINDS = ("investment", "benefit", "cost", "salvage", "other")
+from ratescape.evaluate.kinds import KINDS  # noqa: E402  (the one table of kinds)
 
 # Cash-flow file: header -> (canonical name, required, type)
 CASH_FLOW_COLUMNS = {

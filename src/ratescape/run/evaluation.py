@@ -25,7 +25,8 @@ from ratescape.evaluate.measures import (
     present_worth,
 )
 from ratescape.evaluate.sensitivity import one_at_a_time
-from ratescape.run.plan import IRR_SEARCH, Plan
+from ratescape.evaluate.tax import carry_forward_adjustment
+from ratescape.run.plan import IRR_SEARCH, Plan, scenario_multipliers
 
 
 def _reused(buffers: dict | None, name: str, shape: tuple) -> np.ndarray | None:
@@ -63,9 +64,18 @@ def worth_index_and_investment(plan: Plan, A_by_role: np.ndarray, buffers: dict 
     """
     shape = (plan.tensor_sm.shape[0], A_by_role.shape[2])
     pw = _nonzero_columns_product(plan.tensor_sm, A_by_role.sum(axis=0), out=_reused(buffers, "pw", shape))
+    if plan.spec.after_tax and plan.spec.tax.get("losses") == "carry-forward":
+        pw += losses_carried_forward(plan, A_by_role.sum(axis=0))
     outlay = _nonzero_columns_product(plan.tensor_sm, A_by_role[0], out=_reused(buffers, "pi", shape))
     pi, fixed = index_and_fixed_investment(pw, outlay, out=outlay)   # in place: the outlay is not needed again
     return pw, pi, fixed
+
+
+def losses_carried_forward(plan: Plan, A: np.ndarray) -> np.ndarray:
+    """(S, P) worth to add when each project's tax losses are carried forward ([tax] losses)."""
+    cols = plan.scenarios.columns
+    return carry_forward_adjustment(A, plan.classes, plan.exponents, cols["discount_rate"], cols["inflation"],
+                                    scenario_multipliers(plan.scenarios, True))
 
 
 def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray, buffers: dict | None = None) -> dict:
@@ -129,7 +139,7 @@ def irr_over_inflation(plan: Plan, A: np.ndarray) -> IrrTable:
     """
     levels = plan.inflation_levels
     F, (_, P, T) = levels.size, A.shape
-    nominal = np.array([c.basis == "nominal" for c in plan.classes])
+    nominal = np.array([not c.grows_throughout for c in plan.classes])   # nominal or frozen: searched per level
     mixed = np.any(A[nominal] != 0, axis=(0, 2)) if nominal.any() else np.zeros(P, dtype=bool)
     m = float(plan.spec.periods_per_year)
     low, high = IRR_SEARCH

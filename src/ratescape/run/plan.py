@@ -14,6 +14,7 @@ import numpy as np
 
 from ratescape.decide.weights import scenario_weights_from_spec
 from ratescape.errors import RunError
+from ratescape.evaluate.kinds import multiplier_for  # noqa: F401  (re-exported: the one kind table)
 from ratescape.evaluate.kernel import LineClass, discount_tensor, scenario_major_tensor
 from ratescape.evaluate.sensitivity import SensitivitySettings
 from ratescape.evaluate.timing import discount_exponents
@@ -73,22 +74,6 @@ def utc_now() -> datetime:
     return datetime.now(timezone.utc).replace(tzinfo=None)
 
 
-def multiplier_for(kind: str, axes: set[str], after_tax: bool = False) -> str:
-    """Per-scenario multiplier of a cash-flow line of this kind (composite names multiply).
-
-    After tax every line but the investment is taxable income, kept at (1 - tax rate);
-    the investment is capitalised and recovered through depreciation.
-    """
-    parts = []
-    if after_tax and kind != "investment":
-        parts.append("after_tax")
-    if kind == "investment" and "cost_multiplier" in axes:
-        parts.append("cost_multiplier")
-    if kind == "benefit" and "benefit_multiplier" in axes:
-        parts.append("benefit_multiplier")
-    return "*".join(parts) or "one"
-
-
 # Classes of the lines an after-tax analysis adds (see evaluate/tax.py): the tax shield of
 # depreciation, book value written off and loan interest (nominal, times the tax rate), and
 # loan flows and tax credits (nominal, present only after tax).
@@ -96,6 +81,26 @@ TAX_SHIELD_CLASS = ("nominal", 0.0, "tax")
 
 
 AFTER_TAX_ONLY_CLASS = ("nominal", 0.0, "after_tax_only")
+
+
+def after_tax_classes(con, spec: RunSettings) -> set:
+    """Line classes the after-tax lines of staged capital and land need (see run/read.py).
+
+    The tax on a land sale is in the sale line's own (basis, escalation) class, times the tax
+    rate. A real-basis asset (investment or land) paid in period k >= 1 has its deductions (and
+    tax credit) fixed in the money of period k: a class frozen at k per distinct (escalation, k).
+    """
+    keys = {(b, float(e), "tax") for b, e in
+            con.execute("SELECT DISTINCT basis, escalation FROM cash_flows WHERE kind = 'land'").fetchall()}
+    frozen = con.execute("""SELECT DISTINCT escalation, period, kind FROM cash_flows
+                            WHERE basis = 'real' AND period >= 1 AND amount < 0
+                              AND kind IN ('investment', 'land')""").fetchall()
+    credit = float(spec.tax.get("investment_tax_credit", 0.0)) > 0
+    for e, k, kind in frozen:
+        keys.add(("real", float(e), "tax", int(k)))
+        if credit and kind == "investment":
+            keys.add(("real", float(e), "after_tax_only", int(k)))
+    return keys
 
 
 def scenario_multipliers(table: ScenarioTable, after_tax: bool) -> dict:
@@ -164,9 +169,9 @@ def make_plan(con, run_id: str, spec: RunSettings, chunk_size: int | None) -> Pl
     rows = con.execute("SELECT DISTINCT basis, escalation, kind FROM cash_flows").fetchall()
     keys = {(b, float(e), multiplier_for(k, axes, spec.after_tax)) for b, e, k in rows}
     if spec.after_tax:
-        keys |= {TAX_SHIELD_CLASS, AFTER_TAX_ONLY_CLASS}
-    classes = [LineClass(b, e, m) for b, e, m in sorted(keys)] or [LineClass()]
-    class_index = {(c.basis, c.escalation, c.multiplier): n for n, c in enumerate(classes)}
+        keys |= {TAX_SHIELD_CLASS, AFTER_TAX_ONLY_CLASS} | after_tax_classes(con, spec)
+    classes = sorted(LineClass(*k) for k in keys) or [LineClass()]
+    class_index = {c.key: n for n, c in enumerate(classes)}
     T = max_period + 1 + (1 if spec.after_tax else 0)   # room for a book-value write-off after the last flow
     tau = discount_exponents(T, spec.timing, spec.periods_per_year)
     multipliers = scenario_multipliers(table, spec.after_tax)

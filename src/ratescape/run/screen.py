@@ -37,6 +37,7 @@ from ratescape.run.read import ChunkReader
 from ratescape.run.write import ChunkWriter, arrow_floats
 from ratescape.settings import RunSettings
 from ratescape.store.database import append_rows, is_interrupt, transaction
+from ratescape.run.notes import write_run_notes
 from ratescape.store.worth_files import WorthFiles, worth_files_folder
 
 
@@ -156,6 +157,7 @@ def screen(con, spec: RunSettings | None = None, *, resume: str | None = None, c
             con.register("new_annual_factors", annual)
             con.execute("INSERT INTO annual_factors SELECT * FROM new_annual_factors")
             con.unregister("new_annual_factors")
+            write_run_notes(con, plan)
         log(f"run {run_id}: {plan.project_count} projects x {S} scenarios in {plan.chunk_count} chunk(s)")
     plan.worth_files = WorthFiles(worth_files_folder(con, plan.run_id), plan.scenarios.size, plan.project_count,
                                 plan.chunk_size, before_tax=plan.tensor_before_tax_sm is not None)

@@ -1,0 +1,56 @@
+"""The plain-words assumptions a run states in ``run_notes`` (one row per topic).
+
+Topics written here: "tax" (after-tax conventions), "loans" (the discount rate when projects
+carry debt) and "working_capital" (recovery assumed where none is listed).
+"""
+from __future__ import annotations
+
+from ratescape.run.plan import Plan
+
+TAX_NOTE = (
+    "After tax: {losses}. Tax is paid at the end of the year in which the income arises. Depreciation is "
+    "fixed in nominal money from each asset's own service period (each investment line is its own asset, "
+    "depreciated from the period it is paid at that period's price), so inflation erodes the tax shield. "
+    "The gain on disposal (depreciation recapture, and a land sale's gain over its cost) is taxed at the "
+    "ordinary rate and a loss on disposal saves tax at it. Working capital and land are never deducted; "
+    "land is not depreciated.{rate}")
+OFFSET = "a project's loss in a year offsets the firm's other taxable income that year (a profitable firm)"
+CARRIED = ("each project stands alone: a loss is carried forward, without expiry, to the project's own later "
+           "profits. The present worth, annual worth and acceptance include the carry-forward; IRR, MIRR and "
+           "the one-at-a-time sensitivity use the linear tax (loss offset at once)")
+LOANS_NOTE = (
+    "{n} project(s) carry a loan: their worth is that of the equity holders' cash flows (loan received, "
+    "payments and the interest's tax saving included), so the discount rate should be the cost of equity, not "
+    "a weighted average cost of capital; discounting equity flows at a WACC counts the benefit of debt twice "
+    "(R. A. Brealey, S. C. Myers, F. Allen, Principles of Corporate Finance, McGraw-Hill, chapter on financing "
+    "and valuation; C. S. Park, Contemporary Engineering Economics, Pearson).")
+RECOVERY_NOTE = (
+    "{n} project(s) pay out working capital or land without listing its recovery: it is assumed to come back at "
+    "the project's horizon in the same basis (a real-basis amount grows with inflation to that period).")
+
+
+def write_run_notes(con, plan: Plan) -> None:
+    """Store the run's assumption notes (replacing any of the same run and topic)."""
+    notes = {}
+    spec = plan.spec
+    if spec.after_tax:
+        carried = spec.tax.get("losses") == "carry-forward"
+        rate = ""
+        if "state" in (spec.sources or {}).get("tax_rate", ""):
+            rate = (" The income-tax rate is the combined rate t = t_s + t_f (1 - t_s) of the state and federal "
+                    "rates given (state tax deductible federally; common practice).")
+        notes["tax"] = TAX_NOTE.format(losses=CARRIED if carried else OFFSET, rate=rate)
+        loans = con.execute("SELECT count(*) FROM projects WHERE coalesce(loan_amount, 0) > 0").fetchone()[0]
+        if loans:
+            notes["loans"] = LOANS_NOTE.format(n=loans)
+    elif con.execute("SELECT count(*) FROM projects WHERE coalesce(loan_amount, 0) > 0").fetchone()[0]:
+        notes["loans"] = ("Projects carry loans, but this run is before tax: loan flows enter only after-tax runs, "
+                          "so these worths are of the whole project, to be discounted at the cost of capital.")
+    unrecovered = con.execute("""
+        SELECT count(DISTINCT project_id) FROM (
+            SELECT project_id, kind FROM cash_flows WHERE kind IN ('working_capital', 'land')
+            GROUP BY project_id, kind HAVING max(amount) <= 0 AND min(amount) < 0)""").fetchone()[0]
+    if unrecovered:
+        notes["working_capital"] = RECOVERY_NOTE.format(n=unrecovered)
+    for topic, note in notes.items():
+        con.execute("INSERT OR REPLACE INTO run_notes VALUES (?, ?, ?)", [plan.run_id, topic, note])
