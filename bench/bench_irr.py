@@ -1,6 +1,6 @@
 """Benchmark: every IRR root of 100,000 projects at each of 51 inflation levels.
 
-Prints the engine's time (the screen's `irr_over_inflation`: real-only projects searched once and
+Prints the engine's time (`run.evaluation.irr_over_inflation`, as a screen runs it: real-only projects searched once and
 mapped by the Fisher relation, projects with nominal lines searched at every level) beside a
 numpy-financial `irr` loop on a sample, extrapolated, and their ratio.
 
@@ -17,7 +17,7 @@ import numpy_financial as npf
 
 from ratescape.evaluate.kernel import LineClass, then_current_streams
 from ratescape.evaluate.timing import discount_exponents
-from ratescape.screen import irr_over_inflation
+from ratescape.run.evaluation import irr_over_inflation
 
 
 def main(argv=None):

@@ -1,6 +1,6 @@
 """ratescape: screen capital projects over a grid of discount-rate and inflation scenarios.
 
-Pipeline: load → grid → evaluate → decide → store → query / chart / report.
+Pipeline: load → settings → grid → run (evaluate, store, decide) → query / report.
 The numeric core (:mod:`ratescape.evaluate`, :mod:`ratescape.decide`) is pure
 numpy/scipy; I/O lives at the edges.
 

@@ -80,7 +80,10 @@ def test_messages_name_the_fix(tmp_path):
     assert "line 3, column 'amount': not a finite number (value '1e999'). Fix:" in text
     assert "line 4, column 'amount': not a finite number (value '€5'). Fix: remove the currency symbol" in text
     assert "line 5, column 'amount': not a finite number (value '2,5'). Fix: use '.' as the decimal mark" in text
-    assert text.startswith("4 problems found in the input; nothing was written.") or "problems found" in text
+    assert "line 2, column 'project_id': all of the project's cash flows are zero (value 'A'). Fix:" in text
+    # the count is exact: five bad cells and the project left without a non-zero flow
+    assert text.startswith("6 problems found in the input; nothing was written.\n"), text
+    assert len(text.splitlines()) == 1 + 6, text
 
 
 @pytest.mark.parametrize("header,problem,fix_fragment", [

@@ -60,18 +60,6 @@ def real_rate(nominal, inflation):
     return out if out.ndim else float(out)
 
 
-def real_rate_approximate(nominal, inflation):
-    """Small-rate approximation r ~ i - f, for labelled comparison only.
-
-    Its error against the exact relation is f (i - f) / (1 + f) ... to first
-    order r*f; never used by the engine.
-    """
-    i = np.asarray(nominal, dtype=float)
-    f = np.asarray(inflation, dtype=float)
-    out = i - f
-    return out if out.ndim else float(out)
-
-
 def per_period_rate(annual_rate, periods_per_year):
     """Exact per-period rate for m periods a year: (1 + i)^(1/m) - 1.
 

@@ -311,34 +311,6 @@ def capital_recovery_factor(rate, years) -> np.ndarray:
 ROLES = _KIND_ROLES   # the one list of roles (evaluate/kinds.py)
 
 
-def present_worth_at(amounts_by_role: np.ndarray, classes: Sequence[LineClass], exponents: np.ndarray,
-                     discount_rate, inflation, *, escalation_shift=0.0, cost_multiplier=1.0,
-                     benefit_multiplier=1.0, multipliers: Mapping[str, np.ndarray] | None = None) -> np.ndarray:
-    """Present worth (P,) of each project at its own scenario point (one-at-a-time sensitivity).
-
-    Parameters
-    ----------
-    amounts_by_role : (R, C, P, T) [currency]: amounts split by role
-        (investment, benefit, other) and line class.
-    classes : C line classes; exponents (T,) [years].
-    discount_rate, inflation : scalar or (P,) [fraction per year], nominal rate and inflation.
-    escalation_shift : scalar or (P,) [fraction per year] added to every real line's escalation.
-    cost_multiplier, benefit_multiplier : scalar or (P,) multipliers of investment and benefit lines.
-    multipliers : name -> scalar values of the classes' multipliers at this point.
-
-    Returns
-    -------
-    ndarray (P,) [currency at time 0]
-
-    Notes
-    -----
-    Same factors as :func:`discount_tensor`, evaluated per project instead of per
-    grid scenario: PW_p = sum_c sum_t a_cpt ((1+e_c+d_p)(1+f_p))^tau_t / (1+i_p)^tau_t.
-    """
-    return PointEvaluator(amounts_by_role, classes, exponents, multipliers)(
-        discount_rate, inflation, escalation_shift=escalation_shift, cost_multiplier=cost_multiplier,
-        benefit_multiplier=benefit_multiplier)
-
 
 class PointEvaluator:
     """Evaluate present worth of a chunk's projects at many single points, reusing its layout.
