@@ -45,7 +45,7 @@ def worth_decimals(max_abs: float) -> int:
     """Decimal places keeping about nine significant digits of ``max_abs`` (0 to 6).
 
     >>> worth_decimals(1.9e7), worth_decimals(120.0)
-    (2, 6)
+    (1, 6)
     """
     if not math.isfinite(max_abs) or max_abs <= 0:
         return 6
