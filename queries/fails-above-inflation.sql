@@ -1,6 +1,7 @@
--- about: Projects that inflation above a threshold hurts: accepted in fewer scenarios above the threshold than at or below it (same discount rates compared).
+-- about: Projects that fail under high inflation. The one definition (the report's decision brief uses this file): a project fails under high inflation when the share of scenarios in which it is accepted (present worth >= 0) with inflation above the threshold is lower, by at least min_drop, than its share with inflation at or below the threshold (same discount rates on both sides of a full grid).
 -- param: run = latest  (run id; "latest" = the newest finished run)
--- param: threshold = 0.05  (inflation, fraction per year)
+-- param: threshold = 0.05  (inflation, fraction per year; "high" means above it)
+-- param: min_drop = 0.25  (least fall in the acceptance share, fraction: 0.25 = 25 percentage points)
 -- Aggregates the narrow result_rows table by project key, then names the projects.
 WITH sc AS (SELECT scenario_key, inflation FROM scenarios WHERE run_id = $run),
 by_side AS (
@@ -18,5 +19,5 @@ SELECT s.project_id, p.name, s.accepted_base, s.pw_base,
 FROM by_side b
 JOIN project_summary s ON s.run_id = $run AND s.project_key = b.project_key
 JOIN projects p ON p.project_id = s.project_id
-WHERE b.accept_share_above < b.accept_share_at_or_below
+WHERE b.accept_share_at_or_below - b.accept_share_above >= $min_drop - 1e-12
 ORDER BY b.accept_share_at_or_below - b.accept_share_above DESC, s.project_id

@@ -214,17 +214,21 @@ def query(db_path, name_or_file, params, fmt, list_only):
 @click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
 @click.option("--run", "run_id", help="Run id (default: the newest finished run).")
 @click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False), help="HTML file to write.")
-@click.option("--project", "projects", multiple=True, help="Project id for drill-down charts. Repeatable.")
-def report(db_path, run_id, out_path, projects):
+@click.option("--project", "projects", multiple=True,
+              help="Project id always embedded with its drill-down (the first opens on load). Repeatable.")
+@click.option("--compare-to", "compare_to", metavar="RUN_ID",
+              help="An earlier run of the same database: adds the section 'What changed since run RUN_ID'.")
+def report(db_path, run_id, out_path, projects, compare_to):
     """Write the self-contained, offline HTML report of a run.
 
     \b
     Example:
       ratescape report --db plan.duckdb --out report.html
       ratescape report --db plan.duckdb --run run-20261201-101500-ab12cd --project P007 --out report.html
+      ratescape report --db plan.duckdb --compare-to run-20261130-090000-aa11bb --out report.html
     """
     from .report import write_report
-    write_report(db_path, out_path, run_id=run_id, projects=list(projects) or None)
+    write_report(db_path, out_path, run_id=run_id, projects=list(projects) or None, compare_to=compare_to)
     click.echo(f"Wrote {out_path}")
     click.echo(CAUTION, err=True)
 

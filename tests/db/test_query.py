@@ -36,7 +36,7 @@ def test_every_bundled_query_runs_and_documents_itself(db):
 
 def test_accepted_everywhere_and_fails_above_inflation(db):
     assert set(run_query(db, "accepted-everywhere")["project_id"].to_list()) == {"A", "L"}
-    failing = run_query(db, "fails-above-inflation", {"threshold": "0.04"})
+    failing = run_query(db, "fails-above-inflation", {"threshold": "0.04", "min_drop": "0.01"})
     assert failing["project_id"].to_list() == ["N"]
     row = failing.row(0, named=True)
     assert row["accept_share_above"] < row["accept_share_at_or_below"]

@@ -79,6 +79,60 @@ IDENT_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 MONEY_FORMAT = ",.0f"
 
 
+#: Vega expression writing a money value in thousands or millions with separators (never SI "G"):
+#: 1234 -> "1.2 k", 12345678 -> "12.3 M", 1.5e9 -> "1,500 M". Used by every money axis and legend.
+MONEY_LABEL_EXPR = ("abs(datum.value) >= 1e6 ? format(datum.value / 1e6, ',.4~r') + ' M' : "
+                    "abs(datum.value) >= 1e3 ? format(datum.value / 1e3, ',.4~r') + ' k' : "
+                    "format(datum.value, ',.4~r')")
+
+
+#: Plain words for the inputs of the one-at-a-time sensitivity (tornado, spider) and other code keys.
+INPUT_LABELS = {
+    "discount_rate": "nominal discount rate", "real_rate": "real discount rate",
+    "inflation": "general inflation", "first_cost": "first cost", "benefits": "benefits",
+    "annual_benefit": "annual benefit", "annual_cost": "annual cost", "costs": "costs",
+    "escalation": "escalation of the benefits", "salvage": "salvage value", "life": "life",
+    "tax_rate": "income-tax rate", "cost_multiplier": "cost multiplier",
+    "benefit_multiplier": "benefit multiplier",
+}
+
+
+def plain_input(key: str) -> str:
+    """Plain words for a code key ('first_cost' -> 'first cost')."""
+    return INPUT_LABELS.get(key, str(key).replace("_", " "))
+
+
+def money_axis(title: str = "Present worth") -> alt.Axis:
+    """A money axis: thousands or millions with separators (:data:`MONEY_LABEL_EXPR`)."""
+    return alt.Axis(title=title, labelExpr=MONEY_LABEL_EXPR)
+
+
+#: Percentiles of the symmetric clipping rule of :func:`clipped_worth_domain`.
+CLIP_PERCENTILES = (2.0, 98.0)
+
+
+def clipped_worth_domain(values) -> tuple[float, int]:
+    """Half-width of a colour domain symmetric about zero, clipped at the 2nd-98th percentile.
+
+    The rule: ``m = max(|P2|, |P98|)`` of the finite worths; colours run from ``-m`` (vermilion)
+    through zero (near-white) to ``+m`` (blue) and values beyond are drawn at the end colour, so one
+    extreme corner of the grid does not flatten the rest. Returns ``(m, count of values beyond)``.
+
+    Examples
+    --------
+    >>> m, beyond = clipped_worth_domain(np.r_[np.linspace(-10, 10, 99), 1000.0])
+    >>> round(m, 6), beyond
+    (9.8, 3)
+    """
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    if v.size == 0:
+        return 1.0, 0
+    lo, hi = np.percentile(v, CLIP_PERCENTILES)
+    m = float(max(abs(lo), abs(hi))) or float(np.max(np.abs(v))) or 1.0
+    return m, int(np.count_nonzero(np.abs(v) > m))
+
+
 def axis_title(column: str) -> str:
     return TITLES.get(column, column.replace("_", " ").capitalize())
 

@@ -273,6 +273,78 @@ def surface_contours(
     return pl.concat(parts)
 
 
+def money_text(v: float) -> str:
+    """A contour level as a short money label in thousands or millions ('-1.5 M', '250 k', '40')."""
+    a = abs(v)
+    if a >= 1e6:
+        return f"{v / 1e6:,.4g} M"
+    if a >= 1e3:
+        return f"{v / 1e3:,.4g} k"
+    return f"{v:,.4g}" if v else "0"
+
+
+def place_contour_labels(contours: pl.DataFrame, *, x_span: float, y_span: float,
+                         min_gap: float = 0.14) -> pl.DataFrame:
+    """One label per contour line where it keeps clear of the others, so labels never pile up.
+
+    Greedy placement, common practice for map labels: lines are taken longest first; on each line
+    the vertex farthest from the labels already placed (distance measured in plot fractions, x over
+    ``x_span`` and y over ``y_span``) gets the label, if that distance is at least ``min_gap``;
+    otherwise the line stays unlabelled (its level is in the tooltip). Vertices in the outer 4 % of
+    the plot are not used, so labels are not clipped at the edges.
+
+    Parameters
+    ----------
+    contours : polars.DataFrame
+        Columns ``level``, ``line``, ``point``, ``x``, ``y`` (from :func:`contour_lines`).
+    x_span, y_span : float
+        Plot ranges of the two axes [axis units], > 0.
+    min_gap : float
+        Least distance between two labels [fraction of the plot].
+
+    Returns
+    -------
+    polars.DataFrame
+        Columns ``level``, ``line``, ``x``, ``y``, ``text``; any two rows at least ``min_gap`` apart.
+
+    Examples
+    --------
+    >>> c = pl.DataFrame({"level": [0.0, 0.0, 1.0, 1.0], "line": [0, 0, 1, 1], "point": [0, 1, 0, 1],
+    ...                   "x": [0.5, 0.5, 0.51, 0.51], "y": [0.2, 0.8, 0.2, 0.8]})
+    >>> place_contour_labels(c, x_span=1.0, y_span=1.0).height
+    2
+    """
+    empty = pl.DataFrame(schema={"level": pl.Float64, "line": pl.Int64, "x": pl.Float64,
+                                 "y": pl.Float64, "text": pl.String})
+    if contours.height == 0 or x_span <= 0 or y_span <= 0:
+        return empty
+    x0, y0 = float(contours["x"].min()), float(contours["y"].min())
+    placed: list[tuple[float, float]] = []
+    rows = []
+    lines = contours.group_by("line", maintain_order=True).agg(
+        pl.col("level").first(), pl.col("x"), pl.col("y"), pl.len().alias("n")).sort(["n", "line"], descending=[True, False])
+    for line, level, xs, ys, _n in lines.iter_rows():
+        u = (np.asarray(xs, dtype=float) - x0) / x_span
+        w = (np.asarray(ys, dtype=float) - y0) / y_span
+        inner = (u > 0.04) & (u < 0.96) & (w > 0.04) & (w < 0.96)
+        if not inner.any():
+            inner = np.ones_like(u, dtype=bool)
+        if not placed:
+            candidates = np.flatnonzero(inner)
+            k = int(candidates[candidates.size // 2])
+        else:
+            p = np.asarray(placed)
+            d = np.min(np.hypot(u[:, None] - p[None, :, 0], w[:, None] - p[None, :, 1]), axis=1)
+            d = np.where(inner, d, -1.0)
+            k = int(np.argmax(d))
+            if d[k] < min_gap:
+                continue
+        placed.append((u[k], w[k]))
+        rows.append({"level": float(level), "line": int(line), "x": float(xs[k]), "y": float(ys[k]),
+                     "text": money_text(float(level))})
+    return pl.DataFrame(rows, schema=empty.schema) if rows else empty
+
+
 def contour_label_points(contours: pl.DataFrame, keys: Sequence[str]) -> pl.DataFrame:
     mid = contours.group_by("line").agg(pl.col("point").max().alias("_n"))
     labelled = contours.join(mid, on="line").filter(pl.col("point") == pl.col("_n") // 2)

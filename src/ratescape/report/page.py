@@ -57,6 +57,12 @@ class Section:
     notes: list[str] = field(default_factory=list)
     chart_kind: str | None = None
     subject: str | None = None
+    #: id of the section element, for links from the decision brief
+    anchor: str | None = None
+    #: HTML made by the report's own code (every user string in it escaped), shown after the text
+    html: str | None = None
+    #: one-line reading guide shown under the chart
+    guide: str | None = None
 
 
 @functools.lru_cache(maxsize=1)
@@ -85,6 +91,11 @@ th{background:#f2f2f2}td.num{text-align:right;font-variant-numeric:tabular-nums}
 .unavailable{color:#555;font-style:italic}.chart{margin:1em 0;overflow-x:auto}
 .meta{color:#555;font-size:.9em}#render-status{display:none}
 .noscript{border:1px solid #999;padding:.5em}
+.guide{color:#333;font-size:.9em;margin-top:-.4em}.brief li{margin:.3em 0}
+.controls label{margin-right:1.2em}.controls select{font-size:1em}
+.warn{background:#fff4ec;border:1px solid #D55E00;padding:0 .4em}
+.scroll{max-height:28em;overflow-y:auto}#search-results button{font-size:.95em;margin:.1em 0}
+details.raw{margin:1em 0}
 """
 
 
@@ -146,10 +157,11 @@ _RENDER = """
 
 
 _RATE_COLS = {"discount_rate", "real_rate", "inflation", "irr_nominal", "irr_real", "marr",
-              "inflation_low_max", "inflation_high_min"}
+              "inflation_low_max", "inflation_high_min", "lowest_failing_inflation"}
 
 
-_SHARE_COLS = {"accept_share", "share_low", "share_high", "drop", "selected_share", "gap"}
+_SHARE_COLS = {"accept_share", "share_low", "share_high", "drop", "selected_share", "gap",
+               "accept_share_at_or_below", "accept_share_above", "accept_share_before", "accept_share_after"}
 
 
 _MONEY_COLS = {"pw_base", "pw_min", "pw_max", "pw_mean", "present_worth", "objective",
@@ -167,6 +179,14 @@ _HEADERS = {
     "statistic": "Statistic", "objective": "Portfolio present worth (optimum)",
     "lp_bound": "Upper bound (LP relaxation)", "greedy_objective": "Profitability-index greedy",
     "gap": "Greedy shortfall",
+    "accept_share_at_or_below": "Share accepted, inflation at or below the threshold",
+    "accept_share_above": "Share accepted, inflation above the threshold",
+    "lowest_failing_inflation": "Lowest inflation at which it fails",
+    "accept_share_before": "Share accepted, before", "accept_share_after": "Share accepted, now",
+    "rank_median_before": "Median rank, before", "rank_median_after": "Median rank, now",
+    "core_before": "In the core portfolio, before", "core_after": "In the core portfolio, now",
+    "group_preferred_before": "Group's preferred alternative, before",
+    "group_preferred_after": "Group's preferred alternative, now", "why": "Why (from the stored inputs)",
 }
 
 
@@ -216,6 +236,8 @@ def build_report_html(
     metadata: Mapping[str, Any] | Sequence[tuple[str, Any]] | None = None,
     caution: str = CAUTION,
     subtitle: str | None = None,
+    data_blocks: Sequence[str] = (),
+    scripts: Sequence[str] = (),
 ) -> str:
     """Assemble the self-contained offline HTML report.
 
@@ -230,6 +252,10 @@ def build_report_html(
     caution : str
         The screening caution shown prominently under the title.
     subtitle : str, optional
+    data_blocks : sequence of str
+        ``<script type="application/json">`` elements from :func:`json_script_block`.
+    scripts : sequence of str
+        Page scripts run after the charts' render script (checked by :func:`check_inline_script`).
 
     Returns
     -------
@@ -249,8 +275,11 @@ def build_report_html(
     chart_no = 0
     for sec in sections:
         h = max(2, min(int(sec.level), 4))
-        parts.append(f"<section><h{h}>{escape_html(sec.title)}</h{h}>")
+        anchor = f' id="{escape_html(sec.anchor)}"' if sec.anchor else ""
+        parts.append(f"<section{anchor}><h{h}>{escape_html(sec.title)}</h{h}>")
         parts.append(paragraphs(sec.text))
+        if sec.html:
+            parts.append(sec.html)
         if sec.unavailable:
             parts.append(f'<p class="unavailable">{escape_html(sec.unavailable)}</p>')
         else:
@@ -264,6 +293,8 @@ def build_report_html(
                 cid = f"chart-{chart_no}"
                 spec = sec.chart.to_dict() if hasattr(sec.chart, "to_dict") else dict(sec.chart)
                 parts.append(f'<div class="chart" id="{cid}"></div>')
+                if sec.guide:
+                    parts.append(f'<p class="guide">{escape_html(sec.guide)}</p>')
                 specs.append(json_script_block(spec, f"spec-{chart_no}", chart=cid))
         parts.append(paragraphs(sec.notes))
         parts.append("</section>")
@@ -274,7 +305,8 @@ def build_report_html(
             f"<tr><th>{escape_html(k)}</th><td>{escape_html(format_cell('', v)[0] if not isinstance(v, str) else v)}</td></tr>"
             for k, v in items
         )
-        meta_html = f"<h2>Run and assumptions</h2><table>{rows}</table>"
+        meta_html = (f"<details class=\"raw\"><summary>Raw settings of the run</summary>"
+                     f"<table>{rows}</table></details>")
     sub = f'<p class="meta">{escape_html(subtitle)}</p>' if subtitle else ""
     return "".join([
         "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">",
@@ -287,11 +319,13 @@ def build_report_html(
         f"<h1>{escape_html(title)}</h1>{sub}",
         f'<p class="caution" role="note">{escape_html(caution)}</p>',
         '<noscript><p class="noscript">The charts need JavaScript; the tables below do not.</p></noscript>',
-        meta_html,
         *parts,
+        meta_html,
         *specs,
+        *data_blocks,
         '<pre id="render-status" data-state="pending"></pre>',
         f"<script>{check_inline_script(_RENDER)}</script>",
+        *(f"<script>{check_inline_script(js)}</script>" for js in scripts),
         "</body></html>\n",
     ])
 

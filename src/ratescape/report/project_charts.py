@@ -14,6 +14,11 @@ import polars as pl
 from ratescape.report.chart_style import (
     CATEGORY_COLOURS,
     MAX_CHART_ROWS,
+    MONEY_LABEL_EXPR,
+    WORTH_ABOVE,
+    WORTH_BELOW,
+    WORTH_ZERO,
+    clipped_worth_domain,
     SEQUENTIAL_SCHEME,
     add_cell_edges,
     axis_format,
@@ -25,9 +30,8 @@ from ratescape.report.chart_style import (
     short_label,
     slider_param,
     with_project_label,
-    worth_colour_scale,
 )
-from ratescape.report.contours import contour_label_points, surface_contours
+from ratescape.report.contours import contour_label_points, place_contour_labels, surface_contours
 
 
 def worth_curve(
@@ -107,7 +111,7 @@ def worth_curve(
         base = base.transform_filter(alt.datum.project_id == project)
     lines = base.mark_line(strokeWidth=2).encode(
         x=x_enc,
-        y=alt.Y(f"{measure}:Q", title=axis_title(measure), axis=alt.Axis(format="~s")),
+        y=alt.Y(f"{measure}:Q", title=axis_title(measure), axis=alt.Axis(labelExpr=MONEY_LABEL_EXPR)),
         color=colour,
         detail=alt.Detail(f"{series}:N"),
         opacity=alt.when(hover).then(alt.value(1.0)).otherwise(alt.value(0.35)),
@@ -219,8 +223,12 @@ def worth_surface(
     if slider is not None:
         param, filt = slider_param(frame, slider, axis_title(slider))
         params.append(param)
-    colour = alt.Color(f"{value}:Q", title=axis_title(value), scale=worth_colour_scale(frame[value]),
-                       legend=alt.Legend(format="~s"))
+    # symmetric about zero, clipped at the 2nd-98th percentile (chart_style.clipped_worth_domain)
+    clip, _beyond = clipped_worth_domain(frame[value].cast(pl.Float64).to_numpy())
+    colour = alt.Color(f"{value}:Q", title=f"{axis_title(value)} (colour clipped at ±{clip:,.0f})",
+                       scale=alt.Scale(type="linear", domain=[-clip, 0.0, clip], clamp=True,
+                                       range=[WORTH_BELOW, WORTH_ZERO, WORTH_ABOVE]),
+                       legend=alt.Legend(labelExpr=MONEY_LABEL_EXPR))
     rect = alt.Chart(inline_values(cells, "worth_surface", max_rows)).mark_rect().encode(
         x=alt.X(f"{x}_lo:Q", title=axis_title(x), axis=alt.Axis(format=axis_format(x)),
                 scale=alt.Scale(nice=False, zero=False)),
@@ -241,7 +249,12 @@ def worth_surface(
         x="x:Q", y="y:Q", detail="line:N", order="point:Q",
         tooltip=[alt.Tooltip("level:Q", title=f"{axis_title(value)} on this line", format=",.2f")],
     )
-    labels = alt.Chart(inline_values(contour_label_points(line_data, keys), "worth_surface", max_rows)).mark_text(
+    if keys:
+        label_data = contour_label_points(line_data, keys)
+    else:   # one label per line where it keeps clear of the others
+        span = [float(frame[c].max() - frame[c].min()) or 1.0 for c in (x, y)]
+        label_data = place_contour_labels(line_data, x_span=span[0], y_span=span[1])
+    labels = alt.Chart(inline_values(label_data, "worth_surface", max_rows)).mark_text(
         fontSize=10, fontWeight="bold", color="#1a1a1a", dy=-6).encode(
         x="x:Q", y="y:Q", text="text:N")
     if filt is not None:
@@ -396,7 +409,7 @@ def tornado(
         base = base.transform_filter(alt.datum.project_id == project)
     y = alt.Y("input:N", title="Input", sort=alt.EncodingSortField(field="swing", op="max", order="descending"))
     bars = base.mark_bar(opacity=0.9).encode(
-        x=alt.X("base_worth:Q", title="Present worth", axis=alt.Axis(format="~s")),
+        x=alt.X("base_worth:Q", title="Present worth", axis=alt.Axis(labelExpr=MONEY_LABEL_EXPR)),
         x2="worth:Q",
         y=y,
         color=alt.Color("setting:N", title="",
@@ -464,7 +477,7 @@ def spider(
         base = base.transform_filter(alt.datum.project_id == project)
     lines = base.mark_line(point=True, strokeWidth=2).encode(
         x=alt.X("pct_change:Q", title=axis_title("pct_change"), axis=alt.Axis(format="+%")),
-        y=alt.Y("present_worth:Q", title="Present worth", axis=alt.Axis(format="~s")),
+        y=alt.Y("present_worth:Q", title="Present worth", axis=alt.Axis(labelExpr=MONEY_LABEL_EXPR)),
         color=alt.Color("input:N", title="Input", scale=alt.Scale(domain=inputs, range=palette)),
         opacity=alt.when(pick).then(alt.value(1.0)).otherwise(alt.value(0.2)),
         tooltip=[alt.Tooltip("label:N", title="Project"), alt.Tooltip("input:N", title="Input"),

@@ -8,6 +8,8 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from ratescape.report import charts
+from ratescape.report.escaping import json_script_block
+from ratescape.report.explorer_script import EXPLORER_JS
 from ratescape.report.page import build_report_html
 from ratescape.report.run_data import ReportError, RunContext, pick_run
 from ratescape.report.sections import (
@@ -29,6 +31,7 @@ def write_report(
     projects: Sequence[str] | None = None,
     *,
     top_n: int = 25,
+    compare_to: str | None = None,
 ) -> Path:
     """Write the offline HTML report of one run.
 
@@ -45,6 +48,8 @@ def write_report(
         :data:`MAX_DRILL_PROJECTS`).
     top_n : int
         Rows of each headline table.
+    compare_to : str, optional
+        An earlier run of the same database: adds the section "What changed since run X".
 
     Returns
     -------
@@ -67,12 +72,15 @@ def write_report(
         raise ReportError(f"no database at {db}; create one with `ratescape load` and `ratescape screen`")
     con = connect_read(db)
     try:
-        title, meta, sections = report_sections(con, run_id, projects, top_n=top_n)
+        parts = report_sections(con, run_id, projects, top_n=top_n, compare_to=compare_to)
     finally:
         con.close()
     stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
-    page = build_report_html(sections, title=title, metadata=meta,
-                             subtitle=f"Written {stamp} from {db.name}.")
+    page = build_report_html(parts.sections, title=parts.title,
+                             subtitle=f"Written {stamp} from {db.name}.",
+                             data_blocks=[json_script_block(parts.explorer, "explorer-data"),
+                                          json_script_block(parts.templates, "drill-templates")],
+                             scripts=[EXPLORER_JS])
     out = Path(out_path)
     # write next to the target and rename: an interrupted write never leaves a partial page
     tmp = out.with_name(f".{out.name}.{os.getpid()}.tmp")

@@ -11,8 +11,8 @@ import polars as pl
 
 from ratescape.errors import RatescapeError
 
-#: Statuses of ``runs.status`` that count as a finished run.
-FINISHED_STATUSES = ("finished", "complete", "completed", "done")
+#: The one status ``runs.status`` holds for a finished run (written by ``run/screen.py``).
+DONE_STATUS = "done"
 
 
 class ReportError(RatescapeError, ValueError):
@@ -42,10 +42,9 @@ def quote_ident(name: str) -> str:
 
 def pick_run(con: duckdb.DuckDBPyConnection, run_id: str | None) -> dict[str, Any]:
     if run_id is None:
-        statuses = ", ".join(f"'{s}'" for s in FINISHED_STATUSES)
         row = con.execute(
-            f"SELECT run_id FROM runs WHERE lower(status) IN ({statuses}) "
-            "ORDER BY finished_at DESC NULLS LAST, started_at DESC NULLS LAST LIMIT 1").fetchall()
+            "SELECT run_id FROM runs WHERE status = ? "
+            "ORDER BY finished_at DESC NULLS LAST, started_at DESC NULLS LAST LIMIT 1", [DONE_STATUS]).fetchall()
         if not row:
             seen = con.execute("SELECT run_id, status FROM runs ORDER BY started_at").fetchall()
             raise ReportError(
@@ -57,7 +56,11 @@ def pick_run(con: duckdb.DuckDBPyConnection, run_id: str | None) -> dict[str, An
     if frame.height == 0:
         known = [r[0] for r in con.execute("SELECT run_id FROM runs ORDER BY started_at").fetchall()]
         raise ReportError(f"no run {run_id!r} in the database; known runs: {known or 'none'}")
-    return frame.row(0, named=True)
+    run = frame.row(0, named=True)
+    if run["status"] != DONE_STATUS:
+        raise ReportError(f"run {run_id!r} is {run['status']!r}, not finished; finish it with "
+                          f"`ratescape screen --resume {run_id}` or pick a finished run with --run")
+    return run
 
 
 def thin_levels(levels: list[float], keep: int) -> list[float]:
@@ -153,3 +156,16 @@ def project_table(ctx: RunContext, where: str, order: str, columns: str, params:
     count = ctx.con.execute(f"SELECT count(*) {base}", [ctx.run_id, *params]).fetchall()[0][0]
     frame = query_frame(ctx.con, f"SELECT {columns} {base} ORDER BY {order} LIMIT ?", [ctx.run_id, *params, limit])
     return frame, count
+
+
+def bundled_sql(name: str) -> str:
+    """Text of a bundled query file (``queries/NAME.sql``), so the report and ``ratescape query`` share
+    one definition (e.g. of failing under high inflation)."""
+    from pathlib import Path
+
+    here = Path(__file__).resolve().parents[1]
+    for folder in (here / "_queries", here.parents[1] / "queries"):
+        path = folder / f"{name}.sql"
+        if path.is_file():
+            return path.read_text(encoding="utf-8")
+    raise ReportError(f"the bundled query {name!r} is missing from this installation")

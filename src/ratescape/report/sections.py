@@ -12,6 +12,19 @@ import duckdb
 import polars as pl
 
 from ratescape.report import charts
+from ratescape.report.brief import (
+    assumptions_section,
+    brief_section,
+    budget_facts,
+    fail_threshold,
+    fails_definition,
+    fails_under_high_inflation,
+    group_changes,
+)
+from ratescape.report.chart_style import INPUT_LABELS
+from ratescape.report.drill_charts import drill_templates
+from ratescape.report.explorer import explorer_data
+from ratescape.report.explorer_script import explorer_html, search_html
 from ratescape.report.page import Section
 from ratescape.report.run_data import (
     ReportError,
@@ -38,7 +51,7 @@ MAX_CURVE_LINES = 11
 
 
 #: Most mutually exclusive groups drawn as decision maps.
-MAX_GROUPS = 4
+MAX_GROUPS = 8
 
 
 NO_BUDGET = "Not available: this run has no budget-limited portfolios."
@@ -120,43 +133,27 @@ def _headline_sections(ctx: RunContext, top_n: int) -> tuple[list[Section], list
         "Accepted in every scenario",
         f"{n_acc:,} of {ctx.project_count:,} projects have present worth of at least zero in every "
         f"scenario of the grid. Shown: the {min(top_n, n_acc):,} with the highest base present worth.",
-        table=acc))
+        table=acc, anchor="accepted-everywhere"))
     suggest += acc["project_id"].head(1).to_list()
 
     levels = ctx.levels("inflation")
-    if len(levels) < 2:
-        secs.append(Section("Fails under high inflation",
+    threshold = fail_threshold(levels)
+    if threshold is None:
+        secs.append(Section("Fails under high inflation", anchor="fails-high-inflation",
                             unavailable="Not available: the run has a single inflation level."))
     else:
-        k = max(1, len(levels) // 4)
-        low_max, high_min = levels[k - 1], levels[-k]
-        sql = """
-            WITH s AS (
-                SELECT scenario_id,
-                       CASE WHEN inflation <= ? THEN 'low' WHEN inflation >= ? THEN 'high' END AS band
-                FROM scenarios WHERE run_id = ?),
-            agg AS (
-                SELECT r.project_id,
-                       avg(CASE WHEN s.band = 'low' THEN CAST(r.accepted AS INTEGER) END) AS share_low,
-                       avg(CASE WHEN s.band = 'high' THEN CAST(r.accepted AS INTEGER) END) AS share_high
-                FROM {rows} r JOIN s ON s.scenario_id = r.scenario_id
-                WHERE s.band IS NOT NULL
-                GROUP BY r.project_id),
-            hit AS (SELECT *, share_low - share_high AS drop FROM agg WHERE share_low - share_high >= 0.25)
-            SELECT hit.project_id, p.name, hit.share_low, hit.share_high, hit.drop,
-                   count(*) OVER () AS total
-            FROM hit LEFT JOIN projects p ON p.project_id = hit.project_id
-            ORDER BY hit.drop DESC, hit.share_low DESC, hit.project_id LIMIT ?"""
-        rows, rows_params = ctx.rows()
-        frame = query_frame(ctx.con, sql.replace("{rows}", rows), [low_max, high_min, ctx.run_id, *rows_params, top_n])
-        total = int(frame["total"][0]) if frame.height else 0
+        fails = fails_under_high_inflation(ctx, threshold)
+        total = fails.height
         secs.append(Section(
             "Fails under high inflation",
-            f"{total:,} project{'' if total == 1 else 's'} {'is' if total == 1 else 'are'} accepted in a share of scenarios at least 25 points lower when "
-            f"inflation is high (at or above {high_min:.2%}) than when it is low (at or below "
-            f"{low_max:.2%}), over the same discount rates. Shown: the {min(top_n, total):,} largest drops.",
-            table=frame.drop("total")))
-        suggest += frame["project_id"].head(1).to_list()
+            [fails_definition(threshold),
+             f"{total:,} project{'' if total == 1 else 's'} meet{'s' if total == 1 else ''} it. Shown: the "
+             f"{min(top_n, total):,} largest falls. The same list: ratescape query --db DB fails-above-inflation "
+             f"--param threshold={threshold:g}."],
+            table=fails.select("project_id", "name", "accept_share_at_or_below", "accept_share_above",
+                               "lowest_failing_inflation").head(top_n),
+            anchor="fails-high-inflation"))
+        suggest += fails["project_id"].head(1).to_list()
 
     movers, _ = project_table(
         ctx, "ps.rank_max IS NOT NULL",
@@ -191,7 +188,7 @@ def _headline_sections(ctx: RunContext, top_n: int) -> tuple[list[Section], list
                 "Core portfolio",
                 f"{n_core:,} projects are in the budget-limited portfolio in every one of the "
                 f"{n_port:,} scenarios. Shown: the {core.height:,} projects selected most often.",
-                table=core.drop("core_total")))
+                table=core.drop("core_total"), anchor="core-portfolio"))
     else:
         secs.append(Section("Core portfolio", unavailable=NO_BUDGET))
     if "portfolios" in ctx.tables:
@@ -209,7 +206,7 @@ def _headline_sections(ctx: RunContext, top_n: int) -> tuple[list[Section], list
                 "Budget-limited portfolio across scenarios",
                 "Total present worth of the optimal portfolio (0-1 integer program), its "
                 "LP-relaxation bound and the profitability-index greedy answer, over all scenarios.",
-                table=pl.DataFrame(stat_rows, infer_schema_length=None)))
+                table=pl.DataFrame(stat_rows, infer_schema_length=None), anchor="budget"))
     return secs, suggest
 
 
@@ -239,14 +236,24 @@ def _drill_projects(ctx: RunContext, projects: Sequence[str] | None, suggested: 
 def _portfolio_chart_sections(ctx: RunContext, top_n: int) -> list[Section]:
     secs = []
     top = query_frame(ctx.con, """
-        SELECT ps.project_id, p.name, ps.accept_share FROM project_summary ps
-        LEFT JOIN projects p ON p.project_id = ps.project_id WHERE ps.run_id = ?
+        SELECT ps.project_id, p.name, ps.accept_share, count(*) OVER () AS total FROM project_summary ps
+        LEFT JOIN projects p ON p.project_id = ps.project_id
+        WHERE ps.run_id = ? AND ps.accept_share > 0 AND ps.accept_share < 1
         ORDER BY ps.accept_share DESC NULLS LAST, ps.pw_base DESC NULLS LAST, ps.project_id LIMIT ?""",
              [ctx.run_id, top_n])
-    secs.append(Section("Acceptance share by project",
-                        f"The {top.height:,} projects accepted in the largest share of scenarios "
-                        f"(of {ctx.project_count:,}).",
-                        chart=charts.acceptance_share_bars(top), chart_kind="acceptance-share"))
+    n_dep = int(top["total"][0]) if top.height else 0
+    if top.height:
+        secs.append(Section("Projects whose decision depends on the scenario",
+                            f"{n_dep:,} of {ctx.project_count:,} projects are accepted in some scenarios and "
+                            f"not in others; shown: {top.height:,} of them. Projects accepted everywhere or "
+                            "nowhere are counted in the decision brief, not drawn.",
+                            chart=charts.acceptance_share_bars(top.drop("total")), chart_kind="acceptance-share",
+                            guide="Read: a long bar is accepted in most scenarios; a short one only in a few. "
+                                  "The scenario explorer shows which.", anchor="scenario-dependent"))
+    else:
+        secs.append(Section("Projects whose decision depends on the scenario", chart_kind="acceptance-share",
+                            unavailable="No project's decision depends on the scenario: each is accepted "
+                                        "everywhere or nowhere."))
     if ctx.narrow:   # aggregate by scenario key, on the narrow rows alone
         by_scen = query_frame(ctx.con, f"""
             WITH a AS (SELECT x.scenario_key, avg(CAST(x.present_worth >= 0 AS INTEGER)) AS accept_share
@@ -268,7 +275,9 @@ def _portfolio_chart_sections(ctx: RunContext, top_n: int) -> list[Section]:
     secs.append(Section("Acceptance against inflation",
                         "Share of all projects accepted, by inflation, one line per discount rate.",
                         chart=charts.acceptance_vs_inflation(by_scen, series=ctx.x),
-                        chart_kind="acceptance-vs-inflation"))
+                        chart_kind="acceptance-vs-inflation",
+                        guide="Read: a falling line means fewer projects pass as inflation rises at that "
+                              "discount rate; hover a line to pick it out."))
     ranks = query_frame(ctx.con, """
         SELECT ps.project_id, p.name, ps.rank_min, ps.rank_median, ps.rank_max, ps.rank_base
         FROM project_summary ps LEFT JOIN projects p ON p.project_id = ps.project_id
@@ -276,7 +285,9 @@ def _portfolio_chart_sections(ctx: RunContext, top_n: int) -> list[Section]:
         ORDER BY ps.rank_median, ps.project_id LIMIT ?""", [ctx.run_id, top_n])
     secs.append(Section("Rank stability",
                         f"Best, median and worst rank of the {ranks.height:,} projects with the best median rank.",
-                        chart=charts.rank_intervals(ranks), chart_kind="rank-stability"))
+                        chart=charts.rank_intervals(ranks), chart_kind="rank-stability",
+                        guide="Read: a short bar is a project whose place in the ranking hardly moves; a long "
+                              "bar one whose place depends on the scenario."))
     if "selections" in ctx.tables:
         n_port = ctx.con.execute(
             "SELECT count(DISTINCT scenario_id) FROM portfolios WHERE run_id = ?" if "portfolios" in ctx.tables
@@ -290,7 +301,9 @@ def _portfolio_chart_sections(ctx: RunContext, top_n: int) -> list[Section]:
                 WHERE s.run_id = ? GROUP BY s.project_id, p.name
                 ORDER BY selected_share DESC, s.project_id LIMIT ?""", [n_port, ctx.run_id, top_n])
             secs.append(Section("Selection share in the budget-limited portfolio",
-                                chart=charts.selection_share_bars(sel), chart_kind="selection-share"))
+                                chart=charts.selection_share_bars(sel), chart_kind="selection-share",
+                                guide="Read: a full bar is in the best affordable portfolio in every scenario "
+                                      "(the core); shorter bars only in some."))
     else:
         secs.append(Section("Selection share in the budget-limited portfolio", unavailable=NO_BUDGET, chart_kind="selection-share"))
     return secs
@@ -366,26 +379,31 @@ def _drill_sections(ctx: RunContext, ids: list[str]) -> list[Section]:
 def _decision_sections(ctx: RunContext, ids: list[str]) -> list[Section]:
     title = "Decision maps for mutually exclusive alternatives"
     if "group_decisions" not in ctx.tables:
-        return [Section(title, unavailable=NO_GROUPS)]
+        return [Section(title, unavailable=NO_GROUPS, anchor="decision-maps")]
     groups = [r[0] for r in ctx.con.execute("""
-        SELECT g.group_name FROM (SELECT DISTINCT group_name FROM group_decisions WHERE run_id = ?) g
-        ORDER BY (SELECT count(*) FROM projects p WHERE p.group_name = g.group_name
+        SELECT g.group_name FROM (SELECT group_name, count(DISTINCT preferred) AS k FROM group_decisions
+                                  WHERE run_id = ? GROUP BY group_name) g
+        ORDER BY g.k > 1 DESC, (SELECT count(*) FROM projects p WHERE p.group_name = g.group_name
                   AND list_contains(?, p.project_id)) DESC, g.group_name LIMIT ?""",
         [ctx.run_id, ids, MAX_GROUPS]).fetchall()]
     if not groups:
-        return [Section(title, unavailable=NO_GROUPS)]
+        return [Section(title, unavailable=NO_GROUPS, anchor="decision-maps")]
     x, y = ctx.x, ctx.y
     keep = max(2, int(math.sqrt(MAX_SURFACE_POINTS)))
     sx, sy = thin_levels(ctx.levels(x), keep), thin_levels(ctx.levels(y), keep)
     gcols = set(column_names(ctx.con, "group_decisions"))
     runner = "g.runner_up" if "runner_up" in gcols else "NULL"
-    secs = [Section(title, "Each cell is coloured by the alternative with the highest present worth; "
+    secs = [Section(title, anchor="decision-maps", text="Each cell is coloured by the alternative with the highest present worth; "
                            "the black line is the indifference frontier, found by root finding; "
                            "hover for the margin over the runner-up. Click a legend entry to highlight it.")]
     for group in groups:
         cells = query_frame(ctx.con, f"""
-            SELECT s.{quote_ident(x)} AS {quote_ident(x)}, s.inflation AS inflation, g.preferred, {runner} AS runner_up, g.margin
+            SELECT s.{quote_ident(x)} AS {quote_ident(x)}, s.inflation AS inflation,
+                   coalesce(pa.name || ' (' || g.preferred || ')', g.preferred) AS preferred,
+                   coalesce(pb.name || ' (' || {runner} || ')', {runner}) AS runner_up, g.margin
             FROM group_decisions g JOIN scenarios s ON s.run_id = g.run_id AND s.scenario_id = g.scenario_id
+            LEFT JOIN projects pa ON pa.project_id = g.preferred
+            LEFT JOIN projects pb ON pb.project_id = {runner}
             WHERE g.run_id = ? AND g.group_name = ? AND list_contains(?, s.{quote_ident(x)})
               AND list_contains(?, s.inflation) AND {ctx.plane_filter}""",
                    [ctx.run_id, group, sx, sy, *ctx.plane_params])
@@ -408,6 +426,8 @@ def _decision_sections(ctx: RunContext, ids: list[str]) -> list[Section]:
         secs.append(Section(f"Group {group}", level=3, notes=note,
                             chart=charts.decision_map(cells, frontier, x=x, y=y,
                                                       title=f"Preferred alternative in group {group}"),
+                            guide="Read: each colour is the alternative worth most in those scenarios; crossing "
+                                  "a black line changes the preferred choice.",
                             chart_kind="decision-map", subject=group))
     return secs
 
@@ -434,6 +454,10 @@ def _sensitivity_sections(ctx: RunContext, ids: list[str]) -> list[Section]:
                 WHERE t.run_id = ? AND list_contains(?, t.project_id)
                 ORDER BY t.project_id, t.input, t.{change}""", [ctx.run_id, ids])
             break
+    if tor is not None:
+        tor = tor.with_columns(pl.col("input").replace(INPUT_LABELS))
+    if sp is not None:
+        sp = sp.with_columns(pl.col("input").replace(INPUT_LABELS))
     have_tor = tor is not None and tor.height > 0
     have_sp = sp is not None and sp.height > 0
     if not have_tor and not have_sp:
@@ -447,13 +471,24 @@ def _sensitivity_sections(ctx: RunContext, ids: list[str]) -> list[Section]:
     return secs
 
 
+class ReportParts:
+    """What :func:`report_sections` gives the page: title, sections, and the explorer's data."""
+
+    def __init__(self, title: str, sections: list[Section], explorer: dict[str, Any], templates: dict[str, Any]):
+        self.title = title
+        self.sections = sections
+        self.explorer = explorer
+        self.templates = templates
+
+
 def report_sections(
     con: duckdb.DuckDBPyConnection,
     run_id: str | None = None,
     projects: Sequence[str] | None = None,
     *,
     top_n: int = 25,
-) -> tuple[str, list[tuple[str, Any]], list[Section]]:
+    compare_to: str | None = None,
+) -> ReportParts:
     """Query an open results database and build the report's parts.
 
     Parameters
@@ -463,14 +498,15 @@ def report_sections(
     run_id : str, optional
         Defaults to the latest finished run.
     projects : sequence of str, optional
-        Project ids to drill into (at most :data:`MAX_DRILL_PROJECTS`);
-        by default the leading project of each headline table.
+        Project ids always embedded with their drill-down (the first opens on load).
     top_n : int
         Rows of each headline table and bars of each portfolio chart.
+    compare_to : str, optional
+        An earlier run of the same database: adds "What changed since run X".
 
     Returns
     -------
-    (title, metadata, sections)
+    ReportParts
 
     Raises
     ------
@@ -478,6 +514,8 @@ def report_sections(
         When a required table is missing, the run does not exist or is not
         finished, or a requested project is not in the run.
     """
+    from ratescape.report.changes import changes_sections
+
     if top_n < 1:
         raise ReportError(f"top_n must be at least 1, got {top_n}")
     present = table_names(con)
@@ -485,19 +523,52 @@ def report_sections(
     if missing:
         raise ReportError(f"the database lacks table(s) {missing}; run `ratescape screen` on it first")
     ctx = RunContext(con, pick_run(con, run_id))
+    named = _named_projects(ctx, projects)
     headline, suggested = _headline_sections(ctx, top_n)
-    ids = _drill_projects(ctx, projects, suggested)
+    counts = dict(zip(("every", "none", "some"), con.execute(
+        "SELECT count(*) FILTER (WHERE accept_share >= 1), count(*) FILTER (WHERE accept_share <= 0), "
+        "count(*) FILTER (WHERE accept_share > 0 AND accept_share < 1) FROM project_summary WHERE run_id = ?",
+        [ctx.run_id]).fetchall()[0]))
+    threshold = fail_threshold(ctx.levels("inflation"))
+    fails = fails_under_high_inflation(ctx, threshold) if threshold is not None else None
+    data = explorer_data(ctx, named, suggested)
+    first = named[:1] or suggested[:1]
+    ids = data["pr"]["id"]
+    data["first"] = ids.index(first[0]) if first and first[0] in ids else (0 if ids else None)
+    embedded = ("Every project is in this file: its row in the explorer and its drill-down." if data["full"] else
+                f"This file embeds the drill-down of {len(data['pw']):,} of {ctx.project_count:,} projects "
+                "(rule in the project search); the database holds every result.")
+    compare = changes_sections(ctx, compare_to) if compare_to else []
     sections = [
-        Section("Headlines", "Tables list the leading projects only; the database holds every result."),
+        brief_section(ctx, counts=counts, budget=budget_facts(ctx), groups=group_changes(ctx), fails=fails,
+                      threshold=threshold, embedded_note=embedded),
+        assumptions_section(ctx, run_metadata(ctx)),
+        Section("Scenario explorer", anchor="explorer",
+                text="Choose a scenario; the table, the count of accepted projects and the portfolio's worth "
+                     "follow, in this page, with no network.",
+                html=explorer_html(data, x=ctx.x)),
+        Section("Project search and drill-down", anchor="search", html=search_html(data)),
+        *compare,
+        Section("Headlines", "Tables list the leading projects only; the database holds every result.",
+                anchor="headlines"),
         *headline,
         Section("Portfolio charts"),
         *_portfolio_chart_sections(ctx, top_n),
-        Section("Drill-down projects",
-                "Projects chosen " + ("by the reader." if projects is not None else
-                                      "automatically: the leading project of each headline table.")),
-        *_drill_sections(ctx, ids),
-        *_decision_sections(ctx, ids),
-        *_sensitivity_sections(ctx, ids),
+        *_decision_sections(ctx, named or suggested),
     ]
     title = f"ratescape screening report: run {ctx.run_id}"
-    return title, run_metadata(ctx), sections
+    return ReportParts(title, sections, data, drill_templates(ctx.x))
+
+
+def _named_projects(ctx: RunContext, projects: Sequence[str] | None) -> list[str]:
+    if projects is None:
+        return []
+    ids = list(dict.fromkeys(str(p) for p in projects))
+    found = {r[0] for r in ctx.con.execute(
+        "SELECT project_id FROM project_summary WHERE run_id = ? AND list_contains(?, project_id)",
+        [ctx.run_id, ids]).fetchall()}
+    missing = [p for p in ids if p not in found]
+    if missing:
+        raise ReportError(f"project(s) {missing} are not in run {ctx.run_id!r}; "
+                          "check the ids with `ratescape query`.")
+    return ids

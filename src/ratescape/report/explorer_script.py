@@ -1,0 +1,258 @@
+"""The page script of the scenario explorer, the project search and the drill-down.
+
+It reads two JSON blocks (``explorer-data`` from :func:`ratescape.report.explorer.explorer_data` and
+``drill-templates`` from :func:`ratescape.report.drill_charts.drill_templates`) and writes the page
+with DOM methods only (``textContent``, ``createElement``): no user text ever goes through HTML
+parsing. No network: everything it draws is in the page.
+"""
+
+EXPLORER_JS = r"""
+(function () {
+  'use strict';
+  var errors = window.__ratescapeErrors || [];
+  function $(id) { return document.getElementById(id); }
+  var D = JSON.parse($('explorer-data').textContent);
+  var T = JSON.parse($('drill-templates').textContent);
+  var P = D.pr, S = D.sc;
+  function money(v) {
+    if (v === null || v === undefined) return '\u2014';
+    return Math.round(v).toLocaleString('en-US');
+  }
+  function short(v) {
+    if (v === null || v === undefined) return '\u2014';
+    var a = Math.abs(v);
+    if (a >= 1e6) return (v / 1e6).toLocaleString('en-US', {maximumFractionDigits: 1}) + ' M';
+    if (a >= 1e3) return (v / 1e3).toLocaleString('en-US', {maximumFractionDigits: 1}) + ' k';
+    return v.toLocaleString('en-US', {maximumFractionDigits: 1});
+  }
+  function pct(v, d) { return (v === null || v === undefined) ? '\u2014' : (v * 100).toFixed(d === undefined ? 2 : d) + ' %'; }
+  function label(i) { return P.name[i] ? P.name[i] + ' (' + P.id[i] + ')' : P.id[i]; }
+  function el(tag, text, cls) {
+    var e = document.createElement(tag);
+    if (text !== undefined && text !== null) e.textContent = String(text);
+    if (cls) e.className = cls;
+    return e;
+  }
+  function current() {
+    var key = D.axes.map(function (a) {
+      var c = document.querySelector('[data-axis="' + a.key + '"]');
+      var v = parseFloat(c.value), best = 0;
+      a.values.forEach(function (w, i) { if (Math.abs(w - v) < Math.abs(a.values[best] - v)) best = i; });
+      return best;
+    }).join(',');
+    return D.cells.hasOwnProperty(key) ? D.cells[key] : null;
+  }
+  function ranking(s) {
+    var sel = {};
+    D.selected[s].forEach(function (i) { sel[i] = true; });
+    var rows = [];
+    if (D.full) {
+      for (var k in D.pw) { if (D.pw[k][s] !== null) rows.push([+k, D.pw[k][s]]); }
+      rows.sort(function (a, b) { return b[1] - a[1] || (P.id[a[0]] < P.id[b[0]] ? -1 : 1); });
+    } else {
+      rows = D.top[s].map(function (i, j) { return [i, D.toppw[s][j]]; });
+    }
+    return rows.map(function (r) { return {i: r[0], pw: r[1], sel: !!sel[r[0]]}; });
+  }
+  function update() {
+    var s = current();
+    var body = $('scenario-ranking').tBodies[0];
+    while (body.firstChild) body.removeChild(body.firstChild);
+    var note = $('scenario-summary');
+    if (s === null) { note.textContent = 'No stored scenario at these settings.'; return; }
+    var real = S.real[s];
+    $('scenario-nominal').value = S.nominal[s];
+    $('scenario-nominal').textContent = pct(S.nominal[s]);
+    $('scenario-real').textContent = pct(real);
+    $('negative-real').hidden = !(real < 0);
+    $('accepted-count').textContent = S.accepted[s].toLocaleString('en-US');
+    $('portfolio-worth').textContent = S.worth[s] === null ? 'no budget-limited portfolio' : short(S.worth[s]);
+    ranking(s).forEach(function (r, j) {
+      var tr = document.createElement('tr');
+      tr.setAttribute('data-project-id', P.id[r.i]);
+      tr.appendChild(el('td', j + 1, 'num'));
+      var name = el('td'); var a = el('a', label(r.i)); a.href = '#project-detail';
+      a.addEventListener('click', function () { openProject(r.i); });
+      name.appendChild(a); tr.appendChild(name);
+      tr.appendChild(el('td', money(r.pw), 'num'));
+      tr.appendChild(el('td', r.pw >= 0 ? 'yes' : 'no'));
+      tr.appendChild(el('td', S.worth[s] === null ? '\u2014' : (r.sel ? 'yes' : 'no')));
+      body.appendChild(tr);
+    });
+    $('scenario-ranking').setAttribute('data-scenario-id', S.id[s]);
+  }
+  Array.prototype.forEach.call(document.querySelectorAll('[data-axis]'), function (c) {
+    c.addEventListener('change', update); c.addEventListener('input', update);
+  });
+  // ---- search and drill-down
+  var views = [];
+  function clearViews() { views.forEach(function (v) { try { v.finalize(); } catch (e) {} }); views = []; }
+  function spec(kind, datasets, title) {
+    var s = JSON.parse(JSON.stringify(T[kind]));
+    s.datasets = datasets;
+    s.title = title;
+    return s;
+  }
+  function openProject(i) {
+    var box = $('project-detail');
+    var k = String(i);
+    var head = $('detail-title'); head.textContent = label(i);
+    var facts = $('detail-facts');
+    while (facts.firstChild) facts.removeChild(facts.firstChild);
+    [['Share of scenarios accepted', pct(P.share[i], 1)],
+     ['Rank range (1 = highest present worth)', P.rmin[i] === null ? '\u2014' : P.rmin[i] + ' to ' + P.rmax[i] + ' (median ' + P.rmed[i] + ')'],
+     ['Share of scenarios selected in the budget-limited portfolio', pct(P.sel[i], 1)]].forEach(function (f) {
+      var li = el('li'); li.appendChild(el('strong', f[0] + ': ')); li.appendChild(document.createTextNode(f[1])); facts.appendChild(li);
+    });
+    box.setAttribute('data-project-id', P.id[i]);
+    clearViews();
+    var charts = $('detail-charts');
+    if (!D.pw.hasOwnProperty(k)) {
+      box.setAttribute('data-rendered', '0');
+      charts.hidden = true;
+      $('detail-missing').hidden = false;
+      $('detail-missing-id').textContent = P.id[i];
+      return;
+    }
+    charts.hidden = false; $('detail-missing').hidden = true;
+    box.setAttribute('data-rendered', 'pending');
+    var x = D.drill[k], pw = D.pw[k], pl = D.plane;
+    var curve = [], cells = [];
+    var keepY = {}; pl.curve_y.forEach(function (j) { keepY[j] = true; });
+    pl.pos.forEach(function (s, n) {
+      var ix = pl.ix[n], iy = pl.iy[n], v = pw[s];
+      if (v === null) return;
+      cells.push({x: pl.x[ix], x_lo: pl.x_lo[ix], x_hi: pl.x_hi[ix], inflation: pl.y[iy], y_lo: pl.y_lo[iy], y_hi: pl.y_hi[iy], pw: v});
+      if (keepY[iy]) curve.push({x: pl.x[ix], inflation: pl.y[iy], pw: v, negative_real: S.real[s] < 0});
+    });
+    curve.sort(function (a, b) { return a.inflation - b.inflation || a.x - b.x; });
+    var lines = x.lines.map(function (r) { return {line: r[0], point: r[1], level: r[2], x: r[3], y: r[4]}; });
+    var labels = x.labels.map(function (r) { return {x: r[0], y: r[1], text: r[2]}; });
+    var zr = pl.zero_real.map(function (r) { return {x: r[0], y: r[1]}; });
+    var sur = spec('surface', {cells: cells, lines: lines, labels: labels, zero_real: zr}, 'Present worth surface: ' + label(i));
+    sur.layer[0].encoding.color.scale.domain = [-x.clip, 0, x.clip];
+    sur.layer[0].encoding.color.title = 'Present worth (colour clipped at \u00b1' + short(x.clip) + ')';
+    $('detail-clip').textContent = 'Colour scale: symmetric about zero, clipped at the 2nd\u201398th percentile of this project\u2019s worths (\u00b1' + short(x.clip) + '); ' + x.beyond + ' of ' + cells.length + ' scenarios lie beyond and are drawn at the end colour.';
+    var jobs = [
+      ['detail-curve', spec('curve', {curve: curve, irr: x.irr.map(function (r) { return {inflation: r[0], irr: r[1]}; })}, 'Present worth against the discount rate: ' + label(i))],
+      ['detail-surface', sur]];
+    var tor = x.tornado.map(function (r) { return [{input: r[0], setting: 'its low value', worth: r[1], base: r[3], swing: Math.abs(r[2] - r[1])}, {input: r[0], setting: 'its high value', worth: r[2], base: r[3], swing: Math.abs(r[2] - r[1])}]; });
+    tor = [].concat.apply([], tor);
+    var spi = x.spider.map(function (r) { return {input: r[0], change: r[1], pw: r[2]}; });
+    $('detail-tornado-none').hidden = tor.length > 0;
+    $('detail-spider-none').hidden = spi.length > 0;
+    if (tor.length) jobs.push(['detail-tornado', spec('tornado', {tornado: tor}, 'Tornado: ' + label(i))]);
+    else $('detail-tornado').textContent = '';
+    if (spi.length) jobs.push(['detail-spider', spec('spider', {spider: spi}, 'Spider: ' + label(i))]);
+    else $('detail-spider').textContent = '';
+    Promise.all(jobs.map(function (j) {
+      return window.vegaEmbed($(j[0]), j[1], {actions: false, renderer: 'svg', mode: 'vega-lite'})
+        .then(function (r) { views.push(r.view); })
+        .catch(function (e) { errors.push('drill-down chart ' + j[0] + ' failed: ' + e); });
+    })).then(function () { box.setAttribute('data-rendered', String(jobs.length)); });
+  }
+  var search = $('project-search'), results = $('search-results');
+  function find() {
+    while (results.firstChild) results.removeChild(results.firstChild);
+    var q = search.value.trim().toLowerCase();
+    $('search-none').hidden = true;
+    if (!q) return [];
+    var hits = [];
+    for (var i = 0; i < P.id.length && hits.length < 20; i++) {
+      if (P.id[i].toLowerCase().indexOf(q) >= 0 || P.name[i].toLowerCase().indexOf(q) >= 0) hits.push(i);
+    }
+    hits.forEach(function (i) {
+      var li = el('li'); var b = el('button', label(i)); b.type = 'button';
+      b.setAttribute('data-project-id', P.id[i]);
+      b.addEventListener('click', function () { openProject(i); });
+      li.appendChild(b); results.appendChild(li);
+    });
+    if (!hits.length) { $('search-none').hidden = false; $('search-none-text').textContent = search.value.trim(); }
+    return hits;
+  }
+  search.addEventListener('input', find);
+  search.addEventListener('keydown', function (e) {
+    if (e.key === 'Enter') { e.preventDefault(); var h = find(); if (h.length) openProject(h[0]); }
+  });
+  update();
+  var first = D.first === null || D.first === undefined ? null : D.first;
+  if (first !== null) openProject(first);
+  window.__ratescapeExplorer = {open: openProject, update: update};
+})();
+"""
+
+
+def _fmt_rate(v: float) -> str:
+    return f"{v:.2%}"
+
+
+def explorer_html(data: dict, *, x: str) -> str:
+    """The controls, summary line and ranked table of the scenario explorer (filled by the script)."""
+    from ratescape.report.chart_style import axis_title
+    from ratescape.report.escaping import escape_html
+
+    base = data["base"]
+    controls = []
+    for n, axis in enumerate(data["axes"]):
+        key = axis["key"]
+        current = {"discount_rate": data["sc"]["nominal"], "real_rate": data["sc"]["real"],
+                   "inflation": data["sc"]["inflation"]}.get(key)
+        chosen = current[base] if current is not None else None
+        opts = "".join(
+            f'<option value="{escape_html(repr(v))}"{" selected" if chosen is not None and v == chosen else ""}>'
+            f'{escape_html(_fmt_rate(v) if key in ("discount_rate", "real_rate", "inflation", "tax_rate") else f"{v:g}")}'
+            f"</option>" for v in axis["values"])
+        controls.append(f'<label>{escape_html(axis_title(key))} <select name="{escape_html(key)}" '
+                        f'data-axis="{escape_html(key)}">{opts}</select></label>')
+    nominal_out = ('<output id="scenario-nominal" name="discount_rate" hidden></output>' if x == "discount_rate"
+                   else '<span>Nominal discount rate: <output id="scenario-nominal" name="discount_rate"></output></span>')
+    table_rule = ("Every project of the run is listed." if data["full"] else
+                  f"This run is large: each scenario lists its {data['table_top']:,} projects of highest present "
+                  f"worth (of {data['total_projects']:,}); ranks are exact. The database holds every result.")
+    return (
+        f'<form class="controls" onsubmit="return false">{"".join(controls)}{nominal_out}</form>'
+        '<p id="scenario-summary">Real discount rate <span id="scenario-real"></span>'
+        ' <span id="negative-real" class="warn" hidden>below zero: inflation exceeds the nominal rate</span>. '
+        'Projects accepted: <strong id="accepted-count"></strong> of '
+        f'{data["total_projects"]:,}. Worth of the budget-limited portfolio: <strong id="portfolio-worth"></strong>.</p>'
+        f'<p class="guide">{escape_html(table_rule)} Read: projects in order of present worth in the chosen '
+        'scenario, highest first; "selected" means in the best portfolio the budget allows in that scenario. '
+        'Click a name for its drill-down.</p>'
+        '<div class="scroll"><table id="scenario-ranking"><thead><tr><th>Rank</th><th>Project</th>'
+        '<th>Present worth</th><th>Accepted</th><th>Selected in the budget-limited portfolio</th></tr></thead>'
+        '<tbody></tbody></table></div>'
+    )
+
+
+def search_html(data: dict) -> str:
+    """The search box and the drill-down frame (filled by the script)."""
+    from ratescape.report.drill_charts import DRILL_GUIDES
+    from ratescape.report.escaping import escape_html
+
+    n_drill = len(data["pw"])
+    rule = ("Every project has its drill-down." if data["full"] else
+            f"This report embeds the drill-down of {n_drill:,} of {data['total_projects']:,} projects: those "
+            "named with --project, the leading projects of each headline, then projects whose acceptance "
+            "depends on the scenario, by best median rank.")
+    missing = ("Not embedded in this report: draw it with "
+               "<code>ratescape report --db DB --project <span id=\"detail-missing-id\"></span> --out FILE</code> "
+               "or <code>ratescape chart --db DB worth-curve --project ID --out FILE</code>.")
+    guides = {k: f'<p class="guide">{escape_html(v)}</p>' for k, v in DRILL_GUIDES.items()}
+    return (
+        '<label for="project-search">Find a project by id or a word of its name: </label>'
+        '<input id="project-search" type="search" autocomplete="off" size="40">'
+        f'<p class="guide">{escape_html(rule)}</p>'
+        '<p id="search-none" hidden>No embedded project matches "<span id="search-none-text"></span>". '
+        + ("" if data["full"] else "It may still be in the run: ") + missing.replace('<span id="detail-missing-id"></span>', "ID")
+        + '</p><ul id="search-results"></ul>'
+        '<div id="project-detail" data-rendered="0"><h3 id="detail-title"></h3><ul id="detail-facts"></ul>'
+        f'<p id="detail-missing" hidden>{missing}</p>'
+        '<div id="detail-charts">'
+        f'<div class="chart" id="detail-curve"></div>{guides["curve"]}'
+        f'<div class="chart" id="detail-surface"></div><p class="guide" id="detail-clip"></p>{guides["surface"]}'
+        f'<div class="chart" id="detail-tornado"></div><p id="detail-tornado-none" hidden>No tornado: this run '
+        f'has no one-at-a-time sensitivity for this project.</p>{guides["tornado"]}'
+        f'<div class="chart" id="detail-spider"></div><p id="detail-spider-none" hidden>No spider: this run has '
+        f'no one-at-a-time sensitivity for this project.</p>{guides["spider"]}'
+        '</div></div>'
+    )
