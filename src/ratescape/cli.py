@@ -73,7 +73,10 @@ def demo(out_dir, quiet):
 @click.option("--cash-flows", "cash_flows_path", type=click.Path(dir_okay=False),
               help="Long-form cash-flow CSV (project_id,period,amount[,basis][,escalation][,kind]).")
 @click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
-def load(projects_path, cash_flows_path, db_path):
+@click.option("--allow-extreme-rates", is_flag=True,
+              help="Accept escalation and loan rates above 100 % (|rate| > 1), refused otherwise as percentage "
+                   "typos (2 written for 0.02).")
+def load(projects_path, cash_flows_path, db_path, allow_extreme_rates):
     """Validate the CSV files and load them into the database.
 
     Every problem is reported at once (file, line, column, value, fix); an
@@ -85,47 +88,69 @@ def load(projects_path, cash_flows_path, db_path):
       ratescape load --projects projects.csv --cash-flows cash_flows.csv --db plan.duckdb
     """
     from .api import load_portfolio
-    info = load_portfolio(projects_path, cash_flows_path, db_path)
+    info = load_portfolio(projects_path, cash_flows_path, db_path, allow_extreme_rates=allow_extreme_rates)
     for note in info["notes"]:
         click.echo(f"Note: {note}", err=True)
     click.echo(f"Loaded {info['projects']} projects and {info['cash_flow_rows']} cash-flow lines into {db_path}.")
 
 
+RANGE_HELP = "START:STOP:COUNT, one value or a list (see RANGES above)"
+
+
 @main.command(cls=Command)
 @click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
-@click.option("--grid", "grid_path", type=click.Path(dir_okay=False), help="Grid and run settings (TOML).")
-@click.option("--discount-rates", help="START:STOP:COUNT of discount rates as fractions, e.g. 0:0.2:41.")
-@click.option("--inflation", help="START:STOP:COUNT of general inflation rates as fractions, e.g. 0:0.1:21.")
+@click.option("--grid", "grid_path", type=click.Path(dir_okay=False),
+              help="Grid and run settings (TOML, a regular file of at most 1 MB).")
+@click.option("--discount-rates", metavar="RANGE", help=f"Discount rates as fractions: {RANGE_HELP}. Default 0:0.2:41.")
+@click.option("--inflation", metavar="RANGE", help=f"General inflation rates as fractions: {RANGE_HELP}. Default 0:0.1:21.")
 @click.option("--discount-basis", type=click.Choice(["nominal", "real"]), help="Whether the discount-rate axis is nominal (market) or real.")
 @click.option("--budget", "budgets", multiple=True, metavar="PERIOD=AMOUNT",
               help="Most the investment lines of PERIOD may spend (then-current money). Repeatable.")
 @click.option("--timing", type=click.Choice(["end", "mid", "beginning"]), help="When in a period cash flows fall (default end).")
-@click.option("--periods-per-year", type=float, help="Periods per year (1 = years, 12 = months).")
+@click.option("--periods-per-year", type=float, help="Periods per year: 1 = years (default), 4 = quarters, 12 = months, "
+                                                     "at most 365.")
 @click.option("--after-tax/--before-tax", default=None,
               help="Screen after-tax cash flows (before-tax worth is stored beside them).")
-@click.option("--tax-rate", help="Income-tax rate(s) as fractions: 0.25, or START:STOP:COUNT as a grid axis. Implies --after-tax.")
+@click.option("--tax-rate", metavar="RANGE", help="Income-tax rate(s) as fractions: 0.25, or a range as a grid axis. "
+                                                  "Implies --after-tax.")
 @click.option("--state-tax-rate", help="State (provincial) income-tax rate as a fraction; with --federal-tax-rate "
               "the tax axis carries the combined rate t_s + t_f (1 - t_s). Not with --tax-rate. Implies --after-tax.")
 @click.option("--federal-tax-rate", help="Federal income-tax rate as a fraction (see --state-tax-rate).")
 @click.option("--losses", type=click.Choice(["offset", "carry-forward"]),
               help="A project's tax losses: offset the firm's other income that year (default) or, for a "
                    "stand-alone project, carried forward to its later profits.")
-@click.option("--chunk-size", type=click.IntRange(min=1), help="Projects per chunk (default: from memory).")
+@click.option("--allow-extreme-rates", is_flag=True,
+              help="Accept rates above 100 % (|rate| > 1; tax rates of 1 or more), refused otherwise as "
+                   "percentage typos (3 written for 0.03). For hyperinflation studies.")
+@click.option("--chunk-size", type=click.IntRange(min=1, max=10_000_000), help="Projects per chunk (default: from memory).")
 @click.option("--keep", metavar="all|summary|thinned:K",
               help="Result rows to store: all (default), summary (per-project summaries only), "
                    "or thinned:K (every K-th rate and inflation level, and the base scenario).")
 @click.option("--resume", "resume", metavar="RUN_ID", help="Finish an interrupted run.")
 @click.option("--cluster", metavar="tcp://HOST:PORT", help="Evaluate chunks on this Dask scheduler's workers.")
-@click.option("--workers", type=click.IntRange(min=1), help="Evaluate chunks on a local Dask cluster of N processes.")
-@click.option("--quiet", is_flag=True, help="No progress output.")
+@click.option("--workers", type=click.IntRange(min=1, max=256), help="Evaluate chunks on a local Dask cluster of N processes.")
+@click.option("--quiet", is_flag=True, help="Print nothing but errors and the run id.")
 def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budgets, timing, periods_per_year,
-           after_tax, tax_rate, state_tax_rate, federal_tax_rate, losses, chunk_size, keep, resume, cluster,
-           workers, quiet):
+           after_tax, tax_rate, state_tax_rate, federal_tax_rate, losses, allow_extreme_rates, chunk_size, keep,
+           resume, cluster, workers, quiet):
     """Evaluate every project in every scenario of the grid and store the results.
 
-    Rates are fractions (0.07 = 7 %). Flags override the TOML file. The run
-    id is printed on the last line of standard output; progress and logs go
-    to standard error.
+    Rates are fractions (0.07 = 7 %); a rate above 1 in size (or a tax rate
+    of 1 or more) is refused as a percentage typo unless
+    --allow-extreme-rates is given. Flags override the TOML file. The
+    resolved axes (first, last, count, step) are printed on standard error
+    before the run starts; the run id is printed on the last line of
+    standard output; progress and logs go to standard error.
+
+    \b
+    RANGES (--discount-rates, --inflation, --tax-rate):
+      0:0.2:41        41 values from 0 to 0.2, both ends included (step 0.005)
+      0.02:0.08:4     4 values from 0.02 to 0.08: 0.02, 0.04, 0.06, 0.08
+      0.07            one value, 0.07
+      0.03,0.05,0.07  the 3 values listed
+    In the grid TOML: { start = 0.0, stop = 0.2, count = 41 }, { values =
+    [0.03, 0.05] }, a list [0.03, 0.05], a number 0.07 or a range text
+    "0:0.2:41".
 
     \b
     Example:
@@ -140,26 +165,44 @@ def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budget
         raise click.UsageError("give --cluster (an existing scheduler) or --workers (a local cluster), not both")
     if resume and (any(v is not None for v in (grid_path, discount_rates, inflation, discount_basis, timing,
                                                 periods_per_year, after_tax, tax_rate, keep, state_tax_rate,
-                                                federal_tax_rate, losses)) or bool(budgets)):
+                                               federal_tax_rate, losses))
+                   or bool(budgets) or allow_extreme_rates):
         raise click.UsageError("--resume continues a run with its stored grid; give no grid options with it")
-    run_id = screen_portfolio(db_path, grid=grid_path, discount_rates=discount_rates, inflation=inflation,
-                              discount_basis=discount_basis, budgets=list(budgets), timing=timing,
-                              periods_per_year=periods_per_year, after_tax=after_tax, tax_rate=tax_rate,
-                              keep=keep, chunk_size=chunk_size, cluster=cluster, workers=workers,
-                              resume=resume, progress=not quiet, state_tax_rate=state_tax_rate,
-                              federal_tax_rate=federal_tax_rate, losses=losses)
+    spec = None
+    if not resume:
+        from .grid import base_values, build_scenarios
+        from .settings import describe_axes, make_run_settings, parse_budget, read_settings_toml
+        spec = make_run_settings(toml_settings=read_settings_toml(grid_path) if grid_path else None,
+                                 discount_rates=discount_rates, inflation=inflation, discount_basis=discount_basis,
+                                 budgets=parse_budget(budgets) if budgets else None, timing=timing,
+                                 periods_per_year=periods_per_year, after_tax=after_tax, tax_rate=tax_rate,
+                                 keep=keep, allow_extreme_rates=allow_extreme_rates, state_tax_rate=state_tax_rate,
+                                 federal_tax_rate=federal_tax_rate, losses=losses)
+        if not quiet:
+            for line in describe_axes(spec, base_values(spec, build_scenarios(spec))):
+                click.echo(line, err=True)
+    if quiet:
+        import contextlib
+        import os
+        with open(os.devnull, "w") as null, contextlib.redirect_stderr(null):
+            run_id = screen_portfolio(db_path, settings=spec, chunk_size=chunk_size, cluster=cluster,
+                                      workers=workers, resume=resume, progress=False)
+        click.echo(run_id)
+        return
+    run_id = screen_portfolio(db_path, settings=spec, chunk_size=chunk_size, cluster=cluster, workers=workers,
+                              resume=resume, progress=True)
     from .store.database import connect_read
     con = connect_read(db_path)
     try:
         spec_json = con.execute("SELECT grid_spec FROM runs WHERE run_id = ?", [run_id]).fetchall()[0][0]
     finally:
         con.close()
-    spec = json.loads(spec_json)
-    if spec.get("weights"):
+    stored = json.loads(spec_json)
+    if stored.get("weights"):
         click.echo("Note: the scenario weights are your judgement, not a forecast; probabilities of acceptance "
                    "and expected worths rest on them.", err=True)
-    if spec.get("after_tax"):
-        carried = (spec.get("tax") or {}).get("losses") == "carry-forward"
+    if stored.get("after_tax"):
+        carried = (stored.get("tax") or {}).get("losses") == "carry-forward"
         click.echo("Note: after-tax results assume one tax rate per scenario, "
                    + ("each project's losses carried forward to its own later profits"
                       if carried else "losses offset against the firm's other income")

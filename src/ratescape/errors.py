@@ -6,9 +6,14 @@ value, what is wrong and how to fix it.
 """
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 
 MAX_ISSUES_SHOWN = 50
+# Past MAX_ISSUES_SHOWN issues, the first FIRST_PER_KIND of each kind are listed (at most
+# MAX_KINDS_SHOWN kinds), each with a count of the rest of its kind.
+FIRST_PER_KIND = 5
+MAX_KINDS_SHOWN = 40
 
 
 class RatescapeError(Exception):
@@ -52,11 +57,26 @@ class ValidationError(RatescapeError):
 
     @property
     def message(self) -> str:
+        """Every issue when there are at most MAX_ISSUES_SHOWN; otherwise the first few of each kind
+        (file, column and problem) with a count of the rest, so that a fault far into a big file is
+        not hidden behind many of another kind."""
         n = len(self.issues)
         head = f"{n} problem{'s' if n != 1 else ''} found in the input; nothing was written."
-        lines = [head] + ["  " + i.format() for i in self.issues[:MAX_ISSUES_SHOWN]]
-        if n > MAX_ISSUES_SHOWN:
-            lines.append(f"  ... and {n - MAX_ISSUES_SHOWN} more (fix these first, then run again).")
+        if n <= MAX_ISSUES_SHOWN:
+            return "\n".join([head] + ["  " + i.format() for i in self.issues])
+        kinds: dict[tuple, list[Issue]] = {}
+        for issue in self.issues:
+            kinds.setdefault((issue.file, issue.column, re.sub(r"\d+", "N", issue.problem)), []).append(issue)
+        lines = [head]
+        for (file, column, _), group in list(kinds.items())[:MAX_KINDS_SHOWN]:
+            lines += ["  " + i.format() for i in group[:FIRST_PER_KIND]]
+            if len(group) > FIRST_PER_KIND:
+                where = file + (f", column '{column}'" if column else "")
+                lines.append(f"  ... and {len(group) - FIRST_PER_KIND} more like this in {where}: {group[0].problem}")
+        rest = sum(len(g) for g in list(kinds.values())[MAX_KINDS_SHOWN:])
+        if rest:
+            lines.append(f"  ... and {rest} more of {len(kinds) - MAX_KINDS_SHOWN} other kinds "
+                         "(fix these first, then run again).")
         return "\n".join(lines)
 
     def __str__(self) -> str:
@@ -77,3 +97,8 @@ class RunError(RatescapeError):
 
 class QueryError(RatescapeError):
     """A query cannot be found, has bad parameters, or tries to write."""
+
+
+def percent_typo(value: float) -> str:
+    """Words for a rate that looks like a percentage: "3 looks like a percentage; did you mean 0.03?"."""
+    return f"{value:g} looks like a percentage; did you mean {value / 100:g}?"

@@ -33,7 +33,9 @@ def build_scenarios(spec: RunSettings) -> ScenarioTable:
     """Expand a grid spec into scenario columns: discount_rate (nominal), real_rate, inflation, extra axes.
 
     The base scenario is the grid point nearest to ``spec.base`` on each
-    axis (default: each axis's middle value).
+    axis (default: each axis's middle value). ``spec.base`` names the run's own
+    axes: ``real_rate`` on a real-basis grid, ``discount_rate`` on a nominal one
+    (the other is refused in :func:`ratescape.settings.validate_run_settings`).
     """
     axes = spec.axes
     mesh = np.meshgrid(*[np.asarray(a.values, dtype=float) for a in reversed(axes)], indexing="ij")
@@ -53,11 +55,14 @@ def build_scenarios(spec: RunSettings) -> ScenarioTable:
     for a in axes:
         vals = np.asarray(a.values, dtype=float)
         want = spec.base.get(a.name)
-        if want is None and a.name == "real_rate" and "discount_rate" in spec.base:
-            want = None
         base_values[a.name] = vals[np.argmin(np.abs(vals - want))] if want is not None else vals[(len(vals) - 1) // 2]
     mask = np.ones(S, dtype=bool)
     for a in axes:
         mask &= cols[a.name] == base_values[a.name]
     base_index = int(np.flatnonzero(mask)[0])
     return ScenarioTable(out, base_index)
+
+
+def base_values(spec: RunSettings, table: ScenarioTable) -> dict[str, float]:
+    """The base scenario's value on each axis of the run (its own basis), for messages."""
+    return {a.name: float(table.columns[a.name][table.base_index]) for a in spec.axes}

@@ -404,6 +404,109 @@ def build() -> None:
     case("f_fractional_count", "flags", None, ["--inflation", "COUNT must be a whole number", "Fix:"],
          args=["--inflation", "0:0.1:2.5"], fault="a fractional count by flag")
 
+
+    # ---- rates written as percentages (issue 14 part 8) ------------------------------------------
+    pct = "looks like a percentage; did you mean"
+    case("c_escalation_percent_typo", "cash_flows", C({3: flow_row(3, escalation="2")}),
+         ["c_escalation_percent_typo.csv", "line 3", "column 'escalation'", "value '2'",
+          "a rate of more than 100 % a period in size", "2 looks like a percentage; did you mean 0.02?",
+          "--allow-extreme-rates"], fault="an escalation of 2 written for 2 %")
+    case("p_escalation_percent_typo", "projects", P({2: project_row(2, cost_escalation="3")}),
+         ["p_escalation_percent_typo.csv", "line 2", "column 'cost_escalation'", "value '3'",
+          "3 looks like a percentage; did you mean 0.03?"], fault="a parametric escalation of 3 written for 3 %")
+    case("p_escalation_negative_percent_typo", "projects", P({3: project_row(3, benefit_escalation="-5")}),
+         ["p_escalation_negative_percent_typo.csv", "line 3", "column 'benefit_escalation'", "value '-5'",
+          "a rate of -100 % or less", "-5 looks like a percentage; did you mean -0.05?"],
+         fault="an escalation of -5 written for -5 %")
+    case("g_percent_typo_inflation", "grid", grid("start = 0.0, stop = 0.1, count = 3", "start = 0.0, stop = 10.0, count = 3"),
+         ["g_percent_typo_inflation.toml", "grid.inflation", "5 looks like a percentage; did you mean 0.05?",
+          "allow_extreme_rates = true"], fault="an inflation range 0 to 10 written for 0 to 10 %")
+    case("g_percent_typo_tax", "grid", GRID + "[tax]\nrate = 25\n",
+         ["g_percent_typo_tax.toml", "tax.rate", "25 looks like a percentage; did you mean 0.25?"],
+         fault="a tax rate of 25 written for 25 %")
+    case("f_percent_typo_inflation", "flags", None,
+         ["--inflation", "3 looks like a percentage; did you mean 0.03?", "--allow-extreme-rates"],
+         args=["--inflation", "3"], fault="--inflation 3 written for 3 %")
+    case("f_percent_typo_discount_range", "flags", None,
+         ["--discount-rates", "5 looks like a percentage; did you mean 0.05?"],
+         args=["--discount-rates", "5:10:3"], fault="--discount-rates 5:10:3 written for 5 % to 10 %")
+    case("f_percent_typo_tax", "flags", None, ["--tax-rate", "25 looks like a percentage; did you mean 0.25?"],
+         args=["--tax-rate", "25"], fault="--tax-rate 25 written for 25 %")
+
+    # ---- amounts near the largest double (issue 17 item 6) ---------------------------------------
+    case("c_amount_too_large", "cash_flows", C({5: flow_row(5, amount="1e300")}),
+         ["c_amount_too_large.csv", "line 5", "column 'amount'", "value '1e300'", "an amount larger than 1e15 in size",
+          "could not be discounted and summed in double precision", "Fix: give amounts of at most 1e15"],
+         fault="an amount of 1e300 (finite, but beyond what can be discounted and summed)")
+    case("p_amount_too_large", "projects", P({2: project_row(2, first_cost="5e16")}),
+         ["p_amount_too_large.csv", "line 2", "column 'first_cost'", "value '5e16'", "larger than 1e15"],
+         fault="a parametric first cost of 5e16")
+
+    # ---- Unicode in ids and encodings (issue 17) -------------------------------------------------
+    case("p_id_zero_width", "projects", P({3: project_row(3, project_id="P\u200b2")}),
+         ["p_id_zero_width.csv", "line 3", "column 'project_id'", "an id holding an invisible or control character",
+          "U+200B"], fault="a zero-width space inside an id")
+    case("c_id_bidi_override", "cash_flows", C({7: flow_row(7, project_id="\u202eP5")}),
+         ["c_id_bidi_override.csv", "line 7", "column 'project_id'", "invisible or control character", "U+202E"],
+         fault="a right-to-left override in an id")
+    case("p_id_control", "projects", P({4: project_row(4, project_id="P\x073")}),
+         ["p_id_control.csv", "line 4", "column 'project_id'", "invisible or control character", "U+0007"],
+         fault="a control character (BEL) in an id")
+    case("p_duplicate_id_nfc", "projects", P(extra=["Cafe\u0301,Cafe (decomposed),,,,misc,100,30,real,0,,,,,4",
+                                                    "Caf\u00e9,Cafe (composed),,,,misc,100,30,real,0,,,,,4"]),
+         ["p_duplicate_id_nfc.csv", "line 8", "column 'project_id'",
+          "the same after Unicode normalisation (NFC)", "already appears on line 7"],
+         fault="two ids that differ only in Unicode normalisation")
+    case("p_utf16_no_bom", "projects", P().encode("utf-16-le"),
+         ["p_utf16_no_bom.csv", "line 1", "looks like UTF-16 (little-endian) text without a byte-order mark",
+          "Fix: save the file as UTF-8"], fault="UTF-16 without a byte-order mark")
+    case("c_utf16_bom", "cash_flows", C().encode("utf-16"),
+         ["c_utf16_bom.csv", "line 1", "the file is UTF-16 text", "Fix: save the file as UTF-8"],
+         fault="UTF-16 with a byte-order mark")
+
+    # ---- every key of the grid TOML used or refused (issue 14 part 7) ----------------------------
+    case("g_base_nominal_on_real_grid", "grid",
+         grid('discount_basis = "nominal"', 'discount_basis = "real"'),
+         ["g_base_nominal_on_real_grid.toml", "grid.base", "base discount_rate = 0.1 names a discount rate",
+          "the grid's discount axis is real (real_rate)", "real_rate = 0.047619", "Fix:"],
+         fault="base.discount_rate (nominal) on a real-basis grid")
+    case("g_base_outside_grid", "grid", grid("discount_rate = 0.1,", "discount_rate = 0.5,"),
+         ["g_base_outside_grid.toml", "grid.base", "base discount_rate = 0.5 lies outside", "0 to 0.2", "Fix:"],
+         fault="a base outside the grid")
+    case("g_weights_wrong_length", "grid", GRID + "[weights]\ninflation = [1, 2]\n",
+         ["g_weights_wrong_length.toml", "[weights] inflation", "3 grid values", "Fix: give a list"],
+         fault="weights for 2 of 3 inflation levels")
+    case("g_weights_unknown_distribution", "grid",
+         GRID + '[weights]\ninflation = { distribution = "lognormal", mean = 0.03, sd = 0.01 }\n',
+         ["g_weights_unknown_distribution.toml", "[weights] inflation", "lognormal", "Fix:"],
+         fault="an unknown weight distribution")
+    case("g_sensitivity_unknown_input", "grid", GRID + "[sensitivity]\nwages = [0.9, 1.1]\n",
+         ["g_sensitivity_unknown_input.toml", "[sensitivity]", "unknown input 'wages'", "Fix: use one of"],
+         fault="an unknown sensitivity input")
+    case("g_sensitivity_reversed", "grid", GRID + "[sensitivity]\ninflation = [0.1, 0.0]\n",
+         ["g_sensitivity_reversed.toml", "[sensitivity] inflation must be [low, high]", "Fix:"],
+         fault="a sensitivity range given high first")
+    case("g_tax_unknown_key", "grid", GRID + "[tax]\nrate = 0.25\ncolour = \"red\"\n",
+         ["g_tax_unknown_key.toml", "unknown key tax.colour", "Fix: use after_tax, rate"],
+         fault="an unknown key under [tax]")
+    case("g_budget_unknown_key", "grid", GRID + '[budget]\n"0" = 50e6\n',
+         ["g_budget_unknown_key.toml", "unknown key budget.0", 'Fix: give budgets as periods ='],
+         fault="a budget written without periods = {...} (it was ignored)")
+    case("g_count_billion", "grid", grid("start = 0.0, stop = 0.1, count = 3", "start = 0.0, stop = 0.1, count = 1000000000"),
+         ["g_count_billion.toml", "grid.inflation", "COUNT 1,000,000,000 is more than", "nothing was built", "Fix:"],
+         fault="an axis count of a billion")
+    case("g_periods_per_year_inf", "grid", GRID + "[time]\nperiods_per_year = inf\n",
+         ["g_periods_per_year_inf.toml", "time.periods_per_year", "a finite number above 0", "Fix: 1 = years"],
+         fault="infinite periods per year (discounting silently off)")
+    case("f_count_billion", "flags", None, ["--discount-rates", "COUNT 1,000,000,000 is more than", "Fix:"],
+         args=["--discount-rates", "0:0.2:1000000000"], fault="an axis count of a billion by flag")
+    case("f_periods_per_year_inf", "flags", None, ["--periods-per-year", "a finite number above 0", "Fix:"],
+         args=["--periods-per-year", "inf"], fault="--periods-per-year inf")
+    case("f_keep_absurd", "flags", None, ["--keep", "thinned:99999999999", "only its first value", "Fix:"],
+         args=["--keep", "thinned:99999999999"], fault="--keep thinned:K with an absurd K")
+    case("f_tax_rate_before_tax", "flags", None, ["--tax-rate", "the run is before tax", "Fix:"],
+         args=["--tax-rate", "0.25", "--before-tax"], fault="a tax rate on a before-tax run (it would be ignored)")
+
     write_manifest()
 
 

@@ -312,7 +312,8 @@ def _long_portfolio(tmp_path: Path) -> tuple[Path, Path]:
 def test_screen_refuses_rates_whose_factors_overflow_and_writes_nothing(tmp_path):
     db, _ = _long_portfolio(tmp_path)
     before = digest(db)
-    r = run("screen", "--db", db, "--discount-rates=-0.99,-0.5,0,0.1,10", "--inflation", "0", "--quiet")
+    r = run("screen", "--db", db, "--discount-rates=-0.99,-0.5,0,0.1,10", "--inflation", "0", "--quiet",
+            "--allow-extreme-rates")
     assert r.exit_code == 1
     assert "Error: discount factors overflow for this horizon and these rates (1200 periods). Fix:" in r.stderr
     assert "Traceback" not in r.stderr
@@ -328,7 +329,8 @@ def test_screen_overflow_refusal_prints_only_the_error(tmp_path):
 
 def test_screen_long_horizon_stores_no_nan_or_inf(tmp_path):
     db, _ = _long_portfolio(tmp_path)
-    r = run("screen", "--db", db, "--discount-rates", "0,0.1,1,10", "--inflation", "0:0.1:3", "--quiet")
+    r = run("screen", "--db", db, "--discount-rates", "0,0.1,1,10", "--inflation", "0:0.1:3", "--quiet",
+            "--allow-extreme-rates")
     assert r.exit_code == 0, r.stderr
     con = duckdb.connect(str(db), read_only=True)
     try:

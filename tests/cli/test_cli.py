@@ -42,11 +42,11 @@ def test_load_screen_query_end_to_end(files):
     r = run("load", "--projects", files / "p.csv", "--cash-flows", files / "c.csv", "--db", db)
     assert r.exit_code == 0
     assert r.stdout == f"Loaded 4 projects and 21 cash-flow lines into {db}.\n"
-    r = run("screen", "--db", db, "--discount-rates", "0:0.2:5", "--inflation", "0:0.1:3", "--quiet")
+    r = run("screen", "--db", db, "--discount-rates", "0:0.2:5", "--inflation", "0:0.1:3")
     assert r.exit_code == 0
     run_id = r.stdout.strip().splitlines()[-1]
     assert run_id.startswith("run-")
-    assert "screening aid" in r.stderr
+    assert "screening aid" in r.stderr   # the caution (not under --quiet: errors and the run id only)
     con = duckdb.connect(str(db), read_only=True)
     assert con.execute("SELECT status, scenario_count, project_count FROM runs WHERE run_id = ?", [run_id]).fetchone() == ("done", 15, 4)
     assert con.execute("SELECT count(*) FROM results WHERE run_id = ?", [run_id]).fetchone()[0] == 60

@@ -40,7 +40,7 @@ def db(tmp_path_factory) -> Path:
 
 def test_second_writer_and_reader_get_database_busy_naming_the_writer(db):
     writer = subprocess.Popen(ratescape("screen", "--db", db, "--discount-rates", "0:0.2:21", "--inflation", "0:0.1:11",
-                                        "--chunk-size", "2", "--quiet"),
+                                        "--chunk-size", "2"),      # not --quiet: its log names the run
                               stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=ENV)
     try:
         for line in writer.stderr:          # the run row exists, so the writer holds the database

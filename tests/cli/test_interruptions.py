@@ -169,7 +169,7 @@ def _same_rows(db: Path, run: str, reference: str) -> None:
 @pytest.mark.parametrize("trial,sig", [(0, signal.SIGINT), (1, signal.SIGKILL), (2, signal.SIGKILL), (3, signal.SIGINT)])
 def test_interrupted_screen_is_truthful_and_resumes_exactly(work, trial, sig):
     db = work["screen_db"]
-    proc = cli("screen", "--db", db, *GRID, "--quiet")
+    proc = cli("screen", "--db", db, *GRID)   # not --quiet: the log line naming the run is read
     run_id = _run_id_from(proc)
     delay = RNG.uniform(0.05, 0.5) * work["screen_seconds"]   # within the first half of the run's work
     time.sleep(delay)

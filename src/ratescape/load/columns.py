@@ -63,3 +63,16 @@ PARAMETRIC_COLUMNS = PARAMETRIC_MONEY + (
 MAX_PERIOD = 1200
 TRUE_WORDS = {"true", "yes", "y", "1", "t"}
 FALSE_WORDS = {"false", "no", "n", "0", "f", ""}
+
+# Rates whose size makes a percentage typo near-certain (3 written for 3 %). A discount,
+# real, inflation, escalation or loan rate above 100 % a period in size (|rate| > 1), or an
+# income-tax rate or credit of 1 (100 %) or more, is refused with the fraction probably
+# meant, unless the study asks for extreme rates explicitly (--allow-extreme-rates).
+PERCENT_RATE_LIMIT = 1.0
+PERCENT_TAX_LIMIT = 1.0
+
+# Largest amount of one cash-flow line (or parametric amount), in size. Far beyond any real
+# budget (a million billion), and small enough that an amount grown by the largest factors a
+# grid allows over 1,200 periods and summed over millions of lines stays a finite double
+# (1e15 x 1e280 x 1e7 lines < 1.8e308); larger amounts are refused at load.
+MAX_AMOUNT = 1e15

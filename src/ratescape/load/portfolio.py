@@ -54,7 +54,7 @@ def _typed_flows(cells: Cells, source: str) -> pl.DataFrame:
     """Parse and check one batch of cash-flow cells; bad cells become nulls and issues."""
     project_id = cells.identifier("project_id")
     period = cells.integer("period", required=True, minimum=0, what="a period index (0 = now)")
-    amount = cells.number("amount", required=True, what="an amount of money")
+    amount = cells.money("amount", required=True)
     basis = cells.choice("basis", BASES, default="real")
     escalation = cells.rate("escalation")
     kind = cells.choice("kind", KINDS, default="")
@@ -78,7 +78,7 @@ def _flow_stats(parts: list[pl.DataFrame]) -> pl.DataFrame:
 
 
 def _read_cash_flows(path, issues: list[Issue], notes: list[str], known_ids: set[str] | None,
-                     projects_name: str) -> tuple[pl.DataFrame | None, pl.DataFrame | None]:
+                     projects_name: str, allow_extreme_rates: bool = False) -> tuple[pl.DataFrame | None, pl.DataFrame | None]:
     """Stream the cash-flow file block by block; return (typed rows or None, per-project stats or None).
 
     The rows are None whenever an issue was found anywhere (nothing will be
@@ -100,7 +100,7 @@ def _read_cash_flows(path, issues: list[Issue], notes: list[str], known_ids: set
         return f"add '{pid}' to {projects_name} or correct the id"
 
     for batch in source.batches():
-        cells = Cells(source.name, batch, issues, counts)
+        cells = Cells(source.name, batch, issues, counts, allow_extreme_rates)
         typed = _typed_flows(cells, name)
         if known is not None:
             unknown = ~typed["project_id"].is_in(known) & (typed["project_id"] != "")
@@ -128,22 +128,25 @@ def _read_cash_flows(path, issues: list[Issue], notes: list[str], known_ids: set
     if not keep:  # the file is good but too big to keep during the first read: read it again
         second = open_table(path, CASH_FLOW_COLUMNS, [])
         assert second is not None
-        kept = [_typed_flows(Cells(source.name, batch, issues, {}), name) for batch in second.batches()]
+        kept = [_typed_flows(Cells(source.name, batch, issues, {}, allow_extreme_rates), name)
+                for batch in second.batches()]
     return pl.concat(kept, how="vertical"), merged
 
 
-def _read_projects(path, issues: list[Issue], notes: list[str]) -> tuple[pl.DataFrame | None, Cells | None]:
+def _read_projects(path, issues: list[Issue], notes: list[str],
+                   allow_extreme_rates: bool = False) -> tuple[pl.DataFrame | None, Cells | None]:
     table = read_table(path, PROJECT_COLUMNS, issues)
     notes.extend(table.notes)
     if table.frame is None:
         return None, None
-    cells = Cells(table.path, table.frame, issues)
+    cells = Cells(table.path, table.frame, issues, allow_extreme_rates=allow_extreme_rates)
     ids = cells.identifier("project_id")
     check_unique_ids(cells, ids)
-    cols = [ids, cells.text("name").alias("name"), cells.text("group_name").alias("group_name"),
-            cells.text("requires").alias("requires"), cells.boolean("mandatory"),
+    # group names and required ids are compared like ids: in Unicode normal form C
+    cols = [ids, cells.text("name").alias("name"), cells.text("group_name").str.normalize("NFC").alias("group_name"),
+            cells.text("requires").str.normalize("NFC").alias("requires"), cells.boolean("mandatory"),
             cells.text("category").alias("category")]
-    money = {c: cells.number(c, required=False, what="a non-negative amount of money") for c in PARAMETRIC_MONEY}
+    money = {c: cells.money(c, required=False, what="a non-negative amount of money") for c in PARAMETRIC_MONEY}
     for c, series in money.items():
         cells.report((series < 0).fill_null(False), c, "negative amount",
                      "give parametric amounts as positive numbers; ratescape applies the signs "
@@ -157,8 +160,8 @@ def _read_projects(path, issues: list[Issue], notes: list[str]) -> tuple[pl.Data
              cells.integer("service_quarter", required=False, minimum=1, maximum=4,
                            what="the quarter the asset is placed in service (1-4)"),
              cells.integer("recovery_years", required=False, minimum=1, maximum=100, what="a recovery period in years"),
-             cells.number("depreciable_basis", required=False, what="an amount of money"),
-             cells.number("loan_amount", required=False, what="an amount of money"),
+             cells.money("depreciable_basis", required=False),
+             cells.money("loan_amount", required=False),
              cells.rate("loan_rate"),
              cells.integer("loan_term", required=False, minimum=1, what="a loan term in periods")]
     cells.finish()
@@ -170,6 +173,8 @@ def _read_projects(path, issues: list[Issue], notes: list[str]) -> tuple[pl.Data
         if not any(i.line == line and i.column == "life" for i in issues):
             issues.append(Issue(cells.path, line, "life", "", "parametric amounts given without a life",
                                 "give the life in periods (a whole number >= 1)"))
+    if table.broken:   # rows of the wrong shape: cells checked, but no cross-file checks on a partial table
+        return None, cells
     return frame, cells
 
 
@@ -292,13 +297,15 @@ def _find_cycle(graph: dict[str, list[str]]) -> list[str] | None:
     return None
 
 
-def read_portfolio(projects_path, cash_flows_path=None) -> Portfolio:
+def read_portfolio(projects_path, cash_flows_path=None, *, allow_extreme_rates: bool = False) -> Portfolio:
     """Read, validate and expand a portfolio; raise ValidationError listing every problem.
 
     Parameters
     ----------
     projects_path : path of the projects CSV (at least ``project_id,name``).
     cash_flows_path : optional path of the long-form cash-flow CSV.
+    allow_extreme_rates : accept escalation and loan rates above 100 % in size (refused
+        otherwise as percentage typos).
 
     Returns
     -------
@@ -307,9 +314,10 @@ def read_portfolio(projects_path, cash_flows_path=None) -> Portfolio:
     """
     issues: list[Issue] = []
     notes: list[str] = []
-    projects, _ = _read_projects(projects_path, issues, notes)
+    projects, _ = _read_projects(projects_path, issues, notes, allow_extreme_rates)
     known = set(projects["project_id"].to_list()) if projects is not None else None
-    flows, stats = (_read_cash_flows(cash_flows_path, issues, notes, known, Path(projects_path).name)
+    flows, stats = (_read_cash_flows(cash_flows_path, issues, notes, known, Path(projects_path).name,
+                                     allow_extreme_rates)
                     if cash_flows_path else (None, None))
     if projects is not None and (cash_flows_path is None or stats is not None):
         _check_structure(projects, stats, str(projects_path), str(cash_flows_path) if cash_flows_path else None, issues)

@@ -10,7 +10,10 @@ a quoted field), so a file of any size is checked with memory bounded by the
 block size: :meth:`CsvSource.batches` yields one frame of text cells per
 block. Line numbers are physical, 1-based, with the header on line 1. Empty
 lines are skipped (a note says how many); a quoted field holding a line break
-is refused, as are rows with too many or too few fields.
+is refused, as are rows with too many or too few fields, lines longer than
+:data:`MAX_CARRY_BYTES`, invalid UTF-8 and UTF-16 files. After a structural
+fault the rest of the file is still read and checked (rows of the wrong shape
+are left out of the cell checks), so every fault of a file is found in one pass.
 """
 from __future__ import annotations
 
@@ -39,11 +42,16 @@ ROW_FIX = "make every line have the same number of comma-separated fields as the
 
 @dataclass
 class RawTable:
-    """Cells of one CSV file as strings, with the mapping to canonical names."""
+    """Cells of one CSV file as strings, with the mapping to canonical names.
+
+    ``broken``: a structural fault was found; ``frame`` then holds the well-formed rows
+    only (for their cell checks) and the file must not be loaded.
+    """
 
     path: str
     frame: pl.DataFrame | None
     notes: list[str] = field(default_factory=list)
+    broken: bool = False
 
 
 def _first_line(path: Path) -> bytes:
@@ -106,10 +114,29 @@ class CsvSource:
                 cut = _cut_outside_quotes(data)
                 if cut < 0:
                     if len(data) > MAX_CARRY_BYTES:
-                        self._structural(line, None, "a double quote opens a field that does not close "
-                                         f"within {MAX_CARRY_BYTES >> 20} MB",
-                                         "close the quoted field, or remove the stray '\"'")
-                        return
+                        if b"\n" in data:
+                            self._structural(line, None, "a double quote opens a field that does not close "
+                                             f"within {MAX_CARRY_BYTES >> 20} MB",
+                                             "close the quoted field, or remove the stray '\"'")
+                            return
+                        cr = b"\r" in data
+                        self._structural(line, _excerpt(data[:60].decode("utf-8", "replace")),
+                                         f"line too long: more than {MAX_CARRY_BYTES >> 20} MB without a line end"
+                                         + (" (the file has CR line ends only)" if cr else ""),
+                                         "end every row with a line break (LF or CR LF)"
+                                         + ("; save the file with Windows or Unix line ends" if cr else
+                                            "; check that this is the CSV file meant"))
+                        # skip to the end of the long line and go on checking the rest of the file
+                        while True:
+                            chunk = fh.read(self.block_bytes)
+                            if not chunk:
+                                return
+                            end = chunk.find(b"\n")
+                            if end >= 0:
+                                carry = chunk[end + 1:]
+                                line += 1
+                                break
+                        continue
                     carry = data
                     continue
                 block, carry = data[: cut + 1], data[cut + 1:]
@@ -127,20 +154,29 @@ class CsvSource:
         for first_line, block in self._blocks():
             try:
                 text = block.decode("utf-8")
-            except UnicodeDecodeError as exc:
-                line = first_line + block.count(b"\n", 0, exc.start)
-                start = block.rfind(b"\n", 0, exc.start) + 1
-                self._structural(line, block[exc.start: exc.end + 3].hex(" "), "invalid UTF-8 bytes",
-                                 "save the file as UTF-8 (CSV UTF-8); the bytes shown are not valid UTF-8"
-                                 + (f" (they follow {block[start:exc.start][-20:].decode('utf-8', 'replace')!r})"
-                                    if exc.start > start else ""))
-                return
+            except UnicodeDecodeError:
+                text = self._bad_utf8(block, first_line)
             frame = _parse_plain(text, n, first_line, self) if '"' not in text else _parse_quoted(text, n, first_line, self)
-            if frame is None or self.broken:
+            if frame is None:
                 continue
             frame.columns = [*self.columns, "line"]
             self.rows += frame.height
             yield frame
+
+    def _bad_utf8(self, block: bytes, first_line: int) -> str:
+        """Report each line of ``block`` holding invalid UTF-8; return the block decoded with
+        replacement characters, so that the rest of the block is still checked."""
+        line = first_line
+        for raw in block.split(b"\n"):
+            try:
+                raw.decode("utf-8")
+            except UnicodeDecodeError as exc:
+                before = raw[:exc.start][-20:].decode("utf-8", "replace")
+                self._structural(line, raw[exc.start: exc.end + 3].hex(" "), "invalid UTF-8 bytes",
+                                 "save the file as UTF-8 (CSV UTF-8); the bytes shown are not valid UTF-8"
+                                 + (f" (they follow {before!r})" if exc.start > 0 else ""))
+            line += 1
+        return block.decode("utf-8", "replace")
 
     def finish(self) -> None:
         """Add the count of structural problems not listed, and the note on skipped empty lines."""
@@ -183,11 +219,11 @@ def _parse_plain(text: str, n: int, first_line: int, src: CsvSource) -> pl.DataF
         for line, value, count in bad.head(MAX_STRUCTURE_ISSUES).iter_rows():
             src._structural(line, _excerpt(value), f"{count} fields where the header has {n}", ROW_FIX)
         src._structure_issues += max(0, bad.height - MAX_STRUCTURE_ISSUES)
-        return None
     nblank = int(blank.sum())
     if nblank:
         src.blank_lines += nblank
-        keep = ~blank
+    if nblank or ragged.any():   # the well-formed rows are still checked cell by cell
+        keep = ~blank & ~ragged
         raw, line_no = raw.filter(keep), line_no.filter(keep)
     if n == 1:
         cells = pl.DataFrame({"field_0": raw})
@@ -225,12 +261,8 @@ def _parse_quoted(text: str, n: int, first_line: int, src: CsvSource) -> pl.Data
         if len(row) != n:
             src._structural(start, _excerpt(",".join(row)), f"{len(row)} fields where the header has {n}", ROW_FIX)
             continue
-        if src.broken:
-            continue
         rows.append(row)
         lines.append(start)
-    if src.broken:
-        return None
     cols = list(zip(*rows)) if rows else [()] * n
     data = {f"field_{k}": pl.Series(f"field_{k}", list(cols[k]), dtype=pl.String) for k in range(n)}
     data["line"] = pl.Series("line", lines, dtype=pl.Int64)
@@ -258,6 +290,16 @@ def open_table(path: str | Path, columns: dict, issues: list[Issue]) -> CsvSourc
     notes: list[str] = []
     head = _first_line(p)
     header_bytes = len(head)
+    if head[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        issues.append(Issue(name, 1, None, head[:2].hex(" "), "the file is UTF-16 text (it starts with a UTF-16 "
+                            "byte-order mark)", "save the file as UTF-8 (CSV UTF-8) and try again"))
+        return None
+    if b"\x00" in head:
+        order = "little-endian" if head[1:2] == b"\x00" else "big-endian"
+        issues.append(Issue(name, 1, None, head[:8].hex(" "), f"the file looks like UTF-16 ({order}) text without "
+                            "a byte-order mark (NUL bytes between the letters)",
+                            "save the file as UTF-8 (CSV UTF-8) and try again"))
+        return None
     if head.startswith(BOM):
         head = head[len(BOM):]
         notes.append(f"{name}: a UTF-8 byte-order mark was found at the start and ignored.")
@@ -331,6 +373,9 @@ def read_table(path: str | Path, columns: dict, issues: list[Issue]) -> RawTable
     frames = list(source.batches())
     source.finish()
     if source.broken:
+        table.broken = True
+        if frames:
+            table.frame = pl.concat(frames, how="vertical") if len(frames) > 1 else frames[0]
         return table
     if source.rows == 0:
         issues.append(Issue(name, 2, None, None, "the file has a header but no data rows",

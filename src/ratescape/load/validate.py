@@ -10,14 +10,25 @@ import re
 
 import polars as pl
 
-from .columns import BASES, FALSE_WORDS, KINDS, MAX_PERIOD, TRUE_WORDS
-from ..errors import Issue
+from .columns import BASES, FALSE_WORDS, KINDS, MAX_AMOUNT, MAX_PERIOD, PERCENT_RATE_LIMIT, TRUE_WORDS
+from ..errors import Issue, percent_typo
 
 # Cap on issues recorded per column, so a 2 GB file of bad cells still
 # produces a readable message (the total count is reported).
 MAX_ISSUES_PER_COLUMN = 200
 
 _CURRENCY = re.compile(r"[$€£¥₹]")
+# Characters an id may not hold: C0/C1 controls (Cc), invisible format characters such as
+# zero-width spaces and joiners and bidirectional overrides (Cf), line and paragraph separators,
+# and spaces other than the plain space (a no-break space looks like a space but is not one).
+INVISIBLE = r"[\p{Cc}\p{Cf}\p{Zl}\p{Zp}\p{Co}[\p{Zs}&&[^ ]]]"
+
+
+def _invisible_fix(value: str) -> str:
+    shown = ", ".join(sorted({f"U+{ord(c):04X}" for c in value
+                              if not c.isprintable() or (c.isspace() and c != " ")}))
+    return (f"remove the invisible or control character(s) {shown or '(not printable)'}; ids are compared as "
+            "they look, so they may hold only printable text")
 
 
 def _const(value, n: int, dtype) -> pl.Series:
@@ -46,8 +57,10 @@ def number_fix(value: str, what: str = "a plain number") -> str:
 class Cells:
     """Collects issues for one file while its columns are parsed."""
 
-    def __init__(self, path: str, frame: pl.DataFrame, issues: list[Issue], counts: dict | None = None):
+    def __init__(self, path: str, frame: pl.DataFrame, issues: list[Issue], counts: dict | None = None,
+                 allow_extreme_rates: bool = False):
         self.path = path
+        self.allow_extreme_rates = allow_extreme_rates
         self.frame = frame
         self.issues = issues
         # bad cells per column, shared by the batches of one file (see ``finish``)
@@ -110,12 +123,34 @@ class Cells:
         ok = ~(fractional | low | high)
         return values.zip_with(ok, _const(None, len(values), pl.Float64)).cast(pl.Int64).alias(column)
 
+    def money(self, column: str, *, required: bool, default: float | None = None,
+              what: str = "an amount of money") -> pl.Series:
+        """An amount: a finite number of at most :data:`MAX_AMOUNT` in size (blanks as in :meth:`number`)."""
+        values = self.number(column, required=required, default=default, what=what)
+        huge = (values.abs() > MAX_AMOUNT).fill_null(False)
+        limit = f"{MAX_AMOUNT:.0e}".replace("+", "")
+        self.report(huge, column, f"an amount larger than {limit} in size, which could not be discounted "
+                    "and summed in double precision over 1,200 periods and millions of lines",
+                    f"give amounts of at most {limit} (a million billion) in size; for larger sums "
+                    "state them in thousands or millions of the currency")
+        return values.zip_with(~huge, _const(None, len(values), pl.Float64)).alias(column)
+
     def rate(self, column: str, *, default: float = 0.0) -> pl.Series:
-        """A rate as a fraction per year, > -1 (-100 %); blank means ``default``."""
+        """A rate as a fraction per year, > -1 (-100 %); blank means ``default``.
+
+        A rate above 1 (100 %) in size is refused as a near-certain percentage typo ("2" for
+        2 %) unless the load allows extreme rates.
+        """
         values = self.number(column, required=False, default=default, what="a rate as a fraction (0.02 = 2 %)")
-        low = values <= -1.0
-        self.report(low.fill_null(False), column, "a rate of -100 % or less",
-                    "give a fraction greater than -1 (0.02 = 2 %)")
+        low = (values <= -1.0).fill_null(False)
+        self.report(low, column, "a rate of -100 % or less",
+                    lambda v: "give a fraction greater than -1 (0.02 = 2 %)"
+                    + (f"; {percent_typo(float(v))}" if abs(float(v)) > PERCENT_RATE_LIMIT else ""))
+        if not self.allow_extreme_rates:
+            big = ~low & (values.abs() > PERCENT_RATE_LIMIT).fill_null(False)
+            self.report(big, column, "a rate of more than 100 % a period in size, almost surely a percentage",
+                        lambda v: f"write rates as fractions: {percent_typo(float(v))} (for a genuinely extreme "
+                                  "rate, load with --allow-extreme-rates)")
         return values
 
     def choice(self, column: str, allowed: tuple[str, ...], *, default: str | None) -> pl.Series:
@@ -135,21 +170,32 @@ class Cells:
         return is_true.alias(column)
 
     def identifier(self, column: str) -> pl.Series:
+        """An id: normalised to Unicode NFC (so ids that look alike are alike); blank ids and ids
+        holding invisible or control characters are refused."""
         raw = self.text(column)
         self.report(raw == "", column, "blank id", "give every row an id")
-        return raw.alias(column)
+        hidden = raw.str.contains(INVISIBLE)
+        self.report(hidden, column, "an id holding an invisible or control character", _invisible_fix)
+        return raw.str.normalize("NFC").alias(column)
 
 
 def check_unique_ids(cells: Cells, ids: pl.Series) -> None:
-    """Duplicate ids, including ids that differ only in letter case, are refused."""
+    """Duplicate ids, including ids that differ only in letter case or Unicode normalisation, are refused."""
     lower = ids.str.to_lowercase()
-    frame = pl.DataFrame({"line": cells.frame["line"], "id": ids, "key": lower})
+    frame = pl.DataFrame({"line": cells.frame["line"], "id": ids, "key": lower, "raw": cells.text("project_id")})
     frame = frame.filter(pl.col("id") != "")
     first = frame.group_by("key", maintain_order=True).agg(pl.col("line").first().alias("first_line"),
-                                                           pl.col("id").first().alias("first_id"))
+                                                           pl.col("id").first().alias("first_id"),
+                                                           pl.col("raw").first().alias("first_raw"))
     joined = frame.join(first, on="key").filter(pl.col("line") != pl.col("first_line"))
-    for line, pid, first_line, first_id in joined.select("line", "id", "first_line", "first_id").head(MAX_ISSUES_PER_COLUMN).iter_rows():
-        how = "the same id" if pid == first_id else f"an id that differs only in letter case from '{first_id}'"
+    for line, pid, first_line, first_id, raw, first_raw in joined.select(
+            "line", "id", "first_line", "first_id", "raw", "first_raw").head(MAX_ISSUES_PER_COLUMN).iter_rows():
+        if pid != first_id:
+            how = f"an id that differs only in letter case from '{first_id}'"
+        elif raw != first_raw:
+            how = f"an id that is the same after Unicode normalisation (NFC) as '{first_raw}'"
+        else:
+            how = "the same id"
         cells.issues.append(Issue(cells.path, line, "project_id", pid,
                                   f"{how} already appears on line {first_line}",
                                   "give every project a unique id (ids are compared ignoring case)"))

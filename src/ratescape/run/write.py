@@ -48,7 +48,7 @@ def chunk_tables(plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out:
     P = out["pw"].shape[1]
     summary = pa.table({"project_id": pa.array(ids.tolist(), type=pa.string()),
                         "project_key": pa.array(np.arange(first, first + P, dtype=np.int32)),
-                        **{k: pa.array(v, mask=np.isnan(v) if np.asarray(v).dtype.kind == "f" else None)
+                        **{k: pa.array(v, mask=~np.isfinite(v) if np.asarray(v).dtype.kind == "f" else None)
                            for k, v in out["summary"].items()}})
     irr = out["irr"]
     F, _ = out["irr_shape"]
@@ -62,8 +62,8 @@ def chunk_tables(plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out:
         "project_id": arrow_labels(np.tile(np.arange(P), F), ids),
         "inflation": pa.array(f_rows),
         "root_count": pa.array(count.astype(np.int32)),
-        "irr_nominal": pa.array(unique_root, mask=np.isnan(unique_root)),
-        "irr_real": pa.array((1 + unique_root) / (1 + f_rows) - 1, mask=np.isnan(unique_root)),
+        "irr_nominal": arrow_floats(unique_root),
+        "irr_real": arrow_floats((1 + unique_root) / (1 + f_rows) - 1),
         "status": arrow_labels(irr.status, STATUS_LABELS),
         "sign_changes": pa.array(np.asarray(irr.sign_changes).astype(np.int32)),
     })
@@ -174,7 +174,7 @@ class RowColumns:
                 buffer.reshape(self.kept.size, width)[:, derived] = np.nan
             if measure == "pi" and np.isnan(buffer).all():
                 continue                       # derived, or projects without an investment: no PI
-            columns[column] = pa.array(buffer, from_pandas=measure == "pi")     # PI: NaN -> NULL
+            columns[column] = pa.array(buffer, mask=~np.isfinite(buffer))     # NaN, +-inf -> NULL (PI: no investment)
         return result_table_for(set(columns)), pa.table(columns)
 
 
