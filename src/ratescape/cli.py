@@ -27,8 +27,14 @@ def _interrupted(exc: BaseException) -> None:
 
 
 def _os_error(exc: OSError) -> str:
+    import errno
+
     from .store.outputs import os_error_message
     name = exc.filename or "a file"
+    if exc.errno == errno.ENOSPC and ".scratch" in str(name):
+        return (f"the disk is full: the screen could not write its worth file {name}. Fix: free disk space "
+                "(the worth files of a run take about 8 bytes per project and scenario) and start the run "
+                "again with `ratescape screen` (the run is marked failed)")
     if ".scratch" in str(name):
         return (f"the run's worth-file folder was removed or cannot be used while the screen needed it ({name}: "
                 f"{exc.strerror}). Fix: leave DB.scratch alone while a screen runs, free disk space if it is "
@@ -337,7 +343,7 @@ def _query_notes(db_path, name_or_file, params, frame, quiet) -> None:
 @main.command(cls=Command)
 @click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
 @click.option("--run", "run_id", help="Run id (default: the newest finished run).")
-@click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False), help="HTML file to write.")
+@click.option("--out", "out_path", required=True, type=click.Path(), help="HTML file to write.")
 @click.option("--project", "projects", multiple=True, help="Project id for drill-down charts. Repeatable.")
 @click.option("--quiet", is_flag=True, help="Print nothing but errors.")
 def report(db_path, run_id, out_path, projects, quiet):
@@ -371,7 +377,7 @@ CHART_KINDS = ["acceptance-share", "acceptance-vs-inflation", "rank-stability", 
 @click.option("--run", "run_id", help="Run id (default: the newest finished run).")
 @click.option("--project", "projects", multiple=True, help="Project id for project charts. Repeatable.")
 @click.option("--group", help="Group of alternatives for decision-map.")
-@click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False),
+@click.option("--out", "out_path", required=True, type=click.Path(),
               help="Output file: .html (offline), .png, .svg or .json (the chart specification).")
 @click.option("--quiet", is_flag=True, help="Print nothing but errors.")
 def chart(db_path, kind, run_id, projects, group, out_path, quiet):
@@ -395,8 +401,8 @@ def chart(db_path, kind, run_id, projects, group, out_path, quiet):
     from .report.chart_files import check_chart_suffix
     from .store.database import connect_read
     from .store.outputs import check_output_path
-    check_chart_suffix(out_path)
     check_output_path(db_path, out_path)
+    check_chart_suffix(out_path)
     connect_read(db_path).close()  # clear message when the file is missing or busy
     _check_project_ids(db_path, projects)
     write_chart(db_path, kind, out_path, run_id=run_id, projects=list(projects) or None, group=group,
@@ -408,7 +414,7 @@ def chart(db_path, kind, run_id, projects, group, out_path, quiet):
 @main.command(cls=Command)
 @click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
 @click.option("--run", "run_id", help="Run id (default: the newest finished run).")
-@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Folder for the files.")
+@click.option("--out", "out_dir", required=True, type=click.Path(), help="Folder for the files.")
 @click.option("--table", "tables", multiple=True, help="Table to export (default: every table of the run). Repeatable.")
 @click.option("--format", "fmt", type=click.Choice(["parquet", "csv"]), default="parquet", show_default=True,
               help="File format (CSV text cells that a spreadsheet would run as formulas get a leading ').")

@@ -111,8 +111,8 @@ def write_chart(db_path: str | Path, kind: str, out_path: str | Path, *, run_id:
     if kind not in CHART_KINDS:
         raise ReportError(f"unknown chart kind {kind!r}; use one of: {', '.join(CHART_KINDS)}")
     stage = CHART_KINDS[kind]
-    check_chart_suffix(out_path)
     check_output_path(db_path, out_path)
+    check_chart_suffix(out_path)
     check_parent_folder(out_path)
     con = connect_read(db_path)
     try:
@@ -133,11 +133,12 @@ def write_chart(db_path: str | Path, kind: str, out_path: str | Path, *, run_id:
         for sec in matching:
             if sec.chart is not None:
                 charts.save_chart(sec.chart, out_path)
-                if on_pick is not None and sec.subject and (
+                subject = sec.subject or (ids[0] if stage in ("drill", "sensitivity") and ids else None)
+                if on_pick is not None and subject and (
                         (stage == "decision" and group is None) or (stage in ("drill", "sensitivity") and not projects)):
                     what = "group" if stage == "decision" else "project"
                     flag = "--group" if stage == "decision" else "--project"
-                    on_pick(f"no {flag} given: charted {what} {sec.subject!r} (give {flag} to choose another)")
+                    on_pick(f"no {flag} given: charted {what} {subject!r} (give {flag} to choose another)")
                 return Path(out_path)
         why = next((sec.unavailable for sec in matching if sec.unavailable), None)
         raise ReportError(f"no {kind} chart for this run" + (f": {why}" if why else
