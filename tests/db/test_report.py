@@ -530,7 +530,9 @@ def test_optional_tables_missing_sections_say_so(tmp_path):
 def test_missing_required_table_and_missing_file(tmp_path):
     db = tmp_path / "empty.duckdb"
     duckdb.connect(str(db)).close()
-    with pytest.raises(run_data.ReportError, match="lacks table"):
+    # an empty DuckDB file has no ratescape schema version: refused on opening (issue 17, item 2)
+    from ratescape.errors import RatescapeError
+    with pytest.raises(RatescapeError, match="is not a ratescape database .it has no ratescape schema version"):
         publish.write_report(db, tmp_path / "r.html")
     with pytest.raises(run_data.ReportError, match="no database at"):
         publish.write_report(tmp_path / "absent.duckdb", tmp_path / "r.html")
