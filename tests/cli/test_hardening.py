@@ -522,3 +522,12 @@ def test_quiet_prints_nothing_but_errors(db, tmp_path, args):
         assert r.stdout == ""
     else:
         assert "rows)" not in r.stdout and "A" in r.stdout
+
+
+def test_output_onto_the_log_of_a_database_given_through_a_link_is_refused(db, tmp_path):
+    link = tmp_path / "alias.duckdb"
+    os.symlink(db, link)
+    r = run("report", "--db", link, "--out", tmp_path / "alias.duckdb.wal")
+    assert r.exit_code == 1
+    assert "is the database's write-ahead log" in r.stderr
+    assert not (tmp_path / "alias.duckdb.wal").exists()

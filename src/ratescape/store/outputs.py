@@ -33,9 +33,15 @@ def _resolved(path) -> Path:
 
 def protected_paths(db_path) -> dict[Path, str]:
     """The resolved paths that belong to the database at ``db_path``, each with what it is."""
-    db = _resolved(db_path)
-    return {db: "the database file itself", Path(f"{db}.wal"): "the database's write-ahead log",
-            Path(f"{db}.scratch"): "the database's worth-file folder"}
+    found: dict[Path, str] = {}
+    # DuckDB names the log and ratescape the worth-file folder after the path as given, which may be
+    # a link: both the given spelling (made absolute) and the resolved one are protected.
+    for db in (Path(os.path.abspath(os.fspath(db_path))), _resolved(db_path)):
+        found.setdefault(db, "the database file itself")
+        for suffix, what in ((".wal", "the database's write-ahead log"), (".scratch", "the database's worth-file folder")):
+            found.setdefault(Path(f"{db}{suffix}"), what)
+            found.setdefault(_resolved(f"{db}{suffix}"), what)
+    return found
 
 
 def check_output_path(db_path, out_path, *, option: str = "--out") -> None:
