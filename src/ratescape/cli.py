@@ -13,28 +13,100 @@ from .errors import RatescapeError
 
 
 
-def _fail(exc: Exception) -> None:
-    click.echo(f"Error: {exc}", err=True)
+def _fail(exc) -> None:
+    from .store.outputs import terminal_safe
+    click.echo(f"Error: {terminal_safe(str(exc))}", err=True)
     sys.exit(1)
 
 
+def _interrupted(exc: BaseException) -> None:
+    from .errors import interruption_exit_code
+    code, name = interruption_exit_code(exc)
+    click.echo("Interrupted." if name == "SIGINT" else f"Interrupted ({name}).", err=True)
+    sys.exit(code)
+
+
+def _os_error(exc: OSError) -> str:
+    import errno
+
+    from .store.outputs import os_error_message
+    name = exc.filename or "a file"
+    if exc.errno == errno.ENOSPC and ".scratch" in str(name):
+        return (f"the disk is full: the screen could not write its worth file {name}. Fix: free disk space "
+                "(the worth files of a run take about 8 bytes per project and scenario) and start the run "
+                "again with `ratescape screen` (the run is marked failed)")
+    if ".scratch" in str(name):
+        return (f"the run's worth-file folder was removed or cannot be used while the screen needed it ({name}: "
+                f"{exc.strerror}). Fix: leave DB.scratch alone while a screen runs, free disk space if it is "
+                "full, and start the run again with `ratescape screen` (the run is marked failed)")
+    return os_error_message(exc, name, "use")
+
+
 class Command(click.Command):
-    """Turn user-fixable errors into ``Error: ...`` and a non-zero exit, never a traceback."""
+    """Turn user-fixable errors into ``Error: ...`` and a non-zero exit, never a traceback.
+
+    Ctrl-C, SIGTERM and SIGHUP end with "Interrupted." and exit 130, 143 and 129; the operating
+    system's refusals (disk full, read-only location, missing folder) and a database DuckDB cannot
+    read are one line each with the fix.
+    """
 
     def invoke(self, ctx):
+        import duckdb
+
+        from .store.database import is_interrupt
         try:
             return super().invoke(ctx)
         except RatescapeError as exc:
             _fail(exc)
-        except KeyboardInterrupt:
-            click.echo("Interrupted.", err=True)
-            sys.exit(130)
-        except Exception as exc:   # DuckDB's forms of Ctrl-C during a query
-            from .store.database import is_interrupt
-            if not is_interrupt(exc):
-                raise
-            click.echo("Interrupted.", err=True)
-            sys.exit(130)
+        except KeyboardInterrupt as exc:
+            _interrupted(exc)
+        except OSError as exc:
+            _fail(_os_error(exc))
+        except Exception as exc:   # DuckDB's forms of Ctrl-C during a query, and damaged databases
+            if is_interrupt(exc):
+                _interrupted(exc)
+            if isinstance(exc, duckdb.Error):
+                _fail(f"the database could not be read or written ({str(exc).splitlines()[0]}). Fix: if the "
+                      "disk is full, free space; if the file is damaged, restore it from a copy or load the "
+                      "portfolio into a new database")
+            if isinstance(exc, MemoryError):
+                _fail("out of memory. Fix: give a smaller grid or --chunk-size, or use a larger machine")
+            raise
+
+
+def _note(message: str, quiet: bool = False) -> None:
+    """A line on standard error saying what the command chose or noticed (not with --quiet)."""
+    if not quiet:
+        from .store.outputs import terminal_safe
+        click.echo(f"Note: {terminal_safe(message)}", err=True)
+
+
+def _check_project_ids(db_path, projects) -> None:
+    """Refuse a project id the database lacks when it differs from a known one only in case or
+    Unicode form, with "did you mean"; other unknown ids are left to the command's own message."""
+    if not projects:
+        return
+    import unicodedata
+
+    from .store.database import connect_read
+
+    con = connect_read(db_path)
+    try:
+        known = {r[0] for r in con.execute("SELECT project_id FROM projects UNION "
+                                           "SELECT DISTINCT project_id FROM project_summary").fetchall()}
+    finally:
+        con.close()
+
+    def fold(text: str) -> str:
+        return unicodedata.normalize("NFKC", text).casefold().strip()
+
+    folded = {}
+    for k in sorted(known):
+        folded.setdefault(fold(k), k)
+    for pid in projects:
+        if pid not in known and fold(pid) in folded:
+            raise RatescapeError(f"no project {pid!r} in {db_path}; did you mean {folded[fold(pid)]!r}? "
+                                 "Fix: project ids are matched exactly, case included")
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
@@ -88,6 +160,8 @@ def load(projects_path, cash_flows_path, db_path, allow_extreme_rates):
       ratescape load --projects projects.csv --cash-flows cash_flows.csv --db plan.duckdb
     """
     from .api import load_portfolio
+    from .store.database import check_database_file
+    check_database_file(db_path)        # refuse a CSV (or any non-database) as --db before reading anything
     info = load_portfolio(projects_path, cash_flows_path, db_path, allow_extreme_rates=allow_extreme_rates)
     for note in info["notes"]:
         click.echo(f"Note: {note}", err=True)
@@ -214,11 +288,24 @@ def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budget
 @main.command(cls=Command)
 @click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
 @click.argument("name_or_file", required=False)
-@click.option("--param", "params", multiple=True, metavar="KEY=VALUE", help="A query parameter. Repeatable.")
+@click.option("--param", "params", multiple=True, metavar="KEY=VALUE",
+              help="A query parameter; rates as fractions (0.06, not 6%). Repeatable.")
 @click.option("--format", "fmt", type=click.Choice(["table", "csv", "json"]), default="table", show_default=True)
 @click.option("--list", "list_only", is_flag=True, help="List the bundled queries and their parameters.")
-def query(db_path, name_or_file, params, fmt, list_only):
+@click.option("--timeout", type=click.FloatRange(min=0), default=300, show_default=True, metavar="SECONDS",
+              help="Stop a query that runs longer than this (0 = no limit).")
+@click.option("--raw-csv", is_flag=True,
+              help="CSV cells as stored: no quote prefix on text beginning with = + - @ tab or carriage return.")
+@click.option("--quiet", is_flag=True, help="No notes and no row count; the result and errors only.")
+def query(db_path, name_or_file, params, fmt, list_only, timeout, raw_csv, quiet):
     """Run a bundled query by name, or a .sql file, on a read-only connection.
+
+    A query running longer than --timeout seconds is stopped. In CSV output a
+    text cell beginning with = + - @, a tab or a carriage return gets a leading
+    ' so a spreadsheet shows it as text instead of running it as a formula
+    (--raw-csv turns this off); numbers are not changed. Table output shows
+    control characters, bidirectional overrides and invisible characters as
+    escapes (\x1b, <U+202E>).
 
     \b
     Example:
@@ -227,10 +314,12 @@ def query(db_path, name_or_file, params, fmt, list_only):
       ratescape query --db plan.duckdb --list
     """
     from .query import list_queries, run_query
+    from .store.outputs import terminal_safe
     if list_only:
         for q in list_queries():
-            ps = ", ".join(f"{k}={v[0]}" for k, v in q.params.items())
-            click.echo(f"{q.name}: {q.about}" + (f" [{ps}]" if ps else ""))
+            click.echo(terminal_safe(f"{q.name}: {q.about}"))
+            for key, (default, meaning) in q.params.items():
+                click.echo(terminal_safe(f"    --param {key}=VALUE  {meaning or 'no description'} (default {default})"))
         return
     if not name_or_file:
         raise click.UsageError("give a query name or a .sql file (see --list)")
@@ -240,29 +329,85 @@ def query(db_path, name_or_file, params, fmt, list_only):
             raise click.UsageError(f"--param {item!r}: expected KEY=VALUE, e.g. --param threshold=0.05")
         k, v = item.split("=", 1)
         parsed[k.strip()] = v.strip()
-    frame = run_query(db_path, name_or_file, parsed)
+    frame = run_query(db_path, name_or_file, parsed, timeout=timeout or None)
+    _query_notes(db_path, name_or_file, parsed, frame, quiet)
     if fmt == "csv":
-        click.echo(frame.write_csv(), nl=False)
+        from .store.outputs import neutralise_frame
+        click.echo((frame if raw_csv else neutralise_frame(frame)).write_csv(), nl=False)
     elif fmt == "json":
         click.echo(json.dumps(frame.to_dicts(), default=str, indent=1))
     else:
-        import polars as pl
-        with pl.Config(tbl_rows=200, tbl_cols=30, fmt_str_lengths=60, tbl_width_chars=200,
-                       tbl_hide_dataframe_shape=True, tbl_hide_column_data_types=True):
-            click.echo(str(frame))
-        click.echo(f"({frame.height} rows)")
+        click.echo(table_for_terminal(frame))
+        if not quiet:
+            click.echo(f"({frame.height} rows)")
+
+
+def table_for_terminal(frame) -> str:
+    """A frame as a text table: control characters escaped, money with thousands separators, no
+    scientific notation (amounts of 1,000 or more to the cent, smaller values in full)."""
+    import polars as pl
+
+    from .store.outputs import terminal_safe
+    exprs = []
+    for name, dtype in frame.schema.items():
+        col = pl.col(name)
+        if dtype == pl.Utf8:
+            exprs.append(col.map_elements(terminal_safe, return_dtype=pl.Utf8))
+        elif dtype.is_float():
+            exprs.append(pl.when(col.abs() >= 1000).then(col.round(2)).otherwise(col).alias(name))
+    shown = frame.with_columns(exprs) if exprs else frame
+    shown = shown.rename({c: terminal_safe(c) for c in shown.columns})
+    with pl.Config(tbl_rows=200, tbl_cols=30, fmt_str_lengths=60, tbl_width_chars=200, thousands_separator=",",
+                   fmt_float="full", tbl_hide_dataframe_shape=True, tbl_hide_column_data_types=True):
+        return terminal_safe(str(shown))
+
+
+def _query_notes(db_path, name_or_file, params, frame, quiet) -> None:
+    """Say on standard error what the query chose for the user: the run, the nearest grid level,
+    and whether the portfolio was reloaded since the run."""
+    if quiet:
+        return
+    from .query import find_query, latest_run
+    from .store.database import PORTFOLIO_RELOADED, connect_read, portfolio_reloaded_since
+    q = find_query(name_or_file)
+    if "run" not in q.params:
+        return
+    con = connect_read(db_path)
+    try:
+        given = params.get("run", q.params["run"][0])
+        run_id = latest_run(con) if given in ("latest", "") else given
+        if given in ("latest", ""):
+            _note(f"run {run_id} (the newest finished run; give --param run=RUN_ID for another)")
+        if portfolio_reloaded_since(con, run_id):
+            _note(f"run {run_id}: {PORTFOLIO_RELOADED}")
+    finally:
+        con.close()
+    for key in q.params:
+        if key == "run" or key not in frame.columns or frame.height == 0:
+            continue
+        try:
+            asked = float(params.get(key, q.params[key][0]))
+        except ValueError:
+            continue
+        levels = frame.get_column(key).unique().to_list()
+        if len(levels) == 1 and levels[0] is not None and abs(float(levels[0]) - asked) > 1e-12:
+            _note(f"{key} {asked:g} is not a level of the run's grid; showing the nearest level, {levels[0]:g}")
 
 
 @main.command(cls=Command)
 @click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
 @click.option("--run", "run_id", help="Run id (default: the newest finished run).")
-@click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False), help="HTML file to write.")
+@click.option("--out", "out_path", required=True, type=click.Path(), help="HTML file to write.")
 @click.option("--project", "projects", multiple=True,
               help="Project id always embedded with its drill-down (the first opens on load). Repeatable.")
 @click.option("--compare-to", "compare_to", metavar="RUN_ID",
               help="An earlier run of the same database: adds the section 'What changed since run RUN_ID'.")
-def report(db_path, run_id, out_path, projects, compare_to):
+@click.option("--quiet", is_flag=True, help="Print nothing but errors.")
+def report(db_path, run_id, out_path, projects, compare_to, quiet):
     """Write the self-contained, offline HTML report of a run.
+
+    --out may not be the database, its write-ahead log (DB.wal) or its
+    worth-file folder (DB.scratch), however the path is spelled.
 
     \b
     Example:
@@ -271,23 +416,38 @@ def report(db_path, run_id, out_path, projects, compare_to):
       ratescape report --db plan.duckdb --compare-to run-20261130-090000-aa11bb --out report.html
     """
     from .report import write_report
+    from .store.outputs import check_output_path
+    check_output_path(db_path, out_path)
+    _check_project_ids(db_path, projects)
     write_report(db_path, out_path, run_id=run_id, projects=list(projects) or None, compare_to=compare_to)
-    click.echo(f"Wrote {out_path}")
-    click.echo(CAUTION, err=True)
+    if not quiet:
+        click.echo(f"Wrote {out_path}")
+        click.echo(CAUTION, err=True)
+
+
+CHART_KINDS = ["acceptance-share", "acceptance-vs-inflation", "rank-stability", "selection-share", "worth-curve",
+               "worth-surface", "decision-map", "tornado", "spider"]
 
 
 @main.command(cls=Command)
 @click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
-@click.argument("kind", type=click.Choice(["acceptance-share", "acceptance-vs-inflation", "rank-stability",
-                                           "selection-share", "worth-curve", "worth-surface", "decision-map",
-                                           "tornado", "spider"]))
+@click.argument("kind", type=click.Choice(CHART_KINDS), metavar="KIND")
 @click.option("--run", "run_id", help="Run id (default: the newest finished run).")
 @click.option("--project", "projects", multiple=True, help="Project id for project charts. Repeatable.")
 @click.option("--group", help="Group of alternatives for decision-map.")
-@click.option("--out", "out_path", required=True, type=click.Path(dir_okay=False),
+@click.option("--out", "out_path", required=True, type=click.Path(),
               help="Output file: .html (offline), .png, .svg or .json (the chart specification).")
-def chart(db_path, kind, run_id, projects, group, out_path):
+@click.option("--quiet", is_flag=True, help="Print nothing but errors.")
+def chart(db_path, kind, run_id, projects, group, out_path, quiet):
     """Write a single chart of a run.
+
+    \b
+    KIND is one of:
+      acceptance-share         acceptance-vs-inflation
+      rank-stability           selection-share
+      worth-curve              worth-surface
+      decision-map             tornado
+      spider
 
     \b
     Example:
@@ -296,29 +456,45 @@ def chart(db_path, kind, run_id, projects, group, out_path):
       ratescape chart --db plan.duckdb acceptance-share --out acceptance.png
     """
     from .report import write_chart
+    from .report.chart_files import check_chart_suffix
     from .store.database import connect_read
+    from .store.outputs import check_output_path
+    check_output_path(db_path, out_path)
+    check_chart_suffix(out_path)
     connect_read(db_path).close()  # clear message when the file is missing or busy
-    write_chart(db_path, kind, out_path, run_id=run_id, projects=list(projects) or None, group=group)
-    click.echo(f"Wrote {out_path}")
+    _check_project_ids(db_path, projects)
+    write_chart(db_path, kind, out_path, run_id=run_id, projects=list(projects) or None, group=group,
+                on_pick=lambda message: _note(message, quiet))
+    if not quiet:
+        click.echo(f"Wrote {out_path}")
 
 
 @main.command(cls=Command)
 @click.option("--db", "db_path", required=True, type=click.Path(dir_okay=False), help="DuckDB database file.")
 @click.option("--run", "run_id", help="Run id (default: the newest finished run).")
-@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Folder for the Parquet files.")
+@click.option("--out", "out_dir", required=True, type=click.Path(), help="Folder for the files.")
 @click.option("--table", "tables", multiple=True, help="Table to export (default: every table of the run). Repeatable.")
-def export(db_path, run_id, out_dir, tables):
-    """Export a run's tables as Parquet files (one per table) for other tools.
+@click.option("--format", "fmt", type=click.Choice(["parquet", "csv"]), default="parquet", show_default=True,
+              help="File format (CSV text cells that a spreadsheet would run as formulas get a leading ').")
+@click.option("--raw-csv", is_flag=True, help="CSV cells as stored, without the quote prefix.")
+@click.option("--quiet", is_flag=True, help="Print nothing but errors.")
+def export(db_path, run_id, out_dir, tables, fmt, raw_csv, quiet):
+    """Export a run's tables as Parquet (or CSV) files, one per table, for other tools.
+
+    The files are written into a temporary folder and moved into --out when
+    all are written: a failure leaves no partial folder.
 
     \b
     Example:
       ratescape export --db plan.duckdb --out ./run-parquet
       ratescape export --db plan.duckdb --table results --table scenarios --out ./cube
+      ratescape export --db plan.duckdb --format csv --out ./run-csv
     """
     from .store.export import export_run
-    info = export_run(db_path, out_dir, run_id=run_id, tables=list(tables) or None)
-    for table, rows in info["tables"].items():
-        click.echo(f"{table}: {rows} rows -> {Path(out_dir) / (table + '.parquet')}")
+    info = export_run(db_path, out_dir, run_id=run_id, tables=list(tables) or None, fmt=fmt, raw_csv=raw_csv)
+    if not quiet:
+        for table, rows in info["tables"].items():
+            click.echo(f"{table}: {rows} rows -> {Path(out_dir) / (table + '.' + fmt)}")
 
 
 REFERENCE_START = "<!-- cli-reference: generated by ratescape.cli.reference_markdown(); do not edit -->"

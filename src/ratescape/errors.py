@@ -102,3 +102,36 @@ class QueryError(RatescapeError):
 def percent_typo(value: float) -> str:
     """Words for a rate that looks like a percentage: "3 looks like a percentage; did you mean 0.03?"."""
     return f"{value:g} looks like a percentage; did you mean {value / 100:g}?"
+
+
+class Interrupted(KeyboardInterrupt):
+    """A stop asked for by a signal other than Ctrl-C (SIGTERM from a scheduler or `timeout`, SIGHUP
+    from a closed terminal), handled exactly like Ctrl-C: the run is marked interrupted and can be
+    resumed. ``exit_code`` follows the shell's convention, 128 + the signal number (143, 129)."""
+
+    def __init__(self, signum: int):
+        import signal
+        self.signum = signum
+        try:
+            name = signal.Signals(signum).name
+        except ValueError:
+            name = f"signal {signum}"
+        super().__init__(f"stopped by {name}")
+        self.signal_name = name
+
+    @property
+    def exit_code(self) -> int:
+        return 128 + self.signum
+
+
+# Signals received by this process (set by the command line's handlers), so an interruption that
+# reaches the CLI in another form (DuckDB's own "interrupted" error) still exits with its code.
+RECEIVED_SIGNALS: list[int] = []
+
+
+def interruption_exit_code(exc: BaseException | None = None) -> tuple[int, str]:
+    """(exit code, signal name) of an interruption: SIGTERM 143, SIGHUP 129, Ctrl-C 130."""
+    signum = getattr(exc, "signum", None) or (RECEIVED_SIGNALS[0] if RECEIVED_SIGNALS else None)
+    if signum is None:
+        return 130, "SIGINT"
+    return Interrupted(signum).exit_code, Interrupted(signum).signal_name

@@ -8,11 +8,15 @@ A query file is plain SQL with a comment header::
 
 Parameters are bound by DuckDB (``$name``), never pasted into the SQL text.
 Queries run on a read-only connection with external access disabled, and
-only a single SELECT (or WITH … SELECT) statement is accepted.
+only a single SELECT (or WITH … SELECT) statement is accepted. A query is
+stopped after a time limit (:data:`DEFAULT_TIMEOUT_SECONDS` unless the caller
+gives another), so a runaway query (a recursive CTE without end) cannot hold
+the database for ever.
 """
 from __future__ import annotations
 
 import re
+import threading
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -24,6 +28,9 @@ from .store.database import connect_read, fetch_frame
 
 _PARAM = re.compile(r"^--\s*param:\s*(\w+)\s*=\s*(\S*)\s*(?:\((.*)\))?\s*$")
 _ABOUT = re.compile(r"^--\s*about:\s*(.*)$")
+
+#: Seconds a query may run before it is stopped (``ratescape query --timeout``; 0 = no limit).
+DEFAULT_TIMEOUT_SECONDS = 300.0
 
 
 def queries_dir() -> Path:
@@ -44,8 +51,15 @@ class QueryFile:
     params: dict = field(default_factory=dict)   # name -> (default, help)
 
 
-def parse_query_file(path: Path) -> QueryFile:
-    text = path.read_text(encoding="utf-8")
+def parse_query_file(path: Path, shown: str | None = None) -> QueryFile:
+    """Read a query file; errors name it as ``shown`` (the path given), never quote its content."""
+    shown = shown or path.name
+    try:
+        text = path.read_text(encoding="utf-8")
+    except UnicodeDecodeError:
+        raise QueryError(f"{shown}: not a UTF-8 text file. Fix: give a .sql file of UTF-8 text") from None
+    except OSError as exc:
+        raise QueryError(f"{shown}: cannot read the query file ({exc.strerror}). Fix: check the path") from None
     q = QueryFile(path.stem, path, text)
     for line in text.splitlines():
         if m := _ABOUT.match(line.strip()):
@@ -64,7 +78,7 @@ def find_query(name_or_file: str) -> QueryFile:
     if p.suffix == ".sql":
         if not p.is_file():
             raise QueryError(f"{name_or_file}: no such query file. Fix: check the path")
-        return parse_query_file(p)
+        return parse_query_file(p, name_or_file)
     candidate = queries_dir() / f"{name_or_file}.sql"
     if not candidate.is_file():
         names = ", ".join(q.name for q in list_queries())
@@ -72,20 +86,28 @@ def find_query(name_or_file: str) -> QueryFile:
     return parse_query_file(candidate)
 
 
-def _coerce(value: str):
+def _coerce(value: str, key: str = "value"):
     for cast in (int, float):
         try:
             return cast(value)
         except ValueError:
             pass
+    m = re.fullmatch(r"\s*([-+]?\d+(?:\.\d*)?|[-+]?\.\d+)\s*%\s*", value)
+    if m:
+        fraction = float(m.group(1)) / 100
+        raise QueryError(f"--param {key}={value}: rates are fractions, and {value} is {fraction:g}. "
+                         f"Fix: --param {key}={fraction:g}")
     return value
 
 
-def _check_read_only(con, sql: str) -> None:
+def _check_read_only(con, sql: str, shown: str = "the query") -> None:
     try:
         statements = con.extract_statements(sql)
-    except duckdb.Error as exc:
-        raise QueryError(f"the query does not parse: {exc}") from None
+    except duckdb.Error:
+        # The parser's message quotes the offending text; a file reached through a link could be
+        # anything on the machine, so only its name is shown.
+        raise QueryError(f"{shown}: the query does not parse as SQL. "
+                         "Fix: check the file's SQL (run it in a DuckDB shell to see where)") from None
     if len(statements) != 1:
         raise QueryError(f"a query file must hold exactly one statement, found {len(statements)}")
     kind = statements[0].type
@@ -101,8 +123,20 @@ def latest_run(con) -> str:
     return row[0]
 
 
-def run_query(db_path, name_or_file: str, params: dict | None = None) -> pl.DataFrame:
-    """Run a bundled or user query read-only and return a Polars frame."""
+def _check_run_exists(con, run_id) -> None:
+    if not con.execute("SELECT count(*) FROM runs WHERE run_id = ?", [str(run_id)]).fetchone()[0]:
+        raise QueryError(f"no run {run_id!r} in this database. "
+                         "Fix: list runs with `ratescape query --db DB runs`, or leave out --param run (the newest)")
+
+
+def run_query(db_path, name_or_file: str, params: dict | None = None, *,
+              timeout: float | None = DEFAULT_TIMEOUT_SECONDS) -> pl.DataFrame:
+    """Run a bundled or user query read-only and return a Polars frame.
+
+    The query is stopped after ``timeout`` seconds (None or 0: no limit) by interrupting the
+    connection from a timer thread (DuckDB's ``interrupt()``); a ``run`` parameter must name a
+    run in the database.
+    """
     q = find_query(name_or_file)
     given = dict(params or {})
     unknown = set(given) - set(q.params)
@@ -113,18 +147,36 @@ def run_query(db_path, name_or_file: str, params: dict | None = None) -> pl.Data
     try:
         con.execute("SET enable_external_access = false")
         con.execute("SET lock_configuration = true")
-        _check_read_only(con, q.sql)
+        _check_read_only(con, q.sql, name_or_file)
         values = {}
         for key, (default, _help) in q.params.items():
             raw = given.get(key, default)
             if key == "run" and raw in ("latest", ""):
                 values[key] = latest_run(con)
             else:
-                values[key] = _coerce(raw) if isinstance(raw, str) else raw
+                values[key] = _coerce(raw, key) if isinstance(raw, str) else raw
+                if key == "run":
+                    _check_run_exists(con, values[key])
         used = {k: v for k, v in values.items() if re.search(r"\$" + re.escape(k) + r"\b", q.sql)}
+        expired = threading.Event()
+
+        def stop():
+            expired.set()
+            con.interrupt()
+
+        timer = threading.Timer(timeout, stop) if timeout else None
+        if timer is not None:
+            timer.daemon = True
+            timer.start()
         try:
             return fetch_frame(con, q.sql, used)
         except duckdb.Error as exc:
+            if expired.is_set():
+                raise QueryError(f"query {q.name!r} was stopped after {timeout:g} s, its time limit. Fix: narrow "
+                                 "the query, or give a longer limit with --timeout SECONDS (0 = none)") from None
             raise QueryError(f"query {q.name!r} failed: {str(exc).splitlines()[0]}") from None
+        finally:
+            if timer is not None:
+                timer.cancel()
     finally:
         con.close()

@@ -216,6 +216,7 @@ def test_drill_templates_as_data():
         assert '"~s"' not in text
 
 
+
 def test_money_labels_never_use_si_giga():
     """Evaluate the label expression's branches in Python (the Vega expression is plain arithmetic)."""
     def label(v):

@@ -22,7 +22,6 @@ from scipy.optimize import brentq
 from ratescape.caution import CAUTION
 from ratescape.report import charts, publish, run_data, sections
 from ratescape.report import page as report_page
-import ratescape.store.database as store_database
 from ratescape.report.escaping import escape_html, json_for_script, json_script_block
 
 # ---------------------------------------------------------------------------
@@ -441,7 +440,9 @@ def test_build_report_html_is_offline_and_escapes_everything():
 def test_missing_required_table_and_missing_file(tmp_path):
     db = tmp_path / "empty.duckdb"
     duckdb.connect(str(db)).close()
-    with pytest.raises(run_data.ReportError, match="lacks table"):
+    # an empty DuckDB file has no ratescape schema version: refused on opening (issue 17, item 2)
+    from ratescape.errors import RatescapeError
+    with pytest.raises(RatescapeError, match="is not a ratescape database .it has no ratescape schema version"):
         publish.write_report(db, tmp_path / "r.html")
     with pytest.raises(run_data.ReportError, match="no database at"):
         publish.write_report(tmp_path / "absent.duckdb", tmp_path / "r.html")

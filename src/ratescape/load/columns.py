@@ -10,7 +10,7 @@ from __future__ import annotations
 BASES = ("real", "nominal")
 DEPRECIATION_METHODS = ("straight-line", "declining-balance", "macrs")
 DEPRECIATION_CONVENTIONS = ("half-year", "mid-quarter")
-from ratescape.evaluate.kinds import KINDS  # noqa: E402  (the one table of kinds)
+from ratescape.evaluate.kinds import KINDS  # noqa: E402, F401  (the one table of kinds, re-exported for the loader)
 
 # Cash-flow file: header -> (canonical name, required, type)
 CASH_FLOW_COLUMNS = {

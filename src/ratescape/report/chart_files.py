@@ -8,6 +8,19 @@ from typing import Any
 import altair as alt
 
 from ratescape.report.page import Section, build_report_html, vega_lite_version
+from ratescape.report.run_data import ReportError
+from ratescape.store.outputs import write_bytes_atomically, write_text_atomically
+
+CHART_SUFFIXES = (".html", ".png", ".svg", ".json")
+
+
+def check_chart_suffix(path: str | Path) -> str:
+    """The output's suffix (lower case) when ratescape can write a chart in that format; else ReportError."""
+    suffix = Path(path).suffix.lower()
+    if suffix not in CHART_SUFFIXES:
+        raise ReportError(f"cannot write a chart as {suffix or 'a file without a suffix'} ({path}). "
+                          "Fix: end --out with .html, .png, .svg or .json")
+    return suffix
 
 
 def chart_spec(chart: alt.TopLevelMixin) -> dict[str, Any]:
@@ -43,8 +56,9 @@ def save_chart(chart: alt.TopLevelMixin, path: str | Path, *, scale: float = 2.0
 
     Raises
     ------
-    ValueError
-        For any other suffix.
+    ReportError
+        For any other suffix (a RatescapeError, so the CLI prints the fix), or when the file
+        cannot be written (missing folder, read-only location, full disk).
 
     Notes
     -----
@@ -55,21 +69,18 @@ def save_chart(chart: alt.TopLevelMixin, path: str | Path, *, scale: float = 2.0
     import vl_convert as vlc
 
     out = Path(path)
-    suffix = out.suffix.lower()
+    suffix = check_chart_suffix(out)
     spec = chart_spec(chart)
     if suffix == ".html":
-        out.write_text(standalone_chart_html(chart), encoding="utf-8")
+        write_text_atomically(out, standalone_chart_html(chart))
     elif suffix == ".png":
-        out.write_bytes(vlc.vegalite_to_png(spec, vl_version=vega_lite_version(), scale=scale))
+        write_bytes_atomically(out, vlc.vegalite_to_png(spec, vl_version=vega_lite_version(), scale=scale))
     elif suffix == ".svg":
-        out.write_text(vlc.vegalite_to_svg(spec, vl_version=vega_lite_version()), encoding="utf-8")
-    elif suffix == ".json":
+        write_text_atomically(out, vlc.vegalite_to_svg(spec, vl_version=vega_lite_version()))
+    else:
         import json
 
-        out.write_text(json.dumps(spec, indent=2, allow_nan=False), encoding="utf-8")
-    else:
-        raise ValueError(f"cannot save a chart as {suffix or 'a file without suffix'!r}; "
-                         "use a path ending in .html, .png, .svg or .json")
+        write_text_atomically(out, json.dumps(spec, indent=2, allow_nan=False))
     return out
 
 

@@ -3,13 +3,13 @@
 from __future__ import annotations
 
 import datetime as _dt
-import os
 from collections.abc import Sequence
 from pathlib import Path
 
 from ratescape.report import charts
 from ratescape.report.escaping import json_script_block
 from ratescape.report.explorer_script import EXPLORER_JS
+from ratescape.report.chart_files import check_chart_suffix
 from ratescape.report.page import build_report_html
 from ratescape.report.run_data import ReportError, RunContext, pick_run
 from ratescape.report.sections import (
@@ -21,7 +21,8 @@ from ratescape.report.sections import (
     _sensitivity_sections,
     report_sections,
 )
-from ratescape.store.database import connect_read
+from ratescape.store.database import PORTFOLIO_RELOADED, connect_read, portfolio_reloaded_since
+from ratescape.store.outputs import check_output_path, check_parent_folder, write_text_atomically
 
 
 def write_report(
@@ -70,27 +71,24 @@ def write_report(
     db = Path(db_path)
     if not db.exists():
         raise ReportError(f"no database at {db}; create one with `ratescape load` and `ratescape screen`")
+    check_output_path(db, out_path)
+    check_parent_folder(out_path)
     con = connect_read(db)
     try:
         parts = report_sections(con, run_id, projects, top_n=top_n, compare_to=compare_to)
+        reloaded = portfolio_reloaded_since(con, pick_run(con, run_id)["run_id"])
     finally:
         con.close()
     stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
-    page = build_report_html(parts.sections, title=parts.title,
-                             subtitle=f"Written {stamp} from {db.name}.",
+    subtitle = f"Written {stamp} from {db.name}."
+    if reloaded:
+        subtitle += f" Portfolio reloaded since this run: {PORTFOLIO_RELOADED}."
+    page = build_report_html(parts.sections, title=parts.title, subtitle=subtitle,
                              data_blocks=[json_script_block(parts.explorer, "explorer-data"),
                                           json_script_block(parts.templates, "drill-templates")],
                              scripts=[EXPLORER_JS])
-    out = Path(out_path)
-    # write next to the target and rename: an interrupted write never leaves a partial page
-    tmp = out.with_name(f".{out.name}.{os.getpid()}.tmp")
-    try:
-        tmp.write_text(page, encoding="utf-8")
-        os.replace(tmp, out)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
-    return out
+    # written next to the target and renamed: an interrupted write never leaves a partial page
+    return write_text_atomically(out_path, page)
 
 
 #: Chart kinds of ``ratescape chart`` and the stage of the report that draws each.
@@ -108,15 +106,22 @@ CHART_KINDS = {
 
 
 def write_chart(db_path: str | Path, kind: str, out_path: str | Path, *, run_id: str | None = None,
-                projects: Sequence[str] | None = None, group: str | None = None, top_n: int = 25) -> Path:
+                projects: Sequence[str] | None = None, group: str | None = None, top_n: int = 25,
+                on_pick=None) -> Path:
     """Write one chart of a run to ``out_path`` (.html offline, .png, .svg or .json).
 
     ``kind`` is one of :data:`CHART_KINDS`; drill-down kinds take ``projects``,
-    ``decision-map`` takes ``group``.
+    ``decision-map`` takes ``group``. When the project or group is picked for the caller,
+    ``on_pick`` (if given) is called with a sentence saying which. An ``out_path`` that is the
+    database, its write-ahead log or worth-file folder, has an unsupported suffix or a missing
+    folder is refused before anything is drawn.
     """
     if kind not in CHART_KINDS:
         raise ReportError(f"unknown chart kind {kind!r}; use one of: {', '.join(CHART_KINDS)}")
     stage = CHART_KINDS[kind]
+    check_output_path(db_path, out_path)
+    check_chart_suffix(out_path)
+    check_parent_folder(out_path)
     con = connect_read(db_path)
     try:
         ctx = RunContext(con, pick_run(con, run_id))
@@ -136,6 +141,12 @@ def write_chart(db_path: str | Path, kind: str, out_path: str | Path, *, run_id:
         for sec in matching:
             if sec.chart is not None:
                 charts.save_chart(sec.chart, out_path)
+                subject = sec.subject or (ids[0] if stage in ("drill", "sensitivity") and ids else None)
+                if on_pick is not None and subject and (
+                        (stage == "decision" and group is None) or (stage in ("drill", "sensitivity") and not projects)):
+                    what = "group" if stage == "decision" else "project"
+                    flag = "--group" if stage == "decision" else "--project"
+                    on_pick(f"no {flag} given: charted {what} {subject!r} (give {flag} to choose another)")
                 return Path(out_path)
         why = next((sec.unavailable for sec in matching if sec.unavailable), None)
         raise ReportError(f"no {kind} chart for this run" + (f": {why}" if why else

@@ -8,26 +8,103 @@ from pathlib import Path
 import duckdb
 
 from ..errors import DatabaseBusyError, RatescapeError
-from .schema import create_schema
+from .schema import SCHEMA_VERSION, create_schema
 
 
-def _busy_message(path, exc: Exception) -> str:
+def _busy_message(path, exc: Exception, *, writing: bool = False) -> str:
+    """Who holds the file, truthfully: DuckDB's lock error says when the holder only reads it."""
     text = str(exc)
     m = re.search(r"PID (\d+)", text)
     who = f"process {m.group(1)}" if m else "another process"
+    if writing and "read-only mode" in text:
+        return (f"database busy: {path} is open for reading by {who} (a query, report, chart or export). "
+                f"Fix: wait for it to finish (or stop it), then run again")
     return (f"database busy: {path} is open for writing by {who}. "
             f"Fix: wait for it to finish (or stop it), then run again; read-only queries work once no writer is active")
 
 
+# A DuckDB database file carries this magic at byte 8 of its header (DuckDB storage format, common practice).
+DUCKDB_MAGIC = b"DUCK"
+
+
+def check_database_file(path: str | Path) -> None:
+    """Refuse a path that exists and is not a DuckDB database file (a CSV, a folder, an empty file)."""
+    p = Path(path)
+    if not p.exists():
+        return
+    if p.is_dir():
+        raise RatescapeError(f"--db {path} is a folder, not a database file. Fix: give a file name, "
+                             f"e.g. --db {p / 'plan.duckdb'}")
+    try:
+        with open(p, "rb") as fh:
+            head = fh.read(16)
+    except OSError as exc:
+        raise RatescapeError(f"cannot read {path}: {exc.strerror}. Fix: check the path and its permissions") from None
+    if head[8:12] != DUCKDB_MAGIC:
+        what = "an empty file" if not head else "not a DuckDB database (no DuckDB header)"
+        raise RatescapeError(f"--db {path} exists and is {what}; it was left untouched. "
+                             "Fix: give the name of a ratescape database, or a new file name such as plan.duckdb")
+
+
+def _check_made_by_ratescape(con, path) -> None:
+    """Refuse a DuckDB file another program made: it has tables but no ratescape schema version."""
+    tables = {r[0] for r in con.execute("SELECT table_name FROM information_schema.tables").fetchall()}
+    if not tables:
+        return
+    version = None
+    if "meta" in tables:
+        try:
+            row = con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchall()
+            version = row[0][0] if row else None
+        except duckdb.Error:
+            version = None
+    if version is None:
+        raise RatescapeError(f"--db {path} is a DuckDB database made by another program (it has tables but no "
+                             "ratescape schema version); ratescape will not add its tables to it. "
+                             "Fix: give a new file name for the ratescape database")
+
+
+def _check_version_readable(con, path) -> None:
+    try:
+        row = con.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchall()
+    except duckdb.Error:
+        raise RatescapeError(f"{path} is not a ratescape database (it has no ratescape schema version). "
+                             "Fix: give the --db file that `ratescape load` wrote") from None
+    if not row:
+        raise RatescapeError(f"{path} is not a ratescape database (it has no ratescape schema version). "
+                             "Fix: give the --db file that `ratescape load` wrote")
+    try:
+        version = int(row[0][0])
+    except (TypeError, ValueError):
+        version = None
+    if version is None or version > SCHEMA_VERSION:
+        raise RatescapeError(f"{path} has schema version {row[0][0]}, newer than this ratescape reads (version "
+                             f"{SCHEMA_VERSION}). Fix: use the ratescape version that wrote it, or upgrade ratescape")
+
+
 def connect_write(path: str | Path) -> duckdb.DuckDBPyConnection:
-    """Open (creating if needed) a database for writing; one writer at a time."""
+    """Open (creating if needed) a database for writing; one writer at a time.
+
+    Refuses a path that exists and is not a DuckDB file, a DuckDB file another program made, and a
+    database of another schema version, leaving each untouched.
+    """
+    check_database_file(path)
     try:
         con = duckdb.connect(str(path))
     except duckdb.IOException as exc:
         if "lock" in str(exc).lower():
-            raise DatabaseBusyError(_busy_message(path, exc)) from None
-        raise RatescapeError(f"cannot open {path}: {exc}") from None
-    create_schema(con)
+            raise DatabaseBusyError(_busy_message(path, exc, writing=True)) from None
+        raise RatescapeError(f"cannot open {path}: {str(exc).splitlines()[0]}. "
+                             "Fix: give a ratescape database file or a new file name") from None
+    except duckdb.Error as exc:
+        raise RatescapeError(f"cannot open {path}: {str(exc).splitlines()[0]}. "
+                             "Fix: give a ratescape database file or a new file name") from None
+    try:
+        _check_made_by_ratescape(con, path)
+        create_schema(con)
+    except BaseException:
+        con.close()
+        raise
     return con
 
 
@@ -41,16 +118,24 @@ def connect_read(path: str | Path) -> duckdb.DuckDBPyConnection:
     p = Path(path)
     if not p.is_file():
         raise RatescapeError(f"{path}: no such database. Fix: run `ratescape load` first or check --db")
+    check_database_file(p)
     try:
         con = duckdb.connect(str(p), read_only=True)
-        con.execute(f"SET memory_limit = '{READ_MEMORY_LIMIT}'")   # large joins spill instead of growing
-        return con
     except duckdb.IOException as exc:
         if "lock" in str(exc).lower():
             raise DatabaseBusyError(_busy_message(path, exc)) from None
-        raise RatescapeError(f"cannot open {path}: {exc}") from None
+        raise RatescapeError(f"cannot open {path}: {str(exc).splitlines()[0]}. The file may be damaged. "
+                             "Fix: restore it from a copy, or load the portfolio into a new database") from None
     except duckdb.Error as exc:
-        raise RatescapeError(f"{path} is not a ratescape database ({exc})") from None
+        raise RatescapeError(f"{path} is not a readable ratescape database ({str(exc).splitlines()[0]}). "
+                             "Fix: restore it from a copy, or load the portfolio into a new database") from None
+    try:
+        con.execute(f"SET memory_limit = '{READ_MEMORY_LIMIT}'")   # large joins spill instead of growing
+        _check_version_readable(con, path)
+    except BaseException:
+        con.close()
+        raise
+    return con
 
 
 def is_interrupt(exc: BaseException) -> bool:
@@ -106,3 +191,15 @@ def append_rows(con, table: str, rows, run_id: str) -> None:
         con.execute(f"INSERT INTO {table} (run_id, {names}) SELECT ?, {names} FROM {view}", [run_id])
     finally:
         con.unregister(view)
+
+
+#: What the report and the queries say of a run screened on a portfolio that has been replaced since.
+PORTFOLIO_RELOADED = ("the portfolio was reloaded after this run was screened: project names and inputs shown "
+                      "beside its results are today's, not necessarily those it screened")
+
+
+def portfolio_reloaded_since(con, run_id: str) -> bool:
+    """True when the database's current portfolio (latest load) is not the one ``run_id`` screened."""
+    row = con.execute("SELECT r.inputs_hash, (SELECT l.inputs_hash FROM loads l ORDER BY l.load_id DESC LIMIT 1) "
+                      "FROM runs r WHERE r.run_id = ?", [run_id]).fetchall()
+    return bool(row) and row[0][0] is not None and row[0][0] != row[0][1]
