@@ -352,7 +352,7 @@ def _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x
         d = x
     total = 0.0
     for c in range(lines.shape[0]):
-        log_g = np.log1p(escalation[c] + d) + log_f if real[c] else 0.0
+        log_g = np.log1p(escalation[c] + d) + log_f if real[c] else np.log1p(escalation[c])  # nominal: contract
         total += _geometric_sum(lines[c, p], log_g - log_i, tau, uniform_step) * multiplier[c]
     return total
 

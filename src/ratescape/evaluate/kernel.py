@@ -6,7 +6,11 @@ nominal rate i_s, inflation f_s and per-scenario multipliers m_cs, the
 discount tensor is
 
     D[c, t, s] = m_cs * ((1 + e_c)(1 + f_s))^tau_t / (1 + i_s)^tau_t   (real lines)
-    D[c, t, s] = m_cs / (1 + i_s)^tau_t                                 (nominal lines)
+    D[c, t, s] = m_cs * (1 + e_c)^tau_t / (1 + i_s)^tau_t              (nominal lines)
+
+A real line's escalation e_c is a differential over general inflation; a nominal line's is a
+fixed contractual rate (a lease or service contract indexed at e a year, an indexed tariff), so
+its then-current amount is amount x (1 + e_c)^tau_t whatever the inflation of the scenario.
 
 and the present worth (base-year money, time 0) of every project in every
 scenario is ``A.reshape(P, C*T) @ D.reshape(C*T, S)``.
@@ -37,8 +41,11 @@ class LineClass:
 
     basis : "real" (base-year money, grows with inflation and escalation) or
         "nominal" (then-current money fixed by contract).
-    escalation : yearly escalation differential over general inflation
-        [fraction per year]; only meaningful for real lines.
+    escalation : [fraction per year] for a real line, its escalation differential over general
+        inflation (then-current amount x ((1 + e)(1 + f))^tau); for a nominal line, its fixed
+        contractual escalation (then-current amount x (1 + e)^tau, independent of inflation f).
+        Sullivan, Wicks & Koelling, Engineering Economy, Pearson, chapter on price changes:
+        actual-dollar amounts escalated at a stated rate (from memory).
     multiplier : name of a per-scenario multiplier ("one" for plain lines;
         "after_tax" = 1 - tax_rate, "tax" = tax_rate, "cost_multiplier", ...).
     """
@@ -94,7 +101,8 @@ def discount_tensor(classes: Sequence[LineClass], exponents: np.ndarray, discoun
     inflation : (S,) general inflation f [fraction per year]
     multipliers : mapping name -> (S,) per-scenario multiplier; "one" is implicit.
     escalation_shift : scalar or (S,) [fraction per year] added to every real line's escalation
-        (the escalation input of one-at-a-time sensitivity); 0 by default.
+        (the escalation input of one-at-a-time sensitivity); 0 by default. A nominal line's
+        contractual escalation is fixed by its contract and not shifted.
 
     Returns
     -------
@@ -113,7 +121,8 @@ def discount_tensor(classes: Sequence[LineClass], exponents: np.ndarray, discoun
     log_f = np.log1p(f)
     out = np.empty((len(classes), tau.size, i.size))
     for c, cls in enumerate(classes):  # loop over a handful of classes, not projects or scenarios
-        log_growth = (np.log1p(cls.escalation + shift) + log_f) if cls.basis == "real" else np.zeros_like(log_f)
+        log_growth = (np.log1p(cls.escalation + shift) + log_f if cls.basis == "real"
+                      else np.full_like(log_f, np.log1p(cls.escalation)))   # nominal: contractual escalation only
         np.exp(np.multiply.outer(tau, log_growth - log_i), out=out[c])
         if cls.multiplier != "one":
             out[c] *= multiplier_values(cls.multiplier, multipliers, i.shape)[None, :]
@@ -237,7 +246,9 @@ def then_current_streams(amounts: np.ndarray, classes: Sequence[LineClass], expo
                          inflation, multipliers: Mapping[str, np.ndarray] | None = None) -> np.ndarray:
     """Then-current (nominal) cash flows (F, P, T) at each of F inflation levels.
 
-    Real lines grow by ((1 + e)(1 + f))^tau; nominal lines stay fixed.
+    Real lines grow by ((1 + e)(1 + f))^tau; nominal lines by their contractual escalation
+    (1 + e)^tau only, independent of f. tau are the run's discount exponents (the same ones the
+    present worth uses), so a stream and its present worth agree under every timing convention.
     Multipliers, when given, are (F,) values per inflation level.
     """
     from .compiled import class_weighted_streams
@@ -250,7 +261,7 @@ def then_current_streams(amounts: np.ndarray, classes: Sequence[LineClass], expo
         if cls.basis == "real":
             g = np.exp(np.multiply.outer(np.log1p(f) + np.log1p(cls.escalation), tau))  # (F, T)
         else:
-            g = np.ones((f.size, tau.size))
+            g = np.broadcast_to(np.exp(np.log1p(cls.escalation) * tau), (f.size, tau.size)).copy()
         if cls.multiplier != "one":
             g = g * multiplier_values(cls.multiplier, multipliers, f.shape)[:, None]
         growth[c] = g
@@ -303,7 +314,8 @@ def present_worth_at(amounts_by_role: np.ndarray, classes: Sequence[LineClass], 
     Notes
     -----
     Same factors as :func:`discount_tensor`, evaluated per project instead of per
-    grid scenario: PW_p = sum_c sum_t a_cpt ((1+e_c+d_p)(1+f_p))^tau_t / (1+i_p)^tau_t.
+    grid scenario: PW_p = sum_c sum_t a_cpt ((1+e_c+d_p)(1+f_p))^tau_t / (1+i_p)^tau_t for real
+    classes and sum_t a_cpt (1+e_c)^tau_t / (1+i_p)^tau_t for nominal ones.
     """
     return PointEvaluator(amounts_by_role, classes, exponents, multipliers)(
         discount_rate, inflation, escalation_shift=escalation_shift, cost_multiplier=cost_multiplier,
@@ -406,7 +418,8 @@ class PointEvaluator:
         out = np.zeros(n)
         scaled_invest, scaled_benefit = np.any(cm != 1.0), np.any(bm != 1.0)
         for c, cls in enumerate(self.classes):  # a handful of classes; compiled loop over projects and periods
-            log_g = np.log1p(cls.escalation + shift) + np.log1p(f) if cls.basis == "real" else np.zeros(n)
+            log_g = (np.log1p(cls.escalation + shift) + np.log1p(f) if cls.basis == "real"
+                     else np.full(n, np.log1p(cls.escalation)))
             lines = pick(self.total[c])
             if scaled_invest:
                 lines = lines + (cm - 1.0)[:, None] * pick(self.A[0, c])

@@ -34,6 +34,7 @@ __all__ = [
     "payback_period",
     "discounted_payback_period",
     "mirr",
+    "last_flow_period",
 ]
 
 
@@ -478,42 +479,79 @@ def discounted_payback_period(amounts, rate, *, interpolate=True, timing="end",
     return _out(_payback(np.cumsum(disc, axis=-1), interpolate))
 
 
-def mirr(amounts, finance_rate, reinvest_rate):
-    """Modified internal rate of return of cash-flow streams.
+def last_flow_period(amounts):
+    """Each stream's horizon: the index of its last non-zero amount (0 for an all-zero stream).
+
+    Parameters
+    ----------
+    amounts : array_like, shape (..., T) [currency]
+
+    Returns
+    -------
+    ndarray of int, shape ``amounts.shape[:-1]`` [periods]
+
+    Examples
+    --------
+    >>> last_flow_period([[-100, 60, 60, 0, 0], [0, 0, 0, 0, 0]]).tolist()
+    [2, 0]
+    """
+    a = _amounts(amounts)
+    nz = a != 0
+    T = a.shape[-1]
+    return np.where(nz.any(axis=-1), T - 1 - np.argmax(nz[..., ::-1], axis=-1), 0)
+
+
+def mirr(amounts, finance_rate, reinvest_rate, *, horizon=None, timing="end"):
+    """Modified internal rate of return of cash-flow streams, each over its own horizon.
 
     Parameters
     ----------
     amounts : array_like, shape (..., T) [currency], T >= 2
-        Cash flows, last axis the period t = 0 .. T-1, end of period.
+        Cash flows, last axis the period t = 0 .. T-1.
     finance_rate : array_like [fraction per period]
         Rate at which the outflows (negative amounts) are discounted to t = 0.
     reinvest_rate : array_like [fraction per period]
-        Rate at which the inflows (positive amounts) are compounded to T-1.
+        Rate at which the inflows (positive amounts) are compounded to the end of the horizon.
         Both rates broadcast against ``amounts.shape[:-1]``.
+    horizon : array_like of int, keyword-only, broadcasting against ``amounts.shape[:-1]`` [periods]
+        The period N at whose end the inflows are compounded and over which the ratio is
+        annualised. Default: each stream's own last non-zero period
+        (:func:`last_flow_period`), so trailing zeros (padding to a portfolio's longest
+        project) do not change a stream's MIRR. Amounts after ``horizon`` are refused.
+    timing : {"end", "mid", "beginning"}, keyword-only
+        Where in each period t >= 1 its amount falls (:func:`ratescape.evaluate.timing.discount_exponents`);
+        the terminal date is the end of period N under every convention.
 
     Returns
     -------
     float or ndarray, shape ``broadcast(rates, amounts.shape[:-1])`` [fraction per period]
-        NaN for rows without both a positive and a negative amount.
+        NaN for rows without both a positive and a negative amount, or with a horizon of 0
+        (every flow now: no time over which to earn a rate).
 
     Warnings
     --------
-    Rates are per period and amounts are end-of-period (as
-    numpy_financial.mirr); there is no ``timing`` option.
+    Rates are per period. With end-of-period timing and a stream whose last amount is
+    non-zero this is numpy_financial.mirr (which always uses the full length T - 1; pass
+    ``horizon=T - 1`` to reproduce it on padded streams).
 
     Notes
     -----
-    MIRR = (FW(positive amounts, reinvest) / PW(-negative amounts, finance))^(1/(T-1)) - 1.
+    MIRR = (FW_N(positive amounts, reinvest) / PW(-negative amounts, finance))^(1/N) - 1, with
+    FW_N = sum_t A+_t (1 + r)^(N - tau_t), PW = sum_t A-_t (1 + f)^(-tau_t). With finance = reinvest
+    = i, MIRR > i exactly when PW(i) > 0, under every timing.
 
     References
     ----------
-    W. G. Sullivan, E. M. Wicks, C. P. Koelling, Engineering Economy,
-    Pearson (external rate of return / MIRR). numpy-financial, ``mirr``.
+    W. G. Sullivan, E. M. Wicks, C. P. Koelling, Engineering Economy, Pearson, external rate of
+    return / MIRR (the terminal date is the end of the project's own life N; from memory).
+    numpy-financial, ``mirr``.
 
     Examples
     --------
     >>> round(mirr([-1600, 10000, -10000], 0.10, 0.10), 10)
     0.0559895554
+    >>> round(mirr([-100, 0, 121, 0, 0], 0.10, 0.10), 10)     # trailing zeros: own horizon 2
+    0.1
     """
     a = _amounts(amounts, min_periods=2)
     f = _rate(finance_rate, "finance_rate")
@@ -526,13 +564,28 @@ def mirr(amounts, finance_rate, reinvest_rate):
             f"broadcast against the leading axes {a.shape[:-1]} of amounts with shape {a.shape}"
         ) from None
     T = a.shape[-1]
-    t = np.arange(T, dtype=float)
+    last = last_flow_period(a)
+    if horizon is None:
+        n = last
+    else:
+        n = np.asarray(horizon)
+        if n.dtype.kind not in "iu" and not np.all(n == np.round(n)):
+            raise ValueError("horizon must hold whole numbers of periods")
+        n = np.broadcast_to(n.astype(np.int64), a.shape[:-1])
+        if np.any(n < 0) or np.any(n > T - 1):
+            raise ValueError(f"horizon must lie in 0 .. {T - 1} (the last period of amounts)")
+        if np.any(last > n):
+            raise ValueError("amounts after the horizon must be zero (the horizon is the stream's last period)")
+    tau = discount_exponents(T, timing)
+    n_f = np.asarray(n, dtype=float)
     pos = np.where(a > 0, a, 0.0)
     neg = np.where(a < 0, -a, 0.0)
-    with np.errstate(over="ignore"):
-        fw_pos = np.einsum("...t,...t->...", pos, np.exp(np.log1p(r)[..., None] * (T - 1 - t)))
-        pw_neg = np.einsum("...t,...t->...", neg, np.exp(-np.log1p(f)[..., None] * t))
-    ok = (pos > 0).any(axis=-1) & (neg > 0).any(axis=-1)
+    with np.errstate(over="ignore", invalid="ignore"):
+        # compounding (1 + r)^(N - tau_t) only over t <= N (later amounts are zero)
+        grow = np.exp(np.log1p(r)[..., None] * (n_f[..., None] - tau))
+        fw_pos = np.einsum("...t,...t->...", pos, np.where(tau <= n_f[..., None], grow, 0.0))
+        pw_neg = np.einsum("...t,...t->...", neg, np.exp(-np.log1p(f)[..., None] * tau))
+    ok = (pos > 0).any(axis=-1) & (neg > 0).any(axis=-1) & (n_f > 0)
     with np.errstate(divide="ignore", invalid="ignore"):
-        out = np.where(ok, np.power(fw_pos / pw_neg, 1.0 / (T - 1)) - 1.0, np.nan)
+        out = np.where(ok, np.power(fw_pos / pw_neg, 1.0 / np.where(n_f > 0, n_f, 1.0)) - 1.0, np.nan)
     return _out(out)
