@@ -228,8 +228,9 @@ def index_from_worth(present_worth, outlay_worth, out=None) -> np.ndarray:
     (S, P), (S, P) -> (S, P), in one pass. ``outlay_worth`` is the present worth of the
     investment lines (negative for an outlay) [currency]; the index is dimensionless. Equals
     ``np.where(-outlay_worth > 0, 1 + present_worth / -outlay_worth, nan)``: PW of the flows
-    other than the investment per unit of PW of the investment (C. S. Park, Contemporary
-    Engineering Economics, Pearson, ch. on capital budgeting; from memory).
+    other than the investment per unit of PW of the investment, the same definition as the API's
+    :func:`ratescape.evaluate.measures.profitability_index` (called with ``investment=`` the
+    investment lines; see its references).
     """
     return index_and_fixed_investment(present_worth, outlay_worth, out)[0]
 
@@ -335,9 +336,11 @@ MOVE_DISCOUNT_RATE, MOVE_INFLATION, MOVE_ESCALATION = 0, 1, 2
 
 
 @njit(cache=True, nogil=True)
-def _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x, rate, inflation, shift):
+def _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x, rate, inflation, shift, real_basis):
     """Present worth of project p with one input moved to x: the per-project point worth of
-    :class:`ratescape.evaluate.kernel.PointEvaluator` (classes summed in order from 0.0)."""
+    :class:`ratescape.evaluate.kernel.PointEvaluator` (classes summed in order from 0.0). With
+    ``real_basis`` the discount rate (``rate`` or the moved x) is the real rate r and the nominal
+    rate is (1 + r)(1 + f) - 1 at the point's inflation f: the real rate stays fixed as f moves."""
     if move == MOVE_DISCOUNT_RATE:
         log_i = np.log1p(x)
         log_f = np.log1p(inflation)
@@ -350,6 +353,8 @@ def _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x
         log_i = np.log1p(rate)
         log_f = np.log1p(inflation)
         d = x
+    if real_basis:
+        log_i = log_i + log_f
     total = 0.0
     for c in range(lines.shape[0]):
         log_g = np.log1p(escalation[c] + d) + log_f if real[c] else np.log1p(escalation[c])  # nominal: contract
@@ -359,7 +364,7 @@ def _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x
 
 @njit(cache=True, nogil=True)
 def _bracketed_roots(lines, real, escalation, multiplier, tau, uniform_step, move, rate, inflation, shift,
-                     rows, low, high, xatol, xrtol, out):
+                     rows, low, high, xatol, xrtol, real_basis, out):
     """Chandrupatla's method per row, as SciPy's vectorised ``find_root`` runs it (same steps,
     same termination tests), on the compiled point worth."""
     fatol = 2.2250738585072014e-308                     # smallest normal, SciPy's default
@@ -367,8 +372,8 @@ def _bracketed_roots(lines, real, escalation, multiplier, tau, uniform_step, mov
         p = rows[j]
         x1 = low[j]
         x2 = high[j]
-        f1 = _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x1, rate, inflation, shift)
-        f2 = _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x2, rate, inflation, shift)
+        f1 = _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x1, rate, inflation, shift, real_basis)
+        f2 = _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x2, rate, inflation, shift, real_basis)
         x3 = x2
         f3 = f2
         t = 0.5
@@ -400,7 +405,7 @@ def _bracketed_roots(lines, real, escalation, multiplier, tau, uniform_step, mov
                 tl = 0.5 * tol / dx
                 t = min(max(t, tl), 1.0 - tl)
             x = x1 + t * (x2 - x1)
-            f = _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x, rate, inflation, shift)
+            f = _worth_at(lines, p, real, escalation, multiplier, tau, uniform_step, move, x, rate, inflation, shift, real_basis)
             if np.sign(f) == np.sign(f1):
                 x3, f3 = x1, f1
             else:
@@ -411,7 +416,7 @@ def _bracketed_roots(lines, real, escalation, multiplier, tau, uniform_step, mov
 
 
 def bracketed_roots(lines, real, escalation, multiplier, tau, move, rate, inflation, shift, rows, low, high,
-                    xatol, xrtol=4 * np.finfo(float).eps) -> np.ndarray:
+                    xatol, xrtol=4 * np.finfo(float).eps, *, real_basis: bool = False) -> np.ndarray:
     """Where each project's present worth crosses zero as one input moves within its bracket.
 
     Parameters
@@ -419,8 +424,9 @@ def bracketed_roots(lines, real, escalation, multiplier, tau, move, rate, inflat
     lines : (C, P, T) amounts by line class [currency]; real (C,) bool, escalation (C,)
         [fraction per year] and multiplier (C,) values of the classes; tau (T,) [years].
     move : MOVE_DISCOUNT_RATE, MOVE_INFLATION or MOVE_ESCALATION (the input searched).
-    rate, inflation, shift : the base point (nominal rate, inflation [fraction per year],
-        escalation shift).
+    rate, inflation, shift : the base point (discount rate, inflation [fraction per year],
+        escalation shift); the discount rate is nominal, or real when ``real_basis`` (then the
+        real rate is held fixed as inflation moves).
     rows (J,), low (J,), high (J,) : the projects and their brackets (worth differs in sign).
 
     Returns
@@ -441,5 +447,5 @@ def bracketed_roots(lines, real, escalation, multiplier, tau, move, rate, inflat
                      np.ascontiguousarray(escalation, dtype=float), np.ascontiguousarray(multiplier, dtype=float),
                      tau, _uniform_step(tau), int(move), float(rate), float(inflation), float(shift),
                      np.ascontiguousarray(rows, dtype=np.int64), np.ascontiguousarray(low, dtype=float),
-                     np.ascontiguousarray(high, dtype=float), float(xatol), float(xrtol), out)
+                     np.ascontiguousarray(high, dtype=float), float(xatol), float(xrtol), bool(real_basis), out)
     return out

@@ -328,9 +328,18 @@ class PointEvaluator:
     When every project shares the point (a scan value), the worth is three
     matrix-vector products over the flattened (P, C*T) amounts; otherwise the
     factors are built per project, (P, T) per class.
+
+    ``discount_basis`` says what the ``discount_rate`` arguments of every method are: the nominal
+    rate i ("nominal", default) or the real rate r ("real"), with i = (1 + r)(1 + f) - 1 at the
+    point's inflation f (exact Fisher). On a real-basis run the real rate is what stays fixed
+    when inflation moves, so a project of real lines without tax does not depend on inflation.
     """
 
-    def __init__(self, amounts_by_role, classes: Sequence[LineClass], exponents, multipliers=None):
+    def __init__(self, amounts_by_role, classes: Sequence[LineClass], exponents, multipliers=None,
+                 discount_basis: str = "nominal"):
+        if discount_basis not in ("nominal", "real"):
+            raise ValueError(f"discount_basis must be 'nominal' or 'real', got {discount_basis!r}")
+        self.real_basis = discount_basis == "real"
         A = np.asarray(amounts_by_role, dtype=float)
         if A.ndim != 4 or A.shape[0] != len(ROLES) or A.shape[1] != len(classes):
             raise ValueError(f"amounts_by_role must be (R={len(ROLES)}, C={len(classes)}, P, T), got shape {A.shape}")
@@ -349,6 +358,7 @@ class PointEvaluator:
         their base values): one (P, C*T) @ (C*T, K) product instead of K separate evaluations."""
         i = np.atleast_1d(np.asarray(discount_rates, dtype=float))
         f = np.broadcast_to(np.asarray(inflations, dtype=float), i.shape)
+        i = self._nominal(i, f)
         shift = 0.0 if escalation_shifts is None else escalation_shifts
         point = {k: np.full(i.size, v) for k, v in self.multipliers.items()}
         with np.errstate(over="ignore", invalid="ignore"):
@@ -365,8 +375,13 @@ class PointEvaluator:
                                (discount_rate, inflation, escalation_shift, cost_multiplier, benefit_multiplier))
         if np.any(i <= -1) or np.any(f <= -1):
             raise ValueError("rates must be > -1")
+        i = self._nominal(i, f)
         with np.errstate(over="ignore", invalid="ignore"):
             return self._per_project(rows, i, f, shift, cm, bm)
+
+    def _nominal(self, rate: np.ndarray, inflation: np.ndarray) -> np.ndarray:
+        """The nominal rate of a discount-rate argument on this evaluator's basis (exact Fisher)."""
+        return (1.0 + rate) * (1.0 + inflation) - 1.0 if self.real_basis else rate
 
     def roots_between(self, move: int, rows, low, high, *, discount_rate: float, inflation: float,
                       escalation_shift: float = 0.0, xatol: float = 0.0) -> np.ndarray:
@@ -382,7 +397,7 @@ class PointEvaluator:
                                float(multiplier_values(c.multiplier, self.multipliers, (1,))[0]) for c in self.classes])
         with np.errstate(over="ignore", invalid="ignore"):
             return bracketed_roots(self.total, real, escalation, multiplier, self.tau, move, discount_rate, inflation,
-                                   escalation_shift, rows, low, high, xatol)
+                                   escalation_shift, rows, low, high, xatol, real_basis=self.real_basis)
 
     def __call__(self, discount_rate, inflation, *, escalation_shift=0.0, cost_multiplier=1.0,
                  benefit_multiplier=1.0) -> np.ndarray:
@@ -391,6 +406,7 @@ class PointEvaluator:
                                (discount_rate, inflation, escalation_shift, cost_multiplier, benefit_multiplier))
         if np.any(i <= -1) or np.any(f <= -1):
             raise ValueError("rates must be > -1")
+        i = self._nominal(i, f)
         if P == 0:
             return np.zeros(0)
         with np.errstate(over="ignore", invalid="ignore"):   # extreme scan points: inf/NaN, flagged by callers

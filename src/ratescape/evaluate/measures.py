@@ -324,44 +324,67 @@ def benefit_cost_ratio(benefits, costs, investment, rate, *, modified=False, tim
     return _out(ratio)
 
 
-def profitability_index(amounts, rate, *, timing="end", periods_per_year=1):
-    """Profitability index: PW of the flows after t = 0 per unit of investment at t = 0.
+def profitability_index(amounts, rate, *, investment=None, timing="end", periods_per_year=1):
+    """Profitability index: present worth of the flows other than the investment per unit of
+    present worth of the investment, PI = 1 + PW / PV(I).
 
-    Parameters and broadcasting as :func:`present_worth`.
+    The one definition ratescape uses, here and in the stored ``profitability_index`` column
+    (:func:`ratescape.evaluate.compiled.index_from_worth`).
+
+    Parameters
+    ----------
+    amounts : array_like, shape (..., T) [currency]
+        The project's net cash flows, investment included (as :func:`present_worth`).
+    rate : array_like [fraction per year], broadcasting against ``amounts.shape[:-1]``
+    investment : array_like, shape (..., T_i) [currency], keyword-only
+        The investment outlays I_t per period as positive amounts (the project's
+        ``investment`` lines, with their sign flipped), t = 0 first; shorter or longer streams
+        are padded with zeros. Default: the net outlay at t = 0, max(-amounts[..., 0], 0)
+        (the investment "now" of a conventional stream).
+    timing, periods_per_year : see :func:`present_worth`
 
     Returns
     -------
-    float or ndarray [dimensionless]; NaN where ``amounts[..., 0] >= 0``
-    (no investment at t = 0).
+    float or ndarray [dimensionless]; NaN where PV(I) <= 0 (no investment: no index).
 
     Warnings
     --------
-    Convention: PI = PW(amounts[..., 1:]) / (-amounts[..., 0]), so PI > 1
-    exactly when PW > 0. Later outlays are netted into the numerator. Some
-    texts define the "net" index PW / I = PI - 1.
+    PI > 1 exactly when PW > 0. The investment is every outlay on investment lines, in
+    whatever period (staged capital): PV(I) discounts them all. The "net" index of some texts,
+    PW / PV(I), is PI - 1; ratescape stores only PI.
 
     Notes
     -----
-    PI = sum_{t>=1} A_t (1+i)^-tau_t / (-A_0).
+    PI = (PW(A) + PV(I)) / PV(I) = PV(flows other than the investment) / PV(I); with the default
+    investment, PV(I) = -A_0 and PI = sum_{t>=1} A_t (1+i)^-tau_t / (-A_0).
 
     References
     ----------
-    C. S. Park, Contemporary Engineering Economics, Pearson, ch. on capital
-    budgeting (profitability index). From memory.
+    S. A. Ross, R. W. Westerfield, J. F. Jaffe, Corporate Finance, McGraw-Hill, chapter on net
+    present value and other investment rules: PI = PV of the cash flows after the initial
+    investment / initial investment (from memory). R. A. Brealey, S. C. Myers, F. Allen,
+    Principles of Corporate Finance, McGraw-Hill, capital-rationing section: the ratio NPV /
+    investment, here PI - 1 (from memory). C. S. Park, Contemporary Engineering Economics,
+    Pearson (investment at several periods discounted in the denominator; from memory).
 
     Examples
     --------
     >>> round(profitability_index([-100, 60, 60], 0.0), 6)
     1.2
+    >>> round(profitability_index([-60, 20, 60, 60], 0.0, investment=[60, 40]), 6)   # staged
+    1.8
     """
     a = _amounts(amounts)
     r, _ = _rate_for(rate, a)
-    later = a.copy()
-    later[..., 0] = 0.0
-    pw_later = _pw(later, r, timing, periods_per_year)
-    inv = -a[..., 0]
+    if investment is None:
+        inv = np.zeros_like(a)
+        inv[..., :1] = np.maximum(-a[..., :1], 0.0)
+    else:
+        (a, inv), _ = _pad_periods([a, investment], ["amounts", "investment"])
+    pw = _pw(a, r, timing, periods_per_year)
+    pv_inv = _pw(inv, r, timing, periods_per_year)
     with np.errstate(divide="ignore", invalid="ignore"):
-        pi = np.where(inv > 0, pw_later / np.where(inv > 0, inv, 1.0), np.nan)
+        pi = np.where(pv_inv > 0, 1.0 + pw / np.where(pv_inv > 0, pv_inv, 1.0), np.nan)
     return _out(pi)
 
 
