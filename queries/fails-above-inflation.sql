@@ -1,4 +1,4 @@
--- about: Projects that inflation above a threshold hurts: accepted in fewer scenarios above the threshold than at or below it (same discount rates compared).
+-- about: Projects that inflation above a threshold hurts: accepted in fewer scenarios above the threshold than at or below it (over every discount rate of the run, on its own basis: with a real discount axis the real rate is held at each grid level).
 -- param: run = latest  (run id; "latest" = the newest finished run)
 -- param: threshold = 0.05  (inflation, fraction per year)
 -- Aggregates the narrow result_rows table by project key, then names the projects.

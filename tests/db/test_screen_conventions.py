@@ -265,3 +265,18 @@ def test_real_basis_discount_rate_range_and_switching_value_are_real(tmp_path):
     frame = run_query(db, "switching-values", {"input": "discount_rate"})
     assert frame["discount_basis"].to_list() == ["real"]
     assert frame["input_label"].to_list() == ["real discount rate"]
+
+
+def test_report_names_the_real_basis(tmp_path):
+    """The report of a real-basis run describes its base scenario and its sensitivity inputs in
+    real rates (defect 11: a real-basis run is not described in nominal rates)."""
+    from ratescape.report.chart_style import discount_rate_label, sensitivity_input_label
+    from ratescape.report.publish import write_report
+    assert discount_rate_label("real") == "real discount rate"
+    assert sensitivity_input_label("inflation", "real") == "inflation (real discount rate held)"
+    assert sensitivity_input_label("discount_rate", "nominal") == "nominal discount rate"
+    db = load_flows(tmp_path, "db", stream_rows("A", [-100.0, 30.0, 40.0, 50.0]))
+    run = screen_portfolio(db, discount_rates="0.02:0.06:3", inflation="0:0.08:3", discount_basis="real")
+    page = write_report(db, tmp_path / "r.html", run, projects=["A"]).read_text()
+    assert "real discount rate 4.00% (nominal 8.16%), inflation 4.00%" in page
+    assert "real discount rate held" in page and "nominal discount rate" not in page
