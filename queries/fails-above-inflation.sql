@@ -1,4 +1,4 @@
--- about: Projects that fail under high inflation. The one definition (the report's decision brief uses this file): a project fails under high inflation when the share of scenarios in which it is accepted (present worth >= 0) with inflation above the threshold is lower, by at least min_drop, than its share with inflation at or below the threshold (same discount rates on both sides of a full grid).
+-- about: Projects that fail under high inflation. The one definition (the report's decision brief uses this file): a project fails under high inflation when the share of scenarios in which it is accepted (present worth >= 0) with inflation above the threshold is lower, by at least min_drop, than its share with inflation at or below the threshold (same discount rates on both sides of a full grid). Over every discount rate of the run, on its own basis: with a real discount axis the real rate is held at each grid level.
 -- param: run = latest  (run id; "latest" = the newest finished run)
 -- param: threshold = 0.05  (inflation, fraction per year; "high" means above it)
 -- param: min_drop = 0.25  (least fall in the acceptance share, fraction: 0.25 = 25 percentage points)

@@ -202,8 +202,6 @@ def test_nominal_stage_basis_is_its_contract_price(screened, i, f):
     assert stored(screened, "N", i, f) == pytest.approx(expected, rel=1e-10)
 
 
-@pytest.mark.xfail(strict=True, reason="the nominal line's own escalation (issue 14 part 3) is applied on "
-                   "another branch; the stage's basis already is amount x (1 + e)^k")
 @pytest.mark.parametrize("f", INFLATION)
 def test_escalated_nominal_stage_costs_its_escalated_price(screened, f):
     """A nominal stage with a contractual escalation e costs amount x (1 + e)^k in period k, and

@@ -549,8 +549,9 @@ def index_from_worth(present_worth, outlay_worth, out=None) -> np.ndarray:
     (S, P), (S, P) -> (S, P), in one pass. ``outlay_worth`` is the present worth of the
     investment lines (negative for an outlay) [currency]; the index is dimensionless. Equals
     ``np.where(-outlay_worth > 0, 1 + present_worth / -outlay_worth, nan)``: PW of the flows
-    other than the investment per unit of PW of the investment (C. S. Park, Contemporary
-    Engineering Economics, Pearson, ch. on capital budgeting; from memory).
+    other than the investment per unit of PW of the investment, the same definition as the API's
+    :func:`ratescape.evaluate.measures.profitability_index` (called with ``investment=`` the
+    investment lines; see its references).
     """
     return index_and_fixed_investment(present_worth, outlay_worth, out)[0]
 
@@ -656,10 +657,13 @@ MOVE_DISCOUNT_RATE, MOVE_INFLATION, MOVE_ESCALATION = 0, 1, 2
 
 
 @njit(cache=True, nogil=True)
-def _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step, move, x, rate, inflation, shift):
+def _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step, move, x, rate, inflation, shift,
+              real_basis):
     """Present worth of project p with one input moved to x: the per-project point worth of
     :class:`ratescape.evaluate.kernel.PointEvaluator` (classes summed in order from 0.0). A class
-    with ``frozen[c] = k >= 0`` grows only up to period k (see ``LineClass.frozen_at``)."""
+    with ``frozen[c] = k >= 0`` grows only up to period k (see ``LineClass.frozen_at``). With
+    ``real_basis`` the discount rate (``rate`` or the moved x) is the real rate r and the nominal
+    rate is (1 + r)(1 + f) - 1 at the point's inflation f: the real rate stays fixed as f moves."""
     if move == MOVE_DISCOUNT_RATE:
         log_i = np.log1p(x)
         log_f = np.log1p(inflation)
@@ -672,9 +676,11 @@ def _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step,
         log_i = np.log1p(rate)
         log_f = np.log1p(inflation)
         d = x
+    if real_basis:
+        log_i = log_i + log_f
     total = 0.0
     for c in range(lines.shape[0]):
-        log_g = np.log1p(escalation[c] + d) + log_f if real[c] else 0.0
+        log_g = np.log1p(escalation[c] + d) + log_f if real[c] else np.log1p(escalation[c])  # nominal: contract
         k = frozen[c]
         if k < 0 or not real[c]:
             total += _geometric_sum(lines[c, p], log_g - log_i, tau, uniform_step) * multiplier[c]
@@ -687,7 +693,7 @@ def _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step,
 
 @njit(cache=True, nogil=True)
 def _bracketed_roots(lines, real, frozen, escalation, multiplier, tau, uniform_step, move, rate, inflation, shift,
-                     rows, low, high, xatol, xrtol, out):
+                     rows, low, high, xatol, xrtol, real_basis, out):
     """Chandrupatla's method per row, as SciPy's vectorised ``find_root`` runs it (same steps,
     same termination tests), on the compiled point worth."""
     fatol = 2.2250738585072014e-308                     # smallest normal, SciPy's default
@@ -695,8 +701,10 @@ def _bracketed_roots(lines, real, frozen, escalation, multiplier, tau, uniform_s
         p = rows[j]
         x1 = low[j]
         x2 = high[j]
-        f1 = _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step, move, x1, rate, inflation, shift)
-        f2 = _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step, move, x2, rate, inflation, shift)
+        f1 = _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step, move, x1, rate, inflation, shift,
+                       real_basis)
+        f2 = _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step, move, x2, rate, inflation, shift,
+                       real_basis)
         x3 = x2
         f3 = f2
         t = 0.5
@@ -728,7 +736,8 @@ def _bracketed_roots(lines, real, frozen, escalation, multiplier, tau, uniform_s
                 tl = 0.5 * tol / dx
                 t = min(max(t, tl), 1.0 - tl)
             x = x1 + t * (x2 - x1)
-            f = _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step, move, x, rate, inflation, shift)
+            f = _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step, move, x, rate, inflation,
+                          shift, real_basis)
             if np.sign(f) == np.sign(f1):
                 x3, f3 = x1, f1
             else:
@@ -739,7 +748,7 @@ def _bracketed_roots(lines, real, frozen, escalation, multiplier, tau, uniform_s
 
 
 def bracketed_roots(lines, real, escalation, multiplier, tau, move, rate, inflation, shift, rows, low, high,
-                    xatol, xrtol=4 * np.finfo(float).eps, frozen=None) -> np.ndarray:
+                    xatol, xrtol=4 * np.finfo(float).eps, frozen=None, *, real_basis: bool = False) -> np.ndarray:
     """Where each project's present worth crosses zero as one input moves within its bracket.
 
     Parameters
@@ -749,8 +758,9 @@ def bracketed_roots(lines, real, escalation, multiplier, tau, move, rate, inflat
         growing (-1 = never; ``LineClass.frozen_at``),
         [fraction per year] and multiplier (C,) values of the classes; tau (T,) [years].
     move : MOVE_DISCOUNT_RATE, MOVE_INFLATION or MOVE_ESCALATION (the input searched).
-    rate, inflation, shift : the base point (nominal rate, inflation [fraction per year],
-        escalation shift).
+    rate, inflation, shift : the base point (discount rate, inflation [fraction per year],
+        escalation shift); the discount rate is nominal, or real when ``real_basis`` (then the
+        real rate is held fixed as inflation moves).
     rows (J,), low (J,), high (J,) : the projects and their brackets (worth differs in sign).
 
     Returns
@@ -773,5 +783,5 @@ def bracketed_roots(lines, real, escalation, multiplier, tau, move, rate, inflat
                      np.ascontiguousarray(escalation, dtype=float), np.ascontiguousarray(multiplier, dtype=float),
                      tau, _uniform_step(tau), int(move), float(rate), float(inflation), float(shift),
                      np.ascontiguousarray(rows, dtype=np.int64), np.ascontiguousarray(low, dtype=float),
-                     np.ascontiguousarray(high, dtype=float), float(xatol), float(xrtol), out)
+                     np.ascontiguousarray(high, dtype=float), float(xatol), float(xrtol), bool(real_basis), out)
     return out

@@ -6,7 +6,11 @@ nominal rate i_s, inflation f_s and per-scenario multipliers m_cs, the
 discount tensor is
 
     D[c, t, s] = m_cs * ((1 + e_c)(1 + f_s))^tau_t / (1 + i_s)^tau_t   (real lines)
-    D[c, t, s] = m_cs / (1 + i_s)^tau_t                                 (nominal lines)
+    D[c, t, s] = m_cs * (1 + e_c)^tau_t / (1 + i_s)^tau_t              (nominal lines)
+
+A real line's escalation e_c is a differential over general inflation; a nominal line's is a
+fixed contractual rate (a lease or service contract indexed at e a year, an indexed tariff), so
+its then-current amount is amount x (1 + e_c)^tau_t whatever the inflation of the scenario.
 
 and the present worth (base-year money, time 0) of every project in every
 scenario is ``A.reshape(P, C*T) @ D.reshape(C*T, S)``.
@@ -38,8 +42,11 @@ class LineClass:
 
     basis : "real" (base-year money, grows with inflation and escalation) or
         "nominal" (then-current money fixed by contract).
-    escalation : yearly escalation differential over general inflation
-        [fraction per year]; only meaningful for real lines.
+    escalation : [fraction per year] for a real line, its escalation differential over general
+        inflation (then-current amount x ((1 + e)(1 + f))^tau); for a nominal line, its fixed
+        contractual escalation (then-current amount x (1 + e)^tau, independent of inflation f).
+        Sullivan, Wicks & Koelling, Engineering Economy, Pearson, chapter on price changes:
+        actual-dollar amounts escalated at a stated rate (from memory).
     multiplier : name of a per-scenario multiplier ("one" for plain lines;
         "after_tax" = 1 - tax_rate, "tax" = tax_rate, "cost_multiplier", ...).
     frozen_at : for a real class, the period k after which its amounts stop growing (-1, the
@@ -120,7 +127,8 @@ def discount_tensor(classes: Sequence[LineClass], exponents: np.ndarray, discoun
     inflation : (S,) general inflation f [fraction per year]
     multipliers : mapping name -> (S,) per-scenario multiplier; "one" is implicit.
     escalation_shift : scalar or (S,) [fraction per year] added to every real line's escalation
-        (the escalation input of one-at-a-time sensitivity); 0 by default.
+        (the escalation input of one-at-a-time sensitivity); 0 by default. A nominal line's
+        contractual escalation is fixed by its contract and not shifted.
 
     Returns
     -------
@@ -139,7 +147,8 @@ def discount_tensor(classes: Sequence[LineClass], exponents: np.ndarray, discoun
     log_f = np.log1p(f)
     out = np.empty((len(classes), tau.size, i.size))
     for c, cls in enumerate(classes):  # loop over a handful of classes, not projects or scenarios
-        log_growth = (np.log1p(cls.escalation + shift) + log_f) if cls.basis == "real" else np.zeros_like(log_f)
+        log_growth = (np.log1p(cls.escalation + shift) + log_f if cls.basis == "real"
+                      else np.full_like(log_f, np.log1p(cls.escalation)))   # nominal: contractual escalation only
         if cls.frozen_at >= 0 and cls.basis == "real":
             np.exp(np.multiply.outer(cls.growth_exponents(tau), log_growth) - np.multiply.outer(tau, log_i),
                    out=out[c])
@@ -267,7 +276,9 @@ def then_current_streams(amounts: np.ndarray, classes: Sequence[LineClass], expo
                          inflation, multipliers: Mapping[str, np.ndarray] | None = None) -> np.ndarray:
     """Then-current (nominal) cash flows (F, P, T) at each of F inflation levels.
 
-    Real lines grow by ((1 + e)(1 + f))^tau; nominal lines stay fixed.
+    Real lines grow by ((1 + e)(1 + f))^tau; nominal lines by their contractual escalation
+    (1 + e)^tau only, independent of f. tau are the run's discount exponents (the same ones the
+    present worth uses), so a stream and its present worth agree under every timing convention.
     Multipliers, when given, are (F,) values per inflation level.
     """
     from .compiled import class_weighted_streams
@@ -280,7 +291,7 @@ def then_current_streams(amounts: np.ndarray, classes: Sequence[LineClass], expo
         if cls.basis == "real":
             g = np.exp(np.multiply.outer(np.log1p(f) + np.log1p(cls.escalation), cls.growth_exponents(tau)))  # (F, T)
         else:
-            g = np.ones((f.size, tau.size))
+            g = np.broadcast_to(np.exp(np.log1p(cls.escalation) * tau), (f.size, tau.size)).copy()
         if cls.multiplier != "one":
             g = g * multiplier_values(cls.multiplier, multipliers, f.shape)[:, None]
         growth[c] = g
@@ -318,9 +329,18 @@ class PointEvaluator:
     When every project shares the point (a scan value), the worth is three
     matrix-vector products over the flattened (P, C*T) amounts; otherwise the
     factors are built per project, (P, T) per class.
+
+    ``discount_basis`` says what the ``discount_rate`` arguments of every method are: the nominal
+    rate i ("nominal", default) or the real rate r ("real"), with i = (1 + r)(1 + f) - 1 at the
+    point's inflation f (exact Fisher). On a real-basis run the real rate is what stays fixed
+    when inflation moves, so a project of real lines without tax does not depend on inflation.
     """
 
-    def __init__(self, amounts_by_role, classes: Sequence[LineClass], exponents, multipliers=None):
+    def __init__(self, amounts_by_role, classes: Sequence[LineClass], exponents, multipliers=None,
+                 discount_basis: str = "nominal"):
+        if discount_basis not in ("nominal", "real"):
+            raise ValueError(f"discount_basis must be 'nominal' or 'real', got {discount_basis!r}")
+        self.real_basis = discount_basis == "real"
         A = np.asarray(amounts_by_role, dtype=float)
         if A.ndim != 4 or A.shape[0] != len(ROLES) or A.shape[1] != len(classes):
             raise ValueError(f"amounts_by_role must be (R={len(ROLES)}, C={len(classes)}, P, T), got shape {A.shape}")
@@ -339,6 +359,7 @@ class PointEvaluator:
         their base values): one (P, C*T) @ (C*T, K) product instead of K separate evaluations."""
         i = np.atleast_1d(np.asarray(discount_rates, dtype=float))
         f = np.broadcast_to(np.asarray(inflations, dtype=float), i.shape)
+        i = self._nominal(i, f)
         shift = 0.0 if escalation_shifts is None else escalation_shifts
         point = {k: np.full(i.size, v) for k, v in self.multipliers.items()}
         with np.errstate(over="ignore", invalid="ignore"):
@@ -355,8 +376,13 @@ class PointEvaluator:
                                (discount_rate, inflation, escalation_shift, cost_multiplier, benefit_multiplier))
         if np.any(i <= -1) or np.any(f <= -1):
             raise ValueError("rates must be > -1")
+        i = self._nominal(i, f)
         with np.errstate(over="ignore", invalid="ignore"):
             return self._per_project(rows, i, f, shift, cm, bm)
+
+    def _nominal(self, rate: np.ndarray, inflation: np.ndarray) -> np.ndarray:
+        """The nominal rate of a discount-rate argument on this evaluator's basis (exact Fisher)."""
+        return (1.0 + rate) * (1.0 + inflation) - 1.0 if self.real_basis else rate
 
     def roots_between(self, move: int, rows, low, high, *, discount_rate: float, inflation: float,
                       escalation_shift: float = 0.0, xatol: float = 0.0) -> np.ndarray:
@@ -373,7 +399,8 @@ class PointEvaluator:
                                float(multiplier_values(c.multiplier, self.multipliers, (1,))[0]) for c in self.classes])
         with np.errstate(over="ignore", invalid="ignore"):
             return bracketed_roots(self.total, real, escalation, multiplier, self.tau, move, discount_rate, inflation,
-                                   escalation_shift, rows, low, high, xatol, frozen=frozen)
+                                   escalation_shift, rows, low, high, xatol, frozen=frozen,
+                                   real_basis=self.real_basis)
 
     def __call__(self, discount_rate, inflation, *, escalation_shift=0.0, cost_multiplier=1.0,
                  benefit_multiplier=1.0) -> np.ndarray:
@@ -382,6 +409,7 @@ class PointEvaluator:
                                (discount_rate, inflation, escalation_shift, cost_multiplier, benefit_multiplier))
         if np.any(i <= -1) or np.any(f <= -1):
             raise ValueError("rates must be > -1")
+        i = self._nominal(i, f)
         if P == 0:
             return np.zeros(0)
         with np.errstate(over="ignore", invalid="ignore"):   # extreme scan points: inf/NaN, flagged by callers
@@ -409,7 +437,8 @@ class PointEvaluator:
         out = np.zeros(n)
         scaled_invest, scaled_benefit = np.any(cm != 1.0), np.any(bm != 1.0)
         for c, cls in enumerate(self.classes):  # a handful of classes; compiled loop over projects and periods
-            log_g = np.log1p(cls.escalation + shift) + np.log1p(f) if cls.basis == "real" else np.zeros(n)
+            log_g = (np.log1p(cls.escalation + shift) + np.log1p(f) if cls.basis == "real"
+                     else np.full(n, np.log1p(cls.escalation)))
             lines = pick(self.total[c])
             if scaled_invest:
                 lines = lines + (cm - 1.0)[:, None] * pick(self.A[0, c])

@@ -34,6 +34,7 @@ __all__ = [
     "payback_period",
     "discounted_payback_period",
     "mirr",
+    "last_flow_period",
 ]
 
 
@@ -323,44 +324,67 @@ def benefit_cost_ratio(benefits, costs, investment, rate, *, modified=False, tim
     return _out(ratio)
 
 
-def profitability_index(amounts, rate, *, timing="end", periods_per_year=1):
-    """Profitability index: PW of the flows after t = 0 per unit of investment at t = 0.
+def profitability_index(amounts, rate, *, investment=None, timing="end", periods_per_year=1):
+    """Profitability index: present worth of the flows other than the investment per unit of
+    present worth of the investment, PI = 1 + PW / PV(I).
 
-    Parameters and broadcasting as :func:`present_worth`.
+    The one definition ratescape uses, here and in the stored ``profitability_index`` column
+    (:func:`ratescape.evaluate.compiled.index_from_worth`).
+
+    Parameters
+    ----------
+    amounts : array_like, shape (..., T) [currency]
+        The project's net cash flows, investment included (as :func:`present_worth`).
+    rate : array_like [fraction per year], broadcasting against ``amounts.shape[:-1]``
+    investment : array_like, shape (..., T_i) [currency], keyword-only
+        The investment outlays I_t per period as positive amounts (the project's
+        ``investment`` lines, with their sign flipped), t = 0 first; shorter or longer streams
+        are padded with zeros. Default: the net outlay at t = 0, max(-amounts[..., 0], 0)
+        (the investment "now" of a conventional stream).
+    timing, periods_per_year : see :func:`present_worth`
 
     Returns
     -------
-    float or ndarray [dimensionless]; NaN where ``amounts[..., 0] >= 0``
-    (no investment at t = 0).
+    float or ndarray [dimensionless]; NaN where PV(I) <= 0 (no investment: no index).
 
     Warnings
     --------
-    Convention: PI = PW(amounts[..., 1:]) / (-amounts[..., 0]), so PI > 1
-    exactly when PW > 0. Later outlays are netted into the numerator. Some
-    texts define the "net" index PW / I = PI - 1.
+    PI > 1 exactly when PW > 0. The investment is every outlay on investment lines, in
+    whatever period (staged capital): PV(I) discounts them all. The "net" index of some texts,
+    PW / PV(I), is PI - 1; ratescape stores only PI.
 
     Notes
     -----
-    PI = sum_{t>=1} A_t (1+i)^-tau_t / (-A_0).
+    PI = (PW(A) + PV(I)) / PV(I) = PV(flows other than the investment) / PV(I); with the default
+    investment, PV(I) = -A_0 and PI = sum_{t>=1} A_t (1+i)^-tau_t / (-A_0).
 
     References
     ----------
-    C. S. Park, Contemporary Engineering Economics, Pearson, ch. on capital
-    budgeting (profitability index). From memory.
+    S. A. Ross, R. W. Westerfield, J. F. Jaffe, Corporate Finance, McGraw-Hill, chapter on net
+    present value and other investment rules: PI = PV of the cash flows after the initial
+    investment / initial investment (from memory). R. A. Brealey, S. C. Myers, F. Allen,
+    Principles of Corporate Finance, McGraw-Hill, capital-rationing section: the ratio NPV /
+    investment, here PI - 1 (from memory). C. S. Park, Contemporary Engineering Economics,
+    Pearson (investment at several periods discounted in the denominator; from memory).
 
     Examples
     --------
     >>> round(profitability_index([-100, 60, 60], 0.0), 6)
     1.2
+    >>> round(profitability_index([-60, 20, 60, 60], 0.0, investment=[60, 40]), 6)   # staged
+    1.8
     """
     a = _amounts(amounts)
     r, _ = _rate_for(rate, a)
-    later = a.copy()
-    later[..., 0] = 0.0
-    pw_later = _pw(later, r, timing, periods_per_year)
-    inv = -a[..., 0]
+    if investment is None:
+        inv = np.zeros_like(a)
+        inv[..., :1] = np.maximum(-a[..., :1], 0.0)
+    else:
+        (a, inv), _ = _pad_periods([a, investment], ["amounts", "investment"])
+    pw = _pw(a, r, timing, periods_per_year)
+    pv_inv = _pw(inv, r, timing, periods_per_year)
     with np.errstate(divide="ignore", invalid="ignore"):
-        pi = np.where(inv > 0, pw_later / np.where(inv > 0, inv, 1.0), np.nan)
+        pi = np.where(pv_inv > 0, 1.0 + pw / np.where(pv_inv > 0, pv_inv, 1.0), np.nan)
     return _out(pi)
 
 
@@ -478,42 +502,79 @@ def discounted_payback_period(amounts, rate, *, interpolate=True, timing="end",
     return _out(_payback(np.cumsum(disc, axis=-1), interpolate))
 
 
-def mirr(amounts, finance_rate, reinvest_rate):
-    """Modified internal rate of return of cash-flow streams.
+def last_flow_period(amounts):
+    """Each stream's horizon: the index of its last non-zero amount (0 for an all-zero stream).
+
+    Parameters
+    ----------
+    amounts : array_like, shape (..., T) [currency]
+
+    Returns
+    -------
+    ndarray of int, shape ``amounts.shape[:-1]`` [periods]
+
+    Examples
+    --------
+    >>> last_flow_period([[-100, 60, 60, 0, 0], [0, 0, 0, 0, 0]]).tolist()
+    [2, 0]
+    """
+    a = _amounts(amounts)
+    nz = a != 0
+    T = a.shape[-1]
+    return np.where(nz.any(axis=-1), T - 1 - np.argmax(nz[..., ::-1], axis=-1), 0)
+
+
+def mirr(amounts, finance_rate, reinvest_rate, *, horizon=None, timing="end"):
+    """Modified internal rate of return of cash-flow streams, each over its own horizon.
 
     Parameters
     ----------
     amounts : array_like, shape (..., T) [currency], T >= 2
-        Cash flows, last axis the period t = 0 .. T-1, end of period.
+        Cash flows, last axis the period t = 0 .. T-1.
     finance_rate : array_like [fraction per period]
         Rate at which the outflows (negative amounts) are discounted to t = 0.
     reinvest_rate : array_like [fraction per period]
-        Rate at which the inflows (positive amounts) are compounded to T-1.
+        Rate at which the inflows (positive amounts) are compounded to the end of the horizon.
         Both rates broadcast against ``amounts.shape[:-1]``.
+    horizon : array_like of int, keyword-only, broadcasting against ``amounts.shape[:-1]`` [periods]
+        The period N at whose end the inflows are compounded and over which the ratio is
+        annualised. Default: each stream's own last non-zero period
+        (:func:`last_flow_period`), so trailing zeros (padding to a portfolio's longest
+        project) do not change a stream's MIRR. Amounts after ``horizon`` are refused.
+    timing : {"end", "mid", "beginning"}, keyword-only
+        Where in each period t >= 1 its amount falls (:func:`ratescape.evaluate.timing.discount_exponents`);
+        the terminal date is the end of period N under every convention.
 
     Returns
     -------
     float or ndarray, shape ``broadcast(rates, amounts.shape[:-1])`` [fraction per period]
-        NaN for rows without both a positive and a negative amount.
+        NaN for rows without both a positive and a negative amount, or with a horizon of 0
+        (every flow now: no time over which to earn a rate).
 
     Warnings
     --------
-    Rates are per period and amounts are end-of-period (as
-    numpy_financial.mirr); there is no ``timing`` option.
+    Rates are per period. With end-of-period timing and a stream whose last amount is
+    non-zero this is numpy_financial.mirr (which always uses the full length T - 1; pass
+    ``horizon=T - 1`` to reproduce it on padded streams).
 
     Notes
     -----
-    MIRR = (FW(positive amounts, reinvest) / PW(-negative amounts, finance))^(1/(T-1)) - 1.
+    MIRR = (FW_N(positive amounts, reinvest) / PW(-negative amounts, finance))^(1/N) - 1, with
+    FW_N = sum_t A+_t (1 + r)^(N - tau_t), PW = sum_t A-_t (1 + f)^(-tau_t). With finance = reinvest
+    = i, MIRR > i exactly when PW(i) > 0, under every timing.
 
     References
     ----------
-    W. G. Sullivan, E. M. Wicks, C. P. Koelling, Engineering Economy,
-    Pearson (external rate of return / MIRR). numpy-financial, ``mirr``.
+    W. G. Sullivan, E. M. Wicks, C. P. Koelling, Engineering Economy, Pearson, external rate of
+    return / MIRR (the terminal date is the end of the project's own life N; from memory).
+    numpy-financial, ``mirr``.
 
     Examples
     --------
     >>> round(mirr([-1600, 10000, -10000], 0.10, 0.10), 10)
     0.0559895554
+    >>> round(mirr([-100, 0, 121, 0, 0], 0.10, 0.10), 10)     # trailing zeros: own horizon 2
+    0.1
     """
     a = _amounts(amounts, min_periods=2)
     f = _rate(finance_rate, "finance_rate")
@@ -526,13 +587,28 @@ def mirr(amounts, finance_rate, reinvest_rate):
             f"broadcast against the leading axes {a.shape[:-1]} of amounts with shape {a.shape}"
         ) from None
     T = a.shape[-1]
-    t = np.arange(T, dtype=float)
+    last = last_flow_period(a)
+    if horizon is None:
+        n = last
+    else:
+        n = np.asarray(horizon)
+        if n.dtype.kind not in "iu" and not np.all(n == np.round(n)):
+            raise ValueError("horizon must hold whole numbers of periods")
+        n = np.broadcast_to(n.astype(np.int64), a.shape[:-1])
+        if np.any(n < 0) or np.any(n > T - 1):
+            raise ValueError(f"horizon must lie in 0 .. {T - 1} (the last period of amounts)")
+        if np.any(last > n):
+            raise ValueError("amounts after the horizon must be zero (the horizon is the stream's last period)")
+    tau = discount_exponents(T, timing)
+    n_f = np.asarray(n, dtype=float)
     pos = np.where(a > 0, a, 0.0)
     neg = np.where(a < 0, -a, 0.0)
-    with np.errstate(over="ignore"):
-        fw_pos = np.einsum("...t,...t->...", pos, np.exp(np.log1p(r)[..., None] * (T - 1 - t)))
-        pw_neg = np.einsum("...t,...t->...", neg, np.exp(-np.log1p(f)[..., None] * t))
-    ok = (pos > 0).any(axis=-1) & (neg > 0).any(axis=-1)
+    with np.errstate(over="ignore", invalid="ignore"):
+        # compounding (1 + r)^(N - tau_t) only over t <= N (later amounts are zero)
+        grow = np.exp(np.log1p(r)[..., None] * (n_f[..., None] - tau))
+        fw_pos = np.einsum("...t,...t->...", pos, np.where(tau <= n_f[..., None], grow, 0.0))
+        pw_neg = np.einsum("...t,...t->...", neg, np.exp(-np.log1p(f)[..., None] * tau))
+    ok = (pos > 0).any(axis=-1) & (neg > 0).any(axis=-1) & (n_f > 0)
     with np.errstate(divide="ignore", invalid="ignore"):
-        out = np.where(ok, np.power(fw_pos / pw_neg, 1.0 / (T - 1)) - 1.0, np.nan)
+        out = np.where(ok, np.power(fw_pos / pw_neg, 1.0 / np.where(n_f > 0, n_f, 1.0)) - 1.0, np.nan)
     return _out(out)

@@ -5,8 +5,11 @@ present worth crosses zero, i.e. the accept/reject decision flips), tornado
 data (worth at the low and high end of each input's range) and spider data
 (worth against a percentage change of each input). Inputs:
 
-* ``discount_rate`` (nominal): its switching value is the nominal IRR;
-* ``inflation``: general inflation at the base nominal rate;
+* ``discount_rate``, on the run's discount basis: the nominal rate (its switching value is the
+  nominal IRR) or, on a real-basis run, the real rate (its switching value is the real IRR);
+* ``inflation``: general inflation with the base discount rate held fixed on the run's basis (the
+  nominal rate on a nominal-basis run; the real rate on a real-basis run, so a project of real
+  lines without tax shows no sensitivity to inflation, as the grid itself shows);
 * ``first_cost``: multiplier of the investment lines (1 = base);
 * ``benefits``: multiplier of the benefit lines (1 = base);
 * ``escalation``: shift added to every real line's escalation [fraction per year].
@@ -68,14 +71,18 @@ class SensitivitySettings:
 
 
 def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_inflation: float,
-                  settings: SensitivitySettings, multipliers: dict | None = None) -> dict:
+                  settings: SensitivitySettings, multipliers: dict | None = None, *,
+                  discount_basis: str = "nominal") -> dict:
     """Switching values, tornado and spider data for P projects around one base scenario.
 
     Parameters
     ----------
     amounts_by_role : (R, C, P, T) [currency]; classes, exponents as for the kernel.
-    base_rate, base_inflation : nominal discount rate and inflation of the base scenario [fraction per year].
+    base_rate, base_inflation : discount rate (on ``discount_basis``) and inflation of the base
+        scenario [fraction per year].
     multipliers : per-class multiplier values at the base scenario (scalars).
+    discount_basis : "nominal" (default) or "real": the basis of ``base_rate``, of the
+        ``discount_rate`` range in ``settings`` and of the rate held fixed while inflation moves.
 
     Returns
     -------
@@ -90,7 +97,7 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
     base = {"discount_rate": base_rate, "inflation": base_inflation, "first_cost": 1.0, "benefits": 1.0,
             "escalation": 0.0}
 
-    evaluate = PointEvaluator(A, classes, exponents, mult)
+    evaluate = PointEvaluator(A, classes, exponents, mult, discount_basis=discount_basis)
 
     def pw(**kw):
         args = dict(discount_rate=base_rate, inflation=base_inflation, escalation_shift=0.0,

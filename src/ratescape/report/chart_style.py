@@ -133,6 +133,28 @@ def clipped_worth_domain(values) -> tuple[float, int]:
     return m, int(np.count_nonzero(np.abs(v) > m))
 
 
+def run_basis(run) -> str:
+    """The basis of a run's discount axis, "nominal" or "real", from its ``runs`` row (a mapping)."""
+    basis = str((run or {}).get("discount_basis") or "nominal").lower()
+    return "real" if basis == "real" else "nominal"
+
+
+def discount_rate_label(basis: str) -> str:
+    """Plain label of the discount rate on a run's basis: "real discount rate" on a real-basis run,
+    "nominal discount rate" otherwise (a real-basis run is never described in nominal rates)."""
+    return "real discount rate" if basis == "real" else "nominal discount rate"
+
+
+def sensitivity_input_label(name: str, basis: str) -> str:
+    """Label of a one-at-a-time sensitivity input, naming the discount basis where a rate is involved:
+    the discount rate is moved, and held fixed while inflation moves, on the run's own basis."""
+    if name == "discount_rate":
+        return discount_rate_label(basis)
+    if name == "inflation":
+        return f"inflation ({discount_rate_label(basis)} held)"
+    return name.replace("_", " ")
+
+
 def axis_title(column: str) -> str:
     return TITLES.get(column, column.replace("_", " ").capitalize())
 

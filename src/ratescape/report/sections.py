@@ -21,7 +21,7 @@ from ratescape.report.brief import (
     fails_under_high_inflation,
     group_changes,
 )
-from ratescape.report.chart_style import INPUT_LABELS
+from ratescape.report.chart_style import INPUT_LABELS, discount_rate_label, run_basis, sensitivity_input_label
 from ratescape.report.drill_charts import drill_templates
 from ratescape.report.explorer import explorer_data
 from ratescape.report.explorer_script import explorer_html, search_html
@@ -96,8 +96,12 @@ def run_metadata(ctx: RunContext) -> list[tuple[str, Any]]:
             meta.append(("Discount rate, real", f"{stats[3]:.2%} to {stats[4]:.2%}"))
         meta.append(("General inflation", f"{stats[5]:.2%} to {stats[6]:.2%} ({stats[7]} levels)"))
     if ctx.base is not None:
-        meta.append(("Base scenario",
-                     f"discount rate {ctx.base['discount_rate']:.2%} nominal, inflation {ctx.base['inflation']:.2%}"))
+        if run_basis(run) == "real" and ctx.base.get("real_rate") is not None:
+            rate = (f"{discount_rate_label('real')} {ctx.base['real_rate']:.2%} "
+                    f"(nominal {ctx.base['discount_rate']:.2%})")
+        else:
+            rate = f"{discount_rate_label('nominal')} {ctx.base['discount_rate']:.2%}"
+        meta.append(("Base scenario", f"{rate}, inflation {ctx.base['inflation']:.2%}"))
     meta.append(("Relation of rates", "exact Fisher relation (1 + nominal) = (1 + real)(1 + inflation)"))
     spec = run.get("grid_spec")
     if spec:
@@ -454,16 +458,21 @@ def _sensitivity_sections(ctx: RunContext, ids: list[str]) -> list[Section]:
                 WHERE t.run_id = ? AND list_contains(?, t.project_id)
                 ORDER BY t.project_id, t.input, t.{change}""", [ctx.run_id, ids])
             break
-    if tor is not None:
-        tor = tor.with_columns(pl.col("input").replace(INPUT_LABELS))
-    if sp is not None:
-        sp = sp.with_columns(pl.col("input").replace(INPUT_LABELS))
+    basis = run_basis(ctx.run)                       # name the rates on the run's own basis
+
+    def plain(name):
+        return (sensitivity_input_label(name, basis) if name in ("discount_rate", "inflation")
+                else INPUT_LABELS.get(name, str(name).replace("_", " ")))
+
+    label = lambda f: f if f is None else f.with_columns(   # noqa: E731
+        pl.col("input").map_elements(plain, return_dtype=pl.String))
+    tor, sp = label(tor), label(sp)
     have_tor = tor is not None and tor.height > 0
     have_sp = sp is not None and sp.height > 0
     if not have_tor and not have_sp:
         return [Section(title, unavailable=NO_SENSITIVITY)]
-    secs = [Section(title, "Each input moved on its own, the others held at their base values, "
-                           "for the drill-down projects.")]
+    secs = [Section(title, "Each input moved on its own, the others held at their base values "
+                           f"(the {discount_rate_label(basis)} among them), for the drill-down projects.")]
     secs.append(Section("Tornado", level=3, chart=charts.tornado(tor), chart_kind="tornado") if have_tor else
                 Section("Tornado", level=3, unavailable="Not available for these projects.", chart_kind="tornado"))
     secs.append(Section("Spider", level=3, chart=charts.spider(sp), chart_kind="spider") if have_sp else

@@ -26,6 +26,7 @@ from ratescape.evaluate.measures import (
 )
 from ratescape.evaluate.sensitivity import one_at_a_time
 from ratescape.evaluate.tax import carry_forward_adjustment
+from ratescape.evaluate.timing import steps_per_period, stream_on_timing_grid
 from ratescape.run.plan import IRR_SEARCH, Plan, scenario_multipliers
 
 
@@ -100,8 +101,10 @@ def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray, buffe
     irr = irr_over_inflation(plan, A)
     F, P = plan.inflation_levels.size, A.shape[1]
     summary.update(base_measures(plan, A_by_role, horizon))
-    sens = one_at_a_time(A_by_role, plan.classes, plan.exponents, float(cols["discount_rate"][b]),
-                         float(cols["inflation"][b]), plan.sensitivity, plan.base_multipliers)
+    basis = plan.spec.discount_basis                                    # move rates on the run's own basis
+    sens = one_at_a_time(A_by_role, plan.classes, plan.exponents,
+                         float(cols["real_rate" if basis == "real" else "discount_rate"][b]),
+                         float(cols["inflation"][b]), plan.sensitivity, plan.base_multipliers, discount_basis=basis)
     pw_before = None
     if plan.tensor_before_tax_sm is not None:
         pw_before = present_worth_scenario_major(A, plan.tensor_before_tax_sm)
@@ -124,34 +127,51 @@ class IrrTable:
         return STATUS_LABELS[self.status.astype(int)]
 
 
+def timed_irr_roots(streams: np.ndarray, timing: str, low: float, high: float):
+    """Every rate per period in [low, high] at which ``streams`` (N, T), placed by ``timing``,
+    have zero present worth: the IRR of the stream on its timing grid
+    (:func:`ratescape.evaluate.timing.stream_on_timing_grid`), mapped from grid steps to periods
+    by (1 + i) = (1 + x)^k. Under end-of-period timing this is :func:`irr_roots` itself."""
+    k = steps_per_period(timing)
+    if k == 1 and timing == "end":
+        return irr_roots(streams, low=low, high=high)
+    grid = stream_on_timing_grid(streams, timing)
+    step = lambda rate: np.expm1(np.log1p(rate) / k)                     # noqa: E731 per period -> per step
+    res = irr_roots(grid, low=float(step(low)), high=float(step(high)))
+    with np.errstate(invalid="ignore"):
+        roots = np.expm1(k * np.log1p(np.asarray(res.roots, dtype=float)))
+    return res._replace(roots=roots)
+
+
 def irr_over_inflation(plan: Plan, A: np.ndarray) -> IrrTable:
     """Every IRR root of every project's then-current stream at each inflation level of the grid.
 
-    A project whose lines are all real (constant base-year money) has a then-current stream
-    (1+f)^tau R_t, so its nominal roots are (1+i) = (1+f)(1+r) for the roots r of R: its
-    IRR is searched once and mapped by the exact Fisher relation to every inflation level.
-    Projects with nominal lines are searched at each level.
+    The IRR is the rate at which the stored present worth is zero at that inflation level, under
+    the run's timing convention: the then-current streams are built with the same exponents tau
+    the present worth uses (real lines grown by ((1+e)(1+f))^tau, nominal lines by (1+e)^tau) and
+    each flow is placed where the present worth discounts it (:func:`timed_irr_roots`).
 
-    Warnings
-    --------
-    IRRs place period t's flow at its end (t periods from now) whatever the run's timing
-    convention; the discount-rate switching value in ``sensitivity`` honours the convention.
+    A project whose lines are all real (constant base-year money) has a present worth
+    sum_t R_t ((1+f)/(1+i))^tau_t, so its nominal roots are (1+i) = (1+f)(1+r) for the roots r
+    of R under the same timing: its IRR is searched once and mapped by the exact Fisher relation
+    to every inflation level. Projects with nominal lines are searched at each level.
     """
     levels = plan.inflation_levels
     F, (_, P, T) = levels.size, A.shape
+    timing = plan.spec.timing
     nominal = np.array([not c.grows_throughout for c in plan.classes])   # nominal or frozen: searched per level
     mixed = np.any(A[nominal] != 0, axis=(0, 2)) if nominal.any() else np.zeros(P, dtype=bool)
     m = float(plan.spec.periods_per_year)
     low, high = IRR_SEARCH
     real_part = then_current_streams(A[:, ~mixed], plan.classes, plan.exponents, [0.0],
                                      {k: v[:1] for k, v in plan.irr_multipliers.items()})[0]
-    r = irr_roots(real_part, low=low, high=high)
+    r = timed_irr_roots(real_part, timing, low, high)
     growth = np.power(1.0 + levels, 1.0 / m)                                     # per-period inflation factor
     K = max(np.asarray(r.roots).shape[-1], 1)
     parts = {}
     if mixed.any():
         streams = then_current_streams(A[:, mixed], plan.classes, plan.exponents, levels, plan.irr_multipliers)
-        q = irr_roots(streams.reshape(F * int(mixed.sum()), T), low=low, high=high)
+        q = timed_irr_roots(streams.reshape(F * int(mixed.sum()), T), timing, low, high)
         K = max(K, np.asarray(q.roots).shape[-1])
         parts["mixed"] = q
     roots = np.full((F, P, K), np.nan)
@@ -182,6 +202,12 @@ def base_measures(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> dic
     salvage; investment = investment lines), simple and discounted payback
     [periods], and MIRR with finance and reinvestment rates equal to the base
     nominal discount rate [fraction per year].
+
+    MIRR runs over each project's own horizon (:func:`own_horizon`: its last period with a
+    line, after tax including the tax lines, so the period a write-off may need belongs to a
+    project only when it has a flow there), never over the portfolio's padded length, and
+    places flows by the run's timing: a project's MIRR does not depend on which other projects
+    are loaded.
     """
     cols = plan.scenarios.columns
     b = plan.scenarios.base_index
@@ -197,7 +223,9 @@ def base_measures(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> dic
         bc_mod = benefit_cost_ratio(benefit, -other, -invest, i, modified=True, **opts)
         fw = present_worth(total, i, **opts) * np.power(1.0 + i, horizon / m)
         i_per = (1.0 + i) ** (1.0 / m) - 1.0
-        mirr_per = mirr(total, i_per, i_per) if total.shape[1] >= 2 else np.full(total.shape[0], np.nan)
+        own = own_horizon(A_by_role)
+        mirr_per = (mirr(total, i_per, i_per, horizon=own, timing=plan.spec.timing) if total.shape[1] >= 2
+                    else np.full(total.shape[0], np.nan))
     return {
         "future_worth_base": np.asarray(fw, dtype=float),
         "bc_ratio_base": np.asarray(bc, dtype=float),
@@ -206,6 +234,14 @@ def base_measures(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> dic
         "discounted_payback_base": np.asarray(discounted_payback_period(total, i, **opts), dtype=float),
         "mirr_base": np.asarray(_per_period_to_annual(np.asarray(mirr_per, dtype=float), m), dtype=float),
     }
+
+
+def own_horizon(A_by_role: np.ndarray) -> np.ndarray:
+    """Each project's own horizon (P,): the last period in which any of its lines (R, C, P, T)
+    is non-zero; 0 for a project without any."""
+    nz = np.any(A_by_role != 0, axis=(0, 1))                              # (P, T)
+    T = nz.shape[-1]
+    return np.where(nz.any(axis=-1), T - 1 - np.argmax(nz[:, ::-1], axis=-1), 0)
 
 
 def _per_period_to_annual(rate, m: float):

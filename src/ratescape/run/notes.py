@@ -8,7 +8,7 @@ from __future__ import annotations
 from ratescape.run.plan import Plan
 
 TAX_NOTE = (
-    "After tax: {losses}. Tax is paid at the end of the year in which the income arises. Depreciation is "
+    "After tax: {losses}. Tax falls at the same point of the period as the flow it arises from ({timing}). Depreciation is "
     "fixed in nominal money from each asset's own service period (each investment line is its own asset, "
     "depreciated from the period it is paid at that period's price), so inflation erodes the tax shield. "
     "The gain on disposal (depreciation recapture, and a land sale's gain over its cost) is taxed at the "
@@ -39,7 +39,9 @@ def write_run_notes(con, plan: Plan) -> None:
         if "state" in (spec.sources or {}).get("tax_rate", ""):
             rate = (" The income-tax rate is the combined rate t = t_s + t_f (1 - t_s) of the state and federal "
                     "rates given (state tax deductible federally; common practice).")
-        notes["tax"] = TAX_NOTE.format(losses=CARRIED if carried else OFFSET, rate=rate)
+        timing = {"end": "the end of the year, end-of-period timing", "mid": "mid-year, with the flows under mid-period timing",
+                  "beginning": "the start of the period, beginning-of-period timing"}.get(spec.timing, spec.timing)
+        notes["tax"] = TAX_NOTE.format(losses=CARRIED if carried else OFFSET, rate=rate, timing=timing)
         loans = con.execute("SELECT count(*) FROM projects WHERE coalesce(loan_amount, 0) > 0").fetchone()[0]
         if loans:
             notes["loans"] = LOANS_NOTE.format(n=loans)

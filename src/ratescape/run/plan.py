@@ -193,8 +193,8 @@ def make_plan(con, run_id: str, spec: RunSettings, chunk_size: int | None) -> Pl
     base_mult = {name: float(v[base]) for name, v in multipliers.items()}
     irr_mult = {name: np.full(levels.size, v) for name, v in base_mult.items()}
     try:
-        sens = SensitivitySettings.from_spec(spec.sensitivity, spec.discount_rates if spec.discount_basis == "nominal"
-                                             else list(np.unique(table.columns["discount_rate"])), spec.inflation)
+        # the discount-rate range is the axis asked for, on the run's own basis (real rates on a real-basis run)
+        sens = SensitivitySettings.from_spec(spec.sensitivity, spec.discount_rates, spec.inflation)
     except ValueError as exc:
         raise RunError(f"[sensitivity] settings: {exc}") from None
     return Plan(run_id, spec, table, classes, class_index, T, tau, tensor, _scenario_weights(spec, table),
