@@ -109,7 +109,7 @@ def work(tmp_path_factory) -> dict:
     assert finish("load", "--projects", d / "screen.csv", "--db", screen_db).returncode == 0
     warm = finish("screen", "--db", screen_db, *GRID, "--quiet")    # compiles (or loads) the kernels
     assert warm.returncode == 0, warm.stderr
-    ref = finish("screen", "--db", screen_db, *GRID, "--quiet")
+    ref = finish("screen", "--db", screen_db, *GRID)   # not --quiet: its log gives the time after planning
     assert ref.returncode == 0, ref.stderr
     return {"dir": d, "counts": counts, "screen_db": screen_db, "reference": ref.stdout.strip().splitlines()[-1],
             "load_seconds": seconds["new"], "screen_seconds": _seconds_after_planning(ref.stderr)}
