@@ -29,7 +29,7 @@ def load_portfolio(projects, cash_flows=None, db=None) -> dict:
 
 def screen_portfolio(db, *, grid=None, discount_rates=None, inflation=None, discount_basis=None, budgets=None,
                      timing=None, periods_per_year=None, after_tax=None, tax_rate=None, keep=None, chunk_size=None,
-                     resume=None, cluster=None, workers=None,
+                     resume=None, cluster=None, workers=None, alternatives_basis=None, study_period=None,
                      progress=False, stop_after_chunks=None) -> str:
     """Screen the loaded portfolio over a grid (TOML path and/or overrides); return the run id."""
     from .run.screen import screen
@@ -40,7 +40,7 @@ def screen_portfolio(db, *, grid=None, discount_rates=None, inflation=None, disc
         spec = make_run_settings(toml_settings=toml_settings, discount_rates=discount_rates, inflation=inflation,
                               discount_basis=discount_basis, budgets=budget_map or None, timing=timing,
                               periods_per_year=periods_per_year, after_tax=after_tax, tax_rate=tax_rate,
-                              keep=keep)
+                              keep=keep, alternatives_basis=alternatives_basis, study_period=study_period)
     con = connect_write(db)
     try:
         return screen(con, spec, resume=resume, chunk_size=chunk_size, progress=progress,

@@ -108,12 +108,17 @@ def load(projects_path, cash_flows_path, db_path):
 @click.option("--keep", metavar="all|summary|thinned:K",
               help="Result rows to store: all (default), summary (per-project summaries only), "
                    "or thinned:K (every K-th rate and inflation level, and the base scenario).")
+@click.option("--alternatives-basis", type=click.Choice(["annual-worth", "study-period", "present-worth"]),
+              help="How alternatives of a group with different lives are compared: annual-worth (default), "
+                   "study-period (with --study-period) or present-worth over their own lives.")
+@click.option("--study-period", type=int, metavar="T",
+              help="Study period in periods for --alternatives-basis study-period (implies it).")
 @click.option("--resume", "resume", metavar="RUN_ID", help="Finish an interrupted run.")
 @click.option("--cluster", metavar="tcp://HOST:PORT", help="Evaluate chunks on this Dask scheduler's workers.")
 @click.option("--workers", type=click.IntRange(min=1), help="Evaluate chunks on a local Dask cluster of N processes.")
 @click.option("--quiet", is_flag=True, help="No progress output.")
 def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budgets, timing, periods_per_year,
-           after_tax, tax_rate, chunk_size, keep, resume, cluster, workers, quiet):
+           after_tax, tax_rate, chunk_size, keep, alternatives_basis, study_period, resume, cluster, workers, quiet):
     """Evaluate every project in every scenario of the grid and store the results.
 
     Rates are fractions (0.07 = 7 %). Flags override the TOML file. The run
@@ -132,12 +137,14 @@ def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budget
     if cluster and workers:
         raise click.UsageError("give --cluster (an existing scheduler) or --workers (a local cluster), not both")
     if resume and (any(v is not None for v in (grid_path, discount_rates, inflation, discount_basis, timing,
-                                                periods_per_year, after_tax, tax_rate, keep)) or bool(budgets)):
+                                                periods_per_year, after_tax, tax_rate, keep, alternatives_basis,
+                                                study_period)) or bool(budgets)):
         raise click.UsageError("--resume continues a run with its stored grid; give no grid options with it")
     run_id = screen_portfolio(db_path, grid=grid_path, discount_rates=discount_rates, inflation=inflation,
                               discount_basis=discount_basis, budgets=list(budgets), timing=timing,
                               periods_per_year=periods_per_year, after_tax=after_tax, tax_rate=tax_rate,
                               keep=keep, chunk_size=chunk_size, cluster=cluster, workers=workers,
+                              alternatives_basis=alternatives_basis, study_period=study_period,
                               resume=resume, progress=not quiet)
     from .store.database import connect_read
     con = connect_read(db_path)
