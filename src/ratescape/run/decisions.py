@@ -31,7 +31,7 @@ from ratescape.decide.equal_service import (
 )
 from ratescape.decide.frontier import indifference_frontier
 from ratescape.decide.portfolio_stats import core_portfolio, min_max_regret, selection_share
-from ratescape.decide.rationing import STATUS_LABELS, ration_capital
+from ratescape.decide.rationing import STATUS_INFEASIBLE, STATUS_LABELS, ration_capital
 from ratescape.errors import RunError
 from ratescape.evaluate.kernel import (
     LineClass,
@@ -417,6 +417,11 @@ def _ration(con, plan, projects, pw: np.ndarray, reader) -> None:
     for g, m in zip(projects["group_name"].to_list(), projects["mandatory"].to_list()):
         if g and m:
             mandatory[gi[g]] = True
+    # a must-fund project (mandatory, in no group) is a mandatory group of one: x_j = 1 in every scenario
+    must_fund = np.array([bool(m) and not g for g, m in zip(projects["group_name"].to_list(),
+                                                           projects["mandatory"].to_list())], dtype=bool)
+    group_index[must_fund] = len(group_names) + np.arange(int(must_fund.sum()))
+    mandatory = np.concatenate([mandatory, np.ones(int(must_fund.sum()), dtype=bool)])
     key_of = {pid: k for k, pid in enumerate(ids)}
     pairs = [(key_of[pid], key_of[t.strip()]) for pid, req in zip(ids, projects["requires"].to_list()) if req
              for t in req.split(";") if t.strip() in key_of]
@@ -429,6 +434,14 @@ def _ration(con, plan, projects, pw: np.ndarray, reader) -> None:
     log(f"capital rationing: {plan.scenarios.size} scenarios x {P} projects solved in {time.perf_counter() - t0:.1f} s")
     S = plan.scenarios.size
     status_names = STATUS_LABELS
+    infeasible = int(np.sum(np.asarray(res.status) == STATUS_INFEASIBLE))
+    if infeasible and mandatory.any():
+        forced = ", ".join([str(p) for p in ids[must_fund]] + [g for g, m in zip(group_names, mandatory) if m])
+        message = (f"capital rationing: the must-fund projects and mandatory groups ({forced}) do not fit the "
+                   f"budgets in {infeasible} of {S} scenarios; those scenarios have status 'infeasible' and no "
+                   "portfolio. Fix: raise the budgets of the periods they spend in, or review what is marked mandatory")
+        log(message)
+        _insert(con, "run_notes", {"topic": ["rationing"], "note": [message]}, plan.run_id)
     used = np.asarray(res.budget_used)
     _insert(con, "portfolios", {
         "scenario_id": np.arange(S, dtype=np.int32), "objective": np.asarray(res.objective, dtype=float),

@@ -25,6 +25,7 @@ from ratescape.evaluate.measures import (
     present_worth,
 )
 from ratescape.evaluate.sensitivity import one_at_a_time
+from ratescape.run.cost_only import mask_cost_only
 from ratescape.run.plan import IRR_SEARCH, Plan
 
 
@@ -90,6 +91,7 @@ def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray, buffe
     irr = irr_over_inflation(plan, A)
     F, P = plan.inflation_levels.size, A.shape[1]
     summary.update(base_measures(plan, A_by_role, horizon))
+    mask_cost_only(summary, pi, irr, A_by_role)          # measures a cost-only stream has not: NULL
     sens = one_at_a_time(A_by_role, plan.classes, plan.exponents, float(cols["discount_rate"][b]),
                          float(cols["inflation"][b]), plan.sensitivity, plan.base_multipliers)
     pw_before = None
