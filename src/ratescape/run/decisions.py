@@ -458,17 +458,22 @@ def _ration(con, plan, projects, pw: np.ndarray, reader) -> None:
     share = np.asarray(selection_share(res.selected), dtype=float)
     prob = np.asarray(selection_share(res.selected, plan.weights), dtype=float)
     core = np.asarray(core_portfolio(res.selected, threshold), dtype=bool)
-    regret = min_max_regret(pw, res.selected, res.objective, outlay, budgets, scenario_class=scenario_class)
-    best = np.asarray(regret.best_selected, dtype=bool) if regret.best >= 0 else np.zeros(P, dtype=bool)
+    if np.all(np.isnan(np.asarray(res.objective, dtype=float))):   # no scenario has a portfolio: no regret
+        regret = None
+        best = np.zeros(P, dtype=bool)
+    else:
+        regret = min_max_regret(pw, res.selected, res.objective, outlay, budgets, scenario_class=scenario_class)
+        best = np.asarray(regret.best_selected, dtype=bool) if regret.best >= 0 else np.zeros(P, dtype=bool)
     _insert(con, "portfolio_summary", {"project_id": ids.tolist(), "selected_share": share,
                                        "selected_probability": prob, "in_core": core, "in_min_max_regret": best},
             plan.run_id)
-    K = len(regret.portfolios)
-    _insert(con, "portfolio_regret", {
-        "candidate": np.arange(K, dtype=np.int32), "max_regret": np.asarray(regret.max_regret, dtype=float),
-        "mean_regret": np.where(np.asarray(regret.feasible), np.asarray(regret.regret), np.nan).mean(axis=1)
-        if K else np.zeros(0), "scenarios_optimal": np.asarray(regret.optimal_in).astype(np.int32),
-        "chosen": np.arange(K) == regret.best}, plan.run_id)
+    K = 0 if regret is None else len(regret.portfolios)
+    if K:
+        _insert(con, "portfolio_regret", {
+            "candidate": np.arange(K, dtype=np.int32), "max_regret": np.asarray(regret.max_regret, dtype=float),
+            "mean_regret": np.where(np.asarray(regret.feasible), np.asarray(regret.regret), np.nan).mean(axis=1)
+            if K else np.zeros(0), "scenarios_optimal": np.asarray(regret.optimal_in).astype(np.int32),
+            "chosen": np.arange(K) == regret.best}, plan.run_id)
     con.execute("""UPDATE project_summary AS s SET selected_share = ps.selected_share,
                    selected_probability = ps.selected_probability
                    FROM portfolio_summary ps WHERE ps.run_id = s.run_id AND ps.project_id = s.project_id
