@@ -181,3 +181,25 @@ def test_zero_real_rate_annual_worth_is_the_average_cost(tmp_path):
     _, _, margin, worth, _, _ = decision(con, run_id, "homes", 0.0)
     assert worth == pytest.approx(max(VA.sum() / 6, VB.sum() / 9), rel=1e-12)
     assert margin == pytest.approx(abs(VA.sum() / 6 - VB.sum() / 9), rel=1e-12)
+
+
+def test_equal_lives_decide_as_today_under_every_basis(tmp_path):
+    """Equal lives: present worth over the common life whatever the basis (and a study period unused)."""
+    projects = ("project_id,name,group,first_cost,annual_cost,annual_benefit,life\n"
+                "E1,Equal one,eq,1000,,260,7\nE2,Equal two,eq,1500,,330,7\nE3,Equal three,eq,400,,90,7\n")
+    got = []
+    for k, flags in enumerate(({}, {"alternatives_basis": "present-worth"},
+                               {"alternatives_basis": "study-period", "study_period": 4})):
+        d = tmp_path / str(k)
+        d.mkdir()
+        con, run_id = screened(d, projects=projects, **flags)
+        got.append(con.execute("""SELECT scenario_id, preferred, runner_up, margin, preferred_worth, basis
+                                  FROM group_decisions WHERE run_id = ? ORDER BY scenario_id""", [run_id]).fetchall())
+        base_id = con.execute("SELECT scenario_id FROM scenarios WHERE run_id = ? AND is_base", [run_id]).fetchone()[0]
+        con.close()
+    assert got[0] == got[1] == got[2]
+    assert {row[-1] for row in got[0]} == {"present-worth"}
+    # numpy-financial at the base scenario (14 %, no inflation)
+    pws = [npf.npv(0.14, [-c] + [b] * 7) for c, b in ((1000, 260), (1500, 330), (400, 90))]
+    base = [row for row in got[0] if row[0] == base_id][0]
+    assert base[4] == pytest.approx(max(max(pws), 0.0), rel=1e-9)
