@@ -203,3 +203,15 @@ def test_equal_lives_decide_as_today_under_every_basis(tmp_path):
     pws = [npf.npv(0.14, [-c] + [b] * 7) for c, b in ((1000, 260), (1500, 330), (400, 90))]
     base = [row for row in got[0] if row[0] == base_id][0]
     assert base[4] == pytest.approx(max(max(pws), 0.0), rel=1e-9)
+
+
+def test_terminal_value_outside_a_group_is_refused(tmp_path):
+    from ratescape.errors import ValidationError
+    (tmp_path / "p.csv").write_text(PROJECTS + "LONE,Alone,,,100,,,,,5,40\n")
+    with pytest.raises(ValidationError) as err:
+        load_portfolio(tmp_path / "p.csv", None, tmp_path / "x.duckdb")
+    text = str(err.value)
+    assert "p.csv" in text and "line 6" in text and "terminal_value" in text and "40" in text
+    assert "a terminal value on a project outside any group" in text
+    assert "leave terminal_value blank, or give the project its group of alternatives" in text
+    assert not (tmp_path / "x.duckdb").exists()
