@@ -30,7 +30,7 @@ def load_portfolio(projects, cash_flows=None, db=None, *, allow_extreme_rates: b
 
 def screen_portfolio(db, *, grid=None, discount_rates=None, inflation=None, discount_basis=None, budgets=None,
                      timing=None, periods_per_year=None, after_tax=None, tax_rate=None, keep=None, chunk_size=None,
-                     resume=None, cluster=None, workers=None,
+                     resume=None, cluster=None, workers=None, alternatives_basis=None, study_period=None,
                      progress=False, stop_after_chunks=None, state_tax_rate=None, federal_tax_rate=None,
                      losses=None, allow_extreme_rates=None, settings=None) -> str:
     """Screen the loaded portfolio over a grid (TOML path and/or overrides); return the run id.
@@ -47,7 +47,8 @@ def screen_portfolio(db, *, grid=None, discount_rates=None, inflation=None, disc
                               discount_basis=discount_basis, budgets=budget_map or None, timing=timing,
                               periods_per_year=periods_per_year, after_tax=after_tax, tax_rate=tax_rate,
                               keep=keep, state_tax_rate=state_tax_rate, federal_tax_rate=federal_tax_rate,
-                              losses=losses, allow_extreme_rates=allow_extreme_rates)
+                              losses=losses, allow_extreme_rates=allow_extreme_rates,
+                              alternatives_basis=alternatives_basis, study_period=study_period)
     con = connect_write(db)
     try:
         return screen(con, spec, resume=resume, chunk_size=chunk_size, progress=progress,

@@ -200,13 +200,18 @@ RANGE_HELP = "START:STOP:COUNT, one value or a list (see RANGES above)"
 @click.option("--keep", metavar="all|summary|thinned:K",
               help="Result rows to store: all (default), summary (per-project summaries only), "
                    "or thinned:K (every K-th rate and inflation level, and the base scenario).")
+@click.option("--alternatives-basis", type=click.Choice(["annual-worth", "study-period", "present-worth"]),
+              help="How alternatives of a group with different lives are compared: annual-worth (default), "
+                   "study-period (with --study-period) or present-worth over their own lives.")
+@click.option("--study-period", type=int, metavar="T",
+              help="Study period in periods for --alternatives-basis study-period (implies it).")
 @click.option("--resume", "resume", metavar="RUN_ID", help="Finish an interrupted run.")
 @click.option("--cluster", metavar="tcp://HOST:PORT", help="Evaluate chunks on this Dask scheduler's workers.")
 @click.option("--workers", type=click.IntRange(min=1, max=256), help="Evaluate chunks on a local Dask cluster of N processes.")
 @click.option("--quiet", is_flag=True, help="Print nothing but errors and the run id.")
 def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budgets, timing, periods_per_year,
            after_tax, tax_rate, state_tax_rate, federal_tax_rate, losses, allow_extreme_rates, chunk_size, keep,
-           resume, cluster, workers, quiet):
+           alternatives_basis, study_period, resume, cluster, workers, quiet):
     """Evaluate every project in every scenario of the grid and store the results.
 
     Rates are fractions (0.07 = 7 %); a rate above 1 in size (or a tax rate
@@ -239,7 +244,7 @@ def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budget
         raise click.UsageError("give --cluster (an existing scheduler) or --workers (a local cluster), not both")
     if resume and (any(v is not None for v in (grid_path, discount_rates, inflation, discount_basis, timing,
                                                 periods_per_year, after_tax, tax_rate, keep, state_tax_rate,
-                                               federal_tax_rate, losses))
+                                               federal_tax_rate, losses, alternatives_basis, study_period))
                    or bool(budgets) or allow_extreme_rates):
         raise click.UsageError("--resume continues a run with its stored grid; give no grid options with it")
     spec = None
@@ -251,7 +256,8 @@ def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budget
                                  budgets=parse_budget(budgets) if budgets else None, timing=timing,
                                  periods_per_year=periods_per_year, after_tax=after_tax, tax_rate=tax_rate,
                                  keep=keep, allow_extreme_rates=allow_extreme_rates, state_tax_rate=state_tax_rate,
-                                 federal_tax_rate=federal_tax_rate, losses=losses)
+                                 federal_tax_rate=federal_tax_rate, losses=losses,
+                                 alternatives_basis=alternatives_basis, study_period=study_period)
         if not quiet:
             for line in describe_axes(spec, base_values(spec, build_scenarios(spec))):
                 click.echo(line, err=True)

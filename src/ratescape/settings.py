@@ -83,6 +83,8 @@ class RunSettings:
     sources: dict = field(default_factory=dict)   # setting -> where it came from (file: key, or flag)
     keep: str = "all"                             # result rows kept: all, summary, thinned:K
     allow_extreme_rates: bool = False             # rates above 100 % (|r| > 1) accepted on purpose
+    alternatives_basis: str = "annual-worth"      # how alternatives of unequal lives are compared
+    study_period: int | None = None               # periods, with alternatives_basis "study-period"
 
     def to_json(self) -> str:
         return json.dumps(asdict(self), sort_keys=True)
@@ -228,7 +230,7 @@ TAX_SETTINGS = {
                               "a fraction of at least 0 and below 1 (0.1 = 10 %)"),
     "losses": (lambda v: v in ("offset", "carry-forward"), 'offset or carry-forward'),
 }
-TABLES = ("grid", "time", "budget", "tax", "weights", "sensitivity", "decisions", "results")
+TABLES = ("grid", "time", "budget", "tax", "weights", "sensitivity", "decisions", "results", "alternatives")
 GRID_KEYS = ("discount_rates", "inflation", "discount_basis", "base", "allow_extreme_rates")
 
 
@@ -345,6 +347,12 @@ def read_settings_toml(path: str | Path) -> dict:
             raise GridError(f"{path}: results.keep must be text, got {keep!r}. Fix: keep = \"summary\"")
         out["keep"] = keep
         src["keep"] = f"{path}: results.keep"
+    for key, value in data.get("alternatives", {}).items():
+        if key not in ("basis", "study_period"):
+            raise GridError(f"{path}: unknown key alternatives.{key}. Fix: use alternatives.basis "
+                            f"({', '.join(ALTERNATIVES_BASES)}) or alternatives.study_period")
+        src[f"alternatives_{key}"] = f"{path}: alternatives.{key}"
+        out["alternatives_basis" if key == "basis" else "study_period"] = value
     return out
 
 
@@ -403,7 +411,8 @@ def make_run_settings(*, toml_settings: dict | None = None, discount_rates: str 
                    periods_per_year: float | None = None, after_tax: bool | None = None,
                    tax_rate: str | None = None, keep: str | None = None, state_tax_rate: str | float | None = None,
                    federal_tax_rate: str | float | None = None, losses: str | None = None,
-                   allow_extreme_rates: bool | None = None) -> RunSettings:
+                   allow_extreme_rates: bool | None = None, alternatives_basis: str | None = None,
+                   study_period: int | None = None) -> RunSettings:
     """Combine TOML settings with command-line overrides (flags win) and validate."""
     s = dict(toml_settings or {})
     s["sources"] = dict(s.get("sources", {}))
@@ -447,6 +456,14 @@ def make_run_settings(*, toml_settings: dict | None = None, discount_rates: str 
     if allow_extreme_rates:
         src["allow_extreme_rates"] = "--allow-extreme-rates"
         s["allow_extreme_rates"] = True
+    if alternatives_basis is not None:
+        s["alternatives_basis"] = alternatives_basis
+        s["sources"]["alternatives_basis"] = "--alternatives-basis"
+    if study_period is not None:
+        s["study_period"] = study_period
+        s["sources"]["alternatives_study_period"] = "--study-period"
+    if s.get("study_period") is not None and "alternatives_basis" not in s:
+        s["alternatives_basis"] = "study-period"     # a study period alone asks for the study-period basis
     if tax_rate is not None:
         src.setdefault("tax_rate", "--tax-rate")
         if src["tax_rate"] != "--state-tax-rate/--federal-tax-rate":
@@ -460,6 +477,37 @@ def make_run_settings(*, toml_settings: dict | None = None, discount_rates: str 
     spec = RunSettings(**s)
     validate_run_settings(spec)
     return spec
+
+
+#: How the alternatives of a group with different lives are compared (README, "Alternatives of unequal lives").
+ALTERNATIVES_BASES = ("annual-worth", "study-period", "present-worth")
+
+
+def _validate_alternatives(spec: RunSettings, where) -> None:
+    """The comparison basis of alternatives and its study period (a whole number of periods >= 1)."""
+    if spec.alternatives_basis not in ALTERNATIVES_BASES:
+        raise GridError(f"{where('alternatives_basis', '--alternatives-basis')}the alternatives basis must be one of "
+                        f"{', '.join(ALTERNATIVES_BASES)}, got {spec.alternatives_basis!r}. Fix: annual-worth "
+                        "(default: equivalent annual worth over each alternative's own life), study-period (with "
+                        "study_period = T) or present-worth (over each alternative's own life)")
+    T = spec.study_period
+    at = where("alternatives_study_period", "--study-period")
+    if spec.alternatives_basis == "study-period":
+        if T is None:
+            raise GridError(f"{where('alternatives_basis', '--alternatives-basis')}the study-period basis needs a "
+                            "study period. Fix: give --study-period T or study_period = T under [alternatives] "
+                            "(T in periods, e.g. 10)")
+        if isinstance(T, bool) or not isinstance(T, (int, float)) or not math.isfinite(T) or T != int(T) or T < 1:
+            raise GridError(f"{at}the study period must be a whole number of periods of at least 1, got {T!r}. "
+                            "Fix: e.g. study_period = 10")
+        if T > 1200:
+            raise GridError(f"{at}the study period {T:g} is longer than 1200 periods, the longest horizon "
+                            "ratescape accepts. Fix: give a study period within the alternatives' lives")
+        spec.study_period = int(T)
+    elif T is not None:
+        raise GridError(f"{at}a study period ({T!r}) is used only with the study-period basis, but the basis is "
+                        f"{spec.alternatives_basis!r}. Fix: remove the study period, or set the basis to "
+                        "study-period (--alternatives-basis study-period)")
 
 
 # [decisions] settings: a test of the value and what it must be.
@@ -553,6 +601,7 @@ def validate_run_settings(spec: RunSettings) -> None:
     _check_keep(spec, where)
     _check_base(spec, where)
     _check_weights(spec, where)
+    _validate_alternatives(spec, where)
     _check_sensitivity(spec, where)
     _check_decisions(spec, where)
 

@@ -50,8 +50,8 @@ def screened(tmp_path_factory):
     root = tmp_path_factory.mktemp("report")
     db, run_id = make_db(root)
     con = duckdb.connect(str(db))
-    con.execute("INSERT INTO run_notes VALUES (?, 'alternatives', 'Alternatives compared over a common 15-year study period.')", [run_id])
-    con.execute("INSERT INTO run_notes VALUES (?, 'loans', ?)", [run_id, "No loans <b>here</b>."])
+    con.execute("INSERT OR REPLACE INTO run_notes VALUES (?, 'alternatives', 'Alternatives compared over a common 15-year study period.')", [run_id])
+    con.execute("INSERT OR REPLACE INTO run_notes VALUES (?, 'loans', ?)", [run_id, "No loans <b>here</b>."])
     con.close()
     out = root / "report.html"
     write_report(db, out, run_id)

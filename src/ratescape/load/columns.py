@@ -51,6 +51,9 @@ PROJECT_COLUMNS = {
     "loan_amount": ("loan_amount", False, "money"),
     "loan_rate": ("loan_rate", False, "rate"),
     "loan_term": ("loan_term", False, "period"),
+    # value of the asset at the end of a study period, base-year money, + received / - paid
+    # (used only by `[alternatives] basis = "study-period"`, for an alternative cut at the study period)
+    "terminal_value": ("terminal_value", False, "money"),
 }
 
 PARAMETRIC_MONEY = ("first_cost", "annual_benefit", "annual_cost", "salvage")

@@ -163,7 +163,9 @@ def _read_projects(path, issues: list[Issue], notes: list[str],
              cells.money("depreciable_basis", required=False),
              cells.money("loan_amount", required=False),
              cells.rate("loan_rate"),
-             cells.integer("loan_term", required=False, minimum=1, what="a loan term in periods")]
+             cells.integer("loan_term", required=False, minimum=1, what="a loan term in periods"),
+             cells.number("terminal_value", required=False,
+                          what="the value at the end of a study period (base-year money, + received)")]
     cells.finish()
     frame = pl.DataFrame(cols).with_columns(table.frame["line"].cast(pl.Int64).alias("source_line"))
     any_money = pl.any_horizontal([pl.col(c).is_not_null() & (pl.col(c) != 0) for c in PARAMETRIC_MONEY])
@@ -246,6 +248,13 @@ def _check_structure(projects: pl.DataFrame, stats: pl.DataFrame | None, ppath: 
         if kinds > 1:
             issues.append(Issue(ppath, line, "mandatory", g, "members of one group disagree on 'mandatory'",
                                 "mark every member of a mandatory group true (or none)"))
+    # a terminal value is used only for an alternative cut at a study period
+    stray = projects.filter(pl.col("terminal_value").is_not_null() & (pl.col("group_name") == ""))
+    for line, value in stray.select("source_line", "terminal_value").head(200).iter_rows():
+        issues.append(Issue(ppath, line, "terminal_value", f"{value:g}",
+                            "a terminal value on a project outside any group (it is used only when the "
+                            "alternatives of a group are compared over a study period)",
+                            "leave terminal_value blank, or give the project its group of alternatives"))
     # requires: known ids, no self-reference, no cycles, not within one group
     lower_ids = {i.lower(): i for i in ids}
     graph: dict[str, list[str]] = {}

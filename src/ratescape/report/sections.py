@@ -125,6 +125,23 @@ def run_metadata(ctx: RunContext) -> list[tuple[str, Any]]:
     return meta
 
 
+def _least_cost_section(ctx: RunContext, top_n: int) -> list[Section]:
+    """Groups of cost-only alternatives: a least-cost choice, not candidates to accept or reject."""
+    if "group_decisions" not in ctx.tables or "least_cost" not in set(column_names(ctx.con, "group_decisions")):
+        return []
+    frame = query_frame(ctx.con, """
+        SELECT group_name, preferred, count(*) AS scenarios, any_value(basis) AS basis
+        FROM group_decisions WHERE run_id = ? AND least_cost
+        GROUP BY group_name, preferred ORDER BY group_name, scenarios DESC, preferred LIMIT ?""", [ctx.run_id, top_n])
+    if frame.height == 0:
+        return []
+    return [Section("Least-cost choices",
+                    "Groups whose alternatives are all cost-only (no benefit lines): the choice is the least "
+                    "life-cycle cost among them, not whether to accept; their negative worths and low ranks are "
+                    "costs, not rejections. Ratios, IRR, MIRR, PI and payback do not exist for them (stored empty, "
+                    "measure_status 'cost-only').", table=frame)]
+
+
 def _headline_sections(ctx: RunContext, top_n: int) -> tuple[list[Section], list[str]]:
     """Headline tables and the ids they suggest for drill-down."""
     cols = ("ps.project_id, p.name, ps.accept_share, ps.pw_base, ps.pw_min, ps.pw_max, ps.rank_base")
@@ -139,6 +156,7 @@ def _headline_sections(ctx: RunContext, top_n: int) -> tuple[list[Section], list
         f"scenario of the grid. Shown: the {min(top_n, n_acc):,} with the highest base present worth.",
         table=acc, anchor="accepted-everywhere"))
     suggest += acc["project_id"].head(1).to_list()
+    secs += _least_cost_section(ctx, top_n)
 
     levels = ctx.levels("inflation")
     threshold = fail_threshold(levels)

@@ -23,14 +23,23 @@ from ratescape.decide.alternatives import (
     NO_ALTERNATIVE,
     preferred_alternative,
 )
+from ratescape.decide.equal_service import (
+    annual_worth,
+    cut_at_study_period,
+    lives_differ,
+    straight_line_terminal_value,
+)
 from ratescape.decide.frontier import indifference_frontier
 from ratescape.decide.portfolio_stats import core_portfolio, min_max_regret, selection_share
-from ratescape.decide.rationing import STATUS_LABELS, ration_capital
+from ratescape.decide.rationing import STATUS_INFEASIBLE, STATUS_LABELS, ration_capital
+from ratescape.errors import RunError
 from ratescape.evaluate.kernel import (
+    LineClass,
     discount_tensor,
     present_worth_classes,
     then_current_streams,
 )
+from ratescape.run.plan import AFTER_TAX_ONLY_CLASS, TAX_SHIELD_CLASS, multiplier_for, scenario_multipliers
 from ratescape.run.progress import log
 from ratescape.run.ranks import result_block
 from ratescape.run.read import chunk_amounts
@@ -57,6 +66,59 @@ def _insert(con, table: str, data: dict, run_id: str) -> None:
 
 def _projects(con):
     return fetch_frame(con, "SELECT project_key, project_id, group_name, requires, mandatory FROM projects ORDER BY project_key")
+
+
+BASIS_WORDS = {
+    "annual-worth": "equivalent annual worth, PW x (A/P, real rate, own life N), in base-year money per year "
+                    "(the repeatability assumption: each alternative is taken as repeated with the same "
+                    "base-year cash flows until the lives end together)",
+    "study-period": "present worth over a study period of {T} periods: each alternative's cash flows are cut at "
+                    "period {T} and its terminal value put in their place there (the value given in the projects "
+                    "file's terminal_value column, or else the straight-line unrecovered investment "
+                    "I - (I - S) x T / N)",
+    "present-worth": "present worth over each alternative's own life",
+}
+
+
+def _horizons_by_group(con) -> dict:
+    """group -> [(project id, horizon in periods)], the horizon being the last period with a non-zero flow."""
+    rows = con.execute("""
+        SELECT p.group_name, p.project_id,
+               greatest(coalesce(max(cf.period) FILTER (WHERE cf.amount <> 0), 1), 1) AS horizon
+        FROM projects p LEFT JOIN cash_flows cf USING (project_id)
+        WHERE p.group_name <> '' GROUP BY ALL ORDER BY p.group_name, min(p.project_key)""").fetchall()
+    out: dict = {}
+    for group, pid, horizon in rows:
+        out.setdefault(group, []).append((pid, int(horizon)))
+    return out
+
+
+def check_alternatives(con, spec) -> None:
+    """Refuse, before a run is written, a study period longer than an alternative's life.
+
+    Under the study-period basis a group whose lives differ is compared over ``study_period``
+    periods; an alternative that ends before then would leave part of the study period without
+    service, and ratescape does not assume how that service continues (repeating it, leasing,
+    contracting out): the run is refused with a message naming the group and the lives.
+    """
+    if spec.alternatives_basis != "study-period" or spec.study_period is None:
+        return
+    T = int(spec.study_period)
+    for group, members in sorted(_horizons_by_group(con).items()):
+        lives = [h for _, h in members]
+        if not lives_differ(lives):
+            continue
+        short = [(pid, h) for pid, h in members if h < T]
+        if short:
+            pid, h = short[0]
+            raise RunError(
+                f"{spec.sources.get('alternatives_study_period', '--study-period')}: the study period of {T} periods "
+                f"is longer than the life of alternative {pid!r} of group {group!r} ({h} periods; the group's lives "
+                f"are {', '.join(f'{p}={n}' for p, n in members)}). ratescape does not assume how its service "
+                f"continues after its life. Fix: give a study period of at most {min(lives)} periods (the shortest "
+                "life in the group), extend the alternative's cash flows to the study period (e.g. with its "
+                "replacement), or compare by annual worth (--alternatives-basis annual-worth, the repeatability "
+                "assumption)")
 
 
 def _pw_cube(con, plan, column: str = "present_worth") -> np.ndarray | None:
@@ -93,10 +155,14 @@ def _group_members(projects) -> dict:
     return out
 
 
-def _member_amounts(con, plan, keys, reader) -> np.ndarray:
-    """Amounts (C, A, T) of a group's members (summed over roles)."""
-    parts = [reader(con, plan, k, k + 1)[0].sum(axis=0) for k in keys]
-    return np.concatenate(parts, axis=1)
+def _member_amounts(con, plan, keys, reader) -> tuple:
+    """Amounts (C, A, T) of a group's members (summed over roles), their investment lines (A, T)
+    summed over classes, and their horizons (A,) in periods."""
+    parts = [reader(con, plan, k, k + 1) for k in keys]
+    A = np.concatenate([p[0].sum(axis=0) for p in parts], axis=1)
+    invest = np.concatenate([p[0][0].sum(axis=0) for p in parts], axis=0)
+    horizon = np.concatenate([np.asarray(p[2], dtype=np.int64) for p in parts])
+    return A, invest, horizon
 
 
 def _planes(plan) -> list[dict]:
@@ -123,8 +189,12 @@ def _planes(plan) -> list[dict]:
     return planes
 
 
-def _point_evaluator(plan, y_axis: str):
-    """worth(A (C, A, T), x (n,), y (n,)) -> (A, n): exact worth at points of a decision-map plane."""
+def _point_evaluator(plan, y_axis: str, classes=None, years=None):
+    """worth(A (C, A, T), x (n,), y (n,)) -> (A, n): exact worth at points of a decision-map plane.
+
+    ``classes`` (default: the plan's line classes) match the amounts' class axis; with ``years``
+    (A,) the worth is the equivalent annual worth over those lives at the point's real rate."""
+    classes = plan.classes if classes is None else classes
     cols = plan.scenarios.columns
     base = plan.scenarios.base_index
     f_base = float(cols["inflation"][base])
@@ -141,8 +211,60 @@ def _point_evaluator(plan, y_axis: str):
             mult["after_tax"] = 1 - mult["tax"]
         elif y_axis in ("cost_multiplier", "benefit_multiplier"):
             mult[y_axis] = y
-        return present_worth_classes(A, discount_tensor(plan.classes, plan.exponents, i, f, mult))
+        w = present_worth_classes(A, discount_tensor(classes, plan.exponents, i, f, mult))
+        return w if years is None else annual_worth(w, years, (1.0 + i) / (1.0 + f) - 1.0)
     return worth
+
+
+def _group_extras(con, plan) -> dict:
+    """project id -> (terminal value or None, salvage, cost-only) for the members of groups."""
+    rows = con.execute("""
+        SELECT p.project_id, p.terminal_value,
+               coalesce(p.salvage, (SELECT sum(amount) FROM cash_flows c WHERE c.project_id = p.project_id
+                                    AND c.kind = 'salvage'), 0) AS salvage,
+               coalesce(s.measure_status = 'cost-only', false) AS cost_only
+        FROM projects p LEFT JOIN project_summary s ON s.run_id = ? AND s.project_id = p.project_id
+        WHERE p.group_name <> ''""", [plan.run_id]).fetchall()
+    return {pid: (tv, float(salvage), bool(cost_only)) for pid, tv, salvage, cost_only in rows}
+
+
+def _study_period_group(plan, A, invest, horizon, extras):
+    """Amounts cut at the study period with a terminal-value class appended, and that class.
+
+    Terminal value of an alternative whose life N exceeds T: its ``terminal_value`` if given,
+    else the straight-line unrecovered investment I - (I - S) T / N (I: its investment lines up
+    to T, S: its salvage), in base-year money at period T (a real line without escalation, taxed
+    like salvage after tax). After tax the depreciation shield and loan lines after T are moved
+    to T (disposal at T writes the remaining tax book value off; the loan is paid off).
+    """
+    T = int(plan.spec.study_period)
+    collapse = np.array([(c.basis, c.escalation, c.multiplier) in (TAX_SHIELD_CLASS, AFTER_TAX_ONLY_CLASS)
+                         for c in plan.classes])
+    cut = cut_at_study_period(A, T, collapse)
+    first_cost = -invest[:, :T + 1].sum(axis=1)
+    salvage = np.array([e[1] for e in extras])
+    given = np.array([np.nan if e[0] is None else float(e[0]) for e in extras])
+    default = straight_line_terminal_value(first_cost, salvage, horizon, T)
+    terminal = np.where(horizon > T, np.where(np.isnan(given), default, given), 0.0)
+    axes = {a.name for a in plan.spec.extra_axes}
+    tv_class = LineClass("real", 0.0, multiplier_for("salvage", axes, plan.spec.after_tax))
+    row = np.zeros((1,) + cut.shape[1:])
+    row[0, :, T] = terminal
+    return np.concatenate([cut, row]), tv_class, terminal
+
+
+def _group_measure(plan, A, invest, horizon, extras, basis, tv_tensor):
+    """The decision measure (A, S) of a group, the amounts and classes the frontier evaluates, the
+    annual-worth lives (or None) and the terminal values (or None)."""
+    if basis == "study-period":
+        A2, tv_class, terminal = _study_period_group(plan, A, invest, horizon, extras)
+        tensor = np.concatenate([plan.tensor, tv_tensor()])
+        return present_worth_classes(A2, tensor), A2, plan.classes + [tv_class], None, terminal
+    pw = present_worth_classes(A, plan.tensor)                        # (A, S)
+    if basis == "annual-worth":
+        years = horizon / float(plan.spec.periods_per_year)
+        return annual_worth(pw, years, plan.scenarios.columns["real_rate"]), A, plan.classes, years, None
+    return pw, A, plan.classes, None, None
 
 
 def _decide_groups(con, plan, groups: dict, reader) -> None:
@@ -151,15 +273,38 @@ def _decide_groups(con, plan, groups: dict, reader) -> None:
     x_name = "discount_rate" if spec.discount_basis == "nominal" else "real_rate"
     x_axis = np.asarray(spec.discount_rates, dtype=float)
     planes = _planes(plan) if x_axis.size >= 2 else []
-    evaluators = {p["y_axis"]: _point_evaluator(plan, p["y_axis"]) for p in planes}
-    rows = {k: [] for k in ("group_name", "scenario_id", "preferred", "runner_up", "margin", "preferred_worth")}
+    cols = plan.scenarios.columns
+    extras_of = _group_extras(con, plan)
+    tv_cache: list = []
+
+    def tv_tensor():
+        if not tv_cache:
+            axes = {a.name for a in spec.extra_axes}
+            cls = LineClass("real", 0.0, multiplier_for("salvage", axes, spec.after_tax))
+            tv_cache.append(discount_tensor([cls], plan.exponents, cols["discount_rate"], cols["inflation"],
+                                            scenario_multipliers(plan.scenarios, spec.after_tax)))
+        return tv_cache[0]
+
+    rows = {k: [] for k in ("group_name", "scenario_id", "preferred", "runner_up", "margin", "preferred_worth",
+                            "basis", "least_cost")}
     fr = {k: [] for k in ("group_name", "alternative_a", "alternative_b", "x_axis", "x", "y_axis", "y", "segment",
                           "point", "kind", "residual", "converged")}
+    statements: list[str] = []
     for name, g in sorted(groups.items()):
-        A = _member_amounts(con, plan, g["keys"], reader)                 # (C, A, T)
-        pw = present_worth_classes(A, plan.tensor)                        # (A, S)
-        optional = not g["mandatory"]
-        pref = preferred_alternative(pw, do_nothing=optional)
+        A, invest, horizon = _member_amounts(con, plan, g["keys"], reader)   # (C, A, T), (A, T), (A,)
+        extras = [extras_of.get(pid, (None, 0.0, False)) for pid in g["ids"]]
+        differ = lives_differ(horizon)
+        basis = spec.alternatives_basis if differ else "present-worth"
+        measure, A_eval, classes, years, terminal = _group_measure(plan, A, invest, horizon, extras, basis, tv_tensor)
+        least_cost = all(e[2] for e in extras)
+        lives = ", ".join(f"{pid} {int(n)}" for pid, n in zip(g["ids"], horizon))
+        statements.append(_group_statement(name, basis, differ, least_cost, g["mandatory"], lives, terminal, g["ids"]))
+        if differ and basis == "present-worth":
+            log(f"alternatives: group {name!r} has different lives ({lives} periods) and is compared by present "
+                "worth over its own lives, as asked; that favours the alternative serving longer or shorter, "
+                "not the better one (compare by annual worth or over a study period)")
+        optional = not (g["mandatory"] or least_cost)
+        pref = preferred_alternative(measure, do_nothing=optional)
         n_alt = len(g["ids"])
         labels = np.array(g["ids"] + [DO_NOTHING_LABEL, ""], dtype=object)   # index -1 -> do nothing, -2 -> none
 
@@ -173,15 +318,18 @@ def _decide_groups(con, plan, groups: dict, reader) -> None:
         rows["preferred"] += label(best).tolist()
         rows["runner_up"] += label(pref.runner_up).tolist()
         rows["margin"] += np.asarray(pref.margin, dtype=float).tolist()
-        rows["preferred_worth"] += np.where(best >= 0, pw[np.clip(best, 0, None), np.arange(S)], 0.0).tolist()
+        rows["preferred_worth"] += np.where(best >= 0, measure[np.clip(best, 0, None), np.arange(S)], 0.0).tolist()
+        rows["basis"] += [basis] * S
+        rows["least_cost"] += [least_cost] * S
         names = list(g["ids"]) + ([DO_NOTHING_LABEL] if optional else [])
         for plane in planes:   # a decision map per plane; other axes at their base values
             y_values = plane["y"]
-            grid_pw = pw[:, plane["mask"]].reshape(n_alt, y_values.size, x_axis.size)
+            grid_pw = measure[:, plane["mask"]].reshape(n_alt, y_values.size, x_axis.size)
             if optional:
                 grid_pw = np.concatenate([grid_pw, np.zeros((1,) + grid_pw.shape[1:])])
+            evaluate = _point_evaluator(plan, plane["y_axis"], classes, years)
 
-            def worth_at(x, y, A=A, evaluate=evaluators[plane["y_axis"]]):
+            def worth_at(x, y, A=A_eval, evaluate=evaluate, optional=optional):
                 w = evaluate(A, x, y)
                 return np.concatenate([w, np.zeros((1, w.shape[1]))]) if optional else w
 
@@ -203,6 +351,36 @@ def _decide_groups(con, plan, groups: dict, reader) -> None:
             fr["converged"] += np.asarray(front.converged, dtype=bool).tolist()
     _insert(con, "group_decisions", rows, plan.run_id)
     _insert(con, "frontiers", fr, plan.run_id)
+    # one note per run and topic: a decision stage run again (a resumed run) replaces its note
+    con.execute("DELETE FROM run_notes WHERE run_id = ? AND topic = 'alternatives'", [plan.run_id])
+    _insert(con, "run_notes", {"topic": ["alternatives"], "note": [_alternatives_note(spec, statements)]},
+            plan.run_id)
+
+
+def _group_statement(name, basis, differ, least_cost, mandatory, lives, terminal, ids) -> str:
+    """One sentence on how a group was compared."""
+    if not differ:
+        text = f"group {name} (equal lives: {lives} periods) by present worth, the same decision under every basis"
+    elif basis == "present-worth":
+        text = (f"NOTE: group {name} has different lives ({lives} periods) but is compared by present worth over "
+                "its own lives, as asked; this compares unequal periods of service")
+    elif basis == "annual-worth":
+        text = f"group {name} (lives {lives} periods) by equivalent annual worth"
+    else:
+        tv = ", ".join(f"{pid} {v:,.2f}" for pid, v in zip(ids, terminal) if v != 0) or "none"
+        text = f"group {name} (lives {lives} periods) over the study period, terminal values {tv}"
+    if least_cost:
+        text += ("; every alternative is cost-only (no benefit lines), so the group is a least-cost choice "
+                 "among its alternatives and doing nothing is not compared"
+                 + ("" if mandatory else " (mark the group mandatory to say so in the projects file)"))
+    return text
+
+
+def _alternatives_note(spec, statements: list[str]) -> str:
+    words = BASIS_WORDS[spec.alternatives_basis].format(T=spec.study_period)
+    return (f"Alternatives whose lives differ are compared by {words}; alternatives of equal lives by present "
+            "worth over their common life (every basis then gives the same decision). Decision maps and "
+            "frontiers use the same measure. By group: " + "; ".join(statements) + ".")
 
 
 def _budget_outlays(con, plan, reader):
@@ -241,6 +419,11 @@ def _ration(con, plan, projects, pw: np.ndarray, reader) -> None:
     for g, m in zip(projects["group_name"].to_list(), projects["mandatory"].to_list()):
         if g and m:
             mandatory[gi[g]] = True
+    # a must-fund project (mandatory, in no group) is a mandatory group of one: x_j = 1 in every scenario
+    must_fund = np.array([bool(m) and not g for g, m in zip(projects["group_name"].to_list(),
+                                                           projects["mandatory"].to_list())], dtype=bool)
+    group_index[must_fund] = len(group_names) + np.arange(int(must_fund.sum()))
+    mandatory = np.concatenate([mandatory, np.ones(int(must_fund.sum()), dtype=bool)])
     key_of = {pid: k for k, pid in enumerate(ids)}
     pairs = [(key_of[pid], key_of[t.strip()]) for pid, req in zip(ids, projects["requires"].to_list()) if req
              for t in req.split(";") if t.strip() in key_of]
@@ -253,6 +436,14 @@ def _ration(con, plan, projects, pw: np.ndarray, reader) -> None:
     log(f"capital rationing: {plan.scenarios.size} scenarios x {P} projects solved in {time.perf_counter() - t0:.1f} s")
     S = plan.scenarios.size
     status_names = STATUS_LABELS
+    infeasible = int(np.sum(np.asarray(res.status) == STATUS_INFEASIBLE))
+    if infeasible and mandatory.any():
+        forced = ", ".join([str(p) for p in ids[must_fund]] + [g for g, m in zip(group_names, mandatory) if m])
+        message = (f"capital rationing: the must-fund projects and mandatory groups ({forced}) do not fit the "
+                   f"budgets in {infeasible} of {S} scenarios; those scenarios have status 'infeasible' and no "
+                   "portfolio. Fix: raise the budgets of the periods they spend in, or review what is marked mandatory")
+        log(message)
+        _insert(con, "run_notes", {"topic": ["rationing"], "note": [message]}, plan.run_id)
     used = np.asarray(res.budget_used)
     _insert(con, "portfolios", {
         "scenario_id": np.arange(S, dtype=np.int32), "objective": np.asarray(res.objective, dtype=float),
@@ -269,17 +460,22 @@ def _ration(con, plan, projects, pw: np.ndarray, reader) -> None:
     share = np.asarray(selection_share(res.selected), dtype=float)
     prob = np.asarray(selection_share(res.selected, plan.weights), dtype=float)
     core = np.asarray(core_portfolio(res.selected, threshold), dtype=bool)
-    regret = min_max_regret(pw, res.selected, res.objective, outlay, budgets, scenario_class=scenario_class)
-    best = np.asarray(regret.best_selected, dtype=bool) if regret.best >= 0 else np.zeros(P, dtype=bool)
+    if np.all(np.isnan(np.asarray(res.objective, dtype=float))):   # no scenario has a portfolio: no regret
+        regret = None
+        best = np.zeros(P, dtype=bool)
+    else:
+        regret = min_max_regret(pw, res.selected, res.objective, outlay, budgets, scenario_class=scenario_class)
+        best = np.asarray(regret.best_selected, dtype=bool) if regret.best >= 0 else np.zeros(P, dtype=bool)
     _insert(con, "portfolio_summary", {"project_id": ids.tolist(), "selected_share": share,
                                        "selected_probability": prob, "in_core": core, "in_min_max_regret": best},
             plan.run_id)
-    K = len(regret.portfolios)
-    _insert(con, "portfolio_regret", {
-        "candidate": np.arange(K, dtype=np.int32), "max_regret": np.asarray(regret.max_regret, dtype=float),
-        "mean_regret": np.where(np.asarray(regret.feasible), np.asarray(regret.regret), np.nan).mean(axis=1)
-        if K else np.zeros(0), "scenarios_optimal": np.asarray(regret.optimal_in).astype(np.int32),
-        "chosen": np.arange(K) == regret.best}, plan.run_id)
+    K = 0 if regret is None else len(regret.portfolios)
+    if K:
+        _insert(con, "portfolio_regret", {
+            "candidate": np.arange(K, dtype=np.int32), "max_regret": np.asarray(regret.max_regret, dtype=float),
+            "mean_regret": np.where(np.asarray(regret.feasible), np.asarray(regret.regret), np.nan).mean(axis=1)
+            if K else np.zeros(0), "scenarios_optimal": np.asarray(regret.optimal_in).astype(np.int32),
+            "chosen": np.arange(K) == regret.best}, plan.run_id)
     con.execute("""UPDATE project_summary AS s SET selected_share = ps.selected_share,
                    selected_probability = ps.selected_probability
                    FROM portfolio_summary ps WHERE ps.run_id = s.run_id AND ps.project_id = s.project_id

@@ -28,6 +28,7 @@ from ratescape.evaluate.sensitivity import one_at_a_time
 from ratescape.evaluate.tax import carry_forward_adjustment
 from ratescape.evaluate.timing import steps_per_period, stream_on_timing_grid
 from ratescape.run.plan import IRR_SEARCH, Plan, scenario_multipliers
+from ratescape.run.cost_only import mask_cost_only
 
 
 def _reused(buffers: dict | None, name: str, shape: tuple) -> np.ndarray | None:
@@ -101,6 +102,7 @@ def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray, buffe
     irr = irr_over_inflation(plan, A)
     F, P = plan.inflation_levels.size, A.shape[1]
     summary.update(base_measures(plan, A_by_role, horizon))
+    mask_cost_only(summary, pi, irr, A_by_role)          # measures a cost-only stream has not: NULL
     basis = plan.spec.discount_basis                                    # move rates on the run's own basis
     sens = one_at_a_time(A_by_role, plan.classes, plan.exponents,
                          float(cols["real_rate" if basis == "real" else "discount_rate"][b]),

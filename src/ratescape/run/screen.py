@@ -21,7 +21,7 @@ import pyarrow as pa
 from ratescape import __version__
 from ratescape.errors import RunError
 from ratescape.evaluate.kernel import capital_recovery_factor
-from ratescape.run.decisions import decide_run
+from ratescape.run.decisions import check_alternatives, decide_run
 from ratescape.run.evaluation import evaluate_chunk
 from ratescape.run.plan import (
     CHECKPOINT_THRESHOLD,
@@ -122,6 +122,7 @@ def screen(con, spec: RunSettings | None = None, *, resume: str | None = None, c
             raise RunError("no grid given")
         run_id = f"run-{datetime.now().strftime('%Y%m%d-%H%M%S')}-{uuid.uuid4().hex[:6]}"
         plan = make_plan(con, run_id, spec, chunk_size)
+        check_alternatives(con, spec)           # before anything of the run is written
         if plan.project_count == 0:
             raise RunError("the portfolio has no projects. Fix: load a projects file first")
         inputs_hash, _, _ = current_inputs(con)

@@ -13,6 +13,7 @@ import numpy as np
 import pyarrow as pa
 
 from ratescape.evaluate.irr import STATUS_LABELS
+from ratescape.run.cost_only import COST_ONLY
 from ratescape.run.evaluation import _per_period_to_annual
 from ratescape.run.plan import Plan, utc_now
 from ratescape.store.database import append_rows, transaction
@@ -42,6 +43,15 @@ class ChunkTables:
     projects: int
 
 
+def _irr_status(irr) -> pa.DictionaryArray:
+    """IRR status labels; rows of cost-only projects read 'cost-only' (see run/cost_only.py)."""
+    rows = getattr(irr, "cost_only", None)
+    if rows is None or not np.any(rows):
+        return arrow_labels(irr.status, STATUS_LABELS)
+    names = list(STATUS_LABELS) + [COST_ONLY]
+    return arrow_labels(np.where(rows, len(names) - 1, np.asarray(irr.status).astype(int)), names)
+
+
 def chunk_tables(plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out: dict) -> ChunkTables:
     """Arrow tables of one evaluated chunk's per-project results; also writes its worth files,
     from which the rank pass and the result-row writer read."""
@@ -64,7 +74,7 @@ def chunk_tables(plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out:
         "root_count": pa.array(count.astype(np.int32)),
         "irr_nominal": arrow_floats(unique_root),
         "irr_real": arrow_floats((1 + unique_root) / (1 + f_rows) - 1),
-        "status": arrow_labels(irr.status, STATUS_LABELS),
+        "status": _irr_status(irr),
         "sign_changes": pa.array(np.asarray(irr.sign_changes).astype(np.int32)),
     })
     rr, kk = np.nonzero(np.isfinite(roots_nominal))

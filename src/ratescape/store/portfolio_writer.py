@@ -13,7 +13,7 @@ PROJECT_COLUMNS = ["project_key", "project_id", "name", "group_name", "requires"
                    "first_cost", "annual_benefit", "benefit_basis", "benefit_escalation", "annual_cost",
                    "cost_basis", "cost_escalation", "salvage", "life", "depreciation_method", "depreciation_convention",
                    "service_quarter", "recovery_years",
-                   "depreciable_basis", "loan_amount", "loan_rate", "loan_term", "source_line"]
+                   "depreciable_basis", "loan_amount", "loan_rate", "loan_term", "source_line", "terminal_value"]
 CASH_FLOW_COLUMNS = ["project_id", "period", "amount", "basis", "escalation", "kind", "source", "source_line"]
 
 

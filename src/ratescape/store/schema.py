@@ -18,7 +18,7 @@ TABLES = {
         annual_cost DOUBLE, cost_basis VARCHAR, cost_escalation DOUBLE, salvage DOUBLE, life INTEGER,
         depreciation_method VARCHAR, depreciation_convention VARCHAR, service_quarter INTEGER,
         recovery_years INTEGER, depreciable_basis DOUBLE,
-        loan_amount DOUBLE, loan_rate DOUBLE, loan_term INTEGER, source_line INTEGER)""",
+        loan_amount DOUBLE, loan_rate DOUBLE, loan_term INTEGER, source_line INTEGER, terminal_value DOUBLE)""",
     "cash_flows": """CREATE TABLE IF NOT EXISTS cash_flows (
         project_id VARCHAR NOT NULL, period INTEGER NOT NULL, amount DOUBLE NOT NULL, basis VARCHAR NOT NULL,
         escalation DOUBLE NOT NULL, kind VARCHAR NOT NULL, source VARCHAR, source_line INTEGER)""",
@@ -83,7 +83,7 @@ TABLES = {
         selected_share DOUBLE, selected_probability DOUBLE,
         future_worth_base DOUBLE, bc_ratio_base DOUBLE, bc_ratio_modified_base DOUBLE, payback_periods DOUBLE,
         discounted_payback_base DOUBLE, mirr_base DOUBLE, pw_before_tax_base DOUBLE, project_key INTEGER,
-        investment_worth DOUBLE)""",
+        investment_worth DOUBLE, measure_status VARCHAR)""",
     "irr_results": """CREATE TABLE IF NOT EXISTS irr_results (
         run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, inflation DOUBLE NOT NULL,
         root_count INTEGER NOT NULL, irr_nominal DOUBLE, irr_real DOUBLE, status VARCHAR NOT NULL,
@@ -100,8 +100,8 @@ TABLES = {
         present_worth DOUBLE NOT NULL)""",
     "group_decisions": """CREATE TABLE IF NOT EXISTS group_decisions (
         run_id VARCHAR NOT NULL, group_name VARCHAR NOT NULL, scenario_id INTEGER NOT NULL,
-        preferred VARCHAR, runner_up VARCHAR, margin DOUBLE, preferred_worth DOUBLE,
-        PRIMARY KEY (run_id, group_name, scenario_id))""",
+        preferred VARCHAR, runner_up VARCHAR, margin DOUBLE, preferred_worth DOUBLE, basis VARCHAR,
+        least_cost BOOLEAN, PRIMARY KEY (run_id, group_name, scenario_id))""",
     "frontiers": """CREATE TABLE IF NOT EXISTS frontiers (
         run_id VARCHAR NOT NULL, group_name VARCHAR NOT NULL, alternative_a VARCHAR NOT NULL,
         alternative_b VARCHAR NOT NULL, x_axis VARCHAR NOT NULL, x DOUBLE NOT NULL, y_axis VARCHAR NOT NULL,
@@ -165,6 +165,16 @@ VIEWS = {
 VIEW_MARKERS = {"result_rows": "result_rows_after_tax", "results": "investment_worth"}
 
 
+# Columns added within schema version 2 (table, column, type): a database written before gains them, empty.
+ADDED_COLUMNS = (
+    ("project_summary", "investment_worth", "DOUBLE"),
+    ("project_summary", "measure_status", "VARCHAR"),     # 'cost-only': ratio, IRR, MIRR, PI, payback NULL
+    ("group_decisions", "basis", "VARCHAR"),              # what margin and preferred_worth measure
+    ("group_decisions", "least_cost", "BOOLEAN"),         # every alternative cost-only: a least-cost choice
+    ("projects", "terminal_value", "DOUBLE"),             # value at the end of a study period (base-year money)
+)
+
+
 def create_schema(con) -> None:
     """Create every table that does not exist yet (idempotent); refuse a database of another schema version."""
     if table_exists(con, "meta"):
@@ -184,10 +194,11 @@ def create_schema(con) -> None:
     # Added within schema version 2: a database written before gains the column (empty) and the
     # view that reads it. Nothing is written when both are already there (opening stays read-only
     # in effect when a command then refuses to run).
-    columns = {r[0] for r in con.execute("SELECT column_name FROM information_schema.columns "
-                                         "WHERE table_name = 'project_summary'").fetchall()}
-    if "investment_worth" not in columns:
-        con.execute("ALTER TABLE project_summary ADD COLUMN investment_worth DOUBLE")
+    for table, column, kind in ADDED_COLUMNS:
+        columns = {r[0] for r in con.execute("SELECT column_name FROM information_schema.columns "
+                                             "WHERE table_name = ?", [table]).fetchall()}
+        if column not in columns:
+            con.execute(f"ALTER TABLE {table} ADD COLUMN {column} {kind}")
     views = dict(con.execute("SELECT view_name, sql FROM duckdb_views() WHERE NOT internal").fetchall())
     for name, ddl in VIEWS.items():
         if name not in views or VIEW_MARKERS[name] not in views[name]:
