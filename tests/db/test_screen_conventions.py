@@ -280,3 +280,17 @@ def test_report_names_the_real_basis(tmp_path):
     page = write_report(db, tmp_path / "r.html", run, projects=["A"]).read_text()
     assert "real discount rate 4.00% (nominal 8.16%), inflation 4.00%" in page
     assert "real discount rate held" in page and "nominal discount rate" not in page
+
+
+def test_run_notes_state_the_conventions(tmp_path):
+    """A mid-period, real-basis run over a nominal escalating line states each convention once, in
+    run_notes (timing and tax placement, the sensitivity's basis, contractual escalation)."""
+    rows = stream_rows("A", [-100.0, 30.0, 40.0, 50.0]) + [("A", 2, 10.0, "nominal", 0.03, "benefit")]
+    db = load_flows(tmp_path, "db", rows)
+    run = screen_portfolio(db, discount_rates="0.02:0.06:3", inflation="0:0.08:3", discount_basis="real",
+                           timing="mid")
+    notes = dict(fetch(db, "SELECT topic, note FROM run_notes WHERE run_id = ?", [run]))
+    assert set(notes) == {"timing", "discount_basis", "escalation"}
+    assert "not at year end" in notes["timing"] and "real IRR" in notes["discount_basis"]
+    end = screen_portfolio(db, discount_rates="0.02:0.06:3", inflation="0:0.08:3")
+    assert set(dict(fetch(db, "SELECT topic, note FROM run_notes WHERE run_id = ?", [end]))) == {"escalation"}
