@@ -229,7 +229,7 @@ def convention_notes(con, spec: RunSettings) -> dict[str, str]:
     if spec.discount_basis == "real":
         notes["discount_basis"] = ("The discount axis is real: sensitivity moves the real discount rate (its switching "
                                    "value is the real IRR) and holds it fixed while inflation moves.")
-    if con.execute("SELECT count(*) FROM cash_flows WHERE basis = 'nominal' AND escalation <> 0").fetchone()[0]:
+    if con.execute("SELECT count(*) FROM cash_flows WHERE basis = 'nominal' AND escalation <> 0").fetchall()[0][0]:
         notes["escalation"] = ("Nominal lines with an escalation grow at that fixed contractual rate, "
                                "amount x (1 + e)^t, whatever the general inflation of the scenario.")
     return notes
