@@ -46,8 +46,9 @@ def independent_pw(path, run_id):
         streams = {}
         for pid, t, a, basis, e in flows:
             s = streams.setdefault(pid, np.zeros(12))
-            # then-current money: real lines grow with (1+f)(1+e) a year, nominal lines stay fixed
-            s[t] += a * ((1 + f) * (1 + e)) ** t if basis == "real" else a
+            # then-current money: real lines grow with (1+f)(1+e) a year, nominal lines with their
+            # contractual escalation (1+e) a year only (issue 14, defect 3)
+            s[t] += a * ((1 + f) * (1 + e)) ** t if basis == "real" else a * (1 + e) ** t
         for pid, s in streams.items():
             out[(pid, sid)] = npf.npv(i, s)   # reference library, values[0] at t = 0
     return out

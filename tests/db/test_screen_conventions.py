@@ -280,3 +280,47 @@ def test_report_names_the_real_basis(tmp_path):
     page = write_report(db, tmp_path / "r.html", run, projects=["A"]).read_text()
     assert "real discount rate 4.00% (nominal 8.16%), inflation 4.00%" in page
     assert "real discount rate held" in page and "nominal discount rate" not in page
+
+
+def test_run_notes_state_the_conventions(tmp_path):
+    """A mid-period, real-basis run over a nominal escalating line states each convention once, in
+    run_notes (timing and tax placement, the sensitivity's basis, contractual escalation)."""
+    rows = stream_rows("A", [-100.0, 30.0, 40.0, 50.0]) + [("A", 2, 10.0, "nominal", 0.03, "benefit")]
+    db = load_flows(tmp_path, "db", rows)
+    run = screen_portfolio(db, discount_rates="0.02:0.06:3", inflation="0:0.08:3", discount_basis="real",
+                           timing="mid")
+    notes = dict(fetch(db, "SELECT topic, note FROM run_notes WHERE run_id = ?", [run]))
+    assert set(notes) == {"timing", "discount_basis", "escalation"}
+    assert "not at year end" in notes["timing"] and "real IRR" in notes["discount_basis"]
+    end = screen_portfolio(db, discount_rates="0.02:0.06:3", inflation="0:0.08:3")
+    assert set(dict(fetch(db, "SELECT topic, note FROM run_notes WHERE run_id = ?", [end]))) == {"escalation"}
+
+
+@pytest.mark.parametrize("timing", ["mid", "beginning"])
+def test_after_tax_irr_equals_the_discount_rate_switching_value(tmp_path, timing):
+    """After tax (25 %, straight line) under mid/beginning timing, the stored IRR at the base
+    inflation is the discount-rate switching value the point evaluator finds on the same after-tax
+    lines (IRR, acceptance and switching value agree), and the stored results change sign there."""
+    rows = stream_rows("A", [-1000.0] + [260.0] * 6)
+    db = load_flows(tmp_path, "db", rows)
+    run = screen_portfolio(db, discount_rates="0:0.2:41", inflation="0:0.04:3", after_tax=True, tax_rate=0.25,
+                           timing=timing)
+    irr = dict(fetch(db, "SELECT inflation, irr_nominal FROM irr_results WHERE run_id = ?", [run]))
+    (sv,), = fetch(db, "SELECT switching_value FROM sensitivity WHERE run_id = ? AND input = 'discount_rate'", [run])
+    assert sv == pytest.approx(irr[0.02], rel=1e-8)
+    grid = fetch(db, """SELECT sc.discount_rate, r.present_worth FROM results r JOIN scenarios sc
+                        ON sc.run_id = r.run_id AND sc.scenario_id = r.scenario_id
+                        WHERE r.run_id = ? AND sc.inflation = 0.02 ORDER BY 1""", [run])
+    assert all((pw > 0) == (i < irr[0.02]) for i, pw in grid)
+
+
+def test_mirr_with_quarterly_periods(tmp_path):
+    """Four periods a year: the stored MIRR is numpy-financial's mirr at the quarterly rate
+    (1.08)^(1/4) - 1 on the project's own stream, annualised as (1 + x)^4 - 1."""
+    own = [-100.0, 20.0, 30.0, 40.0, 35.0]
+    rows = stream_rows("A", own, basis="nominal") + stream_rows("B", [-50.0] + [5.0] * 15, basis="nominal")
+    db = load_flows(tmp_path, "db", rows)
+    run = screen_portfolio(db, discount_rates="0.06:0.10:3", inflation="0:0.04:3", periods_per_year=4)
+    (got,), = fetch(db, "SELECT mirr_base FROM project_summary WHERE run_id = ? AND project_id = 'A'", [run])
+    q = 1.08 ** 0.25 - 1
+    assert got == pytest.approx((1 + npf.mirr(own, q, q)) ** 4 - 1, rel=1e-12)

@@ -220,3 +220,21 @@ def kept_scenarios(spec: RunSettings, table: ScenarioTable) -> np.ndarray:
         keep &= position % k == 0
     keep[table.base_index] = True
     return keep
+
+
+def convention_notes(con, spec: RunSettings) -> dict[str, str]:
+    """Plain-words notes (topic -> note) on the money conventions this run relies on, for ``run_notes``:
+    timing (where tax falls under mid/beginning timing), the discount basis of the sensitivity, and
+    contractual escalation of nominal lines when the portfolio has any."""
+    notes = {}
+    if spec.timing != "end":
+        notes["timing"] = (f"Cash flows are placed at the {spec.timing} of each period (period 0 is now) for every "
+                           "measure, IRR and MIRR included; after tax, tax effects are placed with the flows they "
+                           "arise from (tax paid in instalments through the year), not at year end.")
+    if spec.discount_basis == "real":
+        notes["discount_basis"] = ("The discount axis is real: sensitivity moves the real discount rate (its switching "
+                                   "value is the real IRR) and holds it fixed while inflation moves.")
+    if con.execute("SELECT count(*) FROM cash_flows WHERE basis = 'nominal' AND escalation <> 0").fetchall()[0][0]:
+        notes["escalation"] = ("Nominal lines with an escalation grow at that fixed contractual rate, "
+                               "amount x (1 + e)^t, whatever the general inflation of the scenario.")
+    return notes

@@ -28,6 +28,7 @@ from ratescape.run.plan import (
     DUCKDB_MEMORY_LIMIT,
     Plan,
     current_inputs,
+    convention_notes,
     make_plan,
     utc_now,
 )
@@ -147,11 +148,14 @@ def screen(con, spec: RunSettings | None = None, *, resume: str | None = None, c
             "is_base": pa.array(cols["scenario_id"] == plan.scenarios.base_index),
             "scenario_key": pa.array(scenario_keys),
         })
+        notes = convention_notes(con, spec)
         with transaction(con):
             con.execute("INSERT INTO runs VALUES (?, 'running', ?, NULL, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0, ?, NULL)", [
                 run_id, utc_now(), __version__, inputs_hash, spec.to_json(), spec.discount_basis, spec.timing,
                 float(spec.periods_per_year), bool(spec.after_tax), plan.project_count, S,
                 plan.scenarios.base_index, plan.chunk_size, plan.chunk_count, os.getpid()])
+            for topic, note in notes.items():
+                con.execute("INSERT OR REPLACE INTO run_notes VALUES (?, ?, ?)", [run_id, topic, note]).fetchall()
             con.register("new_scenarios", scen)
             con.execute("INSERT INTO scenarios SELECT ?, * FROM new_scenarios", [run_id])
             con.unregister("new_scenarios")
