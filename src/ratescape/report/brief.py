@@ -154,8 +154,12 @@ def assumption_sentences(ctx: RunContext) -> list[str]:
         out.append(f"{st[9]:,} scenarios have a real discount rate below zero (inflation above the nominal rate); "
                    "the explorer and the charts mark them.")
     if base is not None:
-        out.append(f"The base scenario is a nominal discount rate of {base['discount_rate']:.2%} "
-                   f"(real {base['real_rate']:.2%}) with inflation of {base['inflation']:.2%}.")
+        if str(run.get("discount_basis")) == "real":   # a real-basis run is described in real rates
+            out.append(f"The base scenario is a real discount rate of {base['real_rate']:.2%} "
+                       f"(nominal {base['discount_rate']:.2%}) with inflation of {base['inflation']:.2%}.")
+        else:
+            out.append(f"The base scenario is a nominal discount rate of {base['discount_rate']:.2%} "
+                       f"(real {base['real_rate']:.2%}) with inflation of {base['inflation']:.2%}.")
     timing = {"end": "at the end of each period", "mid": "in the middle of each period",
               "beginning": "at the beginning of each period"}.get(str(run.get("timing")), str(run.get("timing")))
     out.append(f"Cash flows fall {timing}, {run.get('periods_per_year') or 1:g} period(s) a year.")

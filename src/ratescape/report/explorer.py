@@ -25,7 +25,7 @@ from typing import Any
 import numpy as np
 import polars as pl
 
-from ratescape.report.chart_style import cell_edges, clipped_worth_domain, plain_input
+from ratescape.report.chart_style import cell_edges, clipped_worth_domain, plain_input, sensitivity_input_label
 from ratescape.report.contours import nice_levels, place_contour_labels, surface_contours
 from ratescape.report.run_data import RunContext, column_names, query_frame, quote_ident, thin_levels
 
@@ -243,6 +243,11 @@ def _drill_extras(ctx: RunContext, proj: pl.DataFrame, drill_idx: list[int], pw:
     out: dict[str, dict[str, Any]] = {str(i): {"irr": [], "tornado": [], "spider": []} for i in drill_idx}
     idx_of_id = {p: i for p, i in zip(ids, drill_idx)}
     irr_col = "irr_real" if ctx.x == "real_rate" else "irr_nominal"
+    basis = "real" if ctx.x == "real_rate" else "nominal"
+
+    def label(name):   # rates named on the run's own basis
+        return sensitivity_input_label(name, basis) if name in ("discount_rate", "inflation") else plain_input(name)
+
     ys = plane["y"]
     if "irr_roots" in ctx.tables and ids:
         for pid, f, r in con.execute(f"""SELECT project_id, inflation, {irr_col} FROM irr_roots
@@ -256,12 +261,12 @@ def _drill_extras(ctx: RunContext, proj: pl.DataFrame, drill_idx: list[int], pw:
                 FROM sensitivity WHERE run_id = ? AND list_contains(?, project_id)
                   AND worth_low IS NOT NULL AND worth_high IS NOT NULL ORDER BY project_id, input""",
                                                   [run_id, ids]).fetchall():
-            out[str(idx_of_id[pid])]["tornado"].append([plain_input(inp), lo, hi, base])
+            out[str(idx_of_id[pid])]["tornado"].append([label(inp), lo, hi, base])
     if "spider" in ctx.tables and ids:
         for pid, inp, ch, v in con.execute("""SELECT project_id, input, change, present_worth FROM spider
                 WHERE run_id = ? AND list_contains(?, project_id) ORDER BY project_id, input, change""",
                                            [run_id, ids]).fetchall():
-            out[str(idx_of_id[pid])]["spider"].append([plain_input(inp), ch, v])
+            out[str(idx_of_id[pid])]["spider"].append([label(inp), ch, v])
     pos = np.asarray(plane["pos"], dtype=np.int64)
     xs, ys_a = np.asarray(plane["x"]), np.asarray(plane["y"])
     x_span = float(plane["x_hi"][-1] - plane["x_lo"][0]) if xs.size else 1.0
