@@ -52,7 +52,7 @@ def test_default_is_annual_worth_and_study_period_flag_implies_its_basis(db):
 def test_toml_alternatives_table(db, tmp_path):
     (tmp_path / "g.toml").write_text('[grid]\ndiscount_rates = { values = [0.15] }\ninflation = { values = [0.0] }\n'
                                     '[alternatives]\nbasis = "present-worth"\n')
-    r = run("screen", "--db", db, "--grid", tmp_path / "g.toml", "--quiet")
+    r = run("screen", "--db", db, "--grid", tmp_path / "g.toml")   # not --quiet: the note goes to stderr
     assert r.exit_code == 0, r.stderr
     assert decided(db, r.stdout.strip().splitlines()[-1])[::2] == ("VA", "present-worth")
     assert "alternatives: group 'homes' has different lives (VA 6, VB 9 periods)" in r.stderr
