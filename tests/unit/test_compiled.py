@@ -49,7 +49,7 @@ def test_single_sign_change_roots_equal_numpy_financial():
     """Conventional streams (one sign change): the compiled Newton root equals numpy_financial.irr
     (reference library) to 1e-12, and a root outside the range is reported as none."""
     import numpy_financial as npf
-    from ratescape.evaluate.compiled import single_sign_change_roots
+    from ratescape.evaluate.irr_kernels import single_sign_change_roots
     rng = np.random.default_rng(7)
     A = np.zeros((300, 31))
     A[:, 0] = -rng.uniform(100, 5000, 300)
@@ -68,7 +68,7 @@ def test_single_sign_change_roots_equal_numpy_financial():
 
 def test_single_sign_change_roots_long_horizon_does_not_overflow():
     """1,200 monthly periods at rates from -99 % to 1000 % per period: the scaled Horner form stays finite."""
-    from ratescape.evaluate.compiled import single_sign_change_roots
+    from ratescape.evaluate.irr_kernels import single_sign_change_roots
     A = np.full((2, 1201), 1.0)
     A[:, 0] = [-100.0, -1300.0]
     u, found = single_sign_change_roots(A, np.array([1200, 1200]), np.log1p(-0.99), np.log1p(10.0))
@@ -83,7 +83,7 @@ def test_single_sign_change_roots_long_horizon_does_not_overflow():
 def test_stream_facts_equal_the_numpy_definitions():
     """Sign changes skipping zeros (Descartes' count), of the running sums (Norstrom's condition),
     last non-zero period and finiteness, against their NumPy forms (irr.sign_changes; common practice)."""
-    from ratescape.evaluate.compiled import stream_facts
+    from ratescape.evaluate.irr_kernels import stream_facts
     from ratescape.evaluate.irr import sign_changes
     rng = np.random.default_rng(9)
     A = rng.integers(-2, 3, size=(500, 12)).astype(float)

@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from ratescape.evaluate.compiled import (ROOT_FOUND, ROOT_NOT_CONVERGED, ROOT_TOL, cell_roots,
+from ratescape.evaluate.irr_kernels import (ROOT_FOUND, ROOT_NOT_CONVERGED, ROOT_TOL, cell_roots,
                                          single_sign_change_solve)
 from ratescape.evaluate.irr import _STATUS_LABELS, IrrStatus, irr, irr_roots
 

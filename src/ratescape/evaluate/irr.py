@@ -19,7 +19,7 @@ rounding scale S(u) = sum_t |A_t| e^(-u t) (scaled alike) and a bound B2 on
 |PW''| over each cell. A cell is *proved* free of roots when PW has one sign
 at both ends and min |PW(end)| - (rounding error) > B2 h^2 / 8 (the chord
 differs from PW by at most that). Every other cell goes to a compiled,
-certifying search (:func:`ratescape.evaluate.compiled.cell_roots`) that splits
+certifying search (:func:`ratescape.evaluate.irr_kernels.cell_roots`) that splits
 it until, on each piece, PW or PW' or PW'' keeps one sign (tests from the
 same magnitude bounds, rounding allowed for): no root; one root where the
 ends differ in sign (PW monotone); or at most two, either side of the one
@@ -29,7 +29,7 @@ narrower than 64 eps (1 + |u|) makes the row ``unresolved``.
 Rows whose amounts change sign exactly once (the conventional investment) skip the grid: by
 Descartes' rule they have exactly one simple root r > -1, inside [low, high] iff PW differs in sign
 at the two ends, and a compiled safeguarded Newton iteration on the Horner form finds it row by
-row (:func:`ratescape.evaluate.compiled.single_sign_change_solve`).
+row (:func:`ratescape.evaluate.irr_kernels.single_sign_change_solve`).
 
 Tolerance
 ---------
@@ -37,7 +37,7 @@ Every root is refined by safeguarded Newton (bisection when a step leaves
 its bracket or exceeds half the step before last) until PW is at its
 rounding level or the bracket is below 4 eps (1 + |u|), and is then checked:
 |PW(r)| <= 1e-10 * sum_t |A_t| (1+r)^-t at u = log(1 + r)
-(``compiled.ROOT_TOL``; a touching root: max(1e-10, touch_tol)). A root
+(``irr_kernels.ROOT_TOL``; a touching root: max(1e-10, touch_tol)). A root
 that fails the check, or an iteration limit reached, gives the row the
 status ``unresolved`` and no root: never an unconverged value. (The
 returned float r carries 1 + r only to eps / (1 + r) relative, which
@@ -205,10 +205,10 @@ def _split(n, min_rows):
 
 
 def _single_roots_threaded(A, last, u_low, u_high):
-    """:func:`ratescape.evaluate.compiled.single_sign_change_solve` over row blocks on all cores."""
+    """:func:`ratescape.evaluate.irr_kernels.single_sign_change_solve` over row blocks on all cores."""
     from concurrent.futures import ThreadPoolExecutor
 
-    from .compiled import single_sign_change_solve
+    from .irr_kernels import single_sign_change_solve
     cuts = _split(A.shape[0], 20_000)
     if cuts.size == 2:
         return single_sign_change_solve(A, last, u_low, u_high)
@@ -219,10 +219,10 @@ def _single_roots_threaded(A, last, u_low, u_high):
 
 
 def _cells_threaded(A, last, rows, u0, u1, touch_tol):
-    """:func:`ratescape.evaluate.compiled.cell_roots` over blocks of cells on all cores."""
+    """:func:`ratescape.evaluate.irr_kernels.cell_roots` over blocks of cells on all cores."""
     from concurrent.futures import ThreadPoolExecutor
 
-    from .compiled import cell_roots
+    from .irr_kernels import cell_roots
     if rows.size == 0:  # (no call: loading the compiled kernel costs ~0.1 s the first time)
         return np.empty((0, 1)), np.empty((0, 1), bool), np.empty(0, np.int64), np.empty(0, np.int8)
     cuts = _split(rows.size, 5_000)
@@ -291,7 +291,7 @@ def irr_roots(amounts, *, low=-0.99, high=10.0, grid_points=None, touch_tol=1e-1
     A = a.reshape(-1, T)
     P = A.shape[0]
 
-    from .compiled import ROOT_FOUND, ROOT_NOT_CONVERGED, stream_facts
+    from .irr_kernels import ROOT_FOUND, ROOT_NOT_CONVERGED, stream_facts
     sc, sc_cum, last, finite, total_nonzero = stream_facts(A)       # one compiled pass per row
     if not finite.all():
         A = np.where(finite[:, None], A, 0.0)

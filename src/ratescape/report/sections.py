@@ -234,18 +234,11 @@ def _headline_sections(ctx: RunContext, top_n: int) -> tuple[list[Section], list
 
 def _drill_projects(ctx: RunContext, projects: Sequence[str] | None, suggested: list[str]) -> list[str]:
     if projects is not None:
-        ids = list(dict.fromkeys(str(p) for p in projects))
-        if len(ids) > MAX_DRILL_PROJECTS:
-            raise ReportError(f"at most {MAX_DRILL_PROJECTS} projects can be drilled into; got {len(ids)}. "
+        count = len(set(map(str, projects)))
+        if count > MAX_DRILL_PROJECTS:
+            raise ReportError(f"at most {MAX_DRILL_PROJECTS} projects can be drilled into; got {count}. "
                               "Pick fewer with --project.")
-        found = {r[0] for r in ctx.con.execute(
-            "SELECT project_id FROM project_summary WHERE run_id = ? AND list_contains(?, project_id)",
-            [ctx.run_id, ids]).fetchall()}
-        missing = [p for p in ids if p not in found]
-        if missing:
-            raise ReportError(f"project(s) {missing} are not in run {ctx.run_id!r}; "
-                              "check the ids with `ratescape query`.")
-        return ids
+        return _named_projects(ctx, projects)
     ids = list(dict.fromkeys(str(p) for p in suggested if p is not None))
     if len(ids) < 3:
         more = ctx.con.execute(

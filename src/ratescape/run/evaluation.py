@@ -123,6 +123,7 @@ class IrrTable:
     count: np.ndarray
     status: np.ndarray            # IrrStatus codes (int8)
     sign_changes: np.ndarray
+    cost_only: np.ndarray | None = None   # (F * P,) rows of cost-only projects (run/cost_only.py), or None
 
     @property
     def labels(self) -> np.ndarray:

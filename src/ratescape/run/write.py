@@ -45,7 +45,7 @@ class ChunkTables:
 
 def _irr_status(irr) -> pa.DictionaryArray:
     """IRR status labels; rows of cost-only projects read 'cost-only' (see run/cost_only.py)."""
-    rows = getattr(irr, "cost_only", None)
+    rows = irr.cost_only
     if rows is None or not np.any(rows):
         return arrow_labels(irr.status, STATUS_LABELS)
     names = list(STATUS_LABELS) + [COST_ONLY]
