@@ -262,9 +262,8 @@ def screen(db_path, grid_path, discount_rates, inflation, discount_basis, budget
             for line in describe_axes(spec, base_values(spec, build_scenarios(spec))):
                 click.echo(line, err=True)
     if quiet:
-        import contextlib
-        import os
-        with open(os.devnull, "w") as null, contextlib.redirect_stderr(null):
+        from .run.progress import quiet_logs
+        with quiet_logs():
             run_id = screen_portfolio(db_path, settings=spec, chunk_size=chunk_size, cluster=cluster,
                                       workers=workers, resume=resume, progress=False)
         click.echo(run_id)

@@ -3,6 +3,10 @@ from __future__ import annotations
 
 import sys
 import time
+from contextlib import contextmanager
+
+# Set by :func:`quiet_logs` (the command line's --quiet): log lines are dropped, errors still raise.
+_QUIET = False
 
 
 class Progress:
@@ -50,4 +54,18 @@ class Progress:
 
 
 def log(message: str, *, stream=None) -> None:
-    print(message, file=stream or sys.stderr, flush=True)
+    """One plain line on standard error (none inside :func:`quiet_logs`)."""
+    if not _QUIET:
+        print(message, file=stream or sys.stderr, flush=True)
+
+
+@contextmanager
+def quiet_logs():
+    """Drop log lines while the block runs, on every thread (the run's reader and writer threads
+    log too); errors are still raised and reported by the caller."""
+    global _QUIET
+    before, _QUIET = _QUIET, True
+    try:
+        yield
+    finally:
+        _QUIET = before
