@@ -9,7 +9,7 @@ import duckdb
 import pytest
 
 from browser.chromium import find_chromium, running_under_ci   # tests/ is on sys.path (conftest)
-from db.test_report import HOSTILE, make_db
+from db.test_report import HOSTILE, PROJECTS, make_db
 
 from ratescape.report import write_report
 
@@ -20,35 +20,63 @@ ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-net
         "--disable-component-update", "--disable-sync"]
 
 
+#: A second hostile name, on an alternative of the group "depot": decision-map legends and tooltips.
+HOSTILE_ALT = '<img src=x onerror="window.__pwned=2">'
+BROWSER_PROJECTS = PROJECTS + f'G3,"{HOSTILE_ALT.replace(chr(34), chr(34) * 2)}",depot,150,38,real,,,15\n'
+
+
 @pytest.fixture(scope="module")
-def session(tmp_path_factory):
+def browser():
     exe = find_chromium()
     if exe is None:
         if running_under_ci():
             pytest.fail("Chromium not found under CI; .ci/run should have installed it")
         pytest.skip("Chromium not found (install Debian's chromium package)")
-    root = tmp_path_factory.mktemp("browser")
-    db, run_id = make_db(root)
-    out = write_report(db, root / "report.html", run_id)
-    log = {"errors": [], "requests": []}
     with playwright_api.sync_playwright() as p:
-        browser = p.chromium.launch(executable_path=exe, args=ARGS)
-        page = browser.new_page()
-        page.on("console", lambda m: log["errors"].append(m.text) if m.type == "error" else None)
-        page.on("pageerror", lambda e: log["errors"].append(str(e)))
+        b = p.chromium.launch(executable_path=exe, args=ARGS)
+        yield b
+        b.close()
 
-        def guard(route):
-            if not route.request.url.startswith(("file:", "data:", "blob:", "about:")):
-                log["requests"].append(route.request.url)
-                route.abort()
-            else:
-                route.continue_()
-        page.route("**/*", guard)
-        page.goto(out.as_uri())
-        page.wait_for_selector('#render-status[data-state="done"]', state="attached", timeout=60_000)
-        page.wait_for_selector('#project-detail:not([data-rendered="pending"])', state="attached", timeout=60_000)
-        yield page, db, run_id, log
-        browser.close()
+
+def open_report(browser, out):
+    """A page on the report, every request outside file:, data:, blob: and about: refused and logged."""
+    log = {"errors": [], "requests": []}
+    page = browser.new_page()
+    page.on("console", lambda m: log["errors"].append(m.text) if m.type == "error" else None)
+    page.on("pageerror", lambda e: log["errors"].append(str(e)))
+
+    def guard(route):
+        if not route.request.url.startswith(("file:", "data:", "blob:", "about:")):
+            log["requests"].append(route.request.url)
+            route.abort()
+        else:
+            route.continue_()
+    page.route("**/*", guard)
+    page.goto(out.as_uri())
+    page.wait_for_selector('#render-status[data-state="done"]', state="attached", timeout=60_000)
+    page.wait_for_selector('#project-detail:not([data-rendered="pending"])', state="attached", timeout=60_000)
+    return page, log
+
+
+@pytest.fixture(scope="module")
+def session(browser, tmp_path_factory):
+    root = tmp_path_factory.mktemp("browser")
+    db, run_id = make_db(root, projects=BROWSER_PROJECTS)
+    out = write_report(db, root / "report.html", run_id)
+    page, log = open_report(browser, out)
+    yield page, db, run_id, log
+    page.close()
+
+
+@pytest.fixture(scope="module")
+def real_session(browser, tmp_path_factory):
+    """A real-basis run: the grid's discount axis is the real rate."""
+    root = tmp_path_factory.mktemp("browser-real")
+    db, run_id = make_db(root, discount_basis="real")
+    out = write_report(db, root / "report.html", run_id)
+    page, log = open_report(browser, out)
+    yield page, db, run_id, log
+    page.close()
 
 
 def stored_order(db, run_id, rate, inflation):
@@ -80,6 +108,33 @@ def test_controls_update_the_ranked_table_to_the_stored_order(session, rate, inf
     assert page.is_visible("#negative-real") == (inflation > rate)
 
 
+def test_real_basis_run_discount_rate_control_takes_the_stored_nominal_rates(real_session):
+    """Contract on a real-basis run: `inflation` first, then `discount_rate` by the stored nominal rate."""
+    page, db, run_id, log = real_session
+    con = duckdb.connect(str(db), read_only=True)
+    picks = con.execute("""SELECT discount_rate, inflation, real_rate FROM scenarios WHERE run_id = ?
+                           AND (scenario_id % 7 = 3 OR real_rate = 0) ORDER BY scenario_id LIMIT 4""",
+                        [run_id]).fetchall()
+    con.close()
+    assert len(picks) >= 3
+    for nominal, inflation, real in picks:
+        page.select_option('select[name="inflation"]', value=repr(inflation))
+        page.select_option('select[name="discount_rate"]', value=repr(nominal))
+        ids = page.eval_on_selector_all("#scenario-ranking tbody tr", "rows => rows.map(r => r.dataset.projectId)")
+        assert ids == stored_order(db, run_id, nominal, inflation)
+        # the option's label names the real rate beside the nominal one
+        label = page.eval_on_selector('select[name="discount_rate"]', "s => s.options[s.selectedIndex].textContent")
+        assert label == f"{nominal:.2%} (real {real:.2%})".replace("%", " %")
+    # every option of discount_rate is a nominal rate stored at the chosen inflation level
+    values = page.eval_on_selector_all('select[name="discount_rate"] option', "os => os.map(o => o.value)")
+    con = duckdb.connect(str(db), read_only=True)
+    stored = sorted(repr(r[0]) for r in con.execute("SELECT discount_rate FROM scenarios WHERE run_id = ? AND "
+                                                    "inflation = ?", [run_id, picks[-1][1]]).fetchall())
+    con.close()
+    assert sorted(values) == stored
+    assert log["errors"] == [] and log["requests"] == []
+
+
 def test_search_by_a_word_of_the_name_opens_the_drill_down(session):
     page, *_ = session
     page.fill("#project-search", "crane")
@@ -104,8 +159,33 @@ def test_hostile_name_stays_text_in_search_table_title_and_legends(session):
     # chart titles are SVG text, not markup
     titles = page.eval_on_selector_all("#detail-curve svg text", "ts => ts.map(t => t.textContent)")
     assert any(HOSTILE in t for t in titles)
-    # tooltip of a point of the curve
-    page.hover("#detail-curve svg.marks", position={"x": 120, "y": 120})
+    # tooltip of the hostile project's bar in the chart of scenario-dependent projects: text, not markup
+    tip = hover_until(page, "#scenario-dependent .vega-embed g.mark-rect path", HOSTILE)
+    assert f"{HOSTILE} (H)" in tip
+    assert page.evaluate("typeof window.__pwned") == "undefined"
+    assert page.locator("img").count() == 0
+
+
+def hover_until(page, marks, text):
+    """Hover the marks one by one until Vega's tooltip element shows ``text``; its textContent."""
+    paths = page.locator(marks)
+    for n in range(paths.count()):
+        paths.nth(n).hover(force=True)
+        content = page.evaluate("(document.getElementById('vg-tooltip-element') || {}).textContent || ''")
+        if text in content:
+            return content
+    raise AssertionError(f"no tooltip of {marks} shows {text!r}")
+
+
+def test_hostile_alternative_name_stays_text_in_decision_map_legend_and_tooltip(session):
+    page, *_ = session
+    chart = page.locator("section:has(h3:text-is('Group depot')) .vega-embed").first
+    assert chart.count() == 1
+    legend = chart.locator("g.role-legend text").all_text_contents()
+    # legend labels are SVG text: the name is there as characters (Vega may shorten a long label with "…")
+    assert any(t.startswith(HOSTILE_ALT[:12]) for t in legend), legend
+    tip = hover_until(page, "section:has(h3:text-is('Group depot')) .vega-embed g.mark-rect path", HOSTILE_ALT)
+    assert f"{HOSTILE_ALT} (G3)" in tip
     assert page.evaluate("typeof window.__pwned") == "undefined"
     assert page.locator("img").count() == 0
 

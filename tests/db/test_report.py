@@ -20,7 +20,7 @@ from ratescape.report import write_report
 from ratescape.report.chart_style import MONEY_LABEL_EXPR, clipped_worth_domain
 from ratescape.report.contours import place_contour_labels, surface_contours
 from ratescape.report.drill_charts import drill_templates
-from ratescape.report.explorer import explorer_data, worth_decimals
+from ratescape.report.explorer import decoded_worths, explorer_data, selection_bits, worth_codes
 from ratescape.report.run_data import ReportError, RunContext, pick_run
 
 HOSTILE = '</script><img src=x onerror="window.__pwned=1">'
@@ -131,23 +131,29 @@ def test_explorer_data_equals_the_stored_rows(screened):
     db, run_id, page = screened
     data = explorer_block(page)
     assert data["full"] and data["total_projects"] == 7
-    largest = max(abs(v) for row in data["pw"].values() for v in row)
+    worths = {int(k): decoded_worths(data["pwe"][k], v) for k, v in data["pw"].items()}
     con = duckdb.connect(str(db), read_only=True)
     try:
         for pos in (0, data["base"], len(data["sc"]["id"]) - 1):
             sid = data["sc"]["id"][pos]
             stored = con.execute("SELECT project_id, present_worth FROM results WHERE run_id = ? AND scenario_id = ? "
                                  "ORDER BY present_worth DESC, project_id", [run_id, sid]).fetchall()
-            embedded = sorted(((data["pr"]["id"][int(k)], v[pos]) for k, v in data["pw"].items()),
-                              key=lambda r: (-r[1], r[0]))
-            assert [p for p, _ in embedded] == [p for p, _ in stored]
-            # rounded to about nine significant digits of the run's largest worth (explorer.worth_decimals)
-            np.testing.assert_allclose([v for _, v in embedded], [v for _, v in stored], rtol=0,
-                                       atol=0.5 * 10.0 ** -worth_decimals(largest))
+            embedded = dict((data["pr"]["id"][k], v[pos]) for k, v in worths.items())
+            # four significant digits: relative error at most half a unit in the fourth digit
+            np.testing.assert_allclose([embedded[p] for p, _ in stored], [v for _, v in stored], rtol=5e-4)
+            # a negative worth never rounds to zero or above: "accepted" is the database's
+            assert [embedded[p] >= 0 for p, _ in stored] == [v >= 0 for _, v in stored]
+            # the page's order: rounded worths (ties by id), then the stored order where rounding differs
+            shown = sorted(embedded, key=lambda p: (-embedded[p], p))
+            fix = data["fix"].get(str(pos))
+            if fix:
+                shown[fix[0]:fix[0] + len(fix) - 1] = [data["pr"]["id"][i] for i in fix[1:]]
+            assert shown == [p for p, _ in stored]
             assert data["sc"]["accepted"][pos] == sum(v >= 0 for _, v in stored)
             sel = {r[0] for r in con.execute("SELECT project_id FROM selections WHERE run_id = ? AND scenario_id = ?",
                                              [run_id, sid]).fetchall()}
-            assert {data["pr"]["id"][i] for i in data["selected"][pos]} == sel
+            bits = data["selected"][pos]
+            assert {data["pr"]["id"][i] for i in range(7) if int(bits[i >> 2], 16) >> (i & 3) & 1} == sel
             worth = con.execute("SELECT objective FROM portfolios WHERE run_id = ? AND scenario_id = ?",
                                 [run_id, sid]).fetchall()[0][0]
             assert data["sc"]["worth"][pos] == pytest.approx(worth, rel=1e-8, abs=1e-6)
@@ -240,3 +246,15 @@ def test_colour_clip_rule_and_spaced_contour_labels():
     u, w = labels["x"].to_numpy() / 0.2, labels["y"].to_numpy() / 0.1
     d = np.hypot(u[:, None] - u[None, :], w[:, None] - w[None, :]) + np.eye(len(u)) * 9
     assert len(u) >= 2 and d.min() >= 0.14
+
+
+def test_worth_codes_keep_four_digits_and_the_sign():
+    """Rounding to four significant digits, as Python's own '%.4g' formatting rounds (the reference)."""
+    v = np.array([19_228_835.0, -0.3456, 1234.56, -98_765.4, 0.0, np.nan, -1e-9])
+    e, codes = worth_codes(v)
+    back = decoded_worths(e, codes)
+    ref = np.array([float(f"{a:.4g}") for a in v])
+    np.testing.assert_allclose(back[:5], ref[:5], rtol=1e-12)
+    assert codes[5] is None and back[6] < 0           # a tiny loss stays a loss
+    assert codes[0] == 1923 and e == 4                 # the largest worth as a 4-digit integer
+    assert selection_bits([0, 1, 6], 7) == "34"        # bits 0 and 1 -> 3; bit 6 -> 4 in the second digit

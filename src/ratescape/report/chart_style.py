@@ -203,6 +203,34 @@ def inline_values(frame: pl.DataFrame, func: str, max_rows: int) -> dict[str, An
     return {"values": frame.to_dicts()}
 
 
+class ChartRows:
+    """An Altair chart built on named data, and the rows of those datasets, joined in :meth:`to_dict`.
+
+    Altair deep-copies inline rows each time a layered chart with a selection parameter is combined
+    or given properties (several copies of every row per chart: most of the report's writing time
+    for decision maps of a few hundred cells). Built on ``alt.NamedData`` and given its rows only in
+    the finished specification's top-level ``datasets``, the chart is the same Vega-Lite document.
+    Other attributes are the chart's.
+    """
+
+    def __init__(self, chart: Any, datasets: dict[str, list[dict[str, Any]]]):
+        self.chart = chart
+        self.datasets = datasets
+
+    def to_dict(self, *args: Any, **kwargs: Any) -> dict[str, Any]:
+        spec = self.chart.to_dict(*args, **kwargs)
+        spec.setdefault("datasets", {}).update(self.datasets)
+        return spec
+
+    def to_json(self, *args: Any, indent: int | None = 2, **kwargs: Any) -> str:
+        import json
+
+        return json.dumps(self.to_dict(*args, **kwargs), indent=indent, allow_nan=False)
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self.chart, name)
+
+
 def with_project_label(frame: pl.DataFrame) -> pl.DataFrame:
     """Add ``label``: 'name (project_id)', or the id alone when no name is given."""
     pid = pl.col("project_id").cast(pl.String)

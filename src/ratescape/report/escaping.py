@@ -129,12 +129,10 @@ def json_for_script(obj: Any) -> str:
     >>> json_for_script({"name": "</script><b>&"})
     '{"name":"\\\\u003c/script\\\\u003e\\\\u003cb\\\\u003e\\\\u0026"}'
     """
-    text = json.dumps(
-        sanitize_json_value(obj),
-        ensure_ascii=False,
-        allow_nan=False,
-        separators=(",", ":"),
-    )
+    try:      # most structures have no NaN: written as they are, without a sanitised copy
+        text = json.dumps(obj, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
+    except ValueError:
+        text = json.dumps(sanitize_json_value(obj), ensure_ascii=False, allow_nan=False, separators=(",", ":"))
     return _SCRIPT_ESCAPE_RE.sub(lambda m: _SCRIPT_ESCAPES[m.group(0)], text)
 
 

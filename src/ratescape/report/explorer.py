@@ -13,8 +13,12 @@ Embedding rule (stated in the page and the README):
   often selected), then scenario-dependent projects (accepted in some scenarios only) by best median
   rank. The search says when a project is not embedded and which command draws it.
 
-Worths are rounded to :func:`worth_decimals` places (about nine significant digits of the largest
-worth of the run), so the order in the page is the database's.
+Present worths travel as four significant digits (:func:`worth_codes`: integers at one power of ten
+per project or scenario, a negative worth never rounded to zero, so "accepted" is the database's);
+where rounding ties or reorders two projects of a scenario, ``fix`` carries that scenario's stored
+order for the stretch concerned, so the ranked table is always the database's order. Selections are
+bit strings (:func:`selection_bits`); contour vertices are rounded to 1e-5 (a thousandth of a
+percentage point).
 """
 from __future__ import annotations
 
@@ -50,6 +54,76 @@ def worth_decimals(max_abs: float) -> int:
     if not math.isfinite(max_abs) or max_abs <= 0:
         return 6
     return int(min(6, max(0, 9 - math.ceil(math.log10(max_abs)))))
+
+
+#: Significant digits of the present worths in the page (the table shows 4 in k or M).
+WORTH_DIGITS = 4
+
+
+def worth_codes(values: np.ndarray) -> tuple[int, list]:
+    """Present worths to :data:`WORTH_DIGITS` significant digits as ``(e, codes)``, worth = code x 10**e.
+
+    ``e`` puts the largest magnitude at four digits before the point, so most codes are short
+    integers; smaller worths keep four significant digits as decimals. A negative worth stays
+    negative (accepted means worth >= 0). NaN is ``None``.
+
+    >>> worth_codes(np.array([19_228_835.0, -0.3456, 1234.56, np.nan]))
+    (4, [1923, -3.456e-05, 0.1235, None])
+    """
+    v = np.asarray(values, dtype=float)
+    finite = np.isfinite(v)
+    big = float(np.max(np.abs(v[finite]))) if finite.any() else 0.0
+    e = int(math.floor(math.log10(big))) - (WORTH_DIGITS - 1) if big > 0 else 0
+    out: list = [None] * v.size
+    nz = finite & (v != 0)
+    k = np.zeros(v.size, dtype=np.int64)
+    k[nz] = np.floor(np.log10(np.abs(v[nz]))).astype(np.int64) - (WORTH_DIGITS - 1)
+    mant = np.zeros(v.size, dtype=np.int64)
+    mant[nz] = np.round(v[nz] / 10.0 ** k[nz]).astype(np.int64)
+    for n in np.flatnonzero(finite).tolist():
+        m, kk = int(mant[n]), int(k[n])
+        if m == 0:
+            out[n] = 0
+        elif kk >= e:
+            out[n] = m * 10 ** (kk - e)
+        else:
+            out[n] = m / 10 ** (e - kk)
+    return e, out
+
+
+def decoded_worths(e: int, codes: list) -> np.ndarray:
+    """The worths the page reads back from :func:`worth_codes` (NaN for ``None``)."""
+    return np.array([np.nan if c is None else c * 10.0 ** e for c in codes], dtype=float)
+
+
+def selection_bits(indices: Sequence[int], n: int) -> str:
+    """Project indices as a hex string, four projects a character, project ``i`` in bit ``i % 4``.
+
+    >>> selection_bits([0, 5], 8)
+    '12'
+    """
+    nibbles = [0] * ((n + 3) // 4)
+    for i in indices:
+        nibbles[i >> 2] |= 1 << (i & 3)
+    return "".join("0123456789abcdef"[b] for b in nibbles)
+
+
+def _order_fixes(pw: np.ndarray, ids: list[str], decoded: np.ndarray) -> dict[str, list[int]]:
+    """Per scenario where the rounded worths would order the table differently from the stored ones:
+    ``[start, row, row, ...]``, the stored order of the stretch that differs (rows of ``pw``)."""
+    fixes: dict[str, list[int]] = {}
+    if pw.size == 0:
+        return fixes
+    id_rank = np.argsort(np.argsort(np.array(ids, dtype=object)))
+    for s in range(pw.shape[1]):
+        ok = np.flatnonzero(np.isfinite(pw[:, s]))
+        exact = ok[np.lexsort((id_rank[ok], -pw[ok, s]))]
+        shown = ok[np.lexsort((id_rank[ok], -decoded[ok, s]))]
+        diff = np.flatnonzero(exact != shown)
+        if diff.size:
+            a, b = int(diff[0]), int(diff[-1])
+            fixes[str(s)] = [a, *exact[a:b + 1].tolist()]
+    return fixes
 
 
 def _rounded(values: np.ndarray, decimals: int) -> list:
@@ -171,6 +245,10 @@ def explorer_data(ctx: RunContext, drill_first: Sequence[str], leaders: Sequence
             if int(sid) in pos_of_id:
                 selected[pos_of_id[int(sid)]] = sorted(idx_of_id[p] for p in pids if p in idx_of_id)
     plane = _base_plane(ctx, sc, axes_cols, base_pos)
+    nominal_at = _nominal_choices(sc, grid_index, len(axes[0]["values"]), len(axes[1]["values"])) \
+        if ctx.x == "real_rate" else None
+    codes = [worth_codes(pw[r]) for r in range(len(drill_idx))]
+    decoded = (np.array([decoded_worths(e, c) for e, c in codes]) if codes else np.zeros((0, n_s)))
     data: dict[str, Any] = {
         "basis": "real" if ctx.x == "real_rate" else "nominal",
         "axes": axes, "cells": cells, "base": base_pos, "full": full, "table_top": TABLE_TOP,
@@ -184,15 +262,39 @@ def explorer_data(ctx: RunContext, drill_first: Sequence[str], leaders: Sequence
                "share": proj["accept_share"].to_list(), "rmin": proj["rank_min"].to_list(),
                "rmed": proj["rank_median"].to_list(), "rmax": proj["rank_max"].to_list(),
                "sel": proj["selected_share"].to_list()},
-        "pw": {str(i): _rounded(pw[r], dec) for r, i in enumerate(drill_idx)},
-        "selected": selected,
+        "pw": {str(i): codes[r][1] for r, i in enumerate(drill_idx)},
+        "pwe": {str(i): codes[r][0] for r, i in enumerate(drill_idx)},
+        "selected": [selection_bits(v, proj.height) for v in selected],
         "plane": plane,
     }
-    if not full:
+    if nominal_at is not None:
+        data["nominal_at"] = nominal_at
+    if full:     # the table sorts the embedded worths; where rounding would reorder, the stored order
+        fixes = _order_fixes(pw, [proj["project_id"][i] for i in drill_idx], decoded)
+        data["fix"] = {s: [f[0], *(drill_idx[r] for r in f[1:])] for s, f in fixes.items()}
+    else:
         data["top"] = [[idx_of_key[k] for k in ks] for ks in top_keys]
-        data["toppw"] = [_rounded(np.array(p, dtype=float), dec) for p in top_pw]
+        top_codes = [worth_codes(np.array(p, dtype=float)) for p in top_pw]
+        data["toppw"] = [c for _, c in top_codes]
+        data["toppwe"] = [e for e, _ in top_codes]
     data["drill"] = _drill_extras(ctx, proj, drill_idx, pw, plane, sc)
     return data
+
+
+def _nominal_choices(sc: pl.DataFrame, grid_index: list[list[int]], n_real: int, n_infl: int) -> list[list]:
+    """Real-basis runs: the stored nominal rate at each (inflation level, real-rate level), as text.
+
+    Row ``i`` lists, for every real-rate level ``j``, ``repr`` of ``scenarios.discount_rate`` of the
+    scenarios at inflation level ``i`` and real rate ``j`` (``None`` where the grid has none): the
+    option values of the page's ``discount_rate`` control once that inflation level is chosen. The
+    nominal rate follows from the real rate and inflation alone (Fisher), so extra axes do not change it.
+    """
+    out: list[list] = [[None] * n_real for _ in range(n_infl)]
+    for k, nominal in enumerate(sc["discount_rate"].to_list()):
+        i, j = grid_index[1][k], grid_index[0][k]
+        if out[i][j] is None and nominal is not None:
+            out[i][j] = repr(float(nominal))
+    return out
 
 
 def _drill_choice(ctx: RunContext, first: Sequence[str], leaders: Sequence[str]) -> list[str]:
@@ -285,8 +387,20 @@ def _drill_extras(ctx: RunContext, proj: pl.DataFrame, drill_idx: list[int], pw:
         levels = nice_levels(float(finite.min()), float(finite.max()), 6)
         lines = surface_contours(frame, x="x", y="y", value="pw", levels=levels)
         if lines.height:
-            entry["lines"] = [[int(a), int(b), float(c), round(float(d), 6), round(float(e), 6)] for a, b, c, d, e in
-                              lines.select("line", "point", "level", "x", "y").iter_rows()]
+            entry["lines"] = _packed_lines(lines)
             labels = place_contour_labels(lines, x_span=x_span, y_span=y_span)
-            entry["labels"] = [[round(a, 6), round(b, 6), t] for a, b, t in labels.select("x", "y", "text").iter_rows()]
+            entry["labels"] = [[round(a, 5), round(b, 5), t] for a, b, t in labels.select("x", "y", "text").iter_rows()]
+    return out
+
+
+def _packed_lines(lines: pl.DataFrame) -> list[list[float]]:
+    """Contour lines as ``[level, x0, y0, x1, y1, ...]`` in point order, vertices rounded to 1e-5."""
+    lines = lines.sort("line", "point")
+    line = lines["line"].to_numpy()
+    xy = np.round(np.column_stack([lines["x"].to_numpy(), lines["y"].to_numpy()]), 5)
+    level = lines["level"].to_numpy()
+    cuts = np.flatnonzero(np.diff(line)) + 1
+    out = []
+    for a, b in zip(np.r_[0, cuts].tolist(), np.r_[cuts, line.size].tolist()):
+        out.append([float(level[a]), *xy[a:b].ravel().tolist()])
     return out

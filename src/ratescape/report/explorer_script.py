@@ -14,9 +14,23 @@ EXPLORER_JS = r"""
   var D = JSON.parse($('explorer-data').textContent);
   var T = JSON.parse($('drill-templates').textContent);
   var P = D.pr, S = D.sc;
-  function money(v) {
+  // worths travel as four significant digits: worth = code x 10^e (explorer.worth_codes)
+  function decode(codes, e) {
+    var f = Math.pow(10, e);
+    return codes.map(function (c) { return c === null ? null : c * f; });
+  }
+  Object.keys(D.pw).forEach(function (k) { D.pw[k] = decode(D.pw[k], D.pwe[k]); });
+  if (D.toppw) D.toppw = D.toppw.map(function (row, s) { return decode(row, D.toppwe[s]); });
+  function isSelected(s, i) {      // selections are hex bit strings, project i in bit i % 4
+    var c = D.selected[s].charAt(i >> 2);
+    return c !== '' && ((parseInt(c, 16) >> (i & 3)) & 1) === 1;
+  }
+  function worth4(v) {     // four significant digits, in thousands (k) or millions (M)
     if (v === null || v === undefined) return '\u2014';
-    return Math.round(v).toLocaleString('en-US');
+    var a = Math.abs(v), o = {maximumSignificantDigits: 4};
+    if (a >= 1e6) return (v / 1e6).toLocaleString('en-US', o) + ' M';
+    if (a >= 1e3) return (v / 1e3).toLocaleString('en-US', o) + ' k';
+    return v.toLocaleString('en-US', o);
   }
   function short(v) {
     if (v === null || v === undefined) return '\u2014';
@@ -36,6 +50,10 @@ EXPLORER_JS = r"""
   function current() {
     var key = D.axes.map(function (a) {
       var c = document.querySelector('[data-axis="' + a.key + '"]');
+      if (c.hasAttribute('data-nominal-of-real')) {
+        var o = c.options[c.selectedIndex];
+        return o ? +o.getAttribute('data-real-index') : -1;
+      }
       var v = parseFloat(c.value), best = 0;
       a.values.forEach(function (w, i) { if (Math.abs(w - v) < Math.abs(a.values[best] - v)) best = i; });
       return best;
@@ -43,16 +61,22 @@ EXPLORER_JS = r"""
     return D.cells.hasOwnProperty(key) ? D.cells[key] : null;
   }
   function ranking(s) {
-    var sel = {};
-    D.selected[s].forEach(function (i) { sel[i] = true; });
     var rows = [];
     if (D.full) {
       for (var k in D.pw) { if (D.pw[k][s] !== null) rows.push([+k, D.pw[k][s]]); }
-      rows.sort(function (a, b) { return b[1] - a[1] || (P.id[a[0]] < P.id[b[0]] ? -1 : 1); });
+      rows.sort(function (a, b) {
+        var d = b[1] - a[1];
+        if (Math.abs(d) > 1e-9 * Math.max(Math.abs(a[1]), Math.abs(b[1]))) return d;
+        return P.id[a[0]] < P.id[b[0]] ? -1 : (P.id[a[0]] > P.id[b[0]] ? 1 : 0);
+      });
+      var fix = D.fix && D.fix[String(s)];
+      if (fix) {      // where rounding ties or reorders, the stored order of that stretch
+        for (var j = 1; j < fix.length; j++) rows[fix[0] + j - 1] = [fix[j], D.pw[String(fix[j])][s]];
+      }
     } else {
       rows = D.top[s].map(function (i, j) { return [i, D.toppw[s][j]]; });
     }
-    return rows.map(function (r) { return {i: r[0], pw: r[1], sel: !!sel[r[0]]}; });
+    return rows.map(function (r) { return {i: r[0], pw: r[1], sel: isSelected(s, r[0])}; });
   }
   function update() {
     var s = current();
@@ -61,7 +85,6 @@ EXPLORER_JS = r"""
     var note = $('scenario-summary');
     if (s === null) { note.textContent = 'No stored scenario at these settings.'; return; }
     var real = S.real[s];
-    $('scenario-nominal').value = S.nominal[s];
     $('scenario-nominal').textContent = pct(S.nominal[s]);
     $('scenario-real').textContent = pct(real);
     $('negative-real').hidden = !(real < 0);
@@ -74,15 +97,38 @@ EXPLORER_JS = r"""
       var name = el('td'); var a = el('a', label(r.i)); a.href = '#project-detail';
       a.addEventListener('click', function () { openProject(r.i); });
       name.appendChild(a); tr.appendChild(name);
-      tr.appendChild(el('td', money(r.pw), 'num'));
+      tr.appendChild(el('td', worth4(r.pw), 'num'));
       tr.appendChild(el('td', r.pw >= 0 ? 'yes' : 'no'));
       tr.appendChild(el('td', S.worth[s] === null ? '\u2014' : (r.sel ? 'yes' : 'no')));
       body.appendChild(tr);
     });
     $('scenario-ranking').setAttribute('data-scenario-id', S.id[s]);
   }
+  // real-basis runs: the discount_rate control lists the stored nominal rates at the chosen
+  // inflation level (its options rebuilt when inflation changes, the real rate kept)
+  var nominalControl = document.querySelector('[data-nominal-of-real]');
+  function rebuildNominal() {
+    var infl = document.querySelector('[data-axis="inflation"]'), v = parseFloat(infl.value);
+    var levels = D.axes[1].values, iy = 0;
+    levels.forEach(function (w, i) { if (Math.abs(w - v) < Math.abs(levels[iy] - v)) iy = i; });
+    var o = nominalControl.options[nominalControl.selectedIndex];
+    var keep = o ? +o.getAttribute('data-real-index') : -1;
+    while (nominalControl.firstChild) nominalControl.removeChild(nominalControl.firstChild);
+    D.nominal_at[iy].forEach(function (text, j) {
+      if (text === null) return;
+      var opt = el('option', pct(parseFloat(text)) + ' (real ' + pct(D.axes[0].values[j]) + ')');
+      opt.value = text;
+      opt.setAttribute('data-real-index', String(j));
+      if (j === keep) opt.selected = true;
+      nominalControl.appendChild(opt);
+    });
+  }
+  function changed(e) {
+    if (nominalControl && e.target.getAttribute('data-axis') === 'inflation') rebuildNominal();
+    update();
+  }
   Array.prototype.forEach.call(document.querySelectorAll('[data-axis]'), function (c) {
-    c.addEventListener('change', update); c.addEventListener('input', update);
+    c.addEventListener('change', changed); c.addEventListener('input', changed);
   });
   // ---- search and drill-down
   var views = [];
@@ -126,7 +172,10 @@ EXPLORER_JS = r"""
       if (keepY[iy]) curve.push({x: pl.x[ix], inflation: pl.y[iy], pw: v, negative_real: S.real[s] < 0});
     });
     curve.sort(function (a, b) { return a.inflation - b.inflation || a.x - b.x; });
-    var lines = x.lines.map(function (r) { return {line: r[0], point: r[1], level: r[2], x: r[3], y: r[4]}; });
+    var lines = [];     // packed as [level, x0, y0, x1, y1, ...] per line
+    x.lines.forEach(function (r, n) {
+      for (var q = 1; q + 1 < r.length; q += 2) lines.push({line: n, point: (q - 1) / 2, level: r[0], x: r[q], y: r[q + 1]});
+    });
     var labels = x.labels.map(function (r) { return {x: r[0], y: r[1], text: r[2]}; });
     var zr = pl.zero_real.map(function (r) { return {x: r[0], y: r[1]}; });
     var sur = spec('surface', {cells: cells, lines: lines, labels: labels, zero_real: zr}, 'Present worth surface: ' + label(i));
@@ -198,20 +247,25 @@ def explorer_html(data: dict, *, x: str) -> str:
         current = {"discount_rate": data["sc"]["nominal"], "real_rate": data["sc"]["real"],
                    "inflation": data["sc"]["inflation"]}.get(key)
         chosen = current[base] if current is not None else None
+        if key == "real_rate" and "nominal_at" in data:
+            controls.append(_nominal_control(data, axis, chosen))
+            continue
         opts = "".join(
             f'<option value="{escape_html(repr(v))}"{" selected" if chosen is not None and v == chosen else ""}>'
             f'{escape_html(_fmt_rate(v) if key in ("discount_rate", "real_rate", "inflation", "tax_rate") else f"{v:g}")}'
             f"</option>" for v in axis["values"])
         controls.append(f'<label>{escape_html(axis_title(key))} <select name="{escape_html(key)}" '
                         f'data-axis="{escape_html(key)}">{opts}</select></label>')
-    nominal_out = ('<output id="scenario-nominal" name="discount_rate" hidden></output>' if x == "discount_rate"
-                   else '<span>Nominal discount rate: <output id="scenario-nominal" name="discount_rate"></output></span>')
+    if "nominal_at" in data:      # real basis: choose inflation first, its nominal rates follow
+        controls[0], controls[1] = controls[1], controls[0]
+    rates = ('<span id="scenario-rates">Nominal discount rate <span id="scenario-nominal"></span>; real '
+             'discount rate <span id="scenario-real"></span></span>')
     table_rule = ("Every project of the run is listed." if data["full"] else
                   f"This run is large: each scenario lists its {data['table_top']:,} projects of highest present "
                   f"worth (of {data['total_projects']:,}); ranks are exact. The database holds every result.")
     return (
-        f'<form class="controls" onsubmit="return false">{"".join(controls)}{nominal_out}</form>'
-        '<p id="scenario-summary">Real discount rate <span id="scenario-real"></span>'
+        f'<form class="controls" onsubmit="return false">{"".join(controls)}</form>'
+        f'<p id="scenario-summary">{rates}'
         ' <span id="negative-real" class="warn" hidden>below zero: inflation exceeds the nominal rate</span>. '
         'Projects accepted: <strong id="accepted-count"></strong> of '
         f'{data["total_projects"]:,}. Worth of the budget-limited portfolio: <strong id="portfolio-worth"></strong>.</p>'
@@ -222,6 +276,29 @@ def explorer_html(data: dict, *, x: str) -> str:
         '<th>Present worth</th><th>Accepted</th><th>Selected in the budget-limited portfolio</th></tr></thead>'
         '<tbody></tbody></table></div>'
     )
+
+
+def _nominal_control(data: dict, axis: dict, chosen_real: float | None) -> str:
+    """A real-basis run's ``discount_rate`` control: the nominal rates stored at the base inflation level.
+
+    Each option's value is the stored nominal rate (``repr`` of ``scenarios.discount_rate``), its label
+    the nominal and the real rate, and ``data-real-index`` the real-rate level; the page script rebuilds
+    the options from ``nominal_at`` when inflation changes, keeping the real rate.
+    """
+    from ratescape.report.escaping import escape_html
+
+    base = data["base"]
+    infl_values = data["axes"][1]["values"]
+    row = data["nominal_at"][infl_values.index(data["sc"]["inflation"][base])]
+    opts = []
+    for j, real in enumerate(axis["values"]):
+        if row[j] is None:
+            continue
+        sel = " selected" if chosen_real is not None and real == chosen_real else ""
+        opts.append(f'<option value="{escape_html(row[j])}" data-real-index="{j}"{sel}>'
+                    f'{escape_html(_fmt_rate(float(row[j])))} (real {escape_html(_fmt_rate(real))})</option>')
+    return ('<label>Discount rate, nominal (real in brackets) <select name="discount_rate" data-axis="real_rate" '
+            f'data-nominal-of-real="1">{"".join(opts)}</select></label>')
 
 
 def search_html(data: dict) -> str:
