@@ -11,11 +11,9 @@ Economics, Pearson, chapter on project cash flows (from memory, same conventions
 figures of the projects are invented; the tables below are written out year by year, not
 through ratescape's code.
 """
-import duckdb
 import pytest
-from click.testing import CliRunner
 
-from ratescape.cli import main
+from helpers import cli_load_and_screen, fetch   # tests/ is on sys.path (conftest)
 
 MACRS_5 = [0.20, 0.32, 0.192, 0.1152, 0.1152, 0.0576]   # IRS Pub 946 Table A-1, 5-year column
 
@@ -27,79 +25,37 @@ N,Nominal second stage,macrs,5
 E,Escalated nominal second stage,macrs,5
 """
 
-CASH_FLOWS = """project_id,period,amount,basis,escalation,kind
-W,0,-100000,real,0,investment
-W,0,-20000,real,0,working_capital
-W,0,-30000,real,0,land
-W,1,45000,real,0,benefit
-W,2,45000,real,0,benefit
-W,3,45000,real,0,benefit
-W,4,45000,real,0,benefit
-W,5,45000,real,0,benefit
-W,1,-10000,real,0,cost
-W,2,-10000,real,0,cost
-W,3,-10000,real,0,cost
-W,4,-10000,real,0,cost
-W,5,-10000,real,0,cost
-W,5,15000,real,0,salvage
-B,0,-50000,real,0,investment
-B,0,-40000,real,0,land
-B,1,30000,real,0,benefit
-B,2,30000,real,0,benefit
-B,3,30000,real,0,benefit
-B,3,25000,nominal,0,land
-G,0,-60000,real,0,investment
-G,2,-40000,real,0.01,investment
-G,1,30000,real,0,benefit
-G,2,30000,real,0,benefit
-G,3,30000,real,0,benefit
-G,4,30000,real,0,benefit
-G,5,30000,real,0,benefit
-G,6,30000,real,0,benefit
-N,0,-60000,real,0,investment
-N,3,-40000,nominal,0,investment
-N,1,30000,real,0,benefit
-N,2,30000,real,0,benefit
-N,3,30000,real,0,benefit
-N,4,30000,real,0,benefit
-N,5,30000,real,0,benefit
-N,6,30000,real,0,benefit
-E,0,-60000,real,0,investment
-E,3,-40000,nominal,0.02,investment
-E,1,30000,real,0,benefit
-E,2,30000,real,0,benefit
-E,3,30000,real,0,benefit
-E,4,30000,real,0,benefit
-E,5,30000,real,0,benefit
-E,6,30000,real,0,benefit
-"""
+
+def lines(pid: str, periods, amount: int, kind: str) -> str:
+    """One real, unescalated cash-flow line of ``amount`` per period."""
+    return "".join(f"{pid},{t},{amount},real,0,{kind}\n" for t in periods)
+
+
+CASH_FLOWS = ("project_id,period,amount,basis,escalation,kind\n"
+              "W,0,-100000,real,0,investment\nW,0,-20000,real,0,working_capital\nW,0,-30000,real,0,land\n"
+              + lines("W", range(1, 6), 45000, "benefit") + lines("W", range(1, 6), -10000, "cost")
+              + "W,5,15000,real,0,salvage\n"
+              "B,0,-50000,real,0,investment\nB,0,-40000,real,0,land\n"
+              + lines("B", range(1, 4), 30000, "benefit") + "B,3,25000,nominal,0,land\n"
+              # three two-stage plants: the second stage real, nominal, and nominal with escalation
+              "G,0,-60000,real,0,investment\nG,2,-40000,real,0.01,investment\n"
+              + lines("G", range(1, 7), 30000, "benefit")
+              + "N,0,-60000,real,0,investment\nN,3,-40000,nominal,0,investment\n"
+              + lines("N", range(1, 7), 30000, "benefit")
+              + "E,0,-60000,real,0,investment\nE,3,-40000,nominal,0.02,investment\n"
+              + lines("E", range(1, 7), 30000, "benefit"))
 
 RATES = [0.06, 0.12]
 INFLATION = [0.0, 0.04, 0.08]
 TAX = 0.25
 
 
-def run(*args):
-    return CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)
-
-
 @pytest.fixture(scope="module")
 def screened(tmp_path_factory):
-    d = tmp_path_factory.mktemp("kinds")
-    (d / "p.csv").write_text(PROJECTS)
-    (d / "cf.csv").write_text(CASH_FLOWS)
-    db = d / "plan.duckdb"
-    out = run("load", "--projects", d / "p.csv", "--cash-flows", d / "cf.csv", "--db", db)
-    assert out.exit_code == 0, out.output
-    out = run("screen", "--db", db, "--discount-rates", "0.06:0.12:2", "--inflation", "0:0.08:3",
-              "--tax-rate", TAX, "--quiet")
-    assert out.exit_code == 0, out.output
-    run_id = out.stdout.strip().splitlines()[-1]
-    con = duckdb.connect(str(db), read_only=True)
-    rows = con.execute("""SELECT r.project_id, sc.discount_rate, sc.inflation, r.present_worth, r.present_worth_before_tax
-                          FROM results r JOIN scenarios sc USING (run_id, scenario_id) WHERE run_id = ?""",
-                       [run_id]).fetchall()
-    con.close()
+    db, run_id = cli_load_and_screen(tmp_path_factory.mktemp("kinds"), PROJECTS, CASH_FLOWS, "--discount-rates",
+                                     "0.06:0.12:2", "--inflation", "0:0.08:3", "--tax-rate", TAX)
+    rows = fetch(db, """SELECT r.project_id, sc.discount_rate, sc.inflation, r.present_worth, r.present_worth_before_tax
+                        FROM results r JOIN scenarios sc USING (run_id, scenario_id) WHERE run_id = ?""", [run_id])
     return {(p, round(i, 9), round(f, 9)): (pw, before) for p, i, f, pw, before in rows}
 
 

@@ -3,7 +3,8 @@ import hashlib
 
 import pytest
 
-from ratescape import load_portfolio, run_query, screen_portfolio
+from helpers import load_csv   # tests/ is on sys.path (conftest)
+from ratescape import run_query, screen_portfolio
 from ratescape.errors import QueryError
 from ratescape.query import list_queries
 
@@ -16,10 +17,7 @@ PROJECTS = ("project_id,name,first_cost,annual_benefit,benefit_basis,annual_cost
 
 @pytest.fixture(scope="module")
 def db(tmp_path_factory):
-    d = tmp_path_factory.mktemp("q")
-    (d / "p.csv").write_text(PROJECTS)
-    path = d / "plan.duckdb"
-    load_portfolio(d / "p.csv", None, path)
+    path = load_csv(tmp_path_factory.mktemp("q"), PROJECTS)
     # real discount axis: inflation hurts fixed-price revenue, helps fixed payments (common practice)
     screen_portfolio(path, discount_rates="0.02:0.1:5", inflation="0:0.1:11", discount_basis="real")
     return path

@@ -2,7 +2,8 @@
 import duckdb
 import pytest
 
-from ratescape import load_portfolio, screen_portfolio
+from helpers import load_csv   # tests/ is on sys.path (conftest)
+from ratescape import screen_portfolio
 from ratescape.report import write_report
 from ratescape.report.run_data import RunContext, pick_run
 
@@ -15,10 +16,7 @@ PROJECTS = ("project_id,name,first_cost,annual_benefit,benefit_basis,annual_cost
 
 @pytest.fixture(scope="module")
 def screened(tmp_path_factory):
-    d = tmp_path_factory.mktemp("screened")
-    (d / "p.csv").write_text(PROJECTS)
-    db = d / "plan.duckdb"
-    load_portfolio(d / "p.csv", None, db)
+    db = load_csv(tmp_path_factory.mktemp("screened"), PROJECTS)
     run_id = screen_portfolio(db, discount_rates="0:0.2:6", inflation="0:0.1:5")
     return db, run_id
 

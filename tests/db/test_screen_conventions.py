@@ -1,13 +1,13 @@
 """Issue 14, through the real screen: MIRR over each project's own horizon, IRR under every timing
 convention, nominal escalation, one profitability index, sensitivity on the run's own basis."""
-import duckdb
 import numpy as np
 import numpy_financial as npf
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from ratescape import load_portfolio, screen_portfolio
+from helpers import fetch, load_csv   # tests/ is on sys.path (conftest)
+from ratescape import screen_portfolio
 from ratescape.evaluate.factors import p_given_a1_geometric
 from ratescape.evaluate.measures import present_worth, profitability_index
 from ratescape.evaluate.timing import discount_exponents
@@ -15,24 +15,13 @@ from ratescape.evaluate.timing import discount_exponents
 HEADER = "project_id,period,amount,basis,escalation,kind\n"
 
 
-def fetch(path, sql, params=()):
-    con = duckdb.connect(str(path), read_only=True)
-    try:
-        return con.execute(sql, list(params)).fetchall()
-    finally:
-        con.close()
-
-
 def load_flows(tmp_path, name, rows):
     """Load a portfolio given as cash-flow rows (project_id, period, amount, basis, escalation, kind)."""
     folder = tmp_path / name
     folder.mkdir()
     ids = sorted({r[0] for r in rows})
-    (folder / "p.csv").write_text("project_id,name\n" + "".join(f"{p},{p}\n" for p in ids))
-    (folder / "c.csv").write_text(HEADER + "".join(",".join(str(x) for x in r) + "\n" for r in rows))
-    db = folder / "plan.duckdb"
-    load_portfolio(folder / "p.csv", folder / "c.csv", db)
-    return db
+    return load_csv(folder, "project_id,name\n" + "".join(f"{p},{p}\n" for p in ids),
+                    HEADER + "".join(",".join(str(x) for x in r) + "\n" for r in rows))
 
 
 def stream_rows(pid, amounts, basis="real", escalation=0.0, invest_first=True):
