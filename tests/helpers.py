@@ -18,6 +18,15 @@ from ratescape import load_portfolio
 from ratescape.cli import main
 
 
+#: four invented projects with fixed-price (nominal) or real lines: inflation hurts fixed-price revenue
+#: and helps a fixed lease payment; Q is never accepted
+SMALL_PROJECTS = ("project_id,name,first_cost,annual_benefit,benefit_basis,annual_cost,cost_basis,life\n"
+                  "A,Invented plain real,100,30,real,,,5\n"
+                  "N,Invented fixed-price revenue,100,32,nominal,,,5\n"
+                  "L,Invented fixed lease,0.01,40,real,25,nominal,5\n"
+                  "Q,Invented never,100,10,real,,,5\n")
+
+
 def run_cli(*args):
     """Invoke ``ratescape`` with ``args`` (each turned into text) through click's CliRunner."""
     return CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)

@@ -61,3 +61,17 @@ def same_rows(db: Path, run: str, reference: str, tables, *, nonempty: bool = Fa
         assert [r[:nk] for r in got] == [r[:nk] for r in want], table
         np.testing.assert_allclose(np.array([r[nk:] for r in got], dtype=float),
                                    np.array([r[nk:] for r in want], dtype=float), rtol=1e-12, atol=1e-9)
+
+
+def projects_csv(n: int, seed: int, prefix: str, width: int, escalation: bool = False) -> str:
+    """``n`` invented parametric projects (lives 3..27 periods), ids ``prefix`` + ``width`` digits; with
+    ``escalation`` a benefit_escalation column (0.01 for every fourth project from the second)."""
+    rng = np.random.default_rng(seed)
+    rows = ["project_id,name,first_cost,annual_benefit,benefit_basis," + ("benefit_escalation," if escalation else "")
+            + "annual_cost,cost_basis,salvage,life"]
+    for k in range(n):
+        esc = f"{0.01 if k % 4 == 1 else 0}," if escalation else ""
+        rows.append(f"{prefix}{k:0{width}d},Invented project {k},{rng.uniform(50, 150):.2f},{rng.uniform(5, 40):.2f},"
+                    f"{'nominal' if k % 3 == 0 else 'real'},{esc}{rng.uniform(0, 5):.2f},real,"
+                    f"{rng.uniform(0, 20):.2f},{3 + k % 25}")
+    return "\n".join(rows) + "\n"

@@ -25,9 +25,9 @@ import subprocess
 import time
 from pathlib import Path
 
-import numpy as np
 import pytest
-from cli.processes import finish, run_id_from, same_rows, signal_running, start   # tests/ on sys.path
+from cli.processes import (finish, projects_csv, run_id_from, same_rows, signal_running,   # tests/ on sys.path
+                           start)
 from helpers import fetch
 
 pytestmark = pytest.mark.heavy   # subprocesses or a cluster: run by default, deselect with -m "not heavy"
@@ -36,17 +36,6 @@ RNG = random.Random(20261201)
 CHUNK = 1            # 80 chunks of one project: the chunk phase lasts long enough to be hit
 GRID = ["--discount-rates", "0:0.2:11", "--inflation", "0:0.1:6", "--chunk-size", str(CHUNK)]
 SCENARIOS = 11 * 6
-
-
-def projects_csv(n: int, seed: int) -> str:
-    """``n`` invented parametric projects (lives 3..27 periods)."""
-    rng = np.random.default_rng(seed)
-    rows = ["project_id,name,first_cost,annual_benefit,benefit_basis,benefit_escalation,annual_cost,cost_basis,salvage,life"]
-    for k in range(n):
-        rows.append(f"Q{k:03d},Invented project {k},{rng.uniform(50, 150):.2f},{rng.uniform(5, 40):.2f},"
-                    f"{'nominal' if k % 3 == 0 else 'real'},{0.01 if k % 4 == 1 else 0},{rng.uniform(0, 5):.2f},"
-                    f"real,{rng.uniform(0, 20):.2f},{3 + k % 25}")
-    return "\n".join(rows) + "\n"
 
 
 def _no_traceback(err: str) -> bool:
@@ -68,9 +57,9 @@ def timed(*args) -> tuple[subprocess.CompletedProcess, float]:
 @pytest.fixture(scope="module")
 def work(tmp_path_factory) -> dict:
     d = tmp_path_factory.mktemp("interrupt")
-    (d / "old.csv").write_text(projects_csv(40, 1))
-    (d / "new.csv").write_text(projects_csv(40_000, 2))   # about 1.3 s to load here, start-up included
-    (d / "screen.csv").write_text(projects_csv(80, 3))
+    (d / "old.csv").write_text(projects_csv(40, 1, "Q", 3, escalation=True))
+    (d / "new.csv").write_text(projects_csv(40_000, 2, "Q", 3, escalation=True))   # about 1.3 s to load here, start-up included
+    (d / "screen.csv").write_text(projects_csv(80, 3, "Q", 3, escalation=True))
     counts, seconds = {}, {}
     for name in ("old", "new"):
         db = d / f"{name}.duckdb"

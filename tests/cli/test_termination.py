@@ -16,25 +16,13 @@ import subprocess
 import time
 from pathlib import Path
 
-import numpy as np
 import pytest
-from cli.processes import finish, run_id_from, same_rows, start   # tests/ is on sys.path (conftest)
+from cli.processes import finish, projects_csv, run_id_from, same_rows, start   # tests/ is on sys.path (conftest)
 from helpers import fetch
 
 pytestmark = pytest.mark.heavy   # real subprocesses
 
 GRID = ["--discount-rates", "0:0.2:11", "--inflation", "0:0.1:6", "--chunk-size", "8"]
-
-
-def projects_csv(n: int) -> str:
-    """``n`` invented parametric projects (lives 3..27 periods)."""
-    rng = np.random.default_rng(17)
-    rows = ["project_id,name,first_cost,annual_benefit,benefit_basis,annual_cost,cost_basis,salvage,life"]
-    for k in range(n):
-        rows.append(f"T{k:04d},Invented project {k},{rng.uniform(50, 150):.2f},{rng.uniform(5, 40):.2f},"
-                    f"{'nominal' if k % 3 == 0 else 'real'},{rng.uniform(0, 5):.2f},real,"
-                    f"{rng.uniform(0, 20):.2f},{3 + k % 25}")
-    return "\n".join(rows) + "\n"
 
 
 def cli(*args) -> subprocess.CompletedProcess:
@@ -44,7 +32,7 @@ def cli(*args) -> subprocess.CompletedProcess:
 @pytest.fixture(scope="module")
 def loaded(tmp_path_factory):
     d = tmp_path_factory.mktemp("termination")
-    (d / "p.csv").write_text(projects_csv(1500))
+    (d / "p.csv").write_text(projects_csv(1500, 17, "T", 4))
     db = d / "plan.duckdb"
     assert cli("load", "--projects", d / "p.csv", "--db", db).returncode == 0
     ref = cli("screen", "--db", db, *GRID, "--quiet")
