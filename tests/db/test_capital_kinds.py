@@ -125,6 +125,8 @@ def two_stage(i, f, tax, second_cost, second_period, price_growth):
 @pytest.mark.parametrize("f", INFLATION)
 @pytest.mark.parametrize("i", RATES)
 def test_working_capital_and_land_after_tax(screened, i, f):
+    # source: the independent year-by-year after-tax table above (IRS Pub 946 Table A-1; Sullivan, Wicks &
+    # Koelling, from memory)
     assert stored(screened, "W", i, f) == pytest.approx(plant_with_working_capital(i, f, TAX), rel=1e-10)
 
 
@@ -134,12 +136,15 @@ def test_working_capital_and_land_before_tax_are_ordinary_flows(screened, i, f):
     g = 1.0 + f
     expected = -150000.0 + sum(35000.0 * g ** y / (1 + i) ** y for y in range(1, 6)) \
         + (15000.0 + 20000.0 + 30000.0) * g ** 5 / (1 + i) ** 5
+    # computed independently here: before-tax PW written out year by year, (P/F, i, t) by hand
     assert stored(screened, "W", i, f, column=1) == pytest.approx(expected, rel=1e-10)
 
 
 @pytest.mark.parametrize("f", INFLATION)
 @pytest.mark.parametrize("i", RATES)
 def test_land_sold_below_cost_saves_tax_on_the_loss(screened, i, f):
+    # source: the independent year-by-year after-tax table above (IRS Pub 946 Table A-1; Sullivan, Wicks &
+    # Koelling, from memory)
     assert stored(screened, "B", i, f) == pytest.approx(land_below_cost(i, f, TAX), rel=1e-10)
 
 
@@ -147,6 +152,8 @@ def test_land_sold_below_cost_saves_tax_on_the_loss(screened, i, f):
 @pytest.mark.parametrize("i", RATES)
 def test_two_stage_real_investment_depreciated_from_its_own_period(screened, i, f):
     expected = two_stage(i, f, TAX, 40000.0, 2, (1.0 + f) * 1.01)
+    # source: the independent year-by-year after-tax table above (IRS Pub 946 Table A-1; Sullivan, Wicks &
+    # Koelling, from memory)
     assert stored(screened, "G", i, f) == pytest.approx(expected, rel=1e-10)
 
 
@@ -155,6 +162,8 @@ def test_two_stage_real_investment_depreciated_from_its_own_period(screened, i, 
 def test_nominal_stage_basis_is_its_contract_price(screened, i, f):
     """A nominal-basis stage's basis is its contract price whatever the inflation."""
     expected = two_stage(i, f, TAX, 40000.0, 3, 1.0)
+    # source: the independent year-by-year after-tax table above (IRS Pub 946 Table A-1; Sullivan, Wicks &
+    # Koelling, from memory)
     assert stored(screened, "N", i, f) == pytest.approx(expected, rel=1e-10)
 
 
@@ -163,6 +172,8 @@ def test_escalated_nominal_stage_costs_its_escalated_price(screened, f):
     """A nominal stage with a contractual escalation e costs amount x (1 + e)^k in period k, and
     that is its depreciable basis."""
     expected = two_stage(0.06, f, TAX, 40000.0, 3, 1.02)
+    # source: the independent year-by-year after-tax table above (IRS Pub 946 Table A-1; Sullivan, Wicks &
+    # Koelling, from memory)
     assert stored(screened, "E", 0.06, f) == pytest.approx(expected, rel=1e-10)
 
 
@@ -172,4 +183,6 @@ def test_staged_shield_depends_on_inflation_only_through_the_basis(screened):
     and 8 % inflation differ exactly as the independent tables do."""
     d_ours = stored(screened, "G", 0.12, 0.08) - stored(screened, "G", 0.12, 0.0)
     d_table = two_stage(0.12, 0.08, TAX, 40000.0, 2, 1.08 * 1.01) - two_stage(0.12, 0.0, TAX, 40000.0, 2, 1.01)
+    # source: the independent year-by-year after-tax table above (IRS Pub 946 Table A-1; Sullivan, Wicks &
+    # Koelling, from memory)
     assert d_ours == pytest.approx(d_table, rel=1e-9)

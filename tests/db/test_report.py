@@ -142,6 +142,7 @@ def test_explorer_data_equals_the_stored_rows(screened):
                               key=lambda r: (-r[1], r[0]))
             assert [p for p, _ in embedded] == [p for p, _ in stored]
             # rounded to about nine significant digits of the run's largest worth (explorer.worth_decimals)
+            # no outside source: the page's numbers must equal the database's own (rounding only)
             np.testing.assert_allclose([v for _, v in embedded], [v for _, v in stored], rtol=0,
                                        atol=0.5 * 10.0 ** -worth_decimals(largest))
             assert data["sc"]["accepted"][pos] == sum(v >= 0 for _, v in stored)
@@ -150,6 +151,7 @@ def test_explorer_data_equals_the_stored_rows(screened):
             assert {data["pr"]["id"][i] for i in data["selected"][pos]} == sel
             worth = con.execute("SELECT objective FROM portfolios WHERE run_id = ? AND scenario_id = ?",
                                 [run_id, sid]).fetchall()[0][0]
+            # no outside source: the page's portfolio worth against the stored portfolios.objective
             assert data["sc"]["worth"][pos] == pytest.approx(worth, rel=1e-8, abs=1e-6)
     finally:
         con.close()

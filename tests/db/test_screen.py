@@ -68,7 +68,8 @@ def test_run_metadata_and_summary(db):
                          USING (project_id) WHERE s.run_id = $1""", [run_id])
     assert len(check) == 24
     for _, share, mn, mx, share2, mn2, mx2 in check:
-        assert share == pytest.approx(share2) and mn == mx2 or (mn == pytest.approx(mn2) and mx == pytest.approx(mx2))
+        # each of share, min and max must agree (the former `... and mn == mx2 or (...)` passed on min/max alone)
+        assert (share, mn, mx) == pytest.approx((share2, mn2, mx2))
     ranks = fetch(db, "SELECT min(rank_min), max(rank_max) FROM project_summary WHERE run_id = ?", [run_id])[0]
     assert ranks == (1, 24)
 
