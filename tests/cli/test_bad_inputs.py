@@ -13,7 +13,6 @@ expected failures, so the test says when the gap is closed.
 """
 from __future__ import annotations
 
-import hashlib
 import os
 import shutil
 import subprocess
@@ -24,10 +23,10 @@ from pathlib import Path
 import duckdb
 import numpy as np
 import pytest
-from click.testing import CliRunner
 
 import ratescape
-from ratescape.cli import main
+from helpers import digest, load_good_corpus   # tests/ is on sys.path (conftest)
+from helpers import run_cli as run
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -39,21 +38,11 @@ CASES = tomllib.loads((CORPUS / "manifest.toml").read_text(encoding="utf-8"))["c
 GOOD_PROJECTS = 5   # tests/bad_inputs/good/projects.csv
 
 
-def digest(path: Path) -> str:
-    return hashlib.sha256(path.read_bytes()).hexdigest()
-
-
-def run(*args) -> object:
-    return CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)
-
-
 @pytest.fixture(scope="module")
 def base_db(tmp_path_factory) -> Path:
     """A database holding the good portfolio and one finished run (closed, checkpointed)."""
     path = tmp_path_factory.mktemp("corpus") / "base.duckdb"
-    r = run("load", "--projects", CORPUS / "good/projects.csv", "--cash-flows", CORPUS / "good/cash_flows.csv",
-            "--db", path)
-    assert r.exit_code == 0, r.stderr
+    load_good_corpus(path)
     r = run("screen", "--db", path, "--grid", CORPUS / "good/grid.toml", "--quiet")
     assert r.exit_code == 0, r.stderr
     assert not Path(str(path) + ".wal").exists()

@@ -7,7 +7,6 @@ nothing the user had was lost.
 from __future__ import annotations
 
 import errno
-import hashlib
 import json
 import os
 import shutil
@@ -17,9 +16,9 @@ from pathlib import Path
 
 import duckdb
 import pytest
-from click.testing import CliRunner
 
-from ratescape.cli import main
+from helpers import cli_load_and_screen, digest, fetch
+from helpers import run_cli as run   # tests/ is on sys.path (conftest)
 
 PROJECTS = ("project_id,name,group,first_cost,annual_benefit,benefit_basis,life\n"
             "A,Alpha,,100,30,real,5\nB,Beta,,,,,\nC,Gamma,g,100,28,nominal,5\nD,Delta,g,120,33,real,5\n")
@@ -27,33 +26,12 @@ FLOWS = "project_id,period,amount,basis,kind\nB,0,-100,real,\nB,1,230,real,\nB,2
 GRID = ["--discount-rates", "0:0.2:5", "--inflation", "0:0.1:3"]
 
 
-def run(*args):
-    return CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)
-
-
-def digest(path: Path) -> str:
-    return hashlib.sha256(path.read_bytes()).hexdigest()
-
-
-def fetch(db: Path, sql: str, params=()):
-    con = duckdb.connect(str(db), read_only=True)
-    try:
-        return con.execute(sql, list(params)).fetchall()
-    finally:
-        con.close()
-
-
 @pytest.fixture(scope="module")
 def screened(tmp_path_factory):
     """A database with one finished run (built once; tests copy it before changing anything)."""
     d = tmp_path_factory.mktemp("hardening")
-    (d / "p.csv").write_text(PROJECTS)
-    (d / "c.csv").write_text(FLOWS)
-    db = d / "plan.duckdb"
-    assert run("load", "--projects", d / "p.csv", "--cash-flows", d / "c.csv", "--db", db).exit_code == 0
-    r = run("screen", "--db", db, *GRID, "--quiet")
-    assert r.exit_code == 0, r.output
-    return {"dir": d, "db": db, "run": r.stdout.strip().splitlines()[-1]}
+    db, run_id = cli_load_and_screen(d, PROJECTS, FLOWS, *GRID)
+    return {"dir": d, "db": db, "run": run_id}
 
 
 @pytest.fixture
@@ -253,12 +231,7 @@ HOSTILE = ("project_id,name,first_cost,annual_benefit,benefit_basis,life\n"
 
 @pytest.fixture(scope="module")
 def hostile(tmp_path_factory):
-    d = tmp_path_factory.mktemp("hostile")
-    (d / "p.csv").write_text(HOSTILE)
-    db = d / "plan.duckdb"
-    r = run("load", "--projects", d / "p.csv", "--db", db)
-    assert r.exit_code == 0, r.output
-    assert run("screen", "--db", db, *GRID, "--quiet").exit_code == 0
+    db, _ = cli_load_and_screen(tmp_path_factory.mktemp("hostile"), HOSTILE, None, *GRID)
     return db
 
 

@@ -18,47 +18,24 @@ time itself.
 """
 from __future__ import annotations
 
-import os
 import random
 import shutil
 import signal
 import subprocess
-import sys
 import time
 from pathlib import Path
 
-import duckdb
-import numpy as np
 import pytest
+from cli.processes import (finish, projects_csv, run_id_from, same_rows, signal_running,   # tests/ on sys.path
+                           start)
+from helpers import fetch
 
 pytestmark = pytest.mark.heavy   # subprocesses or a cluster: run by default, deselect with -m "not heavy"
 
 RNG = random.Random(20261201)
-ENV = {**os.environ, "PYTHONUNBUFFERED": "1"}
 CHUNK = 1            # 80 chunks of one project: the chunk phase lasts long enough to be hit
 GRID = ["--discount-rates", "0:0.2:11", "--inflation", "0:0.1:6", "--chunk-size", str(CHUNK)]
 SCENARIOS = 11 * 6
-
-
-def projects_csv(n: int, seed: int) -> str:
-    """``n`` invented parametric projects (lives 3..27 periods)."""
-    rng = np.random.default_rng(seed)
-    rows = ["project_id,name,first_cost,annual_benefit,benefit_basis,benefit_escalation,annual_cost,cost_basis,salvage,life"]
-    for k in range(n):
-        rows.append(f"Q{k:03d},Invented project {k},{rng.uniform(50, 150):.2f},{rng.uniform(5, 40):.2f},"
-                    f"{'nominal' if k % 3 == 0 else 'real'},{0.01 if k % 4 == 1 else 0},{rng.uniform(0, 5):.2f},"
-                    f"real,{rng.uniform(0, 20):.2f},{3 + k % 25}")
-    return "\n".join(rows) + "\n"
-
-
-def cli(*args, **kw) -> subprocess.Popen:
-    return subprocess.Popen([sys.executable, "-m", "ratescape", *map(str, args)], stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True, env=ENV, **kw)
-
-
-def finish(*args) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "ratescape", *map(str, args)], capture_output=True, text=True,
-                          env=ENV)
 
 
 def _no_traceback(err: str) -> bool:
@@ -77,27 +54,12 @@ def timed(*args) -> tuple[subprocess.CompletedProcess, float]:
     return done, time.perf_counter() - t0
 
 
-def signal_running(proc: subprocess.Popen, sig) -> None:
-    """Send ``sig``, first asserting the process has not exited (else the trial would test nothing)."""
-    assert proc.poll() is None, (f"the process had already exited (code {proc.returncode}) before the signal; "
-                                 "the trial would test nothing")
-    proc.send_signal(sig)
-
-
-def fetch(db: Path, sql: str, params=()) -> list:
-    con = duckdb.connect(str(db), read_only=True)
-    try:
-        return con.execute(sql, list(params)).fetchall()
-    finally:
-        con.close()
-
-
 @pytest.fixture(scope="module")
 def work(tmp_path_factory) -> dict:
     d = tmp_path_factory.mktemp("interrupt")
-    (d / "old.csv").write_text(projects_csv(40, 1))
-    (d / "new.csv").write_text(projects_csv(40_000, 2))   # about 1.3 s to load here, start-up included
-    (d / "screen.csv").write_text(projects_csv(80, 3))
+    (d / "old.csv").write_text(projects_csv(40, 1, "Q", 3, escalation=True))
+    (d / "new.csv").write_text(projects_csv(40_000, 2, "Q", 3, escalation=True))   # about 1.3 s to load here, start-up included
+    (d / "screen.csv").write_text(projects_csv(80, 3, "Q", 3, escalation=True))
     counts, seconds = {}, {}
     for name in ("old", "new"):
         db = d / f"{name}.duckdb"
@@ -128,7 +90,7 @@ def test_interrupted_load_leaves_old_or_new_portfolio_whole(work, trial, sig, tm
     db = tmp_path / "plan.duckdb"
     shutil.copyfile(work["dir"] / "old.duckdb", db)
     delay = RNG.uniform(0.2, 0.65) * work["load_seconds"]   # start-up, reading, validating or writing
-    proc = cli("load", "--projects", work["dir"] / "new.csv", "--db", db)
+    proc = start("load", "--projects", work["dir"] / "new.csv", "--db", db)
     time.sleep(delay)
     signal_running(proc, sig)
     out, err = proc.communicate(timeout=60)
@@ -141,36 +103,17 @@ def test_interrupted_load_leaves_old_or_new_portfolio_whole(work, trial, sig, tm
     assert _no_traceback(err), err
 
 
-def _run_id_from(proc: subprocess.Popen) -> str:
-    """Read standard error until the screen logs its run id (the run row exists from then on)."""
-    for line in proc.stderr:
-        if line.startswith("run run-"):
-            return line.split()[1].rstrip(":")
-    raise AssertionError("screen ended before logging its run id")
-
-
-def _same_rows(db: Path, run: str, reference: str) -> None:
-    for table, key, values in (
-            ("results", "project_id, scenario_id", "present_worth, annual_worth, accepted::INTEGER"),
+COMPARED = (("results", "project_id, scenario_id", "present_worth, annual_worth, accepted::INTEGER"),
             ("project_summary", "project_id", "pw_min, pw_max, pw_base, accept_share, rank_base"),
             ("irr_results", "project_id, inflation", "root_count, coalesce(irr_nominal, -9)"),
-            ("irr_roots", "project_id, inflation, root_index", "irr_nominal")):
-        got = fetch(db, f"SELECT {key}, {values} FROM {table} WHERE run_id = ? ORDER BY {key}", [run])
-        want = fetch(db, f"SELECT {key}, {values} FROM {table} WHERE run_id = ? ORDER BY {key}", [reference])
-        assert len(got) == len(want), (table, len(got), len(want))
-        dupes = fetch(db, f"SELECT count(*) - count(DISTINCT ({key})) FROM {table} WHERE run_id = ?", [run])[0][0]
-        assert dupes == 0, table
-        nk = key.count(",") + 1
-        assert [r[:nk] for r in got] == [r[:nk] for r in want], table
-        np.testing.assert_allclose(np.array([r[nk:] for r in got], dtype=float),
-                                   np.array([r[nk:] for r in want], dtype=float), rtol=1e-12, atol=1e-9)
+            ("irr_roots", "project_id, inflation, root_index", "irr_nominal"))
 
 
 @pytest.mark.parametrize("trial,sig", [(0, signal.SIGINT), (1, signal.SIGKILL), (2, signal.SIGKILL), (3, signal.SIGINT)])
 def test_interrupted_screen_is_truthful_and_resumes_exactly(work, trial, sig):
     db = work["screen_db"]
-    proc = cli("screen", "--db", db, *GRID)   # not --quiet: the log line naming the run is read
-    run_id = _run_id_from(proc)
+    proc = start("screen", "--db", db, *GRID)   # not --quiet: the log line naming the run is read
+    run_id = run_id_from(proc)
     delay = RNG.uniform(0.05, 0.5) * work["screen_seconds"]   # within the first half of the run's work
     time.sleep(delay)
     signal_running(proc, sig)
@@ -189,7 +132,7 @@ def test_interrupted_screen_is_truthful_and_resumes_exactly(work, trial, sig):
     resumed = finish("screen", "--db", db, "--resume", run_id, "--quiet")
     assert resumed.returncode == 0, resumed.stderr
     assert fetch(db, "SELECT status, chunks_done FROM runs WHERE run_id = ?", [run_id])[0] == ("done", count)
-    _same_rows(db, run_id, work["reference"])
+    same_rows(db, run_id, work["reference"], COMPARED, no_duplicates=True)
     assert _no_traceback(err), err
 
 
@@ -215,7 +158,7 @@ def test_interrupted_report_leaves_no_partial_page(work, trial, sig, tmp_path):
     old = out.read_bytes()
     assert _complete(old)
     delay = RNG.uniform(0.15, 0.45) * work["report_seconds"]
-    proc = cli("report", "--db", work["screen_db"], "--run", work["reference"], "--out", out)
+    proc = start("report", "--db", work["screen_db"], "--run", work["reference"], "--out", out)
     time.sleep(delay)
     signal_running(proc, sig)
     _, err = proc.communicate(timeout=60)
@@ -226,7 +169,7 @@ def test_interrupted_report_leaves_no_partial_page(work, trial, sig, tmp_path):
 
 
 def test_interrupt_during_start_up_prints_no_traceback(tmp_path):
-    proc = cli("query", "--db", tmp_path / "none.duckdb", "runs")
+    proc = start("query", "--db", tmp_path / "none.duckdb", "runs")
     time.sleep(0.15)    # Python is still importing the package's dependencies
     signal_running(proc, signal.SIGINT)
     _, err = proc.communicate(timeout=60)

@@ -7,7 +7,6 @@ that need a run's results, special files or several faults at once.
 """
 from __future__ import annotations
 
-import hashlib
 import os
 import shutil
 import tracemalloc
@@ -15,28 +14,18 @@ from pathlib import Path
 
 import duckdb
 import pytest
-from click.testing import CliRunner
 
-from ratescape.cli import main
+from helpers import digest, load_good_corpus   # tests/ is on sys.path (conftest)
+from helpers import run_cli as run
 
 CORPUS = Path(__file__).resolve().parents[1] / "bad_inputs"
 GRID_HEAD = '[grid]\ndiscount_rates = { start = 0.0, stop = 0.2, count = 5 }\ninflation = { start = 0.0, stop = 0.1, count = 3 }\n'
 
 
-def run(*args):
-    return CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)
-
-
-def digest(path: Path) -> str:
-    return hashlib.sha256(path.read_bytes()).hexdigest()
-
-
 @pytest.fixture(scope="module")
 def base_db(tmp_path_factory) -> Path:
     path = tmp_path_factory.mktemp("settings") / "base.duckdb"
-    r = run("load", "--projects", CORPUS / "good/projects.csv", "--cash-flows", CORPUS / "good/cash_flows.csv",
-            "--db", path)
-    assert r.exit_code == 0, r.stderr
+    load_good_corpus(path)
     return path
 
 

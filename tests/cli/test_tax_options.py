@@ -88,6 +88,7 @@ def test_combined_rate_from_state_and_federal_flags(tmp_path):
     con = duckdb.connect(str(db), read_only=True)
     rates = {r[0] for r in con.execute("SELECT tax_rate FROM scenarios WHERE run_id = ?", [run_id]).fetchall()}
     con.close()
+    # combined rate t = s + f (1 - s), state tax deductible from federal income (common practice; Newnan, from memory)
     assert len(rates) == 1 and rates.pop() == pytest.approx(0.06 + 0.21 * (1 - 0.06), abs=1e-15)   # 0.2574
     got = worths(db, run_id)
     for f in (0.0, 0.05):

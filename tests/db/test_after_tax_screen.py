@@ -10,6 +10,7 @@ import duckdb
 import numpy as np
 import pytest
 
+from helpers import load_csv   # tests/ is on sys.path (conftest)
 from ratescape import load_portfolio, screen_portfolio
 
 MACRS_5 = [0.20, 0.32, 0.192, 0.1152, 0.1152, 0.0576]   # IRS Pub 946 Table A-1, 5-year column
@@ -23,11 +24,7 @@ L,Borrowed plant,100000,30000,real,0,5000,real,0.02,10000,6,macrs,5,60000,0.06,4
 
 @pytest.fixture(scope="module")
 def db(tmp_path_factory):
-    d = tmp_path_factory.mktemp("tax")
-    (d / "p.csv").write_text(PROJECTS)
-    path = d / "plan.duckdb"
-    load_portfolio(d / "p.csv", None, path)
-    return path
+    return load_csv(tmp_path_factory.mktemp("tax"), PROJECTS)
 
 
 def stored(path, run_id, column="present_worth"):
@@ -174,13 +171,10 @@ def test_mid_quarter_convention_from_the_projects_file(tmp_path):
     Table A-5 (mid-quarter convention, 4th quarter), 5-year column: 5.00, 38.00, 22.80, 13.68, 10.94,
     9.58 % (as embedded in evaluate/tables; the 5-year column agrees across the transcriptions cited
     there). An independent after-tax table at zero inflation is compared with the engine."""
-    (tmp_path / "p.csv").write_text(
-        "project_id,name,first_cost,annual_benefit,life,depreciation_method,recovery_years,"
-        "depreciation_convention,service_quarter\n"
-        "Q,Late-year press,100000,28000,6,macrs,5,mid-quarter,4\n"
-        "H,Same press (half-year),100000,28000,6,macrs,5,,\n")
-    db = tmp_path / "plan.duckdb"
-    load_portfolio(tmp_path / "p.csv", None, db)
+    db = load_csv(tmp_path, "project_id,name,first_cost,annual_benefit,life,depreciation_method,recovery_years,"
+                  "depreciation_convention,service_quarter\n"
+                  "Q,Late-year press,100000,28000,6,macrs,5,mid-quarter,4\n"
+                  "H,Same press (half-year),100000,28000,6,macrs,5,,\n")
     run_id = screen_portfolio(db, discount_rates="0.1", inflation="0", tax_rate="0.3")
     got = {k[0]: v for k, v in stored(db, run_id).items()}
     for pid, table in (("Q", [0.05, 0.38, 0.228, 0.1368, 0.1094, 0.0958]), ("H", MACRS_5)):

@@ -11,11 +11,9 @@ Economics, Pearson, chapter on project cash flows (from memory, same conventions
 figures of the projects are invented; the tables below are written out year by year, not
 through ratescape's code.
 """
-import duckdb
 import pytest
-from click.testing import CliRunner
 
-from ratescape.cli import main
+from helpers import cli_load_and_screen, fetch   # tests/ is on sys.path (conftest)
 
 MACRS_5 = [0.20, 0.32, 0.192, 0.1152, 0.1152, 0.0576]   # IRS Pub 946 Table A-1, 5-year column
 
@@ -27,79 +25,37 @@ N,Nominal second stage,macrs,5
 E,Escalated nominal second stage,macrs,5
 """
 
-CASH_FLOWS = """project_id,period,amount,basis,escalation,kind
-W,0,-100000,real,0,investment
-W,0,-20000,real,0,working_capital
-W,0,-30000,real,0,land
-W,1,45000,real,0,benefit
-W,2,45000,real,0,benefit
-W,3,45000,real,0,benefit
-W,4,45000,real,0,benefit
-W,5,45000,real,0,benefit
-W,1,-10000,real,0,cost
-W,2,-10000,real,0,cost
-W,3,-10000,real,0,cost
-W,4,-10000,real,0,cost
-W,5,-10000,real,0,cost
-W,5,15000,real,0,salvage
-B,0,-50000,real,0,investment
-B,0,-40000,real,0,land
-B,1,30000,real,0,benefit
-B,2,30000,real,0,benefit
-B,3,30000,real,0,benefit
-B,3,25000,nominal,0,land
-G,0,-60000,real,0,investment
-G,2,-40000,real,0.01,investment
-G,1,30000,real,0,benefit
-G,2,30000,real,0,benefit
-G,3,30000,real,0,benefit
-G,4,30000,real,0,benefit
-G,5,30000,real,0,benefit
-G,6,30000,real,0,benefit
-N,0,-60000,real,0,investment
-N,3,-40000,nominal,0,investment
-N,1,30000,real,0,benefit
-N,2,30000,real,0,benefit
-N,3,30000,real,0,benefit
-N,4,30000,real,0,benefit
-N,5,30000,real,0,benefit
-N,6,30000,real,0,benefit
-E,0,-60000,real,0,investment
-E,3,-40000,nominal,0.02,investment
-E,1,30000,real,0,benefit
-E,2,30000,real,0,benefit
-E,3,30000,real,0,benefit
-E,4,30000,real,0,benefit
-E,5,30000,real,0,benefit
-E,6,30000,real,0,benefit
-"""
+
+def lines(pid: str, periods, amount: int, kind: str) -> str:
+    """One real, unescalated cash-flow line of ``amount`` per period."""
+    return "".join(f"{pid},{t},{amount},real,0,{kind}\n" for t in periods)
+
+
+CASH_FLOWS = ("project_id,period,amount,basis,escalation,kind\n"
+              "W,0,-100000,real,0,investment\nW,0,-20000,real,0,working_capital\nW,0,-30000,real,0,land\n"
+              + lines("W", range(1, 6), 45000, "benefit") + lines("W", range(1, 6), -10000, "cost")
+              + "W,5,15000,real,0,salvage\n"
+              "B,0,-50000,real,0,investment\nB,0,-40000,real,0,land\n"
+              + lines("B", range(1, 4), 30000, "benefit") + "B,3,25000,nominal,0,land\n"
+              # three two-stage plants: the second stage real, nominal, and nominal with escalation
+              "G,0,-60000,real,0,investment\nG,2,-40000,real,0.01,investment\n"
+              + lines("G", range(1, 7), 30000, "benefit")
+              + "N,0,-60000,real,0,investment\nN,3,-40000,nominal,0,investment\n"
+              + lines("N", range(1, 7), 30000, "benefit")
+              + "E,0,-60000,real,0,investment\nE,3,-40000,nominal,0.02,investment\n"
+              + lines("E", range(1, 7), 30000, "benefit"))
 
 RATES = [0.06, 0.12]
 INFLATION = [0.0, 0.04, 0.08]
 TAX = 0.25
 
 
-def run(*args):
-    return CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)
-
-
 @pytest.fixture(scope="module")
 def screened(tmp_path_factory):
-    d = tmp_path_factory.mktemp("kinds")
-    (d / "p.csv").write_text(PROJECTS)
-    (d / "cf.csv").write_text(CASH_FLOWS)
-    db = d / "plan.duckdb"
-    out = run("load", "--projects", d / "p.csv", "--cash-flows", d / "cf.csv", "--db", db)
-    assert out.exit_code == 0, out.output
-    out = run("screen", "--db", db, "--discount-rates", "0.06:0.12:2", "--inflation", "0:0.08:3",
-              "--tax-rate", TAX, "--quiet")
-    assert out.exit_code == 0, out.output
-    run_id = out.stdout.strip().splitlines()[-1]
-    con = duckdb.connect(str(db), read_only=True)
-    rows = con.execute("""SELECT r.project_id, sc.discount_rate, sc.inflation, r.present_worth, r.present_worth_before_tax
-                          FROM results r JOIN scenarios sc USING (run_id, scenario_id) WHERE run_id = ?""",
-                       [run_id]).fetchall()
-    con.close()
+    db, run_id = cli_load_and_screen(tmp_path_factory.mktemp("kinds"), PROJECTS, CASH_FLOWS, "--discount-rates",
+                                     "0.06:0.12:2", "--inflation", "0:0.08:3", "--tax-rate", TAX)
+    rows = fetch(db, """SELECT r.project_id, sc.discount_rate, sc.inflation, r.present_worth, r.present_worth_before_tax
+                        FROM results r JOIN scenarios sc USING (run_id, scenario_id) WHERE run_id = ?""", [run_id])
     return {(p, round(i, 9), round(f, 9)): (pw, before) for p, i, f, pw, before in rows}
 
 
@@ -169,6 +125,8 @@ def two_stage(i, f, tax, second_cost, second_period, price_growth):
 @pytest.mark.parametrize("f", INFLATION)
 @pytest.mark.parametrize("i", RATES)
 def test_working_capital_and_land_after_tax(screened, i, f):
+    # source: the independent year-by-year after-tax table above (IRS Pub 946 Table A-1; Sullivan, Wicks &
+    # Koelling, from memory)
     assert stored(screened, "W", i, f) == pytest.approx(plant_with_working_capital(i, f, TAX), rel=1e-10)
 
 
@@ -178,12 +136,15 @@ def test_working_capital_and_land_before_tax_are_ordinary_flows(screened, i, f):
     g = 1.0 + f
     expected = -150000.0 + sum(35000.0 * g ** y / (1 + i) ** y for y in range(1, 6)) \
         + (15000.0 + 20000.0 + 30000.0) * g ** 5 / (1 + i) ** 5
+    # computed independently here: before-tax PW written out year by year, (P/F, i, t) by hand
     assert stored(screened, "W", i, f, column=1) == pytest.approx(expected, rel=1e-10)
 
 
 @pytest.mark.parametrize("f", INFLATION)
 @pytest.mark.parametrize("i", RATES)
 def test_land_sold_below_cost_saves_tax_on_the_loss(screened, i, f):
+    # source: the independent year-by-year after-tax table above (IRS Pub 946 Table A-1; Sullivan, Wicks &
+    # Koelling, from memory)
     assert stored(screened, "B", i, f) == pytest.approx(land_below_cost(i, f, TAX), rel=1e-10)
 
 
@@ -191,6 +152,8 @@ def test_land_sold_below_cost_saves_tax_on_the_loss(screened, i, f):
 @pytest.mark.parametrize("i", RATES)
 def test_two_stage_real_investment_depreciated_from_its_own_period(screened, i, f):
     expected = two_stage(i, f, TAX, 40000.0, 2, (1.0 + f) * 1.01)
+    # source: the independent year-by-year after-tax table above (IRS Pub 946 Table A-1; Sullivan, Wicks &
+    # Koelling, from memory)
     assert stored(screened, "G", i, f) == pytest.approx(expected, rel=1e-10)
 
 
@@ -199,6 +162,8 @@ def test_two_stage_real_investment_depreciated_from_its_own_period(screened, i, 
 def test_nominal_stage_basis_is_its_contract_price(screened, i, f):
     """A nominal-basis stage's basis is its contract price whatever the inflation."""
     expected = two_stage(i, f, TAX, 40000.0, 3, 1.0)
+    # source: the independent year-by-year after-tax table above (IRS Pub 946 Table A-1; Sullivan, Wicks &
+    # Koelling, from memory)
     assert stored(screened, "N", i, f) == pytest.approx(expected, rel=1e-10)
 
 
@@ -207,6 +172,8 @@ def test_escalated_nominal_stage_costs_its_escalated_price(screened, f):
     """A nominal stage with a contractual escalation e costs amount x (1 + e)^k in period k, and
     that is its depreciable basis."""
     expected = two_stage(0.06, f, TAX, 40000.0, 3, 1.02)
+    # source: the independent year-by-year after-tax table above (IRS Pub 946 Table A-1; Sullivan, Wicks &
+    # Koelling, from memory)
     assert stored(screened, "E", 0.06, f) == pytest.approx(expected, rel=1e-10)
 
 
@@ -216,4 +183,6 @@ def test_staged_shield_depends_on_inflation_only_through_the_basis(screened):
     and 8 % inflation differ exactly as the independent tables do."""
     d_ours = stored(screened, "G", 0.12, 0.08) - stored(screened, "G", 0.12, 0.0)
     d_table = two_stage(0.12, 0.08, TAX, 40000.0, 2, 1.08 * 1.01) - two_stage(0.12, 0.0, TAX, 40000.0, 2, 1.01)
+    # source: the independent year-by-year after-tax table above (IRS Pub 946 Table A-1; Sullivan, Wicks &
+    # Koelling, from memory)
     assert d_ours == pytest.approx(d_table, rel=1e-9)

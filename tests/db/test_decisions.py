@@ -10,7 +10,8 @@ import numpy as np
 import numpy_financial as npf
 import pytest
 
-from ratescape import load_portfolio, screen_portfolio
+from helpers import load_csv   # tests/ is on sys.path (conftest)
+from ratescape import screen_portfolio
 
 PROJECTS = """project_id,name,group,requires,mandatory,first_cost,annual_benefit,benefit_basis,benefit_escalation,annual_cost,cost_basis,life
 A,Pump retrofit,,,,100,30,real,0.02,,,6
@@ -42,10 +43,8 @@ core_share = 0.5
 @pytest.fixture(scope="module")
 def run(tmp_path_factory):
     d = tmp_path_factory.mktemp("dec")
-    (d / "p.csv").write_text(PROJECTS)
     (d / "grid.toml").write_text(GRID)
-    db = d / "plan.duckdb"
-    load_portfolio(d / "p.csv", None, db)
+    db = load_csv(d, PROJECTS)
     run_id = screen_portfolio(db, grid=d / "grid.toml")
     con = duckdb.connect(str(db), read_only=True)
     yield con, run_id
@@ -156,9 +155,7 @@ def test_frontier_on_the_discount_rate_by_cost_multiplier_plane(tmp_path):
     """A decision map against an extra axis: buy (first cost x m) versus lease; independent check with
     numpy-financial: buy - lease = -(300 - 0.01) m + 60 (P/A, i, 8) (the lease's token first cost of 0.01
     scales with m too; the real benefits are the same)."""
-    (tmp_path / "p.csv").write_text(PROJECTS)
-    db = tmp_path / "plan.duckdb"
-    load_portfolio(tmp_path / "p.csv", None, db)
+    db = load_csv(tmp_path, PROJECTS)
     grid = tmp_path / "g.toml"
     grid.write_text("""
 [grid]

@@ -3,23 +3,14 @@ import hashlib
 
 import pytest
 
-from ratescape import load_portfolio, run_query, screen_portfolio
+from helpers import SMALL_PROJECTS, load_csv   # tests/ is on sys.path (conftest)
+from ratescape import run_query, screen_portfolio
 from ratescape.errors import QueryError
 from ratescape.query import list_queries
 
-PROJECTS = ("project_id,name,first_cost,annual_benefit,benefit_basis,annual_cost,cost_basis,life\n"
-            "A,Plain real,100,30,real,,,5\n"
-            "N,Fixed-price revenue,100,32,nominal,,,5\n"
-            "L,Fixed lease cost,0.01,40,real,25,nominal,5\n"
-            "Q,Never,100,10,real,,,5\n")
-
-
 @pytest.fixture(scope="module")
 def db(tmp_path_factory):
-    d = tmp_path_factory.mktemp("q")
-    (d / "p.csv").write_text(PROJECTS)
-    path = d / "plan.duckdb"
-    load_portfolio(d / "p.csv", None, path)
+    path = load_csv(tmp_path_factory.mktemp("q"), SMALL_PROJECTS)
     # real discount axis: inflation hurts fixed-price revenue, helps fixed payments (common practice)
     screen_portfolio(path, discount_rates="0.02:0.1:5", inflation="0:0.1:11", discount_basis="real")
     return path

@@ -139,6 +139,7 @@ def test_explorer_data_equals_the_stored_rows(screened):
             stored = con.execute("SELECT project_id, present_worth FROM results WHERE run_id = ? AND scenario_id = ? "
                                  "ORDER BY present_worth DESC, project_id", [run_id, sid]).fetchall()
             embedded = dict((data["pr"]["id"][k], v[pos]) for k, v in worths.items())
+            # no outside source: the page's numbers must equal the database's own (rounding only);
             # four significant digits: relative error at most half a unit in the fourth digit
             np.testing.assert_allclose([embedded[p] for p, _ in stored], [v for _, v in stored], rtol=5e-4)
             # a negative worth never rounds to zero or above: "accepted" is the database's
@@ -156,6 +157,7 @@ def test_explorer_data_equals_the_stored_rows(screened):
             assert {data["pr"]["id"][i] for i in range(7) if int(bits[i >> 2], 16) >> (i & 3) & 1} == sel
             worth = con.execute("SELECT objective FROM portfolios WHERE run_id = ? AND scenario_id = ?",
                                 [run_id, sid]).fetchall()[0][0]
+            # no outside source: the page's portfolio worth against the stored portfolios.objective
             assert data["sc"]["worth"][pos] == pytest.approx(worth, rel=1e-8, abs=1e-6)
     finally:
         con.close()

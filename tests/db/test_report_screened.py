@@ -2,23 +2,14 @@
 import duckdb
 import pytest
 
-from ratescape import load_portfolio, screen_portfolio
+from helpers import SMALL_PROJECTS, load_csv   # tests/ is on sys.path (conftest)
+from ratescape import screen_portfolio
 from ratescape.report import write_report
 from ratescape.report.run_data import RunContext, pick_run
 
-PROJECTS = ("project_id,name,first_cost,annual_benefit,benefit_basis,annual_cost,cost_basis,life\n"
-            "A,Invented plain real,100,30,real,,,5\n"
-            "N,Invented fixed-price revenue,100,32,nominal,,,5\n"
-            "L,Invented fixed lease,0.01,40,real,25,nominal,5\n"
-            "Q,Invented never,100,10,real,,,5\n")
-
-
 @pytest.fixture(scope="module")
 def screened(tmp_path_factory):
-    d = tmp_path_factory.mktemp("screened")
-    (d / "p.csv").write_text(PROJECTS)
-    db = d / "plan.duckdb"
-    load_portfolio(d / "p.csv", None, db)
+    db = load_csv(tmp_path_factory.mktemp("screened"), SMALL_PROJECTS)
     run_id = screen_portfolio(db, discount_rates="0:0.2:6", inflation="0:0.1:5")
     return db, run_id
 

@@ -4,7 +4,8 @@ import numpy as np
 import numpy_financial as npf
 import pytest
 
-from ratescape import load_portfolio, screen_portfolio
+from helpers import fetch, load_csv   # tests/ is on sys.path (conftest)
+from ratescape import screen_portfolio
 from ratescape.run import evaluation as evaluation_module
 from ratescape.run import plan as plan_module
 from ratescape.run import ranks as ranks_module
@@ -22,19 +23,7 @@ FLOWS = "project_id,period,amount,basis,escalation,kind\nX,0,-100,real,0,\nX,1,2
 
 @pytest.fixture
 def db(tmp_path):
-    (tmp_path / "p.csv").write_text("\n".join(PROJECTS + ["X,Two roots,,,,,,,,"]) + "\n")
-    (tmp_path / "c.csv").write_text(FLOWS)
-    path = tmp_path / "plan.duckdb"
-    load_portfolio(tmp_path / "p.csv", tmp_path / "c.csv", path)
-    return path
-
-
-def fetch(path, sql, params=()):
-    con = duckdb.connect(str(path), read_only=True)
-    try:
-        return con.execute(sql, list(params)).fetchall()
-    finally:
-        con.close()
+    return load_csv(tmp_path, "\n".join(PROJECTS + ["X,Two roots,,,,,,,,"]) + "\n", FLOWS)
 
 
 def independent_pw(path, run_id):
@@ -79,7 +68,8 @@ def test_run_metadata_and_summary(db):
                          USING (project_id) WHERE s.run_id = $1""", [run_id])
     assert len(check) == 24
     for _, share, mn, mx, share2, mn2, mx2 in check:
-        assert share == pytest.approx(share2) and mn == mx2 or (mn == pytest.approx(mn2) and mx == pytest.approx(mx2))
+        # each of share, min and max must agree (the former `... and mn == mx2 or (...)` passed on min/max alone)
+        assert (share, mn, mx) == pytest.approx((share2, mn2, mx2))
     ranks = fetch(db, "SELECT min(rank_min), max(rank_max) FROM project_summary WHERE run_id = ?", [run_id])[0]
     assert ranks == (1, 24)
 
@@ -362,15 +352,12 @@ def test_stored_pi_is_derived_exactly_where_the_investment_is_fixed(tmp_path, ch
     every scenario (one outlay at time 0) result_rows leaves PI NULL and the results view derives
     it; where it varies (an outlay also at period 1) the row carries it; without an investment
     there is none. Every value against numpy-financial's npv."""
-    (tmp_path / "p.csv").write_text("project_id,name\nFIX,Fixed outlay\nSPREAD,Outlay over two periods\n"
-                                    "NONE,No investment\n")
-    (tmp_path / "c.csv").write_text(
+    db = load_csv(
+        tmp_path, "project_id,name\nFIX,Fixed outlay\nSPREAD,Outlay over two periods\nNONE,No investment\n",
         "project_id,period,amount,basis,escalation,kind\n"
         "FIX,0,-100,real,0,investment\nFIX,1,40,real,0,benefit\nFIX,2,40,real,0.02,benefit\nFIX,3,45,nominal,0,benefit\n"
         "SPREAD,0,-60,real,0,investment\nSPREAD,1,-50,real,0,investment\nSPREAD,2,70,real,0,benefit\n"
         "SPREAD,3,70,real,0,benefit\nNONE,1,10,real,0,benefit\nNONE,2,-3,real,0,\n")
-    db = tmp_path / "plan.duckdb"
-    load_portfolio(tmp_path / "p.csv", tmp_path / "c.csv", db)
     run_id = screen_portfolio(db, discount_rates="0:0.2:5", inflation="0:0.1:3", chunk_size=chunk_size)
     fixed = dict(fetch(db, "SELECT project_id, investment_worth FROM project_summary WHERE run_id = ?", [run_id]))
     assert fixed == {"FIX": 100.0, "SPREAD": None, "NONE": None}

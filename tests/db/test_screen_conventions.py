@@ -1,13 +1,13 @@
 """Issue 14, through the real screen: MIRR over each project's own horizon, IRR under every timing
 convention, nominal escalation, one profitability index, sensitivity on the run's own basis."""
-import duckdb
 import numpy as np
 import numpy_financial as npf
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from ratescape import load_portfolio, screen_portfolio
+from helpers import fetch, load_csv   # tests/ is on sys.path (conftest)
+from ratescape import screen_portfolio
 from ratescape.evaluate.factors import p_given_a1_geometric
 from ratescape.evaluate.measures import present_worth, profitability_index
 from ratescape.evaluate.timing import discount_exponents
@@ -15,24 +15,13 @@ from ratescape.evaluate.timing import discount_exponents
 HEADER = "project_id,period,amount,basis,escalation,kind\n"
 
 
-def fetch(path, sql, params=()):
-    con = duckdb.connect(str(path), read_only=True)
-    try:
-        return con.execute(sql, list(params)).fetchall()
-    finally:
-        con.close()
-
-
 def load_flows(tmp_path, name, rows):
     """Load a portfolio given as cash-flow rows (project_id, period, amount, basis, escalation, kind)."""
     folder = tmp_path / name
     folder.mkdir()
     ids = sorted({r[0] for r in rows})
-    (folder / "p.csv").write_text("project_id,name\n" + "".join(f"{p},{p}\n" for p in ids))
-    (folder / "c.csv").write_text(HEADER + "".join(",".join(str(x) for x in r) + "\n" for r in rows))
-    db = folder / "plan.duckdb"
-    load_portfolio(folder / "p.csv", folder / "c.csv", db)
-    return db
+    return load_csv(folder, "project_id,name\n" + "".join(f"{p},{p}\n" for p in ids),
+                    HEADER + "".join(",".join(str(x) for x in r) + "\n" for r in rows))
 
 
 def stream_rows(pid, amounts, basis="real", escalation=0.0, invest_first=True):
@@ -86,6 +75,7 @@ def test_mirr_after_tax_uses_the_projects_own_horizon(tmp_path):
                                tax_rate=0.25, keep="summary")
         got.append(fetch(db, "SELECT mirr_base FROM project_summary WHERE run_id = ? AND project_id = 'A'", [run])[0][0])
     assert got[0] is not None
+    # no outside source: invariance check (A's MIRR may not change when B is added to the portfolio)
     assert got[1] == pytest.approx(got[0], rel=1e-12)
 
 
@@ -195,9 +185,13 @@ def test_nominal_escalation_reaches_sensitivity_and_after_tax(tmp_path):
                            tax_rate=0.25)
     (pw, before), = fetch(db, "SELECT pw_base, pw_before_tax_base FROM project_summary WHERE run_id = ?", [run])
     benefit = 1000.0 * 1.05 * p_given_a1_geometric(0.05, 0.08, 5)
+    # source: geometric-gradient (P/A1, g, i, N) of Newnan, Eschenbach & Lavelle, Engineering Economic Analysis
+    # (from memory), as evaluate.factors writes it
     assert before == pytest.approx(benefit - 4000.0, rel=1e-12)
+    # computed independently: every line is a taxed benefit or cost, so after tax = (1 - 0.25) x before tax
     assert pw == pytest.approx(0.75 * (benefit - 4000.0), rel=1e-12)
     (wb,), = fetch(db, "SELECT worth_base FROM sensitivity WHERE run_id = ? AND input = 'inflation'", [run])
+    # no outside source: the sensitivity's base worth must equal the stored base PW
     assert wb == pytest.approx(pw, rel=1e-12)
 
 
@@ -240,14 +234,20 @@ def test_real_basis_real_only_project_shows_no_sensitivity_to_inflation(tmp_path
                                              switching_status FROM sensitivity WHERE run_id = ? AND input = 'inflation'""",
                                        [run])
     scale = sum(abs(a) for a in amounts)
+    # computed independently: real lines on a real-rate axis are worth the same at every inflation (Fisher 1930;
+    # common practice), so the value must equal the base worth
     assert lo == pytest.approx(wb, abs=1e-9 * scale) and hi == pytest.approx(wb, abs=1e-9 * scale)
     spider = fetch(db, "SELECT present_worth FROM spider WHERE run_id = ? AND input = 'inflation'", [run])
+    # computed independently: real lines on a real-rate axis are worth the same at every inflation (Fisher 1930;
+    # common practice), so the value must equal the base worth
     assert all(pw == pytest.approx(wb, abs=1e-9 * scale) for (pw,) in spider)
     if abs(wb) > 1e-6 * scale:
         assert sv is None
     grid = fetch(db, """SELECT min(r.present_worth), max(r.present_worth) FROM results r JOIN scenarios sc
                         ON sc.run_id = r.run_id AND sc.scenario_id = r.scenario_id
                         WHERE r.run_id = ? AND sc.real_rate = 0.04""", [run])[0]
+    # computed independently: real lines on a real-rate axis are worth the same at every inflation (Fisher 1930;
+    # common practice), so the value must equal the base worth
     assert grid[0] == pytest.approx(wb, abs=1e-9 * scale) and grid[1] == pytest.approx(wb, abs=1e-9 * scale)
 
 
@@ -307,6 +307,7 @@ def test_after_tax_irr_equals_the_discount_rate_switching_value(tmp_path, timing
                            timing=timing)
     irr = dict(fetch(db, "SELECT inflation, irr_nominal FROM irr_results WHERE run_id = ?", [run]))
     (sv,), = fetch(db, "SELECT switching_value FROM sensitivity WHERE run_id = ? AND input = 'discount_rate'", [run])
+    # no outside source: the discount-rate switching value is the IRR by definition (common practice)
     assert sv == pytest.approx(irr[0.02], rel=1e-8)
     grid = fetch(db, """SELECT sc.discount_rate, r.present_worth FROM results r JOIN scenarios sc
                         ON sc.run_id = r.run_id AND sc.scenario_id = r.scenario_id

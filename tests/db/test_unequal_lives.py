@@ -179,6 +179,7 @@ def test_zero_real_rate_annual_worth_is_the_average_cost(tmp_path):
         "discount_rate = 0.14", "discount_rate = 0.0")
     con, run_id = screened(tmp_path, grid=grid)
     _, _, margin, worth, _, _ = decision(con, run_id, "homes", 0.0)
+    # computed independently: (A/P, 0, N) = 1/N, so AW = undiscounted total / life (Blank & Tarquin, from memory)
     assert worth == pytest.approx(max(VA.sum() / 6, VB.sum() / 9), rel=1e-12)
     assert margin == pytest.approx(abs(VA.sum() / 6 - VB.sum() / 9), rel=1e-12)
 

@@ -104,6 +104,7 @@ def test_stream_on_timing_grid_keeps_present_worth():
         g = stream_on_timing_grid(a, timing)
         for i in (0.0, 0.07, 0.3):
             step = (1 + i) ** (1 / k) - 1
+            # computed independently: per-step rate (1 + i)^(1/k) - 1 compounds to i per year (common practice)
             assert present_worth(g, step) == pytest.approx(present_worth(a, i, timing=timing), rel=1e-12)
 
 
@@ -153,8 +154,10 @@ def test_escalating_salvage_line_real_and_nominal():
     A[1, 0, 5] = 100.0
     for f in (0.0, 0.03):
         s = then_current_streams(A[:1], [LineClass("real", 0.02)], tau, [f])[0, 0, 5]
+        # computed independently (hand value): real line grows by (1 + e)(1 + f) a year (common practice)
         assert s == pytest.approx(100 * (1.02 * (1 + f)) ** 5, rel=1e-14)
         s = then_current_streams(A[1:], [LineClass("nominal", 0.02)], tau, [f])[0, 0, 5]
+        # computed independently (hand value): nominal line grows by its contract escalation only (common practice)
         assert s == pytest.approx(100 * 1.02 ** 5, rel=1e-14)
 
 
@@ -198,6 +201,8 @@ def test_real_basis_one_at_a_time_has_no_inflation_sensitivity_for_real_lines(am
     k = list(out["inputs"]).index("inflation")
     scale = 250.0 + sum(abs(x) for x in amounts)
     wb = out["worth_base"][0]
+    # computed independently: real lines on a real-rate axis are worth the same at every inflation (Fisher 1930;
+    # common practice), so the value must equal the base worth
     assert out["worth_low"][k, 0] == pytest.approx(wb, abs=1e-10 * scale)
     assert out["worth_high"][k, 0] == pytest.approx(wb, abs=1e-10 * scale)
     np.testing.assert_allclose(out["spider"][k, 0], wb, atol=1e-10 * scale)
@@ -205,4 +210,5 @@ def test_real_basis_one_at_a_time_has_no_inflation_sensitivity_for_real_lines(am
         assert np.isnan(out["switching_value"][k, 0])
     # the base worth is the PW at the nominal rate (1.04)(1.04) - 1 of the then-current stream
     stream = then_current_streams(A.sum(axis=0), classes, tau, [0.04])[0, 0]
+    # source: Fisher relation 1 + i = (1 + r)(1 + f) (Fisher 1930; common practice)
     assert wb == pytest.approx(present_worth(stream, 1.04 * 1.04 - 1, timing=timing), abs=1e-10 * scale)

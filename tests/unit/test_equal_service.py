@@ -34,6 +34,7 @@ def test_annual_worth_of_the_textbook_vendors():
 
 def test_annual_worth_at_zero_rate_is_the_average():
     pw = np.array([[VA.sum()], [VB.sum()]])              # PW at 0 % is the plain sum
+    # computed independently: (A/P, 0, N) = 1/N, AW at 0 % = total / life (Blank & Tarquin, from memory)
     assert annual_worth(pw, [6, 9], [0.0])[:, 0] == pytest.approx([VA.sum() / 6, VB.sum() / 9], rel=1e-12)
 
 
@@ -46,6 +47,7 @@ def test_annual_worth_refuses_bad_shapes_and_lives():
 
 def test_straight_line_terminal_value():
     # 18,000 - (18,000 - 2,000) x 6/9 (straight-line book value); no salvage: I (N - T) / N
+    # source: straight-line book value B_t = I - (I - S) t / N (Sullivan, Wicks & Koelling, from memory)
     assert straight_line_terminal_value([18000, 1600, 15000], [2000, 0, 1000], [9, 10, 6], 6) == pytest.approx(
         [7333.333333, 1600 * 4 / 10, 0.0])
 

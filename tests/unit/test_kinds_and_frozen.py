@@ -40,6 +40,7 @@ def test_each_stage_gets_the_half_year_rate_in_its_own_first_year():
 
 def test_stage_cut_short_by_disposal_writes_off_its_book_value():
     shield, _ = staged_asset_lines([1000.0], [2], [4], 6, method="macrs", recovery_years=3)
+    # source: IRS Pub 946 Table A-1, 3-year column, 33.33 % in year 1, remaining book value written off at disposal
     assert shield[0].tolist() == pytest.approx([0, 0, 0, 333.3, 1000 - 333.3, 0])
     assert shield.sum() == pytest.approx(1000.0)          # the whole cost is deducted by disposal
 
@@ -58,6 +59,7 @@ def test_frozen_class_factor_and_its_point_and_stream_forms_agree():
     for s in range(2):
         g = (1 + e) * (1 + f[s])
         expected = [g ** min(t, k) / (1 + i[s]) ** t for t in range(8)]
+        # computed independently: ((1+e)(1+f))^min(t, k) / (1+i)^t term by term (module docstring)
         assert D[:, s] == pytest.approx(expected, rel=1e-13)
     amounts = np.zeros((len(ROLES), 1, 2, 8))
     amounts[2, 0, 0, 4:] = [10.0, 20.0, 30.0, 40.0]
@@ -66,9 +68,11 @@ def test_frozen_class_factor_and_its_point_and_stream_forms_agree():
     grid = np.einsum("cpt,cts->ps", A, discount_tensor(cls, tau, i, f))
     point = PointEvaluator(amounts, cls, tau)
     for s in range(2):
+        # no outside source: the point evaluator must agree with the grid form (einsum above)
         assert point(i[s], f[s]) == pytest.approx(grid[:, s], rel=1e-12)
         assert point.at_rows([0, 1], i[s], f[s]) == pytest.approx(grid[:, s], rel=1e-12)
     streams = then_current_streams(A, cls, tau, f)              # (F, P, T)
+    # computed independently (hand value): the amount is frozen at period k's price ((1+e)(1+f))^k
     assert streams[1, 0, 5] == pytest.approx(20.0 * ((1 + e) * 1.06) ** k)
 
 
@@ -81,6 +85,7 @@ def test_root_search_on_a_frozen_class_matches_the_grid():
     amounts[2, 1, 0, 3:] = 45.0
     point = PointEvaluator(amounts, cls, tau)
     root = point.roots_between(MOVE_DISCOUNT_RATE, [0], [0.0], [1.0], discount_rate=0.1, inflation=0.05)[0]
+    # computed independently: the root is checked by the explicit PW sum below, (P/F, i, t) by hand
     assert point(root, 0.05) == pytest.approx(0.0, abs=1e-9)
     g = 1.05 ** 2
     assert -100 + sum(45.0 * g / (1 + root) ** t for t in (3, 4, 5)) == pytest.approx(0.0, abs=1e-9)
