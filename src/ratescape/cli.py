@@ -373,7 +373,7 @@ def _query_notes(db_path, name_or_file, params, frame, quiet) -> None:
     if quiet:
         return
     from .query import find_query, latest_run
-    from .store.database import PORTFOLIO_RELOADED, connect_read, portfolio_reloaded_since
+    from .store.database import connect_read, reloaded_note
     q = find_query(name_or_file)
     if "run" not in q.params:
         return
@@ -383,8 +383,9 @@ def _query_notes(db_path, name_or_file, params, frame, quiet) -> None:
         run_id = latest_run(con) if given in ("latest", "") else given
         if given in ("latest", ""):
             _note(f"run {run_id} (the newest finished run; give --param run=RUN_ID for another)")
-        if portfolio_reloaded_since(con, run_id):
-            _note(f"run {run_id}: {PORTFOLIO_RELOADED}")
+        note = reloaded_note(con, run_id)
+        if note:
+            _note(f"run {run_id}: {note}")
     finally:
         con.close()
     for key in q.params:

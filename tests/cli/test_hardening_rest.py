@@ -100,3 +100,107 @@ def test_a_cycle_through_20000_projects_is_reported_where_it_starts(tmp_path):
         "'P0 -> P1 -> P2 -> P3 -> P4 -> P5 -> P6 -> P7 -> P8 -> P9 ...'). Fix: break the cycle: a project "
         "cannot depend on itself through others\n")
     assert not db.exists()
+
+
+# --- item 7: an older run names the portfolio it screened ---------------------------------------
+
+# names no other text of a report contains (its script has words like "globalAlpha")
+PROJECTS = ("project_id,name,group,first_cost,annual_benefit,benefit_basis,life\n"
+            "A,Quillonby,,100,60,real,5\nB,Brackenfold,,100,5,real,5\nC,Cindermoor,g,100,28,nominal,5\n"
+            "D,Dunlowe,g,120,33,real,5\n")
+RENAMED = {"Quillonby": "Ferncastle", "Brackenfold": "Gildmarsh", "Cindermoor": "Hollowmere", "Dunlowe": "Ivorydale"}
+GRID = ["--discount-rates", "0:0.2:5", "--inflation", "0:0.1:3"]
+
+
+def _renamed(text: str) -> str:
+    for old, new in RENAMED.items():
+        text = text.replace(old, new)
+    return text
+
+
+@pytest.fixture(scope="module")
+def two_runs(tmp_path_factory):
+    """Load, screen, reload the same ids under new names, screen again."""
+    d = tmp_path_factory.mktemp("snapshot")
+    (d / "p.csv").write_text(PROJECTS)
+    (d / "p2.csv").write_text(_renamed(PROJECTS))
+    db = d / "plan.duckdb"
+    assert run("load", "--projects", d / "p.csv", "--db", db).exit_code == 0
+    first = run("screen", "--db", db, *GRID, "--quiet")
+    assert first.exit_code == 0, first.output
+    assert run("load", "--projects", d / "p2.csv", "--db", db).exit_code == 0
+    second = run("screen", "--db", db, *GRID, "--quiet")
+    assert second.exit_code == 0, second.output
+    return {"dir": d, "db": db, "old": first.stdout.strip().splitlines()[-1],
+            "new": second.stdout.strip().splitlines()[-1]}
+
+
+@pytest.mark.parametrize("query", ["rank-movers", "accepted-everywhere", "project-irr", "switching-values"])
+def test_an_older_run_names_the_projects_it_screened(two_runs, query):
+    names = {}
+    for which in ("old", "new"):
+        r = run("query", "--db", two_runs["db"], query, "--param", f"run={two_runs[which]}", "--format", "csv")
+        assert r.exit_code == 0, r.output
+        header, *rows = r.stdout.splitlines()
+        assert header.split(",")[:2] == ["project_id", "name"]
+        names[which] = {row.split(",")[1] for row in rows}
+        assert names[which], r.stdout
+    assert names["old"] <= set(RENAMED), names
+    assert names["new"] <= set(RENAMED.values()), names
+
+
+def test_the_older_run_says_the_portfolio_changed_and_the_names_are_its_own(two_runs):
+    r = run("query", "--db", two_runs["db"], "rank-movers", "--param", f"run={two_runs['old']}")
+    assert r.exit_code == 0
+    assert (f"Note: run {two_runs['old']}: the portfolio was reloaded after this run was screened: project names "
+            "and groups shown are those it screened (kept with the run); today's portfolio may differ") in r.stderr
+    r = run("query", "--db", two_runs["db"], "rank-movers", "--param", f"run={two_runs['new']}")
+    assert r.exit_code == 0 and "reloaded" not in r.stderr
+    r = run("query", "--db", two_runs["db"], "runs", "--format", "csv")
+    assert [line.rsplit(",", 1)[1] for line in r.stdout.splitlines()[1:]] == ["current", "portfolio reloaded since this run"]
+
+
+def test_run_changes_names_each_project_as_the_later_run_screened_it(two_runs):
+    r = run("query", "--db", two_runs["db"], "run-changes", "--param", f"run={two_runs['new']}",
+            "--param", f"before={two_runs['old']}", "--param", "min_share_change=0", "--param", "min_rank_change=0",
+            "--format", "csv")
+    assert r.exit_code == 0, r.output
+    rows = r.stdout.splitlines()[1:]
+    assert sorted(row.split(",")[:2] for row in rows) == [["A", "Ferncastle"], ["B", "Gildmarsh"], ["C", "Hollowmere"],
+                                                          ["D", "Ivorydale"]]
+
+
+def test_the_report_of_an_older_run_shows_its_own_names(two_runs, tmp_path):
+    pages = {}
+    for which in ("old", "new"):
+        out = tmp_path / f"{which}.html"
+        r = run("report", "--db", two_runs["db"], "--run", two_runs[which], "--out", out, "--project", "A",
+                "--project", "C")
+        assert r.exit_code == 0, r.output
+        pages[which] = out.read_text()
+    for old, new in RENAMED.items():
+        assert old in pages["old"] and new not in pages["old"], (old, new)
+        assert new in pages["new"] and old not in pages["new"], (old, new)
+    assert "Portfolio reloaded since this run: the portfolio was reloaded after this run was screened: project names " \
+           "and groups shown are those it screened (kept with the run)" in pages["old"]
+    assert "Portfolio reloaded since this run" not in pages["new"]
+
+
+def test_a_run_made_before_snapshots_falls_back_to_todays_names(two_runs, tmp_path):
+    # an older database: the snapshot table and its view did not exist (read-only: a temporary view)
+    db = tmp_path / "plan.duckdb"
+    shutil.copyfile(two_runs["db"], db)
+    con = duckdb.connect(str(db))
+    con.execute("DROP VIEW run_project_names")
+    con.execute("DROP TABLE run_projects")
+    con.close()
+    r = run("query", "--db", db, "rank-movers", "--param", f"run={two_runs['old']}", "--format", "csv")
+    assert r.exit_code == 0, r.output
+    assert {row.split(",")[1] for row in r.stdout.splitlines()[1:]} == set(RENAMED.values())
+    assert (f"Note: run {two_runs['old']}: the portfolio was reloaded after this run was screened: project names "
+            "and inputs shown beside its results are today's, not necessarily those it screened") in r.stderr
+    # a writer adds the table and view; the runs made before keep today's names, new ones their own
+    assert run("load", "--projects", two_runs["dir"] / "p.csv", "--db", db).exit_code == 0
+    r = run("query", "--db", db, "rank-movers", "--param", f"run={two_runs['old']}", "--format", "csv")
+    assert r.exit_code == 0
+    assert {row.split(",")[1] for row in r.stdout.splitlines()[1:]} == set(RENAMED)

@@ -154,6 +154,9 @@ def screen(con, spec: RunSettings | None = None, *, resume: str | None = None, c
                 run_id, utc_now(), __version__, inputs_hash, spec.to_json(), spec.discount_basis, spec.timing,
                 float(spec.periods_per_year), bool(spec.after_tax), plan.project_count, S,
                 plan.scenarios.base_index, plan.chunk_size, plan.chunk_count, os.getpid()])
+            # the portfolio this run screens, as its queries and report will name it after a reload
+            con.execute("INSERT INTO run_projects SELECT ?, project_id, project_key, name, group_name, category "
+                        "FROM projects", [run_id])
             for topic, note in notes.items():
                 con.execute("INSERT OR REPLACE INTO run_notes VALUES (?, ?, ?)", [run_id, topic, note]).fetchall()
             con.register("new_scenarios", scen)
