@@ -204,3 +204,41 @@ def test_a_run_made_before_snapshots_falls_back_to_todays_names(two_runs, tmp_pa
     r = run("query", "--db", db, "rank-movers", "--param", f"run={two_runs['old']}", "--format", "csv")
     assert r.exit_code == 0
     assert {row.split(",")[1] for row in r.stdout.splitlines()[1:]} == set(RENAMED)
+
+
+# --- item 6: a value too large for double precision is NULL with a status that says why ---------
+
+def test_an_irr_too_large_to_state_per_year_is_null_with_status_overflow(tmp_path):
+    # X: -1 now, +10 one period later: IRR 900 % a period (outflow x (1 + r) = inflow, the
+    # definition; Blank & Tarquin, Engineering Economy, 7th ed., McGraw-Hill, 2012, sec. 7.1).
+    # With 365 periods a year the effective annual rate is 10^365 - 1 (Blank & Tarquin sec. 4.3),
+    # beyond the largest double (about 1.8e308, IEEE 754): no finite IRR can be stored.
+    # Y: -100, +60, +60: IRR 13.066 % a period (numpy-financial irr([-100, 60, 60]) = 0.130662...).
+    (tmp_path / "p.csv").write_text("project_id,name\nX,Extreme\nY,Plain\n")
+    (tmp_path / "c.csv").write_text("project_id,period,amount,basis\nX,0,-1,nominal\nX,1,10,nominal\n"
+                                    "Y,0,-100,nominal\nY,1,60,nominal\nY,2,60,nominal\n")
+    db = tmp_path / "plan.duckdb"
+    assert run("load", "--projects", tmp_path / "p.csv", "--cash-flows", tmp_path / "c.csv", "--db", db).exit_code == 0
+    r = run("screen", "--db", db, "--discount-rates", "0:0.1:2", "--inflation", "0:0.05:2", "--periods-per-year", "365")
+    assert r.exit_code == 0, r.output
+    run_id = r.stdout.strip().splitlines()[-1]
+    assert ("note: 1 project(s) had a measure and 2 IRR row(s) (project and inflation level) had a rate of return "
+            "too large for double precision (beyond about 1.8e308): stored as NULL, never as infinity, with the "
+            "status 'overflow' (project_summary.measure_status names the measures; irr_results.status).") in r.stderr
+    assert "RuntimeWarning" not in r.stderr
+    assert fetch(db, "SELECT project_id, inflation, root_count, irr_nominal, irr_real, status FROM irr_results "
+                     "WHERE run_id = ? AND project_id = 'X' ORDER BY inflation", [run_id]) == [
+        ("X", 0.0, 1, None, None, "overflow"), ("X", 0.05, 1, None, None, "overflow")]
+    assert fetch(db, "SELECT count(*) FROM irr_roots WHERE run_id = ? AND project_id = 'X'", [run_id]) == [(0,)]
+    (y_irr,) = fetch(db, "SELECT irr_nominal FROM irr_results WHERE run_id = ? AND project_id = 'Y' "
+                         "AND inflation = 0", [run_id])[0]
+    assert y_irr == pytest.approx(1.1306623862918075 ** 365 - 1, rel=1e-9)
+    # MIRR of X (finance = reinvestment rate = the base rate, per year) overflows the same way
+    assert fetch(db, "SELECT project_id, mirr_base IS NULL, measure_status FROM project_summary WHERE run_id = ? "
+                     "ORDER BY project_id", [run_id]) == [("X", True, "overflow: mirr_base"), ("Y", False, None)]
+    r = run("query", "--db", db, "run-notes", "--param", f"run={run_id}", "--format", "csv")
+    assert r.exit_code == 0
+    assert "overflow" in r.stdout and "stored as NULL, never as infinity" in r.stdout
+    r = run("query", "--db", db, "project-irr", "--param", f"run={run_id}", "--param", "inflation=0", "--format", "csv")
+    assert r.exit_code == 0
+    assert "X,Extreme,0.0,overflow,1,,," in r.stdout
