@@ -65,6 +65,11 @@ class Command(click.Command):
         except Exception as exc:   # DuckDB's forms of Ctrl-C during a query, and damaged databases
             if is_interrupt(exc):
                 _interrupted(exc)
+            if isinstance(exc, duckdb.Error) and "file too large" in str(exc).lower():
+                _fail(f"the database file reached the file-size limit of this process (ulimit -f) while "
+                      f"writing ({str(exc).splitlines()[0]}); the write was rolled back and the database holds "
+                      "what it held before. Fix: raise the limit (ulimit -f unlimited) or free the quota, then "
+                      "run the command again")
             if isinstance(exc, duckdb.Error):
                 _fail(f"the database could not be read or written ({str(exc).splitlines()[0]}). Fix: if the "
                       "disk is full, free space; if the file is damaged, restore it from a copy or load the "

@@ -242,3 +242,53 @@ def test_an_irr_too_large_to_state_per_year_is_null_with_status_overflow(tmp_pat
     r = run("query", "--db", db, "project-irr", "--param", f"run={run_id}", "--param", "inflation=0", "--format", "csv")
     assert r.exit_code == 0
     assert "X,Extreme,0.0,overflow,1,,," in r.stdout
+
+
+# --- a load stopped by a file-size limit (ulimit -f) ---------------------------------------------
+
+def _big_projects(path: Path, n: int = 60_000) -> None:
+    path.write_text("project_id,name,first_cost,annual_benefit,benefit_basis,life\n" + "".join(
+        f"P{i},Project number {i},{100 + i % 50},{30 + i % 7},real,{5 + i % 20}\n" for i in range(n)))
+
+
+def _load_with_file_size_limit(projects: Path, db: Path, limit: int) -> subprocess.CompletedProcess:
+    # Python ignores SIGXFSZ, so a write beyond RLIMIT_FSIZE fails with EFBIG ("File too large")
+    return subprocess.run([sys.executable, "-m", "ratescape", "load", "--projects", str(projects), "--db", str(db)],
+                          preexec_fn=lambda: resource.setrlimit(resource.RLIMIT_FSIZE, (limit, limit)),
+                          capture_output=True, text=True, timeout=300, env=dict(os.environ, PYTHONPATH=SRC))
+
+
+LIMIT_MESSAGE = ("the database file reached the file-size limit of this process (ulimit -f) while writing (")
+LIMIT_FIX = ("); the write was rolled back and the database holds what it held before. Fix: raise the limit "
+             "(ulimit -f unlimited) or free the quota, then run the command again\n")
+
+
+@pytest.mark.parametrize("limit", [1_000_000, 4_000_000])
+def test_a_load_into_an_existing_database_stopped_by_a_file_size_limit_changes_nothing(tmp_path, limit):
+    (tmp_path / "small.csv").write_text("project_id,name,first_cost,annual_benefit,benefit_basis,life\n"
+                                        "A,Alpha,100,30,real,5\n")
+    db = tmp_path / "plan.duckdb"
+    assert run("load", "--projects", tmp_path / "small.csv", "--db", db).exit_code == 0
+    before = fetch(db, "SELECT project_id, name FROM projects"), fetch(db, "SELECT load_id, project_count FROM loads")
+    _big_projects(tmp_path / "big.csv")       # about 8.4 MB once loaded
+    r = _load_with_file_size_limit(tmp_path / "big.csv", db, limit)
+    assert r.returncode == 1, r.stdout
+    assert "Loaded" not in r.stdout
+    assert r.stderr.startswith("Error: " + LIMIT_MESSAGE) and r.stderr.endswith(LIMIT_FIX), r.stderr
+    assert "File too large" in r.stderr and len(r.stderr.splitlines()) == 1
+    assert (fetch(db, "SELECT project_id, name FROM projects"), fetch(db, "SELECT load_id, project_count FROM loads")) \
+        == before == ([("A", "Alpha")], [(1, 1)])
+
+
+def test_a_first_load_stopped_by_a_file_size_limit_leaves_no_database(tmp_path):
+    _big_projects(tmp_path / "big.csv")
+    db = tmp_path / "plan.duckdb"
+    r = _load_with_file_size_limit(tmp_path / "big.csv", db, 2_000_000)
+    assert r.returncode == 1, r.stdout
+    assert r.stderr.startswith("Error: " + LIMIT_MESSAGE) and r.stderr.endswith(LIMIT_FIX), r.stderr
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["big.csv"]
+    # with room, the same load succeeds (the limit, not the input, stopped it)
+    r = _load_with_file_size_limit(tmp_path / "big.csv", db, 64_000_000)
+    assert r.returncode == 0, r.stderr
+    assert r.stdout.startswith("Loaded 60000 projects and ")
+    assert fetch(db, "SELECT count(*) FROM projects") == [(60_000,)]
