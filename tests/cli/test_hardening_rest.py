@@ -292,3 +292,70 @@ def test_a_first_load_stopped_by_a_file_size_limit_leaves_no_database(tmp_path):
     assert r.returncode == 0, r.stderr
     assert r.stdout.startswith("Loaded 60000 projects and ")
     assert fetch(db, "SELECT count(*) FROM projects") == [(60_000,)]
+
+
+# --- SIGTERM during `load` and `report` -----------------------------------------------------------
+# The signal is sent only once the process has the database open (seen in /proc/PID/fd): after
+# it has read and validated its input (load) or is building the page (report). Exit code 143 and
+# the checks after it cannot hold for a process that finished first (that one exits 0 and has
+# loaded the portfolio or written the page).
+
+ENV = {**os.environ, "PYTHONPATH": SRC, "PYTHONUNBUFFERED": "1"}
+
+
+def _has_open(pid: int, path: Path) -> bool:
+    try:
+        return any(os.readlink(f"/proc/{pid}/fd/{fd}") == str(path) for fd in os.listdir(f"/proc/{pid}/fd"))
+    except OSError:           # the process ended, or a descriptor closed while being read
+        return False
+
+
+def _terminate_once_open(args: list, db: Path) -> tuple[subprocess.Popen, str, str]:
+    proc = subprocess.Popen([sys.executable, "-m", "ratescape", *map(str, args)], stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, env=ENV)
+    deadline = time.monotonic() + 300
+    while not _has_open(proc.pid, db.resolve()):
+        assert proc.poll() is None, f"ended before opening the database: {proc.communicate()}"
+        assert time.monotonic() < deadline
+        time.sleep(0.002)
+    assert proc.poll() is None                    # still running when the signal is sent
+    proc.send_signal(signal.SIGTERM)
+    out, err = proc.communicate(timeout=300)
+    return proc, out, err
+
+
+@pytest.mark.skipif(not Path("/proc/self/fd").is_dir(), reason="needs /proc to see the open database")
+def test_sigterm_during_a_load_exits_143_and_leaves_the_database_as_it_was(tmp_path):
+    (tmp_path / "small.csv").write_text("project_id,name,first_cost,annual_benefit,benefit_basis,life\n"
+                                        "A,Alpha,100,30,real,5\n")
+    db = tmp_path / "plan.duckdb"
+    assert run("load", "--projects", tmp_path / "small.csv", "--db", db).exit_code == 0
+    before = [fetch(db, f"SELECT * FROM {t} ORDER BY ALL") for t in ("projects", "cash_flows", "loads")]
+    _big_projects(tmp_path / "big.csv")           # 60,000 projects, about 930,000 cash-flow lines
+    proc, out, err = _terminate_once_open(["load", "--projects", tmp_path / "big.csv", "--db", db], db)
+    assert proc.returncode == 143, (out, err)
+    assert err == "Interrupted (SIGTERM).\n" and out == ""
+    assert [fetch(db, f"SELECT * FROM {t} ORDER BY ALL") for t in ("projects", "cash_flows", "loads")] == before
+
+
+@pytest.fixture(scope="module")
+def report_db(tmp_path_factory):
+    d = tmp_path_factory.mktemp("report_term")
+    _big_projects(d / "p.csv", 3_000)
+    db = d / "plan.duckdb"
+    assert run("load", "--projects", d / "p.csv", "--db", db).exit_code == 0
+    r = run("screen", "--db", db, "--discount-rates", "0:0.2:21", "--inflation", "0:0.1:11", "--quiet")
+    assert r.exit_code == 0, r.output
+    return db
+
+
+@pytest.mark.skipif(not Path("/proc/self/fd").is_dir(), reason="needs /proc to see the open database")
+def test_sigterm_during_a_report_exits_143_and_leaves_no_report_file(report_db, tmp_path):
+    out_dir = tmp_path / "out"
+    out_dir.mkdir()
+    before = digest(report_db)
+    proc, out, err = _terminate_once_open(["report", "--db", report_db, "--out", out_dir / "r.html"], report_db)
+    assert proc.returncode == 143, (out, err)
+    assert err.endswith("Interrupted (SIGTERM).\n") and "Traceback" not in err, err
+    assert list(out_dir.iterdir()) == []          # neither the page nor its temporary file
+    assert digest(report_db) == before
