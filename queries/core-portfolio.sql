@@ -5,7 +5,7 @@ SELECT ps.project_id, p.name, p.group_name, round(ps.selected_share, 4) AS selec
        round(ps.selected_probability, 4) AS selected_probability, ps.in_min_max_regret,
        s.pw_base, s.accept_share
 FROM portfolio_summary ps
-JOIN projects p USING (project_id)
+JOIN run_project_names p ON p.run_id = $run AND p.project_id = ps.project_id
 JOIN project_summary s ON s.run_id = ps.run_id AND s.project_id = ps.project_id
 WHERE ps.run_id = $run AND ps.selected_share >= $min_share
 ORDER BY ps.selected_share DESC, s.pw_base DESC, ps.project_id

@@ -18,6 +18,6 @@ SELECT s.project_id, p.name, s.accepted_base, s.pw_base,
        b.lowest_failing_inflation
 FROM by_side b
 JOIN project_summary s ON s.run_id = $run AND s.project_key = b.project_key
-JOIN projects p ON p.project_id = s.project_id
+JOIN run_project_names p ON p.run_id = $run AND p.project_id = s.project_id
 WHERE b.accept_share_at_or_below - b.accept_share_above >= $min_drop - 1e-12
 ORDER BY b.accept_share_at_or_below - b.accept_share_above DESC, s.project_id

@@ -1,4 +1,4 @@
--- about: What changed between an earlier run (before) and a later run (run) of the same database, per project: acceptance share, median rank, core-portfolio membership, the preferred alternative of its group, and why where the stored inputs say so (new, removed, changed present worth at an unchanged base scenario).
+-- about: What changed between an earlier run (before) and a later run (run) of the same database, per project (named as the later run screened it, or the earlier for a removed one): acceptance share, median rank, core-portfolio membership, the preferred alternative of its group, and why where the stored inputs say so (new, removed, changed present worth at an unchanged base scenario).
 -- param: run = latest  (run id of the later run; "latest" = the newest finished run)
 -- param: before =  (run id of the earlier run)
 -- param: min_share_change = 0.05  (least change in acceptance share reported, fraction)
@@ -22,7 +22,7 @@ joined AS (
     LEFT JOIN ca ON ca.project_id = coalesce(a.project_id, b.project_id)
     LEFT JOIN cb ON cb.project_id = coalesce(a.project_id, b.project_id)
 )
-SELECT j.project_id, p.name,
+SELECT j.project_id, CASE WHEN p.project_id IS NOT NULL THEN p.name ELSE q.name END AS name,
        j.accept_share_before, j.accept_share_after, j.rank_median_before, j.rank_median_after,
        j.core_before, j.core_after,
        pb.preferred AS group_preferred_before, pa.preferred AS group_preferred_after,
@@ -32,9 +32,10 @@ SELECT j.project_id, p.name,
                  > 1e-9 * greatest(abs(j.pw_base_before), 1) THEN 'inputs changed (base-scenario worth differs)'
             ELSE NULL END AS why
 FROM joined j
-LEFT JOIN projects p ON p.project_id = j.project_id
-LEFT JOIN pref_a pa ON pa.group_name = p.group_name
-LEFT JOIN pref_b pb ON pb.group_name = p.group_name
+LEFT JOIN run_project_names p ON p.run_id = $run AND p.project_id = j.project_id
+LEFT JOIN run_project_names q ON q.run_id = $before AND q.project_id = j.project_id
+LEFT JOIN pref_a pa ON pa.group_name = coalesce(p.group_name, q.group_name)
+LEFT JOIN pref_b pb ON pb.group_name = coalesce(q.group_name, p.group_name)
 WHERE j.accept_share_before IS NULL OR j.accept_share_after IS NULL
    OR abs(j.accept_share_after - j.accept_share_before) >= $min_share_change - 1e-12
    OR abs(j.rank_median_after - j.rank_median_before) >= $min_rank_change

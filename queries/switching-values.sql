@@ -8,7 +8,7 @@ SELECT v.project_id, p.name, v.input, v.base_value, v.switching_value,
        CASE v.input WHEN 'discount_rate' THEN coalesce(r.discount_basis, 'nominal') || ' discount rate'
                     WHEN 'inflation' THEN 'inflation (' || coalesce(r.discount_basis, 'nominal') || ' discount rate held fixed)'
                     ELSE replace(v.input, '_', ' ') END AS input_label
-FROM sensitivity v JOIN projects p USING (project_id) JOIN runs r ON r.run_id = v.run_id
+FROM sensitivity v JOIN run_project_names p ON p.run_id = $run AND p.project_id = v.project_id JOIN runs r ON r.run_id = v.run_id
 WHERE v.run_id = $run AND v.switching_value IS NOT NULL AND ($input = 'any' OR v.input = $input)
 ORDER BY abs(v.switching_change), v.project_id, v.input
 LIMIT $limit

@@ -1,6 +1,7 @@
 """The Python API: the same operations as the command line, returning Polars frames."""
 from __future__ import annotations
 
+from pathlib import Path
 
 import polars as pl
 
@@ -20,11 +21,20 @@ def load_portfolio(projects, cash_flows=None, db=None, *, allow_extreme_rates: b
     info = {"projects": portfolio.projects.height, "cash_flow_rows": portfolio.cash_flows.height,
             "notes": portfolio.notes, "inputs_hash": portfolio.inputs_hash}
     if db is not None:
+        created = not Path(db).exists()
         con = connect_write(db)
         try:
             info["load_id"] = store_portfolio(con, portfolio)
-        finally:
             con.close()
+        except BaseException:
+            try:
+                con.close()
+            except Exception:
+                pass
+            if created:     # a first load that failed (e.g. at a file-size limit) leaves no database behind
+                for path in (Path(db), Path(f"{db}.wal")):
+                    path.unlink(missing_ok=True)
+            raise
     return info
 
 

@@ -65,6 +65,11 @@ class Command(click.Command):
         except Exception as exc:   # DuckDB's forms of Ctrl-C during a query, and damaged databases
             if is_interrupt(exc):
                 _interrupted(exc)
+            if isinstance(exc, duckdb.Error) and "file too large" in str(exc).lower():
+                _fail(f"the database file reached the file-size limit of this process (ulimit -f) while "
+                      f"writing ({str(exc).splitlines()[0]}); the write was rolled back and the database holds "
+                      "what it held before. Fix: raise the limit (ulimit -f unlimited) or free the quota, then "
+                      "run the command again")
             if isinstance(exc, duckdb.Error):
                 _fail(f"the database could not be read or written ({str(exc).splitlines()[0]}). Fix: if the "
                       "disk is full, free space; if the file is damaged, restore it from a copy or load the "
@@ -373,7 +378,7 @@ def _query_notes(db_path, name_or_file, params, frame, quiet) -> None:
     if quiet:
         return
     from .query import find_query, latest_run
-    from .store.database import PORTFOLIO_RELOADED, connect_read, portfolio_reloaded_since
+    from .store.database import connect_read, reloaded_note
     q = find_query(name_or_file)
     if "run" not in q.params:
         return
@@ -383,8 +388,9 @@ def _query_notes(db_path, name_or_file, params, frame, quiet) -> None:
         run_id = latest_run(con) if given in ("latest", "") else given
         if given in ("latest", ""):
             _note(f"run {run_id} (the newest finished run; give --param run=RUN_ID for another)")
-        if portfolio_reloaded_since(con, run_id):
-            _note(f"run {run_id}: {PORTFOLIO_RELOADED}")
+        note = reloaded_note(con, run_id)
+        if note:
+            _note(f"run {run_id}: {note}")
     finally:
         con.close()
     for key in q.params:

@@ -206,7 +206,7 @@ def test_older_run_after_a_reload_says_the_portfolio_changed(db, screened, tmp_p
     r = run("query", "--db", db, "accepted-everywhere")
     assert r.exit_code == 0
     assert (f"Note: run {screened['run']}: the portfolio was reloaded after this run was screened: project names "
-            "and inputs shown beside its results are today's, not necessarily those it screened") in r.stderr
+            "and groups shown are those it screened (kept with the run); today's portfolio may differ") in r.stderr
     assert run("report", "--db", db, "--out", tmp_path / "r.html").exit_code == 0
     page = (tmp_path / "r.html").read_text()
     assert "Portfolio reloaded since this run: the portfolio was reloaded after this run was screened" in page

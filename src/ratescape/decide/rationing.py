@@ -36,6 +36,8 @@ from scipy.optimize import Bounds, LinearConstraint, linprog, milp
 from ratescape.decide.rationing_problem import (
     FEASIBILITY_TOL,
     greedy_fill,
+    prerequisite_pairs,
+    prerequisites_met,
     problem_structure,
     validate_problem,
 )
@@ -239,7 +241,7 @@ def _lp_rounding_starts(prob, lp_x, cls, budgets):
 def _improve(prob, x, pw_s, ub, k, budget, max_iter=25):
     """Best-improvement local search: add one project, or swap one in for one out."""
     inv_k = prob.inv[k]
-    grp, mand, pad = prob.group, prob.mandatory, prob.prereq_pad
+    grp, mand = prob.group, prob.mandatory
     G = mand.size
     tol = np.abs(budget) * FEASIBILITY_TOL + FEASIBILITY_TOL
     x = x.copy()
@@ -254,8 +256,7 @@ def _improve(prob, x, pw_s, ub, k, budget, max_iter=25):
         taken[gi_all[gi_all >= 0]] = True
         gj = np.where(grp[outs] >= 0, grp[outs], G)
         taken[G] = False
-        pj = pad[outs]
-        pre_ok = np.all(x[np.where(pj >= 0, pj, 0)] | (pj < 0), axis=1)
+        pre_ok = prerequisites_met(prob.prereq, x[None, :], np.zeros(outs.size, dtype=np.intp), outs)
         add_ok = pre_ok & ~taken[gj] & np.all(inv_k[:, outs] <= slack[:, None], axis=0)
         if add_ok.any():
             j = outs[np.argmax(np.where(add_ok, pw_s[outs], -np.inf))]
@@ -273,8 +274,12 @@ def _improve(prob, x, pw_s, ub, k, budget, max_iter=25):
         mand_i = np.zeros(ins.size, dtype=bool)
         mand_i[gi_all >= 0] = mand[gi_all[gi_all >= 0]]
         ok &= ~mand_i[:, None] | same
-        if prob.requires.size:
-            ok &= ~np.any(pj[None, :, :] == ins[:, None, None], axis=2)
+        if prob.requires.size:      # an alternative in needs no prerequisite it would swap out
+            owner, pre = prerequisite_pairs(prob.prereq, outs)
+            pos = np.full(x.size, -1, dtype=np.intp)
+            pos[ins] = np.arange(ins.size)
+            hit = pos[pre] >= 0
+            ok[pos[pre[hit]], owner[hit]] = False
         gain = pw_s[outs][None, :] - pw_s[ins][:, None]
         ok &= gain > 1e-9 * max(1.0, float(np.abs(pw_s).max()))
         if not ok.any():

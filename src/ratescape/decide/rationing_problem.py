@@ -27,7 +27,7 @@ class RationingProblem:
     group: np.ndarray  # (P,) -1 = none
     mandatory: np.ndarray  # (G,) bool
     requires: np.ndarray  # (R, 2)
-    prereq_pad: np.ndarray  # (P, M) prerequisites of each project, -1 padded
+    prereq: sparse.csr_matrix  # (P, P): row p lists the prerequisites of project p (R entries, not P x M)
     may_be_forced: np.ndarray  # (P,) bool: in a mandatory group or a prerequisite
 
 
@@ -96,22 +96,39 @@ def validate_problem(pw, investment, budgets, scenario_class, group_index, group
         if np.any(req[:, 0] == req[:, 1]):
             raise ValueError("requires must not pair a project with itself")
         req = np.unique(req.astype(np.intp), axis=0)
-    # prerequisites of each project, padded with -1
-    counts = np.bincount(req[:, 0], minlength=P) if req.size else np.zeros(P, dtype=np.intp)
-    M = int(counts.max()) if counts.size else 0
-    pad = np.full((P, max(M, 1)), -1, dtype=np.intp)
-    if req.size:
-        order = np.argsort(req[:, 0], kind="stable")
-        dep, pre = req[order, 0], req[order, 1]
-        first = np.searchsorted(dep, dep, side="left")
-        pad[dep, np.arange(dep.size) - first] = pre
+    # prerequisites of each project as one sparse row each: memory grows with the count of pairs
+    # (a project requiring 20,000 others is 20,000 entries, not P x 20,000 padded ones)
+    prereq = sparse.csr_matrix((np.ones(req.shape[0], dtype=np.int8), (req[:, 0], req[:, 1])), shape=(P, P))
+    prereq.sort_indices()
     forced = np.zeros(P, dtype=bool)
     if G:
         in_grp = grp >= 0
         forced[in_grp] = mand[grp[in_grp]]
     if req.size:
         forced[req[:, 1]] = True
-    return RationingProblem(x, inv, cls, np.ascontiguousarray(bud), grp, mand, req, pad, forced)
+    return RationingProblem(x, inv, cls, np.ascontiguousarray(bud), grp, mand, req, prereq, forced)
+
+
+def prerequisite_pairs(prereq, projects):
+    """The prerequisites of each of ``projects`` (n,) as pairs: (owner (T,), prerequisite (T,)),
+    owner indexing ``projects``; T is the sum of their prerequisite counts."""
+    ptr, idx = prereq.indptr, prereq.indices
+    projects = np.asarray(projects, dtype=np.intp)
+    counts = ptr[projects + 1] - ptr[projects]
+    total = int(counts.sum())
+    owner = np.repeat(np.arange(projects.size), counts)
+    if total == 0:
+        return owner, np.zeros(0, dtype=np.intp)
+    start = np.repeat(ptr[projects] - (np.cumsum(counts) - counts), counts)
+    return owner, idx[start + np.arange(total)]
+
+
+def prerequisites_met(prereq, chosen, rows, projects):
+    """Whether every prerequisite of ``projects[i]`` is chosen in ``chosen[rows[i]]`` (chosen (S', P)
+    bool; rows, projects (n,)): work and memory in the count of prerequisites looked at."""
+    owner, pre = prerequisite_pairs(prereq, projects)
+    missing = ~chosen[np.asarray(rows)[owner], pre]
+    return np.bincount(owner[missing], minlength=np.size(projects)) == 0
 
 
 def problem_structure(prob):
@@ -147,7 +164,7 @@ def greedy_fill(prob, pw_sp, cls, budgets, start=None):
     """
     Sn, P = pw_sp.shape
     inv = prob.inv  # (K, B, P)
-    grp, mand, pad = prob.group, prob.mandatory, prob.prereq_pad
+    grp, mand, prereq = prob.group, prob.mandatory, prob.prereq
     G = mand.size
     tot = inv.sum(axis=1)[cls]  # (S', P) total outlay over the budget periods
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -185,8 +202,8 @@ def greedy_fill(prob, pw_sp, cls, budgets, start=None):
         r = np.flatnonzero(need)
         a = inv_t[cls[r][:, None], mem[None, :]]  # (r, m, B)
         fits = np.all(used[r][:, None, :] + a <= (budgets[r] + slack[r])[:, None, :], axis=2)
-        pm = pad[mem]  # (m, M)
-        pre_ok = np.all(chosen[r][:, np.where(pm >= 0, pm, 0)] | (pm < 0)[None], axis=2)
+        pre_ok = prerequisites_met(prereq, chosen, np.repeat(r, mem.size),
+                                   np.tile(mem, r.size)).reshape(r.size, mem.size)
         okm = fits & pre_ok
         tot_m = tot[r][:, mem]
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -201,15 +218,13 @@ def greedy_fill(prob, pw_sp, cls, budgets, start=None):
         taken[rr, g] = True
         feasible[r[~got]] = False
     n_pos = int((pw_sp > 0).sum(axis=1).max()) if Sn else 0
-    padv = pad >= 0
     for k in range(n_pos):  # sequential by nature; vectorised over scenarios
         j = order[:, k]
         ok = (pi[rows, j] > -np.inf) & ~chosen[rows, j]
         a = inv_t[cls, j]  # (S', B)
         ok &= np.all(used + a <= budgets + slack, axis=1)
         ok &= ~taken[rows, gcol[j]]
-        pj = pad[j]  # (S', M)
-        ok &= np.all(chosen[rows[:, None], np.where(padv[j], pj, 0)] | ~padv[j], axis=1)
+        ok &= prerequisites_met(prereq, chosen, rows, j)
         if not ok.any():
             continue
         r = rows[ok]

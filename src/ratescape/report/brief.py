@@ -86,8 +86,8 @@ def group_changes(ctx: RunContext) -> pl.DataFrame:
                string_agg(coalesce(p.name || ' (' || c.preferred || ')', c.preferred) || ': '
                           || CAST(round(100.0 * c.n / c.total) AS INTEGER) || ' %', '; '
                           ORDER BY c.n DESC, c.preferred) AS alternatives
-        FROM c JOIN g USING (group_name) LEFT JOIN projects p ON p.project_id = c.preferred
-        GROUP BY c.group_name ORDER BY c.group_name""", [ctx.run_id])
+        FROM c JOIN g USING (group_name) LEFT JOIN run_project_names p ON p.run_id = ? AND p.project_id = c.preferred
+        GROUP BY c.group_name ORDER BY c.group_name""", [ctx.run_id, ctx.run_id])
 
 
 def _li(text: str, href: str | None) -> str:

@@ -199,7 +199,7 @@ def explorer_data(ctx: RunContext, drill_first: Sequence[str], leaders: Sequence
     top_pw: list[list[float]] = []
     if full:
         proj = query_frame(con, f"SELECT {summary_cols}, {sel_share} AS selected_share FROM project_summary ps "
-                           "LEFT JOIN projects p ON p.project_id = ps.project_id WHERE ps.run_id = ? "
+                           "LEFT JOIN run_project_names p ON p.run_id = ps.run_id AND p.project_id = ps.project_id WHERE ps.run_id = ? "
                            "ORDER BY ps.project_key", [run_id])
         drill_ids = proj["project_id"].to_list()
     else:
@@ -216,7 +216,7 @@ def explorer_data(ctx: RunContext, drill_first: Sequence[str], leaders: Sequence
         drill_ids = _drill_choice(ctx, drill_first, leaders)
         table_keys = sorted({k for ks in top_keys for k in ks})
         proj = query_frame(con, f"SELECT {summary_cols}, {sel_share} AS selected_share FROM project_summary ps "
-                           "LEFT JOIN projects p ON p.project_id = ps.project_id WHERE ps.run_id = ? "
+                           "LEFT JOIN run_project_names p ON p.run_id = ps.run_id AND p.project_id = ps.project_id WHERE ps.run_id = ? "
                            "AND (list_contains(?, ps.project_key) OR list_contains(?, ps.project_id)) "
                            "ORDER BY ps.project_key", [run_id, table_keys, drill_ids])
     idx_of_key = {int(k): i for i, k in enumerate(proj["project_key"].to_list())}

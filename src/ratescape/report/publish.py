@@ -21,7 +21,7 @@ from ratescape.report.sections import (
     _sensitivity_sections,
     report_sections,
 )
-from ratescape.store.database import PORTFOLIO_RELOADED, connect_read, portfolio_reloaded_since
+from ratescape.store.database import connect_read, reloaded_note
 from ratescape.store.outputs import check_output_path, check_parent_folder, write_text_atomically
 
 
@@ -76,13 +76,13 @@ def write_report(
     con = connect_read(db)
     try:
         parts = report_sections(con, run_id, projects, top_n=top_n, compare_to=compare_to)
-        reloaded = portfolio_reloaded_since(con, pick_run(con, run_id)["run_id"])
+        reloaded = reloaded_note(con, pick_run(con, run_id)["run_id"])
     finally:
         con.close()
     stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
     subtitle = f"Written {stamp} from {db.name}."
     if reloaded:
-        subtitle += f" Portfolio reloaded since this run: {PORTFOLIO_RELOADED}."
+        subtitle += f" Portfolio reloaded since this run: {reloaded}."
     page = build_report_html(parts.sections, title=parts.title, subtitle=subtitle,
                              data_blocks=[json_script_block(parts.explorer, "explorer-data"),
                                           json_script_block(parts.templates, "drill-templates")],

@@ -151,7 +151,7 @@ class RunContext:
 
 def project_table(ctx: RunContext, where: str, order: str, columns: str, params: Sequence[Any],
                    limit: int) -> tuple[pl.DataFrame, int]:
-    base = (f"FROM project_summary ps LEFT JOIN projects p ON p.project_id = ps.project_id "
+    base = (f"FROM project_summary ps LEFT JOIN run_project_names p ON p.run_id = ps.run_id AND p.project_id = ps.project_id "
             f"WHERE ps.run_id = ? AND ({where})")
     count = ctx.con.execute(f"SELECT count(*) {base}", [ctx.run_id, *params]).fetchall()[0][0]
     frame = query_frame(ctx.con, f"SELECT {columns} {base} ORDER BY {order} LIMIT ?", [ctx.run_id, *params, limit])

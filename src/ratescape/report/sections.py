@@ -202,9 +202,9 @@ def _headline_sections(ctx: RunContext, top_n: int) -> tuple[list[Section], list
                              FROM selections WHERE run_id = ? GROUP BY project_id)
                 SELECT sel.project_id, p.name, sel.k / ?::DOUBLE AS selected_share,
                        count(*) FILTER (WHERE sel.k >= ?) OVER () AS core_total
-                FROM sel LEFT JOIN projects p ON p.project_id = sel.project_id
+                FROM sel LEFT JOIN run_project_names p ON p.run_id = ? AND p.project_id = sel.project_id
                 ORDER BY selected_share DESC, sel.project_id LIMIT ?""",
-                [ctx.run_id, n_port, n_port, top_n])
+                [ctx.run_id, n_port, n_port, ctx.run_id, top_n])
             n_core = int(core["core_total"][0]) if core.height else 0
             secs.append(Section(
                 "Core portfolio",
@@ -252,7 +252,7 @@ def _portfolio_chart_sections(ctx: RunContext, top_n: int) -> list[Section]:
     secs = []
     top = query_frame(ctx.con, """
         SELECT ps.project_id, p.name, ps.accept_share, count(*) OVER () AS total FROM project_summary ps
-        LEFT JOIN projects p ON p.project_id = ps.project_id
+        LEFT JOIN run_project_names p ON p.run_id = ps.run_id AND p.project_id = ps.project_id
         WHERE ps.run_id = ? AND ps.accept_share > 0 AND ps.accept_share < 1
         ORDER BY ps.accept_share DESC NULLS LAST, ps.pw_base DESC NULLS LAST, ps.project_id LIMIT ?""",
              [ctx.run_id, top_n])
@@ -295,7 +295,7 @@ def _portfolio_chart_sections(ctx: RunContext, top_n: int) -> list[Section]:
                               "discount rate; hover a line to pick it out."))
     ranks = query_frame(ctx.con, """
         SELECT ps.project_id, p.name, ps.rank_min, ps.rank_median, ps.rank_max, ps.rank_base
-        FROM project_summary ps LEFT JOIN projects p ON p.project_id = ps.project_id
+        FROM project_summary ps LEFT JOIN run_project_names p ON p.run_id = ps.run_id AND p.project_id = ps.project_id
         WHERE ps.run_id = ? AND ps.rank_median IS NOT NULL
         ORDER BY ps.rank_median, ps.project_id LIMIT ?""", [ctx.run_id, top_n])
     secs.append(Section("Rank stability",
@@ -312,7 +312,7 @@ def _portfolio_chart_sections(ctx: RunContext, top_n: int) -> list[Section]:
         else:
             sel = query_frame(ctx.con, """
                 SELECT s.project_id, p.name, count(DISTINCT s.scenario_id) / ?::DOUBLE AS selected_share
-                FROM selections s LEFT JOIN projects p ON p.project_id = s.project_id
+                FROM selections s LEFT JOIN run_project_names p ON p.run_id = s.run_id AND p.project_id = s.project_id
                 WHERE s.run_id = ? GROUP BY s.project_id, p.name
                 ORDER BY selected_share DESC, s.project_id LIMIT ?""", [n_port, ctx.run_id, top_n])
             secs.append(Section("Selection share in the budget-limited portfolio",
@@ -331,14 +331,15 @@ def _drill_sections(ctx: RunContext, ids: list[str]) -> list[Section]:
     x, y = ctx.x, ctx.y
     xs_all, ys_all = ctx.levels(x), ctx.levels(y)
     names = dict(ctx.con.execute(
-        "SELECT project_id, name FROM projects WHERE list_contains(?, project_id)", [ids]).fetchall())
+        "SELECT project_id, name FROM run_project_names WHERE run_id = ? AND list_contains(?, project_id)",
+        [ctx.run_id, ids]).fetchall())
     # worth curves: every x level, up to MAX_CURVE_LINES inflation levels
     curve_ys = thin_levels(ys_all, MAX_CURVE_LINES)
     rows, rows_params = ctx.rows(projects=ids)
     curve = query_frame(ctx.con, f"""
         SELECT r.project_id, p.name, s.{quote_ident(x)} AS {quote_ident(x)}, s.inflation, r.present_worth
         FROM {rows} r JOIN scenarios s ON s.run_id = ? AND s.scenario_id = r.scenario_id
-        LEFT JOIN projects p ON p.project_id = r.project_id
+        LEFT JOIN run_project_names p ON p.run_id = s.run_id AND p.project_id = r.project_id
         WHERE list_contains(?, s.inflation) AND {ctx.plane_filter}
         ORDER BY r.project_id, s.inflation, s.{quote_ident(x)}""",
                [*rows_params, ctx.run_id, curve_ys, *ctx.plane_params])
@@ -398,9 +399,9 @@ def _decision_sections(ctx: RunContext, ids: list[str]) -> list[Section]:
     groups = [r[0] for r in ctx.con.execute("""
         SELECT g.group_name FROM (SELECT group_name, count(DISTINCT preferred) AS k FROM group_decisions
                                   WHERE run_id = ? GROUP BY group_name) g
-        ORDER BY g.k > 1 DESC, (SELECT count(*) FROM projects p WHERE p.group_name = g.group_name
+        ORDER BY g.k > 1 DESC, (SELECT count(*) FROM run_project_names p WHERE p.run_id = ? AND p.group_name = g.group_name
                   AND list_contains(?, p.project_id)) DESC, g.group_name LIMIT ?""",
-        [ctx.run_id, ids, MAX_GROUPS]).fetchall()]
+        [ctx.run_id, ctx.run_id, ids, MAX_GROUPS]).fetchall()]
     if not groups:
         return [Section(title, unavailable=NO_GROUPS, anchor="decision-maps")]
     x, y = ctx.x, ctx.y
@@ -417,8 +418,8 @@ def _decision_sections(ctx: RunContext, ids: list[str]) -> list[Section]:
                    coalesce(pa.name || ' (' || g.preferred || ')', g.preferred) AS preferred,
                    coalesce(pb.name || ' (' || {runner} || ')', {runner}) AS runner_up, g.margin
             FROM group_decisions g JOIN scenarios s ON s.run_id = g.run_id AND s.scenario_id = g.scenario_id
-            LEFT JOIN projects pa ON pa.project_id = g.preferred
-            LEFT JOIN projects pb ON pb.project_id = {runner}
+            LEFT JOIN run_project_names pa ON pa.run_id = g.run_id AND pa.project_id = g.preferred
+            LEFT JOIN run_project_names pb ON pb.run_id = g.run_id AND pb.project_id = {runner}
             WHERE g.run_id = ? AND g.group_name = ? AND list_contains(?, s.{quote_ident(x)})
               AND list_contains(?, s.inflation) AND {ctx.plane_filter}""",
                    [ctx.run_id, group, sx, sy, *ctx.plane_params])
@@ -456,7 +457,7 @@ def _sensitivity_sections(ctx: RunContext, ids: list[str]) -> list[Section]:
         if base_col and {"input", "worth_low", "worth_high"} <= cols:
             tor = query_frame(ctx.con, f"""
                 SELECT t.project_id, p.name, t.input, t.worth_low, t.worth_high, t.{base_col} AS base_worth
-                FROM sensitivity t LEFT JOIN projects p ON p.project_id = t.project_id
+                FROM sensitivity t LEFT JOIN run_project_names p ON p.run_id = t.run_id AND p.project_id = t.project_id
                 WHERE t.run_id = ? AND list_contains(?, t.project_id)
                   AND t.worth_low IS NOT NULL AND t.worth_high IS NOT NULL
                 ORDER BY t.project_id, t.input""", [ctx.run_id, ids])
@@ -465,7 +466,7 @@ def _sensitivity_sections(ctx: RunContext, ids: list[str]) -> list[Section]:
         if table in ctx.tables and {"input", change, "present_worth"} <= set(column_names(ctx.con, table)):
             sp = query_frame(ctx.con, f"""
                 SELECT t.project_id, p.name, t.input, t.{change} AS pct_change, t.present_worth
-                FROM {table} t LEFT JOIN projects p ON p.project_id = t.project_id
+                FROM {table} t LEFT JOIN run_project_names p ON p.run_id = t.run_id AND p.project_id = t.project_id
                 WHERE t.run_id = ? AND list_contains(?, t.project_id)
                 ORDER BY t.project_id, t.input, t.{change}""", [ctx.run_id, ids])
             break

@@ -222,7 +222,7 @@ def _group_extras(con, plan) -> dict:
         SELECT p.project_id, p.terminal_value,
                coalesce(p.salvage, (SELECT sum(amount) FROM cash_flows c WHERE c.project_id = p.project_id
                                     AND c.kind = 'salvage'), 0) AS salvage,
-               coalesce(s.measure_status = 'cost-only', false) AS cost_only
+               coalesce(starts_with(s.measure_status, 'cost-only'), false) AS cost_only
         FROM projects p LEFT JOIN project_summary s ON s.run_id = ? AND s.project_id = p.project_id
         WHERE p.group_name <> ''""", [plan.run_id]).fetchall()
     return {pid: (tv, float(salvage), bool(cost_only)) for pid, tv, salvage, cost_only in rows}

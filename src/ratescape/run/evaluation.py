@@ -248,7 +248,10 @@ def own_horizon(A_by_role: np.ndarray) -> np.ndarray:
 
 
 def _per_period_to_annual(rate, m: float):
-    return np.power(1.0 + rate, m) - 1.0
+    """(1 + rate)^m - 1; a rate whose annual form exceeds the largest double is +inf (stored NULL
+    with the status 'overflow', see run/write.py), without a warning on standard error."""
+    with np.errstate(over="ignore"):
+        return np.power(1.0 + rate, m) - 1.0
 
 
 def chunk_worths(plan: Plan, A_by_role: np.ndarray) -> tuple:

@@ -56,3 +56,29 @@ def write_run_notes(con, plan: Plan) -> None:
         notes["working_capital"] = RECOVERY_NOTE.format(n=unrecovered)
     for topic, note in notes.items():
         con.execute("INSERT OR REPLACE INTO run_notes VALUES (?, ?, ?)", [plan.run_id, topic, note])
+
+
+OVERFLOW_NOTE = (
+    "{what} too large for double precision (beyond about 1.8e308): stored as NULL, never as infinity, "
+    "with the status 'overflow' ({where}). Typical cause: an IRR of hundreds of percent a period stated per "
+    "year with many periods a year, or amounts near the load limit at late periods.")
+
+
+def write_overflow_note(con, run_id: str) -> str | None:
+    """Count the run's results stored NULL because they overflowed and say so under the topic
+    "overflow" (none: no note); return the note."""
+    projects = con.execute("SELECT count(*) FROM project_summary WHERE run_id = ? AND "
+                           "contains(measure_status, 'overflow')", [run_id]).fetchone()[0]
+    irr_rows = con.execute("SELECT count(*) FROM irr_results WHERE run_id = ? AND status = 'overflow'",
+                           [run_id]).fetchone()[0]
+    if not projects and not irr_rows:
+        return None
+    what = " and ".join(part for part in (
+        f"{projects:,} project(s) had a measure" if projects else "",
+        f"{irr_rows:,} IRR row(s) (project and inflation level) had a rate of return" if irr_rows else "") if part)
+    where = "; ".join(part for part in (
+        "project_summary.measure_status names the measures" if projects else "",
+        "irr_results.status" if irr_rows else "") if part)
+    note = OVERFLOW_NOTE.format(what=what, where=where)
+    con.execute("INSERT OR REPLACE INTO run_notes VALUES (?, 'overflow', ?)", [run_id, note])
+    return note

@@ -38,7 +38,7 @@ from ratescape.run.read import ChunkReader
 from ratescape.run.write import ChunkWriter, arrow_floats
 from ratescape.settings import RunSettings
 from ratescape.store.database import append_rows, is_interrupt, transaction
-from ratescape.run.notes import write_run_notes
+from ratescape.run.notes import write_overflow_note, write_run_notes
 from ratescape.store.worth_files import WorthFiles, worth_files_folder
 
 
@@ -68,9 +68,12 @@ def _finalize(con, plan: Plan, writer: "ChunkWriter | None" = None, reader=None)
             "scenario_id": pa.array(np.arange(plan.scenarios.size, dtype=np.int32)),
             **{k: arrow_floats(v) for k, v in agreement.items()}}), plan.run_id)
         decide_run(con, plan)
+        overflow = write_overflow_note(con, plan.run_id)
         con.execute("UPDATE runs SET status = 'done', finished_at = ?, message = NULL WHERE run_id = ?",
                     [utc_now(), plan.run_id])
     log(f"decisions and summaries stored in {time.perf_counter() - t0:.1f} s")
+    if overflow:
+        log(f"note: {overflow}")
     # The run is done: its worth files are deleted (freeing gigabytes of cached pages takes the
     # kernel a second or two) while DuckDB checkpoints the run into the database file, which
     # closing the connection would otherwise do afterwards.
@@ -154,6 +157,9 @@ def screen(con, spec: RunSettings | None = None, *, resume: str | None = None, c
                 run_id, utc_now(), __version__, inputs_hash, spec.to_json(), spec.discount_basis, spec.timing,
                 float(spec.periods_per_year), bool(spec.after_tax), plan.project_count, S,
                 plan.scenarios.base_index, plan.chunk_size, plan.chunk_count, os.getpid()])
+            # the portfolio this run screens, as its queries and report will name it after a reload
+            con.execute("INSERT INTO run_projects SELECT ?, project_id, project_key, name, group_name, category "
+                        "FROM projects", [run_id])
             for topic, note in notes.items():
                 con.execute("INSERT OR REPLACE INTO run_notes VALUES (?, ?, ?)", [run_id, topic, note]).fetchall()
             con.register("new_scenarios", scen)

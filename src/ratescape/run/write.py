@@ -21,6 +21,25 @@ from ratescape.store.worth_files import BEFORE_TAX
 
 SWITCH_LABELS = {0: "one", 1: "several", 2: "none", 3: "at_base"}
 
+#: Status of a result too large for double precision (beyond about 1.8e308, e.g. an IRR of 900 %
+#: a day stated per year): stored NULL, never as infinity, with this word saying why
+#: (``irr_results.status``; ``project_summary.measure_status`` names the measures).
+OVERFLOW = "overflow"
+
+
+def overflow_status(summary: dict, P: int) -> np.ndarray:
+    """``measure_status`` (P,) with the measures of each project that came out infinite named:
+    'overflow: mirr_base, ...' (after 'cost-only; ' for a cost-only project). Such a value is
+    stored NULL; NaN stays what it means elsewhere (the measure does not exist)."""
+    status = summary.get("measure_status")
+    status = np.full(P, None, dtype=object) if status is None else np.asarray(status, dtype=object).copy()
+    infinite = {k: np.isinf(np.asarray(v, dtype=float)) for k, v in summary.items()
+                if k != "measure_status" and np.asarray(v).dtype.kind == "f"}
+    for p in np.flatnonzero(np.any(np.array(list(infinite.values())).reshape(-1, P), axis=0)) if infinite else ():
+        named = f"{OVERFLOW}: " + ", ".join(k for k, v in infinite.items() if v[p])
+        status[p] = named if status[p] is None else f"{status[p]}; {named}"
+    return status
+
 
 def arrow_labels(codes, names) -> pa.DictionaryArray:
     """A text column from integer codes into ``names`` (DuckDB stores it as VARCHAR) without
@@ -43,19 +62,24 @@ class ChunkTables:
     projects: int
 
 
-def _irr_status(irr) -> pa.DictionaryArray:
-    """IRR status labels; rows of cost-only projects read 'cost-only' (see run/cost_only.py)."""
-    rows = irr.cost_only
-    if rows is None or not np.any(rows):
-        return arrow_labels(irr.status, STATUS_LABELS)
-    names = list(STATUS_LABELS) + [COST_ONLY]
-    return arrow_labels(np.where(rows, len(names) - 1, np.asarray(irr.status).astype(int)), names)
+def _irr_status(irr, overflow=None) -> pa.DictionaryArray:
+    """IRR status labels; rows of cost-only projects read 'cost-only' (see run/cost_only.py), rows
+    whose one root is too large for double precision once stated per year (or in real terms)
+    read 'overflow' (the IRR columns are NULL)."""
+    names = list(STATUS_LABELS) + [COST_ONLY, OVERFLOW]
+    codes = np.asarray(irr.status).astype(int)
+    if irr.cost_only is not None and np.any(irr.cost_only):
+        codes = np.where(irr.cost_only, len(names) - 2, codes)
+    if overflow is not None and np.any(overflow):
+        codes = np.where(overflow, len(names) - 1, codes)
+    return arrow_labels(codes, names)
 
 
 def chunk_tables(plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out: dict) -> ChunkTables:
     """Arrow tables of one evaluated chunk's per-project results; also writes its worth files,
     from which the rank pass and the result-row writer read."""
     P = out["pw"].shape[1]
+    out["summary"]["measure_status"] = overflow_status(out["summary"], P)
     summary = pa.table({"project_id": pa.array(ids.tolist(), type=pa.string()),
                         "project_key": pa.array(np.arange(first, first + P, dtype=np.int32)),
                         **{k: pa.array(v, mask=~np.isfinite(v) if np.asarray(v).dtype.kind == "f" else None)
@@ -68,16 +92,21 @@ def chunk_tables(plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out:
     count = np.asarray(irr.count)
     unique_root = np.where(count == 1, roots_nominal[:, 0] if roots_nominal.shape[1] else np.nan, np.nan)
     f_rows = np.repeat(levels, P)
+    with np.errstate(over="ignore", invalid="ignore"):
+        unique_real = (1 + unique_root) / (1 + f_rows) - 1
+    overflow = (count == 1) & ~(np.isfinite(unique_root) & np.isfinite(unique_real))
     irr_table = pa.table({
         "project_id": arrow_labels(np.tile(np.arange(P), F), ids),
         "inflation": pa.array(f_rows),
         "root_count": pa.array(count.astype(np.int32)),
         "irr_nominal": arrow_floats(unique_root),
-        "irr_real": arrow_floats((1 + unique_root) / (1 + f_rows) - 1),
-        "status": _irr_status(irr),
+        "irr_real": arrow_floats(unique_real),
+        "status": _irr_status(irr, overflow),
         "sign_changes": pa.array(np.asarray(irr.sign_changes).astype(np.int32)),
     })
-    rr, kk = np.nonzero(np.isfinite(roots_nominal))
+    with np.errstate(over="ignore", invalid="ignore"):
+        finite_real = np.isfinite((1 + roots_nominal) / (1 + f_rows[:, None]) - 1)
+    rr, kk = np.nonzero(np.isfinite(roots_nominal) & finite_real)     # a root too large is not listed
     roots_table = pa.table({
         "project_id": arrow_labels(np.tile(np.arange(P), F)[rr], ids),
         "inflation": pa.array(f_rows[rr]),

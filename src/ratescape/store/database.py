@@ -132,10 +132,20 @@ def connect_read(path: str | Path) -> duckdb.DuckDBPyConnection:
     try:
         con.execute(f"SET memory_limit = '{READ_MEMORY_LIMIT}'")   # large joins spill instead of growing
         _check_version_readable(con, path)
+        _name_runs_of_older_databases(con)
     except BaseException:
         con.close()
         raise
     return con
+
+
+def _name_runs_of_older_databases(con) -> None:
+    """A database written before ``run_projects`` has no ``run_project_names`` view and a read-only
+    connection cannot add it: a temporary one names every run from today's projects."""
+    from .schema import RUN_PROJECT_NAMES_FALLBACK
+    present = {r[0] for r in con.execute("SELECT table_name FROM information_schema.tables").fetchall()}
+    if "run_project_names" not in present and {"runs", "projects"} <= present:
+        con.execute(RUN_PROJECT_NAMES_FALLBACK)
 
 
 def is_interrupt(exc: BaseException) -> bool:
@@ -197,9 +207,23 @@ def append_rows(con, table: str, rows, run_id: str) -> None:
 PORTFOLIO_RELOADED = ("the portfolio was reloaded after this run was screened: project names and inputs shown "
                       "beside its results are today's, not necessarily those it screened")
 
+#: The same for a run that kept the names of the portfolio it screened (run_projects).
+PORTFOLIO_RELOADED_KEPT = ("the portfolio was reloaded after this run was screened: project names and groups "
+                           "shown are those it screened (kept with the run); today's portfolio may differ")
+
 
 def portfolio_reloaded_since(con, run_id: str) -> bool:
     """True when the database's current portfolio (latest load) is not the one ``run_id`` screened."""
     row = con.execute("SELECT r.inputs_hash, (SELECT l.inputs_hash FROM loads l ORDER BY l.load_id DESC LIMIT 1) "
                       "FROM runs r WHERE r.run_id = ?", [run_id]).fetchall()
     return bool(row) and row[0][0] is not None and row[0][0] != row[0][1]
+
+
+def reloaded_note(con, run_id: str) -> str | None:
+    """What to say of ``run_id`` when the portfolio was reloaded since it (None when it was not):
+    whether the names shown are the run's own or today's."""
+    if not portfolio_reloaded_since(con, run_id):
+        return None
+    kept = con.execute("SELECT bool_or(from_snapshot) FROM run_project_names WHERE run_id = ?",
+                       [run_id]).fetchall()
+    return PORTFOLIO_RELOADED_KEPT if kept and kept[0][0] else PORTFOLIO_RELOADED

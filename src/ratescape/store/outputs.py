@@ -64,6 +64,9 @@ def os_error_message(exc: OSError, path, action: str = "write") -> str:
     code = exc.errno
     if code == errno.ENOSPC or code == errno.EDQUOT:
         why, fix = "the disk is full", "free some space (or choose a folder on another disk) and run again"
+    elif code == errno.EFBIG:
+        why, fix = ("the file would exceed the file-size limit of this process (ulimit -f)",
+                    "raise the limit (ulimit -f unlimited) and run again")
     elif code in (errno.EROFS, errno.EACCES, errno.EPERM):
         why, fix = "the location is read-only or not writable by you", "choose a folder you can write to"
     elif code == errno.ENOENT:

@@ -28,6 +28,13 @@ TABLES = {
         periods_per_year DOUBLE, after_tax BOOLEAN, project_count INTEGER, scenario_count INTEGER,
         base_scenario_id INTEGER, chunk_size INTEGER, chunk_count INTEGER, chunks_done INTEGER,
         process_id INTEGER, message VARCHAR)""",
+    # The portfolio a run screened, as its queries and report name it: one row per project, written
+    # in the run's first transaction (INSERT ... SELECT from projects), so a later load that reuses
+    # the ids under new names leaves the older run's names as they were. Read through the view
+    # run_project_names, which falls back to today's projects for runs made before this table.
+    "run_projects": """CREATE TABLE IF NOT EXISTS run_projects (
+        run_id VARCHAR NOT NULL, project_id VARCHAR NOT NULL, project_key INTEGER, name VARCHAR,
+        group_name VARCHAR, category VARCHAR)""",
     "run_chunks": """CREATE TABLE IF NOT EXISTS run_chunks (
         run_id VARCHAR NOT NULL, chunk_index INTEGER NOT NULL, first_project_key INTEGER, last_project_key INTEGER,
         result_rows BIGINT, finished_at TIMESTAMP, seconds DOUBLE, PRIMARY KEY (run_id, chunk_index))""",
@@ -132,6 +139,19 @@ TABLES = {
 }
 
 
+RUN_PROJECT_NAMES_VIEW = """CREATE OR REPLACE VIEW run_project_names AS
+        SELECT run_id, project_id, name, group_name, category, true AS from_snapshot FROM run_projects
+        UNION ALL
+        SELECT r.run_id, p.project_id, p.name, p.group_name, p.category, false
+        FROM runs r CROSS JOIN projects p
+        WHERE NOT EXISTS (SELECT 1 FROM run_projects k WHERE k.run_id = r.run_id)"""
+
+#: For a read-only connection to a database written before run_projects: the same names, from
+#: today's projects, as a temporary view (nothing is written to the file).
+RUN_PROJECT_NAMES_FALLBACK = """CREATE OR REPLACE TEMP VIEW run_project_names AS
+        SELECT r.run_id, p.project_id, p.name, p.group_name, p.category, false AS from_snapshot
+        FROM runs r CROSS JOIN projects p"""
+
 VIEWS = {
     # Every stored result row, whichever physical table holds it (see result_rows_pw above).
     "result_rows": """CREATE OR REPLACE VIEW result_rows AS
@@ -157,12 +177,17 @@ VIEWS = {
         JOIN scenarios s ON s.scenario_key = x.scenario_key
         JOIN project_summary ps ON ps.run_id = s.run_id AND ps.project_key = x.project_key
         JOIN annual_factors f ON f.scenario_key = x.scenario_key AND f.horizon = ps.horizon""",
+    # The names and groups each run screened: its own snapshot (run_projects), or, for a run made
+    # before snapshots were kept, today's projects (the `runs` query then says whether the
+    # portfolio was reloaded since).
+    "run_project_names": RUN_PROJECT_NAMES_VIEW,
 }
 
 
 # A word each view's current definition has and its earlier ones lack: a stored view without it
 # is replaced (databases written before investment_worth, or before result_rows_after_tax).
-VIEW_MARKERS = {"result_rows": "result_rows_after_tax", "results": "investment_worth"}
+VIEW_MARKERS = {"result_rows": "result_rows_after_tax", "results": "investment_worth",
+                "run_project_names": "from_snapshot"}
 
 
 # Columns added within schema version 2 (table, column, type): a database written before gains them, empty.
