@@ -6,6 +6,7 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
+import time
 from pathlib import Path
 
 import numpy as np
@@ -33,6 +34,24 @@ def run_id_from(proc: subprocess.Popen) -> str:
         if line.startswith("run run-"):
             return line.split()[1].rstrip(":")
     raise AssertionError("screen ended before logging its run id")
+
+
+def signal_after(launch, delay: float, sig, attempts: int = 4):
+    """Start a process with ``launch()`` (it returns the Popen and whatever the trial needs), wait
+    ``delay`` seconds and send ``sig`` while the process still runs. A process that finished first
+    (a busy machine does not keep the timing the delay was drawn from) is started again, by
+    ``launch()`` (which restores what the trial compares against), with half the delay, up to
+    ``attempts`` times; then the trial fails, since it would test nothing. Returns (proc, extra, delay)."""
+    for _ in range(attempts):
+        proc, extra = launch()
+        time.sleep(delay)
+        if proc.poll() is None:
+            proc.send_signal(sig)
+            return proc, extra, delay
+        proc.communicate()
+        delay /= 2
+    raise AssertionError(f"the process finished before the signal in {attempts} attempts (last delay {delay:.3f} s); "
+                         "the trial would test nothing")
 
 
 def signal_running(proc: subprocess.Popen, sig) -> None:

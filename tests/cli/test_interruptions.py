@@ -26,7 +26,7 @@ import time
 from pathlib import Path
 
 import pytest
-from cli.processes import (finish, projects_csv, run_id_from, same_rows, signal_running,   # tests/ on sys.path
+from cli.processes import (finish, projects_csv, run_id_from, same_rows, signal_after, signal_running,   # tests/ on sys.path
                            start)
 from helpers import fetch
 
@@ -88,11 +88,13 @@ def _seconds_after_planning(err: str) -> float:
 @pytest.mark.parametrize("trial,sig", [(0, signal.SIGINT), (1, signal.SIGKILL), (2, signal.SIGINT), (3, signal.SIGKILL)])
 def test_interrupted_load_leaves_old_or_new_portfolio_whole(work, trial, sig, tmp_path):
     db = tmp_path / "plan.duckdb"
-    shutil.copyfile(work["dir"] / "old.duckdb", db)
+
+    def launch():
+        shutil.copyfile(work["dir"] / "old.duckdb", db)
+        return start("load", "--projects", work["dir"] / "new.csv", "--db", db), None
+
     delay = RNG.uniform(0.2, 0.65) * work["load_seconds"]   # start-up, reading, validating or writing
-    proc = start("load", "--projects", work["dir"] / "new.csv", "--db", db)
-    time.sleep(delay)
-    signal_running(proc, sig)
+    proc, _, delay = signal_after(launch, delay, sig)
     out, err = proc.communicate(timeout=60)
     assert proc.returncode == (130 if sig == signal.SIGINT else -signal.SIGKILL), (delay, proc.returncode, err[-800:])
     state = fetch(db, "SELECT (SELECT count(*) FROM projects), (SELECT count(*) FROM cash_flows), "
@@ -112,11 +114,13 @@ COMPARED = (("results", "project_id, scenario_id", "present_worth, annual_worth,
 @pytest.mark.parametrize("trial,sig", [(0, signal.SIGINT), (1, signal.SIGKILL), (2, signal.SIGKILL), (3, signal.SIGINT)])
 def test_interrupted_screen_is_truthful_and_resumes_exactly(work, trial, sig):
     db = work["screen_db"]
-    proc = start("screen", "--db", db, *GRID)   # not --quiet: the log line naming the run is read
-    run_id = run_id_from(proc)
+
+    def launch():
+        proc = start("screen", "--db", db, *GRID)   # not --quiet: the log line naming the run is read
+        return proc, run_id_from(proc)
+
     delay = RNG.uniform(0.05, 0.5) * work["screen_seconds"]   # within the first half of the run's work
-    time.sleep(delay)
-    signal_running(proc, sig)
+    proc, run_id, delay = signal_after(launch, delay, sig)
     out, err = proc.communicate(timeout=60)
     status, done, count = fetch(db, "SELECT status, chunks_done, chunk_count FROM runs WHERE run_id = ?", [run_id])[0]
     chunks = fetch(db, "SELECT count(*) FROM run_chunks WHERE run_id = ?", [run_id])[0][0]
@@ -154,13 +158,15 @@ def _first_report(work) -> Path:
 @pytest.mark.parametrize("trial,sig", [(0, signal.SIGKILL), (1, signal.SIGINT)])
 def test_interrupted_report_leaves_no_partial_page(work, trial, sig, tmp_path):
     out = tmp_path / "report.html"
-    shutil.copyfile(_first_report(work), out)
-    old = out.read_bytes()
+    old = _first_report(work).read_bytes()
     assert _complete(old)
+
+    def launch():
+        out.write_bytes(old)
+        return start("report", "--db", work["screen_db"], "--run", work["reference"], "--out", out), None
+
     delay = RNG.uniform(0.15, 0.45) * work["report_seconds"]
-    proc = start("report", "--db", work["screen_db"], "--run", work["reference"], "--out", out)
-    time.sleep(delay)
-    signal_running(proc, sig)
+    proc, _, delay = signal_after(launch, delay, sig)
     _, err = proc.communicate(timeout=60)
     assert proc.returncode == (130 if sig == signal.SIGINT else -signal.SIGKILL), (delay, proc.returncode, err[-800:])
     page = out.read_bytes()
