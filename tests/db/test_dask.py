@@ -59,3 +59,34 @@ def test_unreachable_scheduler_is_a_clear_error(tmp_path):
     load_portfolio(tmp_path / "p.csv", None, db)
     with pytest.raises(RatescapeError, match="cannot reach the Dask scheduler"):
         screen_portfolio(db, discount_rates="0.1", inflation="0", cluster="tcp://127.0.0.1:9")
+
+
+def test_workers_run_ships_chunks_once_without_large_graph_warning(tmp_path):
+    """Issue 16 part 4: with --workers N each chunk's arrays are scattered (sent once, as data) and
+    the task graph only names them, so the scheduler's "Sending large graph" UserWarning is not
+    raised even with its threshold lowered below one chunk's size; results equal a one-process run."""
+    import warnings
+
+    import dask
+
+    (tmp_path / "p.csv").write_text("\n".join(PROJECTS) + "\n")
+    db = tmp_path / "plan.duckdb"
+    load_portfolio(tmp_path / "p.csv", None, db)
+    args = dict(discount_rates="0:0.2:5", inflation="0:0.1:3", chunk_size=20)
+    single = screen_portfolio(db, **args)
+    # a chunk's amounts: 20 projects x up to 15 periods x line classes, 8 bytes each: several kB
+    with dask.config.set({"distributed.admin.large-graph-warning-threshold": "2kB"}):
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            spread = screen_portfolio(db, workers=2, **args)
+    large = [w for w in caught if "large graph" in str(w.message)]
+    assert large == []
+    for table, order in (("results", "project_id, scenario_id"), ("project_summary", "project_id")):
+        a, b = rows(db, single, table, order), rows(db, spread, table, order)
+        assert len(a) == len(b) > 0
+        for ra, rb in zip(a, b):
+            for va, vb in zip(ra, rb):
+                if isinstance(va, float) and vb is not None:
+                    assert vb == pytest.approx(va, rel=1e-12, abs=1e-9)
+                else:
+                    assert va == vb

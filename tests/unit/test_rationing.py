@@ -225,3 +225,48 @@ def test_validation_errors_name_shapes():
         ration_capital(LS_PV[:, None], inv, LS_BUDGETS, requires=[(0, 0)])
     with pytest.raises(ValueError, match="group_index"):
         ration_capital(LS_PV[:, None], inv, LS_BUDGETS, group_index=[0, 1])
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_blocks_on_two_processes_match_brute_force_and_one_process(seed):
+    """Issue 16 part 2: scenarios solved in blocks, side by side on two processes, give the same
+    selections as one process, and every objective is within the stated gap of the brute-force
+    optimum (enumeration of all 2^P portfolios), the stored gap saying so."""
+    rng = np.random.default_rng(100 + seed)
+    P, S, K = 10, 12, 3
+    pw, inv, budgets, group, mandatory, req, cls = _random_problem(rng, P, S, K=K)
+    kw = dict(scenario_class=cls, group_index=group, group_mandatory=mandatory, requires=req)
+    one = ration_capital(pw, inv, budgets, processes=1, block_size=5, **kw)
+    two = ration_capital(pw, inv, budgets, processes=2, block_size=5, **kw)
+    whole = ration_capital(pw, inv, budgets, processes=1, block_size=S, **kw)   # one block, as before
+    np.testing.assert_array_equal(one.selected, two.selected)
+    np.testing.assert_array_equal(one.status, two.status)
+    np.testing.assert_array_equal(one.mip_gap, two.mip_gap)
+    for s in range(S):
+        bf_val, bf_x = brute_force(pw[:, s], inv[cls[s]], budgets, group, mandatory, req)
+        if bf_x is None:
+            assert one.status[s] == STATUS_INFEASIBLE == whole.status[s]
+            continue
+        for res in (one, whole):
+            assert res.status[s] == STATUS_OPTIMAL
+            assert res.objective[s] <= bf_val + 1e-9
+            assert bf_val - res.objective[s] <= 1e-3 * abs(res.objective[s]) + 1e-9
+            assert 0 <= res.mip_gap[s] <= 1e-3 + 1e-15
+            assert res.lp_bound[s] >= bf_val - 1e-9        # the LP bound bounds the true optimum
+        assert one.objective[s] == pytest.approx(whole.objective[s], rel=1e-3, abs=1e-9)
+
+
+def test_stored_gap_holds_when_the_solver_gap_is_on_a_reduced_objective():
+    """The gap stored for every scenario is at most mip_rel_gap of that scenario's objective, also
+    after reduced-cost fixing (the solver then measures its gap on the objective of the free
+    projects only); the exact optimum (mip_rel_gap=0) bounds every objective from above."""
+    rng = np.random.default_rng(7)
+    P, S = 60, 4
+    pw, inv, budgets, group, mandatory, req, cls = _random_problem(rng, P, S, K=1, G=5, R=5)
+    kw = dict(group_index=group, group_mandatory=mandatory, requires=req)
+    res = ration_capital(pw, inv[0], budgets, **kw)
+    exact = ration_capital(pw, inv[0], budgets, mip_rel_gap=0.0, **kw)
+    ok = res.status == STATUS_OPTIMAL
+    assert ok.all()
+    assert np.all(res.mip_gap <= 1e-3)
+    assert np.all(exact.objective - res.objective <= res.mip_gap * np.abs(res.objective) + 1e-9)

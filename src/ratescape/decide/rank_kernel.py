@@ -32,6 +32,7 @@ from numba import njit
 
 
 _RUN = 32   # elements insertion-sorted before merging
+ZERO = np.int64(0)   # a typed 0, not a literal: one compiled signature per callee
 
 
 @njit(cache=True, nogil=True)
@@ -145,11 +146,11 @@ def _ranks_and_tau(values, base_order, group_start, n_valid, base_tied_pairs, ra
                 _merge_sort(y, idx, lo, hi, tmp_y, tmp_i)
                 if hi <= n_valid:
                     both_tied += _tied_pairs(y, lo, hi)
-        discordant = _merge_sort(y, idx, 0, n_valid, tmp_y, tmp_i)
-        scenario_tied = _tied_pairs(y, 0, n_valid)
+        discordant = _merge_sort(y, idx, ZERO, n_valid, tmp_y, tmp_i)
+        scenario_tied = _tied_pairs(y, ZERO, n_valid)
         if n_valid < P:                                    # projects without a base value: ranked, not in tau
             _merge_sort(y, idx, n_valid, P, tmp_y, tmp_i)
-            _merge_sort(y, idx, 0, P, tmp_y, tmp_i)
+            _merge_sort(y, idx, ZERO, P, tmp_y, tmp_i)
         start = 0
         for k in range(P):
             if k > 0 and y[k] != y[k - 1]:

@@ -86,6 +86,11 @@ METHOD_MILP_FIXED = 2  # MILP after reduced-cost fixing
 METHOD_NONE = -1  # infeasible LP: nothing to solve
 
 
+#: distinct scenarios solved as one block (one pool of earlier optima). The split depends only on
+#: the number of distinct scenarios, so the answer is the same whatever the number of processes.
+BLOCK_SIZE = 256
+
+
 @dataclass(frozen=True)
 class RationingResult:
     """Per-scenario capital rationing results (all arrays indexed by scenario first).
@@ -211,7 +216,7 @@ def _lp(prob, s, a_ub, rest_b, a_eq, b_eq):
     lp = linprog(
         -pw_s, A_ub=a_ub, b_ub=np.r_[prob.budgets[s], rest_b],
         A_eq=a_eq if has_eq else None, b_eq=b_eq if has_eq else None,
-        bounds=np.c_[np.zeros(P), ub], method="highs",
+        bounds=np.c_[np.zeros(P), ub], method="highs", options={"presolve": False},
     )
     if lp.status != 0:
         return lp.status, np.nan, None, None, None, ub, time.perf_counter() - t0
@@ -345,34 +350,42 @@ def _solve_one(prob, s, a_ub, rest_b, a_eq, b_eq, lp_info, cands, mip_rel_gap, t
         # gap on the reduced objective that means mip_rel_gap of the whole one
         red = abs(L - const)
         gap = min(0.5, max(mip_rel_gap, mip_rel_gap * abs(L) / max(red, 1e-12)))
-    opts = {"mip_rel_gap": gap}
-    if time_limit is not None:
-        opts["time_limit"] = float(time_limit)
-    res = milp(-pw_s[fidx], integrality=np.ones(fidx.size), bounds=Bounds(lb_v[fidx], ub_v[fidx]),
-               constraints=cons, options=opts)
-    x, obj = None, -np.inf
-    if res.x is not None:
-        x = ones.copy()
-        x[fidx] = res.x > 0.5
-        if _structurally_ok(prob, x[None])[0] and _feasible(prob, x[None], k, budget)[0]:
-            obj = float(pw_s[x].sum())
-        else:  # rounded solver answer not feasible (numerical trouble)
-            x = None
-    if x_inc is not None and L >= obj:
-        x, obj = x_inc, L
+    for attempt in range(2):
+        opts = {"mip_rel_gap": gap, "presolve": False}
+        if time_limit is not None:
+            opts["time_limit"] = float(time_limit)
+        res = milp(-pw_s[fidx], integrality=np.ones(fidx.size), bounds=Bounds(lb_v[fidx], ub_v[fidx]),
+                   constraints=cons, options=opts)
+        x, obj = None, -np.inf
+        if res.x is not None:
+            x = ones.copy()
+            x[fidx] = res.x > 0.5
+            if _structurally_ok(prob, x[None])[0] and _feasible(prob, x[None], k, budget)[0]:
+                obj = float(pw_s[x].sum())
+            else:  # rounded solver answer not feasible (numerical trouble)
+                x = None
+        if x_inc is not None and L >= obj:
+            x, obj = x_inc, L
+        if x is None:
+            st = {2: STATUS_INFEASIBLE, 1: STATUS_LIMIT}.get(res.status, STATUS_OTHER)
+            return None, np.nan, st, method, time.perf_counter() - t0
+        bound = U
+        if res.status == 0 and res.mip_dual_bound is not None and np.isfinite(res.mip_dual_bound):
+            bound = min(U, max(obj, const - res.mip_dual_bound))
+        excess = bound - obj - mip_rel_gap * max(abs(obj), 1e-12)
+        if res.status != 0 or excess <= 0 or attempt:
+            break
+        # the solver's gap is relative to its own (reduced) objective: solve again with a
+        # tolerance small enough that the gap proven is within mip_rel_gap of this objective
+        gap = max(0.0, 0.5 * gap * mip_rel_gap * max(abs(obj), 1e-12) / max(bound - obj, 1e-300))
     seconds = time.perf_counter() - t0
-    if x is None:
-        st = {2: STATUS_INFEASIBLE, 1: STATUS_LIMIT}.get(res.status, STATUS_OTHER)
-        return None, np.nan, st, method, seconds
-    bound = U
-    if res.status == 0 and res.mip_dual_bound is not None and np.isfinite(res.mip_dual_bound):
-        bound = min(U, max(obj, const - res.mip_dual_bound))
     return x, bound, (STATUS_OPTIMAL if res.status == 0 else STATUS_LIMIT), method, seconds
 
 
 def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=None,
                    group_mandatory=None, requires=None, mip_rel_gap=1e-3, time_limit=None,
-                   reuse_identical=True, pool_size=32, quiet=True):
+                   reuse_identical=True, pool_size=32, quiet=True, processes=None,
+                   block_size=BLOCK_SIZE):
     """Best portfolio of projects under period budgets, in every scenario.
 
     Parameters
@@ -417,6 +430,13 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
     quiet : bool, optional
         Silence text that the solver writes to standard output during the
         solve (default True).
+    processes : int, optional
+        Processes that solve blocks of scenarios side by side (default:
+        2, or 1 on a one-core machine; 1 solves in this process). The
+        answer does not depend on it.
+    block_size : int, optional
+        Distinct scenarios per block (default 256); each block keeps its
+        own pool of earlier optima.
 
     Returns
     -------
@@ -498,6 +518,76 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
         uniq = np.arange(S)
         solved_as = np.arange(S)
 
+    n_u = uniq.size
+    blocks = _blocks(n_u, block_size)
+    args = (mip_rel_gap, time_limit, pool_size, quiet)
+    workers = _worker_count(processes, len(blocks))
+    if workers > 1:
+        parts = _solve_blocks_in_processes(prob, uniq, blocks, args, workers)
+    else:
+        parts = [_solve_block(prob, uniq[blk], *args) for blk in blocks]
+    sel_u, lp_u, bound_u, st_u, meth_u, sec_u, ok_u, g_sel, g_ok = (np.concatenate(x) for x in zip(*parts))
+
+    # back to all scenarios
+    pos = np.empty(S, dtype=np.intp)
+    pos[uniq] = np.arange(n_u)
+    idx = pos[solved_as]
+    selected = sel_u[idx]
+    ok = ok_u[idx]
+    objective = np.where(ok, np.einsum("sp,ps->s", selected.astype(float), prob.pw), np.nan)
+    bound = bound_u[idx]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        gap = np.where(ok, (bound - objective) / np.maximum(np.abs(objective), 1e-300), np.nan)
+    gap = np.where(ok & (bound - objective <= 0), 0.0, gap)
+    greedy_sel = g_sel[idx]
+    greedy_obj = np.where(g_ok[idx], np.einsum("sp,ps->s", greedy_sel.astype(float), prob.pw), np.nan)
+    used = np.einsum("sbp,sp->sb", prob.inv[prob.cls], selected.astype(float)) if S * B * P <= 5e7 else \
+        _used_by_class(prob, selected)
+    seconds = np.where(solved_as == np.arange(S), sec_u[idx], 0.0)
+    return RationingResult(
+        selected=selected,
+        objective=objective,
+        lp_bound=lp_u[idx],
+        mip_gap=gap,
+        greedy_selected=greedy_sel,
+        greedy_objective=greedy_obj,
+        budget_used=used,
+        solve_seconds=seconds,
+        status=st_u[idx],
+        method=meth_u[idx],
+        solved_as=solved_as,
+    )
+
+
+def _blocks(n, block_size):
+    """Split range(n) into ceil(n / block_size) contiguous blocks of near-equal size."""
+    count = max(1, -(-n // max(1, int(block_size))))
+    return [blk for blk in np.array_split(np.arange(n), count) if blk.size] or [np.arange(0)]
+
+
+def _worker_count(processes, n_blocks):
+    """Processes to use: ``processes`` (None: 2, or 1 on a one-core machine), at most one per block."""
+    if processes is None:
+        processes = min(2, os.cpu_count() or 1)
+    return max(1, min(int(processes), n_blocks))
+
+
+def _solve_blocks_in_processes(prob, uniq, blocks, args, workers):
+    """Solve the blocks on ``workers`` forked processes (here, one after another, where fork is missing)."""
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+    if "fork" not in multiprocessing.get_all_start_methods() or multiprocessing.current_process().daemon:
+        return [_solve_block(prob, uniq[blk], *args) for blk in blocks]
+    with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("fork")) as ex:
+        futures = [ex.submit(_solve_block, prob, uniq[blk], *args) for blk in blocks]
+        return [f.result() for f in futures]
+
+
+def _solve_block(prob, uniq, mip_rel_gap, time_limit, pool_size, quiet):
+    """Solve the distinct scenarios ``uniq`` in order, with one pool of earlier optima.
+
+    Returns per-scenario arrays of length ``uniq.size``: selection, LP bound, proven bound,
+    status, method, seconds, solved, greedy selection, greedy feasible."""
     a_ub, rest_b, a_eq, b_eq = problem_structure(prob)
     pw_u = prob.pw[:, uniq].T  # (U, P)
     cls_u = prob.cls[uniq]
@@ -505,6 +595,7 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
     g_sel, g_ok = greedy_fill(prob, pw_u, cls_u, bud_u)
 
     n_u = uniq.size
+    P = prob.pw.shape[0]
     sel_u = np.zeros((n_u, P), dtype=bool)
     lp_u = np.full(n_u, np.nan)
     bound_u = np.full(n_u, np.nan)
@@ -553,36 +644,7 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
                 pool.append(x)
                 if len(pool) > pool_size:
                     pool.pop(0)
-
-    # back to all scenarios
-    pos = np.empty(S, dtype=np.intp)
-    pos[uniq] = np.arange(n_u)
-    idx = pos[solved_as]
-    selected = sel_u[idx]
-    ok = ok_u[idx]
-    objective = np.where(ok, np.einsum("sp,ps->s", selected.astype(float), prob.pw), np.nan)
-    bound = bound_u[idx]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        gap = np.where(ok, (bound - objective) / np.maximum(np.abs(objective), 1e-300), np.nan)
-    gap = np.where(ok & (bound - objective <= 0), 0.0, gap)
-    greedy_sel = g_sel[idx]
-    greedy_obj = np.where(g_ok[idx], np.einsum("sp,ps->s", greedy_sel.astype(float), prob.pw), np.nan)
-    used = np.einsum("sbp,sp->sb", prob.inv[prob.cls], selected.astype(float)) if S * B * P <= 5e7 else \
-        _used_by_class(prob, selected)
-    seconds = np.where(solved_as == np.arange(S), sec_u[idx], 0.0)
-    return RationingResult(
-        selected=selected,
-        objective=objective,
-        lp_bound=lp_u[idx],
-        mip_gap=gap,
-        greedy_selected=greedy_sel,
-        greedy_objective=greedy_obj,
-        budget_used=used,
-        solve_seconds=seconds,
-        status=st_u[idx],
-        method=meth_u[idx],
-        solved_as=solved_as,
-    )
+    return sel_u, lp_u, bound_u, st_u, meth_u, sec_u, ok_u, g_sel, g_ok
 
 
 def _used_by_class(prob, selected):

@@ -12,6 +12,12 @@ from numba import njit
 from .compiled import ANCHOR_STEPS
 
 _EPS = np.finfo(float).eps
+# arguments passed as typed NumPy scalars, not Python literals: Numba compiles a callee once per
+# literal value it is called with, and these kernels are compiled on a run's first use
+ORDER_WORTH = np.int64(0)     # _refine: root of the worth itself
+ORDER_SLOPE = np.int64(1)     # _refine: root of its derivative
+CROSSING = np.bool_(False)    # _add_root: a root where the worth changes sign
+TOUCHING = np.bool_(True)     # _add_root: a touching (double) root
 
 
 @njit(cache=True, nogil=True)
@@ -282,10 +288,10 @@ def _monotone_piece(a, L, k, p, q, sa, sb, maxiter, roots, touch, n, cap, m):
         return -1
     if sa == sb:
         return n
-    x, ok = _refine(a, L, k, p, q, 0, sa, maxiter, m)
+    x, ok = _refine(a, L, k, p, q, ORDER_WORTH, sa, maxiter, m)
     if not ok:
         return -2
-    return _add_root(x, False, roots, touch, n, cap)
+    return _add_root(x, CROSSING, roots, touch, n, cap)
 
 
 @njit(cache=True, nogil=True)
@@ -350,7 +356,7 @@ def _cell_roots(a, L, u0, u1, touch_tol, maxcells, maxiter, roots, touch, cap):
             la = abs(ma[2]) - cerr * ma[6]
             lb = abs(mb[2]) - cerr * mb[6]
             if la + lb > B3 * h:
-                us, ok = _refine(a, L, k, p, q, 1, s1a, maxiter, m)
+                us, ok = _refine(a, L, k, p, q, ORDER_SLOPE, s1a, maxiter, m)
                 if not ok:
                     return 0, 2
                 _moments(a, L, k, us, m)
@@ -358,7 +364,7 @@ def _cell_roots(a, L, u0, u1, touch_tol, maxcells, maxiter, roots, touch, cap):
                 if s0a != 0 and s0a == s0b and (ss == 0 or (ss == s0a and abs(m[0]) <= touch_tol * m[4])):
                     # the worth reaches zero (to rounding, or within touch_tol) without crossing:
                     # a touching (double) root at the extremum u*
-                    n = _add_root(us, True, roots, touch, n, cap)
+                    n = _add_root(us, TOUCHING, roots, touch, n, cap)
                     if n < 0:
                         return 0, 1
                     continue

@@ -2,7 +2,9 @@
 
 The screen stage reads each chunk's cash flows from DuckDB and writes its results
 back in this process (one writer); only the pure evaluation (``evaluate_chunk``)
-moves to the workers. Results are written in chunk order, so a cluster run stores
+moves to the workers. The plan travels once to every worker (scattered with
+``broadcast=True``); each chunk's arrays travel once, scattered to the worker that
+evaluates the chunk, so no task carries data in its graph. Results are written in chunk order, so a cluster run stores
 the same rows as a single-process run (values equal up to the floating-point
 summation order of the workers' BLAS).
 """
@@ -64,14 +66,22 @@ class DaskEvaluator:
         except OSError as exc:
             raise RatescapeError(f"cannot reach the Dask scheduler {address!r}: {exc}. Fix: start it with "
                                  "`dask scheduler` and its workers with `dask worker ADDRESS`") from None
-        n = max(1, len(self.client.scheduler_info().get("workers", {})))
+        self.workers = sorted(self.client.scheduler_info().get("workers", {}))   # chunks go round them
+        self.turn = -1
+        n = max(1, len(self.workers))
         self.in_flight = in_flight or 2 * n
         self.fn = fn
         self.plan_future = self.client.scatter(plan, broadcast=True)
         self.pending = deque()
 
     def submit(self, key, A, horizon):
-        self.pending.append((key, self.client.submit(self.fn, self.plan_future, A, horizon, pure=False)))
+        # the chunk's arrays travel once, to the worker that will evaluate them, as data of their
+        # own (scattered); the task then names them, so the task graph stays a few hundred bytes
+        # and the scheduler does not warn about a large graph
+        self.turn += 1
+        target = [self.workers[self.turn % len(self.workers)]] if self.workers else None
+        data = self.client.scatter([A, horizon], workers=target, hash=False)
+        self.pending.append((key, self.client.submit(self.fn, self.plan_future, *data, pure=False)))
 
     def ready(self):
         while len(self.pending) >= self.in_flight:
