@@ -485,3 +485,15 @@ def test_decisions_settings_are_checked(db, tmp_path, setting, message):
     grid.write_text(f"[decisions]\n{setting}\n")
     with pytest.raises(RatescapeError, match=message):
         screen_portfolio(db, grid=grid, discount_rates="0:0.2:3", inflation="0:0.1:2")
+
+
+def test_an_infinite_profitability_index_is_named_in_the_measure_status():
+    """A PI too large for a double in any scenario (a vanishing investment) is stored NULL, and the
+    project's measure_status names it (issue 17, item 6: never a silent NULL). Common practice: a
+    ratio with a zero denominator has no value."""
+    from ratescape.run.write import overflow_status
+    pi = np.array([[1.5, np.nan, 2.0], [np.inf, np.nan, 3.0]])          # (S, P): project 0 overflows once
+    summary = {"pw_base": np.array([1.0, 2.0, 3.0]), "mirr_base": np.array([0.1, np.inf, 0.2]),
+               "measure_status": np.array([None, "cost-only", None], dtype=object)}
+    status = overflow_status(summary, 3, {"profitability_index": pi})
+    assert status.tolist() == ["overflow: profitability_index", "cost-only; overflow: mirr_base", None]

@@ -27,14 +27,17 @@ SWITCH_LABELS = {0: "one", 1: "several", 2: "none", 3: "at_base"}
 OVERFLOW = "overflow"
 
 
-def overflow_status(summary: dict, P: int) -> np.ndarray:
+def overflow_status(summary: dict, P: int, per_scenario: dict | None = None) -> np.ndarray:
     """``measure_status`` (P,) with the measures of each project that came out infinite named:
     'overflow: mirr_base, ...' (after 'cost-only; ' for a cost-only project). Such a value is
-    stored NULL; NaN stays what it means elsewhere (the measure does not exist)."""
+    stored NULL; NaN stays what it means elsewhere (the measure does not exist).
+    ``per_scenario``: name -> (S, P) results (the profitability index of the result rows), named
+    when infinite in any scenario."""
     status = summary.get("measure_status")
     status = np.full(P, None, dtype=object) if status is None else np.asarray(status, dtype=object).copy()
     infinite = {k: np.isinf(np.asarray(v, dtype=float)) for k, v in summary.items()
                 if k != "measure_status" and np.asarray(v).dtype.kind == "f"}
+    infinite.update({k: np.isinf(v).any(axis=0) for k, v in (per_scenario or {}).items() if v is not None})
     for p in np.flatnonzero(np.any(np.array(list(infinite.values())).reshape(-1, P), axis=0)) if infinite else ():
         named = f"{OVERFLOW}: " + ", ".join(k for k, v in infinite.items() if v[p])
         status[p] = named if status[p] is None else f"{status[p]}; {named}"
@@ -79,7 +82,7 @@ def chunk_tables(plan: Plan, chunk_index: int, first: int, ids: np.ndarray, out:
     """Arrow tables of one evaluated chunk's per-project results; also writes its worth files,
     from which the rank pass and the result-row writer read."""
     P = out["pw"].shape[1]
-    out["summary"]["measure_status"] = overflow_status(out["summary"], P)
+    out["summary"]["measure_status"] = overflow_status(out["summary"], P, {"profitability_index": out.get("pi")})
     summary = pa.table({"project_id": pa.array(ids.tolist(), type=pa.string()),
                         "project_key": pa.array(np.arange(first, first + P, dtype=np.int32)),
                         **{k: pa.array(v, mask=~np.isfinite(v) if np.asarray(v).dtype.kind == "f" else None)
