@@ -23,7 +23,9 @@ Assumptions (screening level; state them with every after-tax result):
   income in that year (common practice for a profitable firm), so the tax
   effect of every line is tau_s times its amount. For a stand-alone project
   :func:`after_tax_cash_flows_carry_forward` carries losses forward instead.
-* Taxes are paid at the end of the year in which the income arises.
+* Tax falls at the same point of the period as the flow it arises from (the end of the year
+  under end-of-period timing; see the README, "After-tax screening", for the mid and beginning
+  conventions and the reason).
 * Depreciation is fixed in nominal money (a share of historical cost), so
   inflation erodes the value of the tax shield.
 * The whole gain on disposal (depreciation recapture and any gain above cost)
