@@ -122,6 +122,29 @@ def test_real_lines_frontier_is_fisher_line():
     assert independent_roots(fr, worth_at, x, y) == len(fr)
 
 
+def test_densifier_asks_worth_only_inside_the_grid_box():
+    # a wide grid whose lower inflation edge sits at -99 %: outside the box the
+    # worth model has no meaning (inflation at or below -100 %), as the run's
+    # kernel refuses; the densifier's transversals that leave the box are dropped
+    # without asking for their worth (a past crash with --allow-extreme-rates)
+    alts = [[(A_FLOWS, "real", 0.0)], [(B_FLOWS, "real", 0.0)]]
+    inner = make_worth_at(alts)
+    x = np.linspace(0.0, 3.0, 31)
+    y = np.linspace(-0.99, 0.5, 31)
+
+    def worth_at(px, py):
+        px, py = np.asarray(px, float), np.asarray(py, float)
+        outside = (px < x[0] - 1e-12) | (px > x[-1] + 1e-12) | (py < y[0] - 1e-12) | (py > y[-1] + 1e-12)
+        if np.any(outside):
+            raise ValueError(f"worth asked outside the grid box at {px[outside][:3]}, {py[outside][:3]}")
+        return inner(px, py)
+
+    fr = indifference_frontier(x, y, None, worth_at, densify=2)
+    assert len(fr) > 0 and np.any(fr.kind == KIND_TRANSVERSAL)
+    # common practice (Fisher relation): on real lines the frontier is 1 + i = (1 + r*)(1 + f)
+    np.testing.assert_allclose(fr.x, (1 + CROSSOVER) * (1 + fr.y) - 1, rtol=0, atol=1e-10)
+
+
 def test_three_alternatives_meet_at_triple_point():
     # 0 = do nothing, 1 = nominal-money project (worth independent of f),
     # 2 = real-money project. PW1 = 0 at i = IRR1; PW2 = 0 at

@@ -578,8 +578,13 @@ def _densify(eng, rows, n_extra):
             w = eng.worth_xy(x[0] + np.ravel(zx) * hx, y[0] + np.ravel(zy) * hy)
             return (w[a] - w[b]).reshape(shape)
 
-        d0 = np.where(inside, diff_z(su, sv), np.nan)
-        d1 = np.where(inside, diff_z(su + tu, sv + tv), np.nan)
+        # worths only inside the grid box: outside it a rate can leave the model's domain
+        # (an inflation at or below -100 % on a wide grid), and those points are unused anyway
+        d0 = np.full(su.size, np.nan)
+        d1 = np.full(su.size, np.nan)
+        if np.any(inside):
+            d0[inside] = diff_z(su[inside], sv[inside])
+            d1[inside] = diff_z(su[inside] + tu[inside], sv[inside] + tv[inside])
         t = np.full(su.size, np.nan)
         ok = np.zeros(su.size, bool)
         br = inside & (np.sign(d0) * np.sign(d1) < 0)
