@@ -169,3 +169,128 @@ def test_run_with_loans_has_the_cost_of_equity_note_and_one_without_has_not(tmp_
     assert "loans" not in notes(without, screened(without, "--tax-rate", "0.3"))
     assert "tax" in notes(without, screened(without, "--tax-rate", "0.3"))
     assert notes(without, screened(without)) == {}           # before tax, no loans: no tax or loans note
+
+
+# Project Z (invented): a contract whose benefit is fixed in nominal money and escalates by 4 % a
+# period by contract (a nominal line with escalation), so its taxable income grows by 1.04^t whatever
+# the inflation; year 1 is a loss that a stand-alone project carries forward.
+ESCALATED_FLOWS = """project_id,period,amount,basis,escalation,kind
+Z,0,-90000,real,0,investment
+Z,1,5000,nominal,0.04,benefit
+Z,2,45000,nominal,0.04,benefit
+Z,3,70000,nominal,0.04,benefit
+"""
+ESCALATED_PROJECTS = PROJECTS.replace("X,Start-up line", "Z,Escalating contract")
+
+
+def flows_z(tax, carry):
+    """After-tax then-current flows of Z, year by year (straight line 30,000 a year over 3 years;
+    loss carried forward without expiry: Internal Revenue Code section 172, mechanism only)."""
+    out, carried = [-90000.0], 0.0
+    for year, benefit in ((1, 5000.0), (2, 45000.0), (3, 70000.0)):
+        cash = benefit * 1.04 ** year
+        taxable = cash - 30000.0
+        if carry:
+            used = min(carried, max(taxable, 0.0))
+            paid = tax * max(taxable - used, 0.0)
+            carried += max(-taxable, 0.0) - used
+        else:
+            paid = tax * taxable
+        out.append(cash - paid)
+    return out
+
+
+def test_carried_losses_follow_a_nominal_lines_contractual_escalation(tmp_path):
+    import numpy_financial as npf
+    db = loaded(tmp_path, ESCALATED_PROJECTS, ESCALATED_FLOWS)
+    run_id = screened(db, "--tax-rate", "0.3", "--losses", "carry-forward")
+    got = worths(db, run_id, "Z")
+    # the nominal line does not move with inflation: the same worth at f = 0 and f = 0.05
+    for f in (0.0, 0.05):
+        assert got[f] == pytest.approx(npf.npv(0.1, flows_z(0.3, carry=True)), rel=1e-12)   # numpy-financial
+    assert got[0.0] < npf.npv(0.1, flows_z(0.3, carry=False))   # the carried loss saves its tax later
+
+
+def flows_x(f, tax, carry):
+    """Project X's after-tax then-current flows at inflation f, the same year-by-year table as table_x."""
+    out, carried = [-90000.0], 0.0
+    for year, benefit in ((1, 10000.0), (2, 40000.0), (3, 60000.0)):
+        cash = benefit * (1 + f) ** year
+        taxable = cash - 30000.0
+        used = min(carried, max(taxable, 0.0)) if carry else 0.0
+        carried += (max(-taxable, 0.0) - used) if carry else 0.0
+        out.append(cash - tax * (max(taxable - used, 0.0) if carry else taxable))
+    return out
+
+
+def test_irr_and_mirr_include_the_carried_losses(tmp_path):
+    import numpy_financial as npf
+    from scipy.optimize import brentq
+    db = loaded(tmp_path)
+    run_id = screened(db, "--tax-rate", "0.3", "--losses", "carry-forward")
+    con = duckdb.connect(str(db), read_only=True)
+    try:
+        irr = dict(con.execute("SELECT round(inflation, 9), irr_nominal FROM irr_results WHERE run_id = ? "
+                               "AND project_id = 'X'", [run_id]).fetchall())
+        mirr = con.execute("SELECT mirr_base FROM project_summary WHERE run_id = ? AND project_id = 'X'",
+                           [run_id]).fetchone()[0]
+        base_f = con.execute("SELECT inflation FROM scenarios WHERE run_id = ? AND is_base", [run_id]).fetchone()[0]
+    finally:
+        con.close()
+    assert table_x(0.1, 0.05, 0.3, True) == pytest.approx(npf.npv(0.1, flows_x(0.05, 0.3, True)), rel=1e-13)
+    for f in (0.0, 0.05):
+        # the IRR is the rate at which the stored (carried-forward) worth is zero: SciPy's brentq on
+        # the year-by-year table, cross-checked with numpy-financial's irr
+        carried = brentq(lambda i, f=f: npf.npv(i, flows_x(f, 0.3, True)), 0.0, 0.5, xtol=1e-14)
+        offset = brentq(lambda i, f=f: npf.npv(i, flows_x(f, 0.3, False)), 0.0, 0.5, xtol=1e-14)
+        assert carried == pytest.approx(npf.irr(flows_x(f, 0.3, True)), abs=1e-9)
+        assert irr[f] == pytest.approx(carried, abs=1e-9)
+        assert abs(carried - offset) > 1e-4       # the check can tell the two treatments apart
+    assert mirr == pytest.approx(npf.mirr(flows_x(base_f, 0.3, True), 0.1, 0.1), abs=1e-12)   # numpy-financial
+
+
+GROUP_PROJECTS = ("project_id,name,group,depreciation_method,recovery_years\n"
+                  "X,Start-up line,line,straight-line,3\n"
+                  "W,Steady line,line,straight-line,3\n")
+GROUP_FLOWS = CASH_FLOWS + """W,0,-60000,real,0,investment
+W,1,26000,real,0,benefit
+W,2,26000,real,0,benefit
+W,3,26000,real,0,benefit
+"""
+
+
+def flows_w(f, tax):
+    """W's after-tax then-current flows: taxable 26,000 (1+f)^t - 20,000 > 0 every year (no loss)."""
+    return [-60000.0] + [26000.0 * (1 + f) ** t - tax * (26000.0 * (1 + f) ** t - 20000.0) for t in (1, 2, 3)]
+
+
+def test_decision_map_frontier_uses_the_carried_losses(tmp_path):
+    import numpy_financial as npf
+    db = loaded(tmp_path, GROUP_PROJECTS, GROUP_FLOWS)
+    out = run("screen", "--db", db, "--discount-rates", "0.02:0.3:15", "--inflation", "0:0.08:5", "--tax-rate", "0.3",
+              "--losses", "carry-forward", "--quiet")
+    assert out.exit_code == 0, out.output
+    run_id = out.stdout.strip().splitlines()[-1]
+    con = duckdb.connect(str(db), read_only=True)
+    try:
+        pts = con.execute("""SELECT x, y FROM frontiers WHERE run_id = ? AND x_axis = 'discount_rate'
+                             AND y_axis = 'inflation' AND alternative_a IN ('X', 'W')
+                             AND alternative_b IN ('X', 'W')""", [run_id]).fetchall()
+        unconverged = con.execute("SELECT count(*) FROM frontiers WHERE run_id = ? AND NOT converged",
+                                  [run_id]).fetchone()[0]
+        # the group's preferred alternative in each scenario is the one the results table ranks first
+        disagree = con.execute("""
+            WITH best AS (SELECT scenario_id, arg_max(project_id, present_worth) AS top, max(present_worth) AS pw
+                          FROM results WHERE run_id = ? GROUP BY scenario_id)
+            SELECT count(*) FROM group_decisions g JOIN best b USING (scenario_id)
+            WHERE g.run_id = ? AND g.preferred <> CASE WHEN b.pw >= 0 THEN b.top ELSE g.preferred END""",
+                               [run_id, run_id]).fetchone()[0]
+    finally:
+        con.close()
+    assert len(pts) >= 5 and unconverged == 0 and disagree == 0
+    for i, f in pts:
+        # on the frontier the two stand-alone after-tax worths (numpy-financial's npv of the
+        # year-by-year tables, losses carried forward) are equal; with the loss offset at once they are not
+        x_carried, w = npf.npv(i, flows_x(f, 0.3, True)), npf.npv(i, flows_w(f, 0.3))
+        assert x_carried == pytest.approx(w, abs=1e-6 * max(abs(w), 1.0)), (i, f)
+        assert abs(npf.npv(i, flows_x(f, 0.3, False)) - w) > 1.0

@@ -80,6 +80,17 @@ class LineClass:
             return tau
         return np.minimum(tau, tau[min(self.frozen_at, tau.size - 1)])
 
+    def then_current_growth(self, inflation: np.ndarray, exponents: np.ndarray) -> np.ndarray:
+        """Factors (F, T) from an amount as written to its then-current money at each inflation level.
+
+        Real: ((1 + e)(1 + f))^g_t with g the growth exponents (frozen classes stop growing);
+        nominal: the contractual (1 + e)^tau_t, the same at every inflation level."""
+        f = np.atleast_1d(np.asarray(inflation, dtype=float))
+        tau = np.asarray(exponents, dtype=float)
+        if self.basis == "real":
+            return np.exp(np.multiply.outer(np.log1p(f) + np.log1p(self.escalation), self.growth_exponents(tau)))
+        return np.broadcast_to(np.exp(np.log1p(self.escalation) * tau), (f.size, tau.size)).copy()
+
     def __post_init__(self):
         if self.basis not in ("real", "nominal"):
             raise ValueError(f"basis must be 'real' or 'nominal', got {self.basis!r}")
@@ -288,10 +299,7 @@ def then_current_streams(amounts: np.ndarray, classes: Sequence[LineClass], expo
     multipliers = dict(multipliers or {})
     growth = np.empty((len(classes), f.size, tau.size))
     for c, cls in enumerate(classes):
-        if cls.basis == "real":
-            g = np.exp(np.multiply.outer(np.log1p(f) + np.log1p(cls.escalation), cls.growth_exponents(tau)))  # (F, T)
-        else:
-            g = np.broadcast_to(np.exp(np.log1p(cls.escalation) * tau), (f.size, tau.size)).copy()
+        g = cls.then_current_growth(f, tau)                                          # (F, T)
         if cls.multiplier != "one":
             g = g * multiplier_values(cls.multiplier, multipliers, f.shape)[:, None]
         growth[c] = g

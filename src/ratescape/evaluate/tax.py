@@ -64,6 +64,7 @@ __all__ = [
     "tax_immediate_offset",
     "after_tax_cash_flows_carry_forward",
     "carry_forward_adjustment",
+    "carried_loss_streams",
 ]
 
 MULTIPLIERS = ("one", "after_tax", "tax")
@@ -540,21 +541,63 @@ def after_tax_cash_flows_carry_forward(taxable_income, tax_rate, *, offset_limit
     return paid
 
 
-def carry_forward_adjustment(amounts, classes, exponents, discount_rate, inflation, multipliers):
-    """Present worth (S, P) to add to the linear after-tax worth when losses are carried forward.
+def carried_loss_streams(amounts, classes, exponents, inflation, multipliers):
+    """Then-current tax deferral (tau x_t - tax paid_t) (P, U, T) of stand-alone projects that
+    carry their losses forward, at each of U points (inflation, tax rate, scaling multipliers).
 
-    The engine's after-tax worth taxes every line linearly (tax = tau x, a loss saving tax at
-    once against the firm's other income). For a stand-alone project a loss is instead carried
-    forward (:func:`after_tax_cash_flows_carry_forward`), so its worth is the linear worth plus
-    the present worth of (tau x_t - tax paid_t).
+    Under the engine's linear tax a loss x_t < 0 saves tau |x_t| at once; carried forward
+    (:func:`after_tax_cash_flows_carry_forward`), the saving waits for the project's own later
+    profits. Adding this stream to the linear after-tax then-current stream gives the stand-alone
+    project's after-tax stream; its present worth is :func:`carry_forward_adjustment`.
 
     Parameters
     ----------
     amounts : (C, P, T) [currency] lines by class (after-tax lines included).
     classes : C ``LineClass``; a class whose multiplier contains ``after_tax`` is taxable income
         (times its other multiplier parts), one whose multiplier is ``tax`` a deduction; others
-        (investment, loan principal, working capital, tax credits) are not taxable.
-    exponents : (T,) [years]; discount_rate, inflation : (S,) nominal rate and inflation.
+        (investment, loan principal, working capital, tax credits) are not taxable. Each class
+        grows to then-current money as the present worth grows it
+        (:meth:`LineClass.then_current_growth`: real lines with inflation and escalation, nominal
+        lines by their contractual escalation only).
+    exponents : (T,) [years]; inflation : (U,) [fraction per year].
+    multipliers : name -> (U,) values, with ``tax`` (the income-tax rate, fraction).
+
+    Returns
+    -------
+    ndarray (P, U, T) [then-current currency], >= 0 (tax paid later than the linear tax assumes).
+    """
+    from .compiled import class_weighted_streams
+    from .kernel import multiplier_values
+
+    A = np.asarray(amounts, dtype=float)
+    C, P, T = A.shape
+    tau = np.asarray(exponents, dtype=float)
+    f = np.atleast_1d(np.asarray(inflation, dtype=float))
+    U = f.size
+    tax = np.broadcast_to(np.asarray(multipliers["tax"], dtype=float), (U,))
+    weight = np.zeros((C, U, T))
+    for c, cls in enumerate(classes):                    # a handful of classes
+        parts = cls.multiplier.split("*")
+        if "after_tax" in parts:
+            sign = multiplier_values("*".join(p for p in parts if p != "after_tax") or "one", multipliers, (U,))
+        elif cls.multiplier == "tax":
+            sign = -np.ones(U)
+        else:
+            continue
+        weight[c] = sign[:, None] * cls.then_current_growth(f, tau)
+    income = class_weighted_streams(A, weight).transpose(1, 0, 2)          # (P, U, T)
+    paid = after_tax_cash_flows_carry_forward(income, tax)
+    return income * tax[None, :, None] - paid
+
+
+def carry_forward_adjustment(amounts, classes, exponents, discount_rate, inflation, multipliers):
+    """Present worth (S, P) to add to the linear after-tax worth when losses are carried forward:
+    the present worth of :func:`carried_loss_streams`.
+
+    Parameters
+    ----------
+    amounts, classes, exponents : as :func:`carried_loss_streams`.
+    discount_rate, inflation : (S,) nominal rate and inflation [fractions per year].
     multipliers : name -> (S,) per-scenario values, with ``tax``.
 
     Returns
@@ -563,48 +606,25 @@ def carry_forward_adjustment(amounts, classes, exponents, discount_rate, inflati
 
     Notes
     -----
-    Taxable income x_t (then-current money) depends on the scenario only through inflation, the
-    tax rate and the scaling multipliers; it is built once per distinct combination U of these
-    (a loop over U, vectorised over projects), carried forward with a loop over periods, and
-    discounted for every scenario of the combination by one matrix product.
+    Taxable income depends on the scenario only through inflation, the tax rate and the scaling
+    multipliers; the streams are built once per distinct combination U of these, carried forward
+    with a loop over periods, and discounted for every scenario of its combination by one matrix
+    product (a loop over U, vectorised over projects and scenarios).
     """
-    from .kernel import multiplier_values
-
-    A = np.asarray(amounts, dtype=float)
-    C, P, T = A.shape
-    tau = np.asarray(exponents, dtype=float)
     i = np.asarray(discount_rate, dtype=float)
     f = np.asarray(inflation, dtype=float)
     S = i.size
     names = sorted({part for c in classes for part in c.multiplier.split("*")} - {"one", "after_tax", "tax"})
-    tax = np.asarray(multipliers["tax"], dtype=float)
-    keys = np.column_stack([f, tax] + [np.asarray(multipliers[n], dtype=float) for n in names])
+    keys = np.column_stack([f, np.broadcast_to(np.asarray(multipliers["tax"], dtype=float), (S,))]
+                           + [np.broadcast_to(np.asarray(multipliers[n], dtype=float), (S,)) for n in names])
     combos, which = np.unique(keys, axis=0, return_inverse=True)
     which = which.ravel()
-    U = combos.shape[0]
-    point = {n: combos[:, 2 + k] for k, n in enumerate(names)}
-    weight = np.zeros((C, U, T))
-    for c, cls in enumerate(classes):                    # a handful of classes
-        parts = cls.multiplier.split("*")
-        if "after_tax" in parts:
-            sign = multiplier_values("*".join(p for p in parts if p != "after_tax") or "one", point, (U,))
-        elif cls.multiplier == "tax":
-            sign = -np.ones(U)
-        else:
-            continue
-        if cls.basis == "real":
-            growth = np.exp(np.multiply.outer(np.log1p(combos[:, 0]) + np.log1p(cls.escalation),
-                                              cls.growth_exponents(tau)))
-        else:
-            growth = np.ones((U, T))
-        weight[c] = sign[:, None] * growth
-    from .compiled import class_weighted_streams
-    income = class_weighted_streams(A, weight).transpose(1, 0, 2)          # (P, U, T)
-    paid = after_tax_cash_flows_carry_forward(income, combos[:, 1])
-    extra = income * combos[None, :, 1, None] - paid                         # tax no longer saved at once
-    V = np.exp(-np.multiply.outer(np.log1p(i), tau))                         # (S, T)
+    point = {"tax": combos[:, 1], **{n: combos[:, 2 + k] for k, n in enumerate(names)}}
+    extra = carried_loss_streams(amounts, classes, exponents, combos[:, 0], point)   # (P, U, T)
+    V = np.exp(-np.multiply.outer(np.log1p(i), np.asarray(exponents, dtype=float)))  # (S, T)
+    P = extra.shape[0]
     out = np.empty((S, P))
-    for u in range(U):                                                       # distinct (inflation, tax, ...) levels
+    for u in range(combos.shape[0]):                                         # distinct (inflation, tax, ...) levels
         rows = np.flatnonzero(which == u)
         out[rows] = V[rows] @ extra[:, u, :].T
     return out

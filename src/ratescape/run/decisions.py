@@ -39,6 +39,8 @@ from ratescape.evaluate.kernel import (
     present_worth_classes,
     then_current_streams,
 )
+from ratescape.evaluate.tax import carry_forward_adjustment
+from ratescape.run.evaluation import carries_losses
 from ratescape.run.plan import AFTER_TAX_ONLY_CLASS, TAX_SHIELD_CLASS, multiplier_for, scenario_multipliers
 from ratescape.run.progress import log
 from ratescape.run.ranks import result_block
@@ -199,6 +201,7 @@ def _point_evaluator(plan, y_axis: str, classes=None, years=None):
     base = plan.scenarios.base_index
     f_base = float(cols["inflation"][base])
     x_is_nominal = plan.spec.discount_basis == "nominal"
+    carried = carries_losses(plan)
 
     def worth(A, x, y):
         x = np.asarray(x, dtype=float)
@@ -212,6 +215,8 @@ def _point_evaluator(plan, y_axis: str, classes=None, years=None):
         elif y_axis in ("cost_multiplier", "benefit_multiplier"):
             mult[y_axis] = y
         w = present_worth_classes(A, discount_tensor(classes, plan.exponents, i, f, mult))
+        if carried:                     # the grid's worths carry each alternative's losses forward too
+            w = w + carry_forward_adjustment(A, classes, plan.exponents, i, f, mult).T
         return w if years is None else annual_worth(w, years, (1.0 + i) / (1.0 + f) - 1.0)
     return worth
 
@@ -256,11 +261,21 @@ def _study_period_group(plan, A, invest, horizon, extras):
 def _group_measure(plan, A, invest, horizon, extras, basis, tv_tensor):
     """The decision measure (A, S) of a group, the amounts and classes the frontier evaluates, the
     annual-worth lives (or None) and the terminal values (or None)."""
+    def carried(amounts, classes):
+        """(A, S) worth of each alternative's losses carried forward (zero unless the run carries them),
+        so that the group decides on the worths the results table holds."""
+        if not carries_losses(plan):
+            return 0.0
+        cols = plan.scenarios.columns
+        return carry_forward_adjustment(amounts, classes, plan.exponents, cols["discount_rate"], cols["inflation"],
+                                        scenario_multipliers(plan.scenarios, True)).T
+
     if basis == "study-period":
         A2, tv_class, terminal = _study_period_group(plan, A, invest, horizon, extras)
         tensor = np.concatenate([plan.tensor, tv_tensor()])
-        return present_worth_classes(A2, tensor), A2, plan.classes + [tv_class], None, terminal
-    pw = present_worth_classes(A, plan.tensor)                        # (A, S)
+        classes = plan.classes + [tv_class]
+        return present_worth_classes(A2, tensor) + carried(A2, classes), A2, classes, None, terminal
+    pw = present_worth_classes(A, plan.tensor) + carried(A, plan.classes)   # (A, S)
     if basis == "annual-worth":
         years = horizon / float(plan.spec.periods_per_year)
         return annual_worth(pw, years, plan.scenarios.columns["real_rate"]), A, plan.classes, years, None

@@ -25,7 +25,7 @@ from ratescape.evaluate.measures import (
     present_worth,
 )
 from ratescape.evaluate.sensitivity import one_at_a_time
-from ratescape.evaluate.tax import carry_forward_adjustment
+from ratescape.evaluate.tax import carried_loss_streams, carry_forward_adjustment
 from ratescape.evaluate.timing import steps_per_period, stream_on_timing_grid
 from ratescape.run.plan import IRR_SEARCH, Plan, scenario_multipliers
 from ratescape.run.cost_only import mask_cost_only
@@ -66,11 +66,25 @@ def worth_index_and_investment(plan: Plan, A_by_role: np.ndarray, buffers: dict 
     """
     shape = (plan.tensor_sm.shape[0], A_by_role.shape[2])
     pw = _nonzero_columns_product(plan.tensor_sm, A_by_role.sum(axis=0), out=_reused(buffers, "pw", shape))
-    if plan.spec.after_tax and plan.spec.tax.get("losses") == "carry-forward":
+    if carries_losses(plan):
         pw += losses_carried_forward(plan, A_by_role.sum(axis=0))
     outlay = _nonzero_columns_product(plan.tensor_sm, A_by_role[0], out=_reused(buffers, "pi", shape))
     pi, fixed = index_and_fixed_investment(pw, outlay, out=outlay)   # in place: the outlay is not needed again
     return pw, pi, fixed
+
+
+def carries_losses(plan: Plan) -> bool:
+    """True when the run is after tax with each project's losses carried forward ([tax] losses)."""
+    return bool(plan.spec.after_tax and plan.spec.tax.get("losses") == "carry-forward")
+
+
+def carried_streams(plan: Plan, A: np.ndarray, inflation, multipliers: dict) -> np.ndarray:
+    """(F, P, T) then-current tax deferral of carried losses at F points with (F,) multipliers:
+    zero unless the run carries losses forward (:func:`ratescape.evaluate.tax.carried_loss_streams`)."""
+    f = np.atleast_1d(np.asarray(inflation, dtype=float))
+    if not carries_losses(plan):
+        return np.zeros((f.size, A.shape[1], A.shape[2]))
+    return carried_loss_streams(A, plan.classes, plan.exponents, f, multipliers).transpose(1, 0, 2)
 
 
 def losses_carried_forward(plan: Plan, A: np.ndarray) -> np.ndarray:
@@ -164,6 +178,8 @@ def irr_over_inflation(plan: Plan, A: np.ndarray) -> IrrTable:
     timing = plan.spec.timing
     nominal = np.array([not c.grows_throughout for c in plan.classes])   # nominal or frozen: searched per level
     mixed = np.any(A[nominal] != 0, axis=(0, 2)) if nominal.any() else np.zeros(P, dtype=bool)
+    if carries_losses(plan):          # carried losses are not a Fisher image of one real stream
+        mixed = np.ones(P, dtype=bool)
     m = float(plan.spec.periods_per_year)
     low, high = IRR_SEARCH
     real_part = then_current_streams(A[:, ~mixed], plan.classes, plan.exponents, [0.0],
@@ -174,6 +190,7 @@ def irr_over_inflation(plan: Plan, A: np.ndarray) -> IrrTable:
     parts = {}
     if mixed.any():
         streams = then_current_streams(A[:, mixed], plan.classes, plan.exponents, levels, plan.irr_multipliers)
+        streams += carried_streams(plan, A[:, mixed], levels, plan.irr_multipliers)
         q = timed_irr_roots(streams.reshape(F * int(mixed.sum()), T), timing, low, high)
         K = max(K, np.asarray(q.roots).shape[-1])
         parts["mixed"] = q
@@ -219,7 +236,7 @@ def base_measures(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray) -> dic
     mult = {name: np.array([v]) for name, v in plan.base_multipliers.items()}
     by_role = [then_current_streams(A_by_role[r], plan.classes, plan.exponents, [f], mult)[0] for r in range(len(ROLES))]
     invest, benefit, other = by_role
-    total = invest + benefit + other
+    total = invest + benefit + other + carried_streams(plan, A_by_role.sum(axis=0), [f], mult)[0]
     opts = {"timing": plan.spec.timing, "periods_per_year": m}
     with np.errstate(divide="ignore", invalid="ignore"):
         bc = benefit_cost_ratio(benefit, -other, -invest, i, **opts)
