@@ -570,7 +570,7 @@ def carried_loss_streams(amounts, classes, exponents, inflation, multipliers):
     from .kernel import multiplier_values
 
     A = np.asarray(amounts, dtype=float)
-    C, P, T = A.shape
+    C, _, T = A.shape
     tau = np.asarray(exponents, dtype=float)
     f = np.atleast_1d(np.asarray(inflation, dtype=float))
     U = f.size

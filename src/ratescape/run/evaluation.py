@@ -27,8 +27,8 @@ from ratescape.evaluate.measures import (
 from ratescape.evaluate.sensitivity import one_at_a_time
 from ratescape.evaluate.tax import carried_loss_streams, carry_forward_adjustment
 from ratescape.evaluate.timing import steps_per_period, stream_on_timing_grid
-from ratescape.run.plan import IRR_SEARCH, Plan, scenario_multipliers
 from ratescape.run.cost_only import mask_cost_only
+from ratescape.run.plan import IRR_SEARCH, Plan, scenario_multipliers
 
 
 def _reused(buffers: dict | None, name: str, shape: tuple) -> np.ndarray | None:
