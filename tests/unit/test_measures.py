@@ -120,6 +120,20 @@ def test_benefit_cost_conventions_agree_on_acceptance(inv, ben, om, i, n):
         assert (conv > 1) == (mod > 1) == (net > 0)
 
 
+def test_benefit_cost_ratio_without_a_positive_denominator_is_not_defined():
+    # common practice: a ratio of benefits to costs needs costs to divide by. A sale (proceeds,
+    # no investment) has no modified ratio; costs that net to an inflow leave the conventional
+    # ratio undefined too: NaN, never infinity or a negative ratio
+    sale = m.benefit_cost_ratio([0.0], [-9000.0], [0.0], 0.08, modified=True)
+    assert np.isnan(sale)
+    assert np.isnan(m.benefit_cost_ratio([0.0], [-9000.0], [0.0], 0.08))
+    both = m.benefit_cost_ratio([[0.0, 50.0], [0.0, 50.0]], [[0.0, -300.0], [0.0, 10.0]], [[100.0], [100.0]], 0.1)
+    assert np.isnan(both[0]) and both[1] == pytest.approx((50 / 1.1) / (100 + 10 / 1.1), rel=1e-14)
+    # a positive denominator keeps the published convention (Blank & Tarquin, B/C analysis)
+    assert m.benefit_cost_ratio([0.0, 50.0], [0.0, -30.0], [100.0], 0.1, modified=True) == pytest.approx(
+        (80 / 1.1) / 100, rel=1e-14)
+
+
 def test_profitability_index(rows):
     pw = m.present_worth(rows, 0.1)
     pi = m.profitability_index(rows, 0.1)

@@ -291,8 +291,11 @@ def benefit_cost_ratio(benefits, costs, investment, rate, *, modified=False, tim
     -----
     conventional B/C = PW(B) / (PW(I) + PW(O&M));
     modified B/C = (PW(B) - PW(O&M)) / PW(I).
-    Both exceed 1 exactly when PW(B) - PW(O&M) - PW(I) > 0. A zero
-    denominator gives inf or NaN.
+    Both exceed 1 exactly when PW(B) - PW(O&M) - PW(I) > 0 and the
+    denominator is positive. A ratio whose denominator is zero or negative
+    (no investment, such as a sale; or costs that net to an inflow) is not
+    defined and is NaN, never infinity or a negative ratio (common practice:
+    a ratio of benefits to costs needs costs to divide by).
 
     References
     ----------
@@ -306,6 +309,8 @@ def benefit_cost_ratio(benefits, costs, investment, rate, *, modified=False, tim
     1.2995
     >>> round(benefit_cost_ratio(b, c, [100000], 0.07, modified=True), 4)
     1.4047
+    >>> float(benefit_cost_ratio(b, c, [0], 0.07, modified=True))   # nothing invested
+    nan
     """
     (b, c, inv), lead = _pad_periods([benefits, costs, investment],
                                     ["benefits", "costs", "investment"])
@@ -320,7 +325,8 @@ def benefit_cost_ratio(benefits, costs, investment, rate, *, modified=False, tim
     pc = _pw(c, r, timing, periods_per_year)
     pi = _pw(inv, r, timing, periods_per_year)
     with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = (pb - pc) / pi if modified else pb / (pi + pc)
+        denominator = pi if modified else pi + pc
+        ratio = np.where(denominator > 0, ((pb - pc) if modified else pb) / denominator, np.nan)
     return _out(ratio)
 
 
