@@ -122,3 +122,24 @@ def test_must_fund_over_budget_is_infeasible_with_a_message(tmp_path, capfd):
     assert note.startswith("capital rationing: the must-fund projects and mandatory groups (RR) do not fit the "
                            "budgets in 4 of 4 scenarios")
     assert "do not fit the budgets in 4 of 4 scenarios" in capfd.readouterr().err
+
+
+def test_a_sale_without_investment_has_no_benefit_cost_ratio(tmp_path):
+    # invented: a parcel sold now for 9,000 net of a 250 fee (an "other" line, no investment, no
+    # benefit line). Its present worth is the net proceeds (numpy-financial npv); its B/C ratios
+    # have nothing positive to divide by and are NULL, not an overflowing infinity
+    (tmp_path / "cf.csv").write_text("project_id,period,amount,basis,escalation,kind\n"
+                                     "S1,0,9000,nominal,0,other\nS1,0,-250,nominal,0,cost\n")
+    (tmp_path / "p.csv").write_text("project_id,name\nS1,Parcel sale (invented)\n")
+    (tmp_path / "g.toml").write_text(GRID.split("[budget]")[0])
+    db = tmp_path / "plan.duckdb"
+    load_portfolio(tmp_path / "p.csv", tmp_path / "cf.csv", db)
+    run_id = screen_portfolio(db, grid=tmp_path / "g.toml")
+    con = duckdb.connect(str(db), read_only=True)
+    try:
+        status, bc, bc_mod, pw = con.execute("""SELECT measure_status, bc_ratio_base, bc_ratio_modified_base, pw_base
+                                                FROM project_summary WHERE run_id = ?""", [run_id]).fetchone()
+    finally:
+        con.close()
+    assert pw == pytest.approx(npf.npv(0.15, [8750.0]), rel=1e-14)
+    assert (bc, bc_mod, status) == (None, None, None)
