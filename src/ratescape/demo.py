@@ -57,7 +57,9 @@ def summarize_run(db, run_id: str, report_path: Path | None = None) -> str:
             FROM (SELECT group_name, count(DISTINCT preferred) AS n FROM group_decisions WHERE run_id = ?
                   GROUP BY group_name)""", [run_id]).row(0, named=True)
         budget = fetch_frame(con, """
-            SELECT count(*) AS scenarios, min(objective) AS lo, max(objective) AS hi,
+            SELECT count(*) AS scenarios, min(objective) AS lo, max(objective) AS hi, median(objective) AS mid,
+                   max(objective) FILTER (WHERE scenario_id = (SELECT base_scenario_id FROM runs
+                                                              WHERE run_id = $1)) AS at_base,
                    avg(1 - greedy_objective / nullif(objective, 0)) AS greedy_loss,
                    (SELECT count(*) FROM portfolio_summary WHERE run_id = $1 AND in_core) AS core
             FROM portfolios WHERE run_id = $1""", [run_id]).row(0, named=True)
@@ -75,8 +77,10 @@ def summarize_run(db, run_id: str, report_path: Path | None = None) -> str:
         lines.append(f"Groups of alternatives: {groups['groups']}; the preferred alternative changes across the "
                      f"scenarios in {groups['switching']} (see the decision maps).")
     if budget["scenarios"]:
-        lines.append(f"Capital budget: the best portfolio is worth {budget['lo']:,.0f} to {budget['hi']:,.0f} across "
-                     f"{budget['scenarios']} scenarios; ranking by profitability index alone loses "
+        at_base = "" if budget["at_base"] is None else f"{budget['at_base']:,.0f} at the base scenario, "
+        lines.append(f"Capital budget: the best portfolio is worth {at_base}{budget['lo']:,.0f} to "
+                     f"{budget['hi']:,.0f} across {budget['scenarios']} scenarios (median {budget['mid']:,.0f}); "
+                     "ranking by profitability index alone loses "
                      f"{budget['greedy_loss']:.1%} on average; {budget['core']} projects are in the core portfolio.")
     if top.height:
         lines.append("Largest base-case present worth among projects accepted everywhere:")
