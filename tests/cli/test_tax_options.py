@@ -294,3 +294,98 @@ def test_decision_map_frontier_uses_the_carried_losses(tmp_path):
         x_carried, w = npf.npv(i, flows_x(f, 0.3, True)), npf.npv(i, flows_w(f, 0.3))
         assert x_carried == pytest.approx(w, abs=1e-6 * max(abs(w), 1.0)), (i, f)
         assert abs(npf.npv(i, flows_x(f, 0.3, False)) - w) > 1.0
+
+
+# A cost overrun raises the depreciable basis with the outlay (the depreciation deduction is a share
+# of the asset's actual cost: IRS Publication 946, "What Is the Basis for Depreciation?", cost basis;
+# common practice), while a loan's amount, payments and interest are fixed by contract. Invented:
+# B buys 60,000 of plant now and 40,000 (real) next year, earns 30,000 (real) a year for 5 years,
+# depreciates each asset straight line over 5 years from its own period (disposed of at 5: the
+# rest written off), and borrows 50,000 at 8 % over 3 years.
+OVERRUN_PROJECTS = ("project_id,name,depreciation_method,recovery_years,loan_amount,loan_rate,loan_term\n"
+                    "B,Staged plant,straight-line,5,50000,0.08,3\n")
+OVERRUN_FLOWS = "project_id,period,amount,basis,escalation,kind\nB,0,-60000,real,0,investment\n" \
+                "B,1,-40000,real,0,investment\n" + "".join(f"B,{t},30000,real,0,benefit\n" for t in range(1, 6))
+OVERRUN_GRID = """[grid]
+discount_basis = "nominal"
+discount_rates = { values = [0.10] }
+inflation = { values = [0.03] }
+cost_multiplier = { values = [1.0, 1.25] }
+base = { discount_rate = 0.10, inflation = 0.03, cost_multiplier = 1.0 }
+[tax]
+rate = 0.25
+[sensitivity]
+first_cost = [0.8, 1.3]
+"""
+
+
+def flows_b(m, f=0.03, tax=0.25):
+    """B's after-tax then-current flows, periods 0..5, at cost multiplier m (numpy_financial.pmt for the loan)."""
+    import numpy_financial as npf
+    out = [-60000.0 * m + 50000.0, -40000.0 * m * (1 + f)] + [0.0] * 4
+    payment = -npf.pmt(0.08, 3, 50000.0)
+    balance = 50000.0
+    second = 40000.0 * m * (1 + f)                       # the second asset's cost in period-1 money
+    for t in range(1, 6):
+        benefit = 30000.0 * (1 + f) ** t
+        depreciation = 12000.0 * m + (second / 5 if t >= 2 else 0.0)
+        if t == 5:
+            depreciation += second - 4 * second / 5      # book value written off at disposal
+        interest = balance * 0.08 if t <= 3 else 0.0
+        if t <= 3:
+            balance -= payment - interest
+            out[t] -= payment
+        out[t] += benefit - tax * (benefit - depreciation - interest)
+    return out
+
+
+def test_a_cost_overrun_scales_the_depreciation_but_not_the_loan(tmp_path):
+    import numpy_financial as npf
+    db = loaded(tmp_path, OVERRUN_PROJECTS, OVERRUN_FLOWS)
+    (tmp_path / "g.toml").write_text(OVERRUN_GRID)
+    out = run("screen", "--db", db, "--grid", tmp_path / "g.toml", "--quiet")
+    assert out.exit_code == 0, out.output
+    run_id = out.stdout.strip().splitlines()[-1]
+    con = duckdb.connect(str(db), read_only=True)
+    try:
+        grid = dict(con.execute("""SELECT sc.cost_multiplier, r.present_worth FROM results r
+                                   JOIN scenarios sc USING (run_id, scenario_id) WHERE run_id = ?""",
+                                [run_id]).fetchall())
+        low, high, switch = con.execute("""SELECT worth_low, worth_high, switching_value FROM sensitivity
+                                           WHERE run_id = ? AND input = 'first_cost'""", [run_id]).fetchone()
+    finally:
+        con.close()
+    for m in (1.0, 1.25):                                # the grid's cost-multiplier axis
+        assert grid[m] == pytest.approx(npf.npv(0.10, flows_b(m)), rel=1e-12)
+    assert low == pytest.approx(npf.npv(0.10, flows_b(0.8)), rel=1e-12)      # the tornado's ends
+    assert high == pytest.approx(npf.npv(0.10, flows_b(1.3)), rel=1e-12)
+    # worth is linear in m: the switching value is where the year-by-year table crosses zero (SciPy brentq)
+    from scipy.optimize import brentq
+    assert switch == pytest.approx(brentq(lambda m: npf.npv(0.10, flows_b(m)), 0.5, 5.0, xtol=1e-14), rel=1e-10)
+
+
+def test_investment_tax_credit_follows_the_cost_on_the_grid_and_in_the_tornado(tmp_path):
+    db = loaded(tmp_path, OVERRUN_PROJECTS, OVERRUN_FLOWS)
+    grid = OVERRUN_GRID.replace("first_cost = [0.8, 1.3]", "first_cost = [0.8, 1.25]").replace(
+        "rate = 0.25", "rate = 0.25\ninvestment_tax_credit = 0.1")
+    (tmp_path / "g.toml").write_text(grid)
+    out = run("screen", "--db", db, "--grid", tmp_path / "g.toml", "--quiet")
+    assert out.exit_code == 0, out.output
+    run_id = out.stdout.strip().splitlines()[-1]
+    con = duckdb.connect(str(db), read_only=True)
+    try:
+        at_125 = con.execute("""SELECT r.present_worth FROM results r JOIN scenarios sc USING (run_id, scenario_id)
+                                WHERE run_id = ? AND sc.cost_multiplier = 1.25""", [run_id]).fetchone()[0]
+        base = con.execute("SELECT pw_base FROM project_summary WHERE run_id = ?", [run_id]).fetchone()[0]
+        high = con.execute("SELECT worth_high FROM sensitivity WHERE run_id = ? AND input = 'first_cost'",
+                           [run_id]).fetchone()[0]
+    finally:
+        con.close()
+    import numpy_financial as npf
+    # the two evaluators (grid tensor and one-at-a-time) agree; the credit (10 % of each asset's cost,
+    # received a period after it) grows with the overrun: worth(1.25) - worth(1) is the table's change
+    # plus a quarter of the credits' worth
+    assert high == pytest.approx(at_125, rel=1e-12)
+    credits = npf.npv(0.10, [0.0, 6000.0, 4000.0 * 1.03])
+    assert at_125 - base == pytest.approx(npf.npv(0.10, flows_b(1.25)) - npf.npv(0.10, flows_b(1.0))
+                                          + 0.25 * credits, rel=1e-9)

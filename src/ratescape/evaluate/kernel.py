@@ -359,8 +359,12 @@ class PointEvaluator:
         _, C, P, T = A.shape
         self.P = P
         self.total = A.sum(axis=0)                                               # (C, P, T)
+        # what a cost multiplier scales: the investment lines and, after tax, the lines of classes
+        # that follow the assets' cost (their depreciation shield and credits, ``asset_cost``)
+        follows_cost = np.array(["asset_cost" in c.multiplier.split("*") for c in self.classes])
+        self.cost_scaled = np.where(follows_cost[:, None, None], self.total, A[0])   # (C, P, T)
         flat = lambda x: np.ascontiguousarray(x.transpose(1, 0, 2)).reshape(P, C * T)  # noqa: E731
-        self.flat_total, self.flat_invest, self.flat_benefit = flat(self.total), flat(A[0]), flat(A[1])
+        self.flat_total, self.flat_invest, self.flat_benefit = flat(self.total), flat(self.cost_scaled), flat(A[1])
 
     def at_shared_points(self, discount_rates, inflations, escalation_shifts=None) -> np.ndarray:
         """Present worth (P, K) of every project at K points shared by all projects (multipliers at
@@ -449,7 +453,7 @@ class PointEvaluator:
                      else np.full(n, np.log1p(cls.escalation)))
             lines = pick(self.total[c])
             if scaled_invest:
-                lines = lines + (cm - 1.0)[:, None] * pick(self.A[0, c])
+                lines = lines + (cm - 1.0)[:, None] * pick(self.cost_scaled[c])
             if scaled_benefit:
                 lines = lines + (bm - 1.0)[:, None] * pick(self.A[1, c])
             if cls.frozen_at >= 0 and cls.basis == "real":    # grows up to period k, fixed after

@@ -554,7 +554,7 @@ def carried_loss_streams(amounts, classes, exponents, inflation, multipliers):
     ----------
     amounts : (C, P, T) [currency] lines by class (after-tax lines included).
     classes : C ``LineClass``; a class whose multiplier contains ``after_tax`` is taxable income
-        (times its other multiplier parts), one whose multiplier is ``tax`` a deduction; others
+        (times its other multiplier parts), one whose multiplier contains ``tax`` a deduction; others
         (investment, loan principal, working capital, tax credits) are not taxable. Each class
         grows to then-current money as the present worth grows it
         (:meth:`LineClass.then_current_growth`: real lines with inflation and escalation, nominal
@@ -580,8 +580,8 @@ def carried_loss_streams(amounts, classes, exponents, inflation, multipliers):
         parts = cls.multiplier.split("*")
         if "after_tax" in parts:
             sign = multiplier_values("*".join(p for p in parts if p != "after_tax") or "one", multipliers, (U,))
-        elif cls.multiplier == "tax":
-            sign = -np.ones(U)
+        elif "tax" in parts:                             # a deduction (times its asset's cost multiplier)
+            sign = -multiplier_values("*".join(p for p in parts if p != "tax") or "one", multipliers, (U,))
         else:
             continue
         weight[c] = sign[:, None] * cls.then_current_growth(f, tau)

@@ -41,7 +41,7 @@ from ratescape.evaluate.kernel import (
 )
 from ratescape.evaluate.tax import carry_forward_adjustment
 from ratescape.run.evaluation import carries_losses
-from ratescape.run.plan import AFTER_TAX_ONLY_CLASS, TAX_SHIELD_CLASS, multiplier_for, scenario_multipliers
+from ratescape.run.plan import AFTER_TAX_CLASSES, multiplier_for, scenario_multipliers
 from ratescape.run.progress import log
 from ratescape.run.ranks import result_block
 from ratescape.run.read import chunk_amounts
@@ -214,6 +214,8 @@ def _point_evaluator(plan, y_axis: str, classes=None, years=None):
             mult["after_tax"] = 1 - mult["tax"]
         elif y_axis in ("cost_multiplier", "benefit_multiplier"):
             mult[y_axis] = y
+            if y_axis == "cost_multiplier":
+                mult["asset_cost"] = y          # the assets' depreciation and credits scale with their cost
         w = present_worth_classes(A, discount_tensor(classes, plan.exponents, i, f, mult))
         if carried:                     # the grid's worths carry each alternative's losses forward too
             w = w + carry_forward_adjustment(A, classes, plan.exponents, i, f, mult).T
@@ -243,7 +245,7 @@ def _study_period_group(plan, A, invest, horizon, extras):
     to T (disposal at T writes the remaining tax book value off; the loan is paid off).
     """
     T = int(plan.spec.study_period)
-    collapse = np.array([(c.basis, c.escalation, c.multiplier) in (TAX_SHIELD_CLASS, AFTER_TAX_ONLY_CLASS)
+    collapse = np.array([(c.basis, c.escalation, c.multiplier) in AFTER_TAX_CLASSES
                          for c in plan.classes])
     cut = cut_at_study_period(A, T, collapse)
     first_cost = -invest[:, :T + 1].sum(axis=1)

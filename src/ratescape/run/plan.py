@@ -74,13 +74,17 @@ def utc_now() -> datetime:
     return datetime.now(timezone.utc).replace(tzinfo=None)
 
 
-# Classes of the lines an after-tax analysis adds (see evaluate/tax.py): the tax shield of
-# depreciation, book value written off and loan interest (nominal, times the tax rate), and
-# loan flows and tax credits (nominal, present only after tax).
+# Classes of the lines an after-tax analysis adds (see evaluate/tax.py): the tax shield of loan
+# interest and of land written off (nominal, times the tax rate) and loan flows (nominal, present
+# only after tax); and, scaled with the asset's cost (multiplier ``asset_cost``, the scenario's cost
+# multiplier: a cost overrun raises the depreciable basis too), the tax shield of depreciation and
+# of book value written off, and investment tax credits.
 TAX_SHIELD_CLASS = ("nominal", 0.0, "tax")
-
-
 AFTER_TAX_ONLY_CLASS = ("nominal", 0.0, "after_tax_only")
+ASSET_SHIELD_CLASS = ("nominal", 0.0, "tax*asset_cost")
+ASSET_CREDIT_CLASS = ("nominal", 0.0, "after_tax_only*asset_cost")
+#: the classes whose lines a study period moves to its end (see run/decisions.py)
+AFTER_TAX_CLASSES = (TAX_SHIELD_CLASS, AFTER_TAX_ONLY_CLASS, ASSET_SHIELD_CLASS, ASSET_CREDIT_CLASS)
 
 
 def after_tax_classes(con, spec: RunSettings) -> set:
@@ -97,9 +101,9 @@ def after_tax_classes(con, spec: RunSettings) -> set:
                               AND kind IN ('investment', 'land')""").fetchall()
     credit = float(spec.tax.get("investment_tax_credit", 0.0)) > 0
     for e, k, kind in frozen:
-        keys.add(("real", float(e), "tax", int(k)))
+        keys.add(("real", float(e), "tax*asset_cost" if kind == "investment" else "tax", int(k)))
         if credit and kind == "investment":
-            keys.add(("real", float(e), "after_tax_only", int(k)))
+            keys.add(("real", float(e), "after_tax_only*asset_cost", int(k)))
     return keys
 
 
@@ -108,7 +112,8 @@ def scenario_multipliers(table: ScenarioTable, after_tax: bool) -> dict:
     S = table.size
     out = {name: table.columns[name] for name in ("cost_multiplier", "benefit_multiplier") if name in table.columns}
     tax = table.columns.get("tax_rate", np.zeros(S)) if after_tax else np.zeros(S)
-    out.update(tax=tax, after_tax=1.0 - tax, after_tax_only=np.full(S, 1.0 if after_tax else 0.0))
+    out.update(tax=tax, after_tax=1.0 - tax, after_tax_only=np.full(S, 1.0 if after_tax else 0.0),
+               asset_cost=np.asarray(table.columns.get("cost_multiplier", np.ones(S)), dtype=float))
     return out
 
 
@@ -169,7 +174,7 @@ def make_plan(con, run_id: str, spec: RunSettings, chunk_size: int | None) -> Pl
     rows = con.execute("SELECT DISTINCT basis, escalation, kind FROM cash_flows").fetchall()
     keys = {(b, float(e), multiplier_for(k, axes, spec.after_tax)) for b, e, k in rows}
     if spec.after_tax:
-        keys |= {TAX_SHIELD_CLASS, AFTER_TAX_ONLY_CLASS} | after_tax_classes(con, spec)
+        keys |= set(AFTER_TAX_CLASSES) | after_tax_classes(con, spec)
     classes = sorted(LineClass(*k) for k in keys) or [LineClass()]
     class_index = {c.key: n for n, c in enumerate(classes)}
     T = max_period + 1 + (1 if spec.after_tax else 0)   # room for a book-value write-off after the last flow

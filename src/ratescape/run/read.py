@@ -16,7 +16,8 @@ from ratescape.evaluate.kernel import ROLES
 from ratescape.evaluate.kinds import RECOVERED_KINDS, multiplier_for, role_index
 from ratescape.evaluate.tax import after_tax_lines, staged_asset_lines
 from ratescape.run.plan import (
-    AFTER_TAX_ONLY_CLASS,
+    ASSET_CREDIT_CLASS,
+    ASSET_SHIELD_CLASS,
     TAX_SHIELD_CLASS,
     Plan,
 )
@@ -137,15 +138,23 @@ def _add_tax_lines(con, plan: Plan, first: int, stop: int, A: np.ndarray, horizo
         share = salvage[stages["key"]] * stages["cost"] / np.where(total > 0, total, 1.0)[stages["key"]]
     extra: dict = {}
     tax_class = plan.class_index[TAX_SHIELD_CLASS]
-    credit_class = plan.class_index[AFTER_TAX_ONLY_CLASS]
+    asset_shield_class = plan.class_index[ASSET_SHIELD_CLASS]
+    asset_credit_class = plan.class_index[ASSET_CREDIT_CLASS]
     other = ROLES.index("other")
     for convention, quarter in sorted(set(conventions), key=str):
         rows = np.array([c == (convention, quarter) for c in conventions])
         try:
+            # the assets' lines (scaled with their cost) apart from the loans' (fixed by contract)
             part = after_tax_lines(basis[rows], horizon[rows], plan.n_periods, method=methods[rows],
                                    recovery_years=recovery[rows], salvage=np.minimum(salvage, basis)[rows],
-                                   convention=convention, quarter=quarter, itc_rate=itc, loan_amount=loan[rows],
-                                   loan_rate=loan_rate[rows], loan_term=loan_term[rows])
+                                   convention=convention, quarter=quarter, itc_rate=itc)
+            part = {(b, e, f"{m}*asset_cost" if m != "one" else "after_tax_only*asset_cost"): v
+                    for (b, e, m), v in part.items()}
+            if np.any(loan[rows] > 0):
+                loans = after_tax_lines(np.zeros(int(rows.sum())), horizon[rows], plan.n_periods,
+                                        method=methods[rows], recovery_years=recovery[rows], loan_amount=loan[rows],
+                                        loan_rate=loan_rate[rows], loan_term=loan_term[rows])
+                part.update({(b, e, "after_tax_only" if m == "one" else m): v for (b, e, m), v in loans.items()})
             mine = rows[stages["key"]] if stages["key"].size else np.zeros(0, dtype=bool)
             if mine.any():
                 k = stages["key"][mine]
@@ -154,9 +163,9 @@ def _add_tax_lines(con, plan: Plan, first: int, stop: int, A: np.ndarray, horizo
                     recovery_years=recovery[k], salvage=share[mine], convention=convention, quarter=quarter,
                     itc_rate=itc)
                 _scatter_frozen(A, plan, other, k, stages["period"][mine], stages["basis"][mine],
-                                stages["escalation"][mine], shield, tax_class, "tax")
+                                stages["escalation"][mine], shield, asset_shield_class, "tax*asset_cost")
                 _scatter_frozen(A, plan, other, k, stages["period"][mine], stages["basis"][mine],
-                                stages["escalation"][mine], credit, credit_class, "after_tax_only")
+                                stages["escalation"][mine], credit, asset_credit_class, "after_tax_only*asset_cost")
         except ValueError as exc:
             raise RunError(f"after-tax lines of projects {first}..{stop - 1}: {exc}. Fix: check depreciation_method "
                            "(straight-line, declining-balance, macrs), recovery_years, the convention and the loan "
@@ -164,10 +173,9 @@ def _add_tax_lines(con, plan: Plan, first: int, stop: int, A: np.ndarray, horizo
         for key, amounts in part.items():
             full = extra.setdefault(key, np.zeros((P, plan.n_periods)))
             full[rows] = amounts
-    for (b, e, m), amounts in extra.items():
-        key = TAX_SHIELD_CLASS if m == "tax" else AFTER_TAX_ONLY_CLASS
-        if (b, e) != key[:2]:
-            raise RunError(f"unexpected after-tax line class {(b, e, m)}")
+    for key, amounts in extra.items():
+        if key not in plan.class_index or key[:2] != ("nominal", 0.0):
+            raise RunError(f"unexpected after-tax line class {key}")
         A[other, plan.class_index[key]] += amounts
     _add_land_lines(A, plan, frame, first, other, tax_class)
 
