@@ -389,3 +389,64 @@ def test_investment_tax_credit_follows_the_cost_on_the_grid_and_in_the_tornado(t
     credits = npf.npv(0.10, [0.0, 6000.0, 4000.0 * 1.03])
     assert at_125 - base == pytest.approx(npf.npv(0.10, flows_b(1.25)) - npf.npv(0.10, flows_b(1.0))
                                           + 0.25 * credits, rel=1e-9)
+
+
+def flows_x_moved(f, tax=0.3, m=1.0, bm=1.0, s=0.0, carry=True):
+    """Project X's after-tax flows with its first cost times m (its depreciation too), its benefits
+    times bm and its real escalation shifted by s; losses carried forward or offset at once."""
+    out, carried = [-90000.0 * m], 0.0
+    for year, benefit in ((1, 10000.0), (2, 40000.0), (3, 60000.0)):
+        cash = bm * benefit * ((1 + f) * (1 + s)) ** year
+        taxable = cash - 30000.0 * m
+        used = min(carried, max(taxable, 0.0)) if carry else 0.0
+        carried += (max(-taxable, 0.0) - used) if carry else 0.0
+        out.append(cash - tax * (max(taxable - used, 0.0) if carry else taxable))
+    return out
+
+
+def test_tornado_and_switching_values_carry_the_losses_forward(tmp_path):
+    import numpy_financial as npf
+    from scipy.optimize import brentq
+    db = loaded(tmp_path)
+    (tmp_path / "g.toml").write_text("""[grid]
+discount_basis = "nominal"
+discount_rates = { values = [0.05, 0.10, 0.15] }
+inflation = { values = [0.0, 0.05] }
+base = { discount_rate = 0.10, inflation = 0.0 }
+[tax]
+rate = 0.3
+losses = "carry-forward"
+""")
+    out = run("screen", "--db", db, "--grid", tmp_path / "g.toml", "--quiet")
+    assert out.exit_code == 0, out.output
+    run_id = out.stdout.strip().splitlines()[-1]
+    con = duckdb.connect(str(db), read_only=True)
+    try:
+        rows = {r[0]: r[1:] for r in con.execute("""SELECT input, worth_base, worth_low, worth_high, switching_value
+                                                    FROM sensitivity WHERE run_id = ?""", [run_id]).fetchall()}
+        spider = dict(con.execute("""SELECT round(change, 6), present_worth FROM spider
+                                     WHERE run_id = ? AND input = 'first_cost'""", [run_id]).fetchall())
+    finally:
+        con.close()
+
+    def npv(i=0.10, **moved):          # numpy-financial's npv of the year-by-year table
+        return npf.npv(i, flows_x_moved(moved.pop("f", 0.0), **moved))
+
+    # tornado ends (defaults: rates over the grid's axes; first cost 0.8-1.3; benefits 0.7-1.2;
+    # escalation -0.02..+0.02), each from the table with the loss carried forward
+    expected = {"discount_rate": (npv(0.05), npv(0.15)), "inflation": (npv(f=0.0), npv(f=0.05)),
+                "first_cost": (npv(m=0.8), npv(m=1.3)), "benefits": (npv(bm=0.7), npv(bm=1.2)),
+                "escalation": (npv(s=-0.02), npv(s=0.02))}
+    for name, (low, high) in expected.items():
+        assert rows[name][0] == pytest.approx(npv(), rel=1e-12)
+        assert rows[name][1:3] == pytest.approx((low, high), rel=1e-10), name
+    # switching values: where the table's worth crosses zero (SciPy's brentq)
+    assert rows["discount_rate"][3] == pytest.approx(brentq(lambda i: npv(i), 0.0, 0.5, xtol=1e-14), abs=1e-9)
+    assert rows["first_cost"][3] == pytest.approx(brentq(lambda m: npv(m=m), 0.5, 3.0, xtol=1e-14), abs=1e-9)
+    assert rows["benefits"][3] == pytest.approx(brentq(lambda b: npv(bm=b), 0.1, 2.0, xtol=1e-14), abs=1e-9)
+    assert rows["escalation"][3] == pytest.approx(brentq(lambda s: npv(s=s), -0.5, 0.5, xtol=1e-14), abs=1e-9)
+    # the linear tax would give another first-cost switching value: the check tells them apart
+    linear = brentq(lambda m: npf.npv(0.10, flows_x_moved(0.0, m=m, carry=False)), 0.5, 3.0)
+    assert abs(rows["first_cost"][3] - linear) > 1e-3
+    for change, worth in spider.items():
+        assert worth == pytest.approx(npv(m=1.0 + change), rel=1e-10)

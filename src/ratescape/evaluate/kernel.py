@@ -80,15 +80,18 @@ class LineClass:
             return tau
         return np.minimum(tau, tau[min(self.frozen_at, tau.size - 1)])
 
-    def then_current_growth(self, inflation: np.ndarray, exponents: np.ndarray) -> np.ndarray:
+    def then_current_growth(self, inflation: np.ndarray, exponents: np.ndarray, escalation_shift=0.0) -> np.ndarray:
         """Factors (F, T) from an amount as written to its then-current money at each inflation level.
 
-        Real: ((1 + e)(1 + f))^g_t with g the growth exponents (frozen classes stop growing);
+        Real: ((1 + e + shift)(1 + f))^g_t with g the growth exponents (frozen classes stop growing)
+        and ``escalation_shift`` (scalar or (F,)) the sensitivity's shift of real escalation;
         nominal: the contractual (1 + e)^tau_t, the same at every inflation level."""
         f = np.atleast_1d(np.asarray(inflation, dtype=float))
         tau = np.asarray(exponents, dtype=float)
         if self.basis == "real":
-            return np.exp(np.multiply.outer(np.log1p(f) + np.log1p(self.escalation), self.growth_exponents(tau)))
+            shift = np.broadcast_to(np.asarray(escalation_shift, dtype=float), f.shape)
+            return np.exp(np.multiply.outer(np.log1p(f) + np.log1p(self.escalation + shift),
+                                            self.growth_exponents(tau)))
         return np.broadcast_to(np.exp(np.log1p(self.escalation) * tau), (f.size, tau.size)).copy()
 
     def __post_init__(self):

@@ -14,7 +14,8 @@ data (worth at the low and high end of each input's range) and spider data
 * ``benefits``: multiplier of the benefit lines (1 = base);
 * ``escalation``: shift added to every real line's escalation [fraction per year].
 
-Multipliers are linear, so their switching values are closed-form; the rates
+Multipliers are linear (unless losses are carried forward, when they are searched too), so their
+switching values are closed-form; the rates
 are bracketed by a scan (:func:`ratescape.evaluate.switching.switching_value`) and each
 crossing root-found by a compiled per-project search
 (:meth:`ratescape.evaluate.kernel.PointEvaluator.roots_between`).
@@ -38,6 +39,9 @@ from .switching import SWITCH_AT_BASE, SWITCH_NONE, SWITCH_ONE, first_cost_switc
 
 INPUTS = ("discount_rate", "inflation", "first_cost", "benefits", "escalation")
 DEFAULT_SEARCH = {"discount_rate": (-0.9, 5.0), "inflation": (-0.5, 2.0), "escalation": (-0.5, 0.5)}
+#: range searched for a multiplier's switching value when losses are carried forward (worth is then
+#: not linear in the multiplier, so the closed form does not apply)
+MULTIPLIER_SEARCH = (0.0, 20.0)
 DEFAULT_PCT_CHANGES = (-0.3, -0.2, -0.1, 0.0, 0.1, 0.2, 0.3)
 
 
@@ -72,7 +76,7 @@ class SensitivitySettings:
 
 def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_inflation: float,
                   settings: SensitivitySettings, multipliers: dict | None = None, *,
-                  discount_basis: str = "nominal") -> dict:
+                  discount_basis: str = "nominal", carried_losses: bool = False) -> dict:
     """Switching values, tornado and spider data for P projects around one base scenario.
 
     Parameters
@@ -83,6 +87,10 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
     multipliers : per-class multiplier values at the base scenario (scalars).
     discount_basis : "nominal" (default) or "real": the basis of ``base_rate``, of the
         ``discount_rate`` range in ``settings`` and of the rate held fixed while inflation moves.
+    carried_losses : True when each project carries its tax losses forward (an after-tax run with
+        ``[tax] losses = "carry-forward"``): every worth then adds
+        :func:`ratescape.evaluate.tax.carried_loss_worth_per_project` at its point, and every
+        switching value (multipliers included: worth is no longer linear in them) is searched.
 
     Returns
     -------
@@ -98,18 +106,24 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
             "escalation": 0.0}
 
     evaluate = PointEvaluator(A, classes, exponents, mult, discount_basis=discount_basis)
+    carried = _carried_worth(evaluate, A, classes, exponents, mult, discount_basis) if carried_losses else None
 
     def pw(**kw):
         args = dict(discount_rate=base_rate, inflation=base_inflation, escalation_shift=0.0,
                     cost_multiplier=1.0, benefit_multiplier=1.0)
         args.update(kw)
-        return evaluate(args.pop("discount_rate"), args.pop("inflation"), **args)
+        worth = evaluate(args["discount_rate"], args["inflation"], escalation_shift=args["escalation_shift"],
+                         cost_multiplier=args["cost_multiplier"], benefit_multiplier=args["benefit_multiplier"])
+        return worth if carried is None else worth + carried(None, **args)
 
     def pw_rows(rows, **kw):
         args = dict(discount_rate=base_rate, inflation=base_inflation, escalation_shift=0.0,
                     cost_multiplier=1.0, benefit_multiplier=1.0)
         args.update(kw)
-        return evaluate.at_rows(rows, args.pop("discount_rate"), args.pop("inflation"), **args)
+        worth = evaluate.at_rows(rows, args["discount_rate"], args["inflation"],
+                                 escalation_shift=args["escalation_shift"], cost_multiplier=args["cost_multiplier"],
+                                 benefit_multiplier=args["benefit_multiplier"])
+        return worth if carried is None else worth + carried(rows, **args)
 
     rows_fns = {
         "discount_rate": lambda v, j: pw_rows(j, discount_rate=v),
@@ -125,6 +139,10 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
         "inflation": lambda v: evaluate.at_shared_points(np.full(v.shape, base_rate), v),
         "escalation": lambda v: evaluate.at_shared_points(np.full(v.shape, base_rate), np.full(v.shape, base_inflation), v),
     }
+    if carried is not None:          # the compiled scans and root searches know only the linear tax
+        roots_fns, scan_fns = {}, {}
+        rows_fns.update({"first_cost": lambda v, j: pw_rows(j, cost_multiplier=v),
+                         "benefits": lambda v, j: pw_rows(j, benefit_multiplier=v)})
     fns = {
         "discount_rate": lambda v: pw(discount_rate=v),
         "inflation": lambda v: pw(inflation=v),
@@ -143,7 +161,14 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
         out["worth_low"][n] = fns[name](np.full(P, low))
         out["worth_high"][n] = fns[name](np.full(P, high))
         b = base[name]
-        if name in ("first_cost", "benefits"):
+        if name in ("first_cost", "benefits") and carried is not None:
+            lo, hi = MULTIPLIER_SEARCH
+            res = switching_value(fns[name], np.full(P, 1.0), lo, hi, rows_fn=rows_fns[name])
+            out["switching_value"][n] = res.value
+            out["switching_status"][n] = res.status
+            out["switching_change"][n] = res.value - 1.0
+            values = b * (1.0 + pct)
+        elif name in ("first_cost", "benefits"):
             scaled = fns[name](np.full(P, 2.0)) - worth_base     # worth of the scaled lines at multiplier 1
             if name == "first_cost":
                 m = first_cost_switching_multiplier(worth_base, scaled)
@@ -157,8 +182,8 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
             values = b * (1.0 + pct)
         else:
             lo, hi = DEFAULT_SEARCH[name]
-            res = switching_value(fns[name], np.full(P, b), lo, hi, rows_fn=rows_fns[name], scan_fn=scan_fns[name],
-                                  roots_fn=roots_fns[name])
+            res = switching_value(fns[name], np.full(P, b), lo, hi, rows_fn=rows_fns[name],
+                                  scan_fn=scan_fns.get(name), roots_fn=roots_fns.get(name))
             out["switching_value"][n] = res.value
             out["switching_status"][n] = res.status
             if name == "escalation":
@@ -177,3 +202,23 @@ def one_at_a_time(amounts_by_role, classes, exponents, base_rate: float, base_in
                high=np.array([settings.ranges[n][1] for n in INPUTS]),
                worth_base=worth_base, pct_changes=pct, spider=spider)
     return out
+
+
+def _carried_worth(evaluate: PointEvaluator, A, classes, exponents, mult: dict, discount_basis: str):
+    """``carried(rows, discount_rate, inflation, escalation_shift, cost_multiplier, benefit_multiplier)``
+    -> worth of each project's carried losses at its own point (rows None: every project)."""
+    from .tax import carried_loss_worth_per_project
+
+    total, cost_scaled, benefit = evaluate.total, evaluate.cost_scaled, A[1]
+
+    def carried(rows, *, discount_rate, inflation, escalation_shift, cost_multiplier, benefit_multiplier):
+        pick = (lambda a: a) if rows is None else (lambda a: a[:, rows])   # noqa: E731
+        n = total.shape[1] if rows is None else np.asarray(rows).size
+        i, f, shift, cm, bm = (np.broadcast_to(np.asarray(v, dtype=float), (n,)) for v in
+                               (discount_rate, inflation, escalation_shift, cost_multiplier, benefit_multiplier))
+        amounts = pick(total) + (cm - 1.0)[None, :, None] * pick(cost_scaled) \
+            + (bm - 1.0)[None, :, None] * pick(benefit)
+        nominal = (1.0 + i) * (1.0 + f) - 1.0 if discount_basis == "real" else i
+        with np.errstate(over="ignore", invalid="ignore"):
+            return carried_loss_worth_per_project(amounts, classes, exponents, nominal, f, mult, shift)
+    return carried

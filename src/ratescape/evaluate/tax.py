@@ -65,6 +65,7 @@ __all__ = [
     "after_tax_cash_flows_carry_forward",
     "carry_forward_adjustment",
     "carried_loss_streams",
+    "carried_loss_worth_per_project",
 ]
 
 MULTIPLIERS = ("one", "after_tax", "tax")
@@ -567,27 +568,65 @@ def carried_loss_streams(amounts, classes, exponents, inflation, multipliers):
     ndarray (P, U, T) [then-current currency], >= 0 (tax paid later than the linear tax assumes).
     """
     from .compiled import class_weighted_streams
-    from .kernel import multiplier_values
 
     A = np.asarray(amounts, dtype=float)
-    C, _, T = A.shape
-    tau = np.asarray(exponents, dtype=float)
     f = np.atleast_1d(np.asarray(inflation, dtype=float))
-    U = f.size
-    tax = np.broadcast_to(np.asarray(multipliers["tax"], dtype=float), (U,))
-    weight = np.zeros((C, U, T))
-    for c, cls in enumerate(classes):                    # a handful of classes
-        parts = cls.multiplier.split("*")
-        if "after_tax" in parts:
-            sign = multiplier_values("*".join(p for p in parts if p != "after_tax") or "one", multipliers, (U,))
-        elif "tax" in parts:                             # a deduction (times its asset's cost multiplier)
-            sign = -multiplier_values("*".join(p for p in parts if p != "tax") or "one", multipliers, (U,))
-        else:
-            continue
-        weight[c] = sign[:, None] * cls.then_current_growth(f, tau)
+    tax = np.broadcast_to(np.asarray(multipliers["tax"], dtype=float), f.shape)
+    weight = _taxable_weights(classes, exponents, f, multipliers)          # (C, U, T)
     income = class_weighted_streams(A, weight).transpose(1, 0, 2)          # (P, U, T)
     paid = after_tax_cash_flows_carry_forward(income, tax)
     return income * tax[None, :, None] - paid
+
+
+def _taxable_weights(classes, exponents, inflation, multipliers, escalation_shift=0.0):
+    """(C, n, T) weights turning each class's amounts into taxable income (then-current money) at n
+    points: +growth times the other multiplier parts for taxable (``after_tax``) classes, -growth
+    for deductions (``tax``), 0 for lines that are not taxable."""
+    from .kernel import multiplier_values
+
+    tau = np.asarray(exponents, dtype=float)
+    n = inflation.size
+    weight = np.zeros((len(classes), n, tau.size))
+    for c, cls in enumerate(classes):                    # a handful of classes
+        parts = cls.multiplier.split("*")
+        if "after_tax" in parts:
+            sign = multiplier_values("*".join(p for p in parts if p != "after_tax") or "one", multipliers, (n,))
+        elif "tax" in parts:                             # a deduction (times its asset's cost multiplier)
+            sign = -multiplier_values("*".join(p for p in parts if p != "tax") or "one", multipliers, (n,))
+        else:
+            continue
+        weight[c] = sign[:, None] * cls.then_current_growth(inflation, tau, escalation_shift)
+    return weight
+
+
+def carried_loss_worth_per_project(amounts, classes, exponents, nominal_rate, inflation, multipliers,
+                                   escalation_shift=0.0):
+    """Worth (P,) to add to each project's linear after-tax worth when its losses are carried
+    forward, with project p at its own point (nominal rate i_p, inflation f_p, escalation shift s_p):
+    the one-at-a-time sensitivity's form of :func:`carry_forward_adjustment`.
+
+    Parameters
+    ----------
+    amounts : (C, P, T) [currency], already scaled by the point's cost and benefit multipliers.
+    classes, exponents : as :func:`carried_loss_streams`.
+    nominal_rate, inflation : (P,) [fraction per year]; escalation_shift : scalar or (P,).
+    multipliers : name -> scalar or (P,), with ``tax``.
+
+    Returns
+    -------
+    ndarray (P,) [currency at time 0].
+    """
+    A = np.asarray(amounts, dtype=float)
+    C, P, T = A.shape
+    f = np.broadcast_to(np.asarray(inflation, dtype=float), (P,))
+    i = np.broadcast_to(np.asarray(nominal_rate, dtype=float), (P,))
+    point = {k: np.broadcast_to(np.asarray(v, dtype=float), (P,)) for k, v in multipliers.items()}
+    weight = _taxable_weights(classes, exponents, f, point, escalation_shift)   # (C, P, T): project p at point p
+    income = np.einsum("cpt,cpt->pt", A, weight)
+    tax = point["tax"]
+    paid = after_tax_cash_flows_carry_forward(income[None], tax)[0]         # the points as the rate axis
+    extra = income * tax[:, None] - paid
+    return np.sum(extra * np.exp(-np.multiply.outer(np.log1p(i), np.asarray(exponents, dtype=float))), axis=1)
 
 
 def carry_forward_adjustment(amounts, classes, exponents, discount_rate, inflation, multipliers):

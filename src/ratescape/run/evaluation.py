@@ -120,7 +120,8 @@ def evaluate_chunk(plan: Plan, A_by_role: np.ndarray, horizon: np.ndarray, buffe
     basis = plan.spec.discount_basis                                    # move rates on the run's own basis
     sens = one_at_a_time(A_by_role, plan.classes, plan.exponents,
                          float(cols["real_rate" if basis == "real" else "discount_rate"][b]),
-                         float(cols["inflation"][b]), plan.sensitivity, plan.base_multipliers, discount_basis=basis)
+                         float(cols["inflation"][b]), plan.sensitivity, plan.base_multipliers, discount_basis=basis,
+                         carried_losses=carries_losses(plan))
     pw_before = None
     if plan.tensor_before_tax_sm is not None:
         pw_before = present_worth_scenario_major(A, plan.tensor_before_tax_sm)

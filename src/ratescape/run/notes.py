@@ -16,9 +16,9 @@ TAX_NOTE = (
     "land is not depreciated.{rate}")
 OFFSET = "a project's loss in a year offsets the firm's other taxable income that year (a profitable firm)"
 CARRIED = ("each project stands alone: a loss is carried forward, without expiry, to the project's own later "
-           "profits. The present worth, annual worth, acceptance, IRR, MIRR and the alternatives' decisions and "
-           "frontiers include the carry-forward; the one-at-a-time sensitivity (tornado, spider, switching "
-           "values) uses the linear tax (loss offset at once)")
+           "profits. Every measure includes the carry-forward: present and annual worth, acceptance, IRR, MIRR, "
+           "the alternatives' decisions and frontiers, and the one-at-a-time sensitivity (tornado, spider, "
+           "switching values)")
 LOANS_NOTE = (
     "{n} project(s) carry a loan: their worth is that of the equity holders' cash flows (loan received, "
     "payments and the interest's tax saving included), so the discount rate should be the cost of equity, not "
