@@ -617,7 +617,7 @@ def carried_loss_worth_per_project(amounts, classes, exponents, nominal_rate, in
     ndarray (P,) [currency at time 0].
     """
     A = np.asarray(amounts, dtype=float)
-    C, P, T = A.shape
+    P = A.shape[1]
     f = np.broadcast_to(np.asarray(inflation, dtype=float), (P,))
     i = np.broadcast_to(np.asarray(nominal_rate, dtype=float), (P,))
     point = {k: np.broadcast_to(np.asarray(v, dtype=float), (P,)) for k, v in multipliers.items()}
