@@ -347,3 +347,31 @@ def test_without_javascript_the_brief_and_tables_are_there(browser, report_file)
         assert heights and all(h == 0 for h in heights), heights
     finally:
         context.close()
+
+
+def test_a_chart_in_a_closed_block_is_drawn_when_the_block_is_opened(browser, tmp_path):
+    """A chart inside a closed <details> in the first screen has no box, so it waits until the block opens."""
+    import altair as alt
+    import polars as pl
+
+    from ratescape.report.page import Section, build_report_html
+
+    chart = alt.Chart(pl.DataFrame({"x": [1, 2, 3], "y": [3.0, 1.0, 2.0]})).mark_bar().encode(x="x:O", y="y:Q")
+    html = build_report_html([Section("Folded", chart=chart), Section("Open", chart=chart)], title="T")
+    folded = '<div class="chart" id="chart-1"></div>'
+    assert html.count(folded) == 1
+    html = html.replace(folded, f'<details id="fold"><summary>Show the chart</summary>{folded}</details>')
+    out = tmp_path / "folded.html"
+    out.write_text(html, encoding="utf-8")
+    page, log = open_report(browser, out, explorer=False)
+    try:
+        # both are in the first screen; only the visible one is drawn at open
+        assert page.get_attribute("#chart-2", "data-rendered") == "1"
+        assert page.get_attribute("#chart-1", "data-rendered") == "0"
+        assert page.locator("#chart-1 svg.marks").count() == 0
+        page.click("#fold summary")
+        page.wait_for_selector('#chart-1[data-rendered="1"]', state="attached", timeout=30_000)
+        assert page.locator("#chart-1 svg.marks").count() == 1
+        assert log["errors"] == [] and log["requests"] == []
+    finally:
+        page.close()
