@@ -2,7 +2,9 @@
 sections of paragraphs, escaped tables and chart specifications.
 
 Chart specifications sit in ``<script type="application/json">`` blocks written by
-:func:`ratescape.report.escaping.json_script_block`, and every table cell is HTML-escaped.
+:func:`ratescape.report.escaping.json_script_block`, and every table cell is HTML-escaped. The render
+script parses and draws a chart only when it is needed: in the first screen at open, when scrolled
+to or its closed block opened, and every chart before printing (the deferral rule in ``_RENDER``).
 Never use Altair's or vl-convert's own HTML writers for output: they put data into a script
 block unescaped.
 """
