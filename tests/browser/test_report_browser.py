@@ -38,8 +38,9 @@ def browser():
         b.close()
 
 
-def open_report(browser, out):
-    """A page on the report, every request outside file:, data:, blob: and about: refused and logged."""
+def open_report(browser, out, explorer=True):
+    """A page on the report, every request outside file:, data:, blob: and about: refused and logged;
+    returned once the first-screen charts are drawn (and the explorer filled, unless ``explorer`` is False)."""
     log = {"errors": [], "requests": []}
     page = browser.new_page()
     page.on("console", lambda m: log["errors"].append(m.text) if m.type == "error" else None)
@@ -54,18 +55,32 @@ def open_report(browser, out):
     page.route("**/*", guard)
     page.goto(out.as_uri())
     page.wait_for_selector('#render-status[data-state="done"]', state="attached", timeout=60_000)
-    page.wait_for_selector('#project-detail:not([data-rendered="pending"])', state="attached", timeout=60_000)
+    if explorer:
+        page.wait_for_selector('#scenario-ranking[data-ready="1"]', state="attached", timeout=60_000)
+        page.wait_for_selector('#project-detail:not([data-rendered="pending"])', state="attached", timeout=60_000)
     return page, log
 
 
 @pytest.fixture(scope="module")
-def session(browser, tmp_path_factory):
+def report_file(tmp_path_factory):
     root = tmp_path_factory.mktemp("browser")
     db, run_id = make_db(root, projects=BROWSER_PROJECTS)
     out = write_report(db, root / "report.html", run_id)
+    return out, db, run_id
+
+
+@pytest.fixture(scope="module")
+def session(browser, report_file):
+    out, db, run_id = report_file
     page, log = open_report(browser, out)
     yield page, db, run_id, log
     page.close()
+
+
+def drawn(page, chart):
+    """Scroll the chart element ``chart`` (a selector) into view and wait until it is drawn."""
+    page.locator(chart).first.scroll_into_view_if_needed()
+    page.wait_for_selector(f'{chart}[data-rendered="1"]', state="attached", timeout=30_000)
 
 
 @pytest.fixture(scope="module")
@@ -160,6 +175,7 @@ def test_hostile_name_stays_text_in_search_table_title_and_legends(session):
     titles = page.eval_on_selector_all("#detail-curve svg text", "ts => ts.map(t => t.textContent)")
     assert any(HOSTILE in t for t in titles)
     # tooltip of the hostile project's bar in the chart of scenario-dependent projects: text, not markup
+    drawn(page, "#scenario-dependent .chart")
     tip = hover_until(page, "#scenario-dependent .vega-embed g.mark-rect path", HOSTILE)
     assert f"{HOSTILE} (H)" in tip
     assert page.evaluate("typeof window.__pwned") == "undefined"
@@ -179,6 +195,7 @@ def hover_until(page, marks, text):
 
 def test_hostile_alternative_name_stays_text_in_decision_map_legend_and_tooltip(session):
     page, *_ = session
+    drawn(page, "section:has(h3:text-is('Group depot')) .chart")
     chart = page.locator("section:has(h3:text-is('Group depot')) .vega-embed").first
     assert chart.count() == 1
     legend = chart.locator("g.role-legend text").all_text_contents()
@@ -195,3 +212,166 @@ def test_no_network_request_and_no_console_error(session):
     assert log["requests"] == []
     assert log["errors"] == []
     assert page.evaluate("window.__ratescapeErrors") == []
+
+
+# ---- deferred charts: drawn when scrolled to, opened or printed; the first screen at open
+
+#: the chart elements of the page and their state ("0" not drawn, "1" drawn), in page order
+CHART_STATES = """() => Array.from(document.querySelectorAll('script[type="application/json"][data-chart]'))
+  .map(b => { const c = document.getElementById(b.dataset.chart);
+              return [c.id, c.dataset.rendered, c.querySelectorAll('svg.marks').length,
+                      c.getBoundingClientRect().top - window.innerHeight]; })"""
+
+
+def test_a_chart_below_the_fold_is_drawn_only_when_scrolled_to(browser, report_file):
+    out, *_ = report_file
+    page, log = open_report(browser, out)
+    try:
+        states = page.evaluate(CHART_STATES)
+        assert len(states) >= 3
+        # every chart of this page lies more than the 200 px margin below the first screen ...
+        assert all(below > 200 for *_, below in states), states
+        # ... so none is drawn at open
+        assert [(s[1], s[2]) for s in states] == [("0", 0)] * len(states)
+        last = states[-1][0]
+        drawn(page, f"#{last}")
+        after = {s[0]: s for s in page.evaluate(CHART_STATES)}
+        assert after[last][1:3] == ["1", 1]
+        # the first chart, far above the one scrolled to, is still not drawn
+        assert after[states[0][0]][1:3] == ["0", 0]
+        assert log["errors"] == [] and log["requests"] == []
+    finally:
+        page.close()
+
+
+def test_drill_down_opened_with_the_page_waits_and_a_searched_one_draws_at_once(browser, report_file):
+    out, *_ = report_file
+    page, log = open_report(browser, out)
+    try:
+        assert page.get_attribute("#project-detail", "data-rendered") == "deferred"
+        assert page.locator("#detail-charts svg.marks").count() == 0
+        page.fill("#project-search", "crane")
+        page.click('#search-results button[data-project-id="A"]')
+        page.wait_for_selector('#project-detail[data-project-id="A"][data-rendered="4"]', state="attached",
+                               timeout=30_000)
+        for chart in ("detail-curve", "detail-surface", "detail-tornado", "detail-spider"):
+            assert page.locator(f"#{chart} svg.marks").count() == 1
+        assert log["errors"] == [] and log["requests"] == []
+    finally:
+        page.close()
+
+
+#: an init script that keeps the page from hearing that it is printed (the control of the print test)
+DEAF_TO_PRINT = """(() => {
+  const add = window.addEventListener;
+  window.addEventListener = function (type, f, o) { if (type !== 'beforeprint') return add.call(this, type, f, o); };
+  window.matchMedia = undefined;
+})();"""
+
+
+def pdf_paths(pdf: bytes) -> int:
+    """Paths begun ('m' operators, PDF 1.7 section 8.5.2.1) in the PDF's content streams: chart lines,
+    contours, marks; the text and tables of the page begin few."""
+    import re
+    import zlib
+
+    count = 0
+    for m in re.finditer(rb"stream\r?\n(.*?)\r?\nendstream", pdf, re.S):
+        try:
+            count += len(re.findall(rb"\bm\b", zlib.decompress(m.group(1))))
+        except zlib.error:
+            continue
+    return count
+
+
+def test_printing_draws_every_chart(browser, report_file):
+    """page.pdf() prints as "save as PDF" does: beforeprint draws every chart before the page is laid out."""
+    out, *_ = report_file
+    page, log = open_report(browser, out)
+    try:
+        printed = pdf_paths(page.pdf())
+        states = page.evaluate(CHART_STATES)
+        assert [(s[1], s[2]) for s in states] == [("1", 1)] * len(states)
+        assert page.get_attribute("#project-detail", "data-rendered") == "4"
+        assert log["errors"] == [] and log["requests"] == []
+    finally:
+        page.close()
+    # reference: every chart drawn first and waited for; control: a page deaf to printing
+    page, _ = open_report(browser, out)
+    page.evaluate("() => window.__ratescapeCharts.drawAll()")
+    page.locator("#detail-charts").scroll_into_view_if_needed()
+    page.wait_for_selector('#project-detail[data-rendered="4"]', state="attached", timeout=30_000)
+    reference = pdf_paths(page.pdf())
+    page.close()
+    deaf = browser.new_page()
+    deaf.add_init_script(DEAF_TO_PRINT)
+    deaf.goto(out.as_uri())
+    deaf.wait_for_selector('#render-status[data-state="done"]', state="attached", timeout=60_000)
+    control = pdf_paths(deaf.pdf())
+    deaf.close()
+    assert control < reference / 2, (control, reference)     # the charts are most of the paths
+    assert printed == reference, (printed, reference)
+
+
+def test_a_chart_in_the_first_screen_is_drawn_at_open(browser, tmp_path):
+    import altair as alt
+    import polars as pl
+
+    from ratescape.report import charts
+
+    chart = alt.Chart(pl.DataFrame({"x": [1, 2, 3], "y": [3.0, 1.0, 2.0]})).mark_bar().encode(x="x:O", y="y:Q")
+    out = charts.save_chart(chart, tmp_path / "one.html")
+    page, log = open_report(browser, out, explorer=False)
+    try:
+        assert page.get_attribute("#chart-1", "data-rendered") == "1"
+        assert page.locator("#chart-1 svg.marks").count() == 1
+        status = page.evaluate("JSON.parse(document.getElementById('render-status').textContent)")
+        assert (status["charts"], status["first_screen"], status["deferred"]) == (1, 1, 0)
+        assert log["errors"] == [] and log["requests"] == []
+    finally:
+        page.close()
+
+
+def test_without_javascript_the_brief_and_tables_are_there(browser, report_file):
+    out, *_ = report_file
+    context = browser.new_context(java_script_enabled=False)
+    page = context.new_page()
+    try:
+        page.goto(out.as_uri())
+        assert page.is_visible("noscript >> p.noscript") or page.is_visible("p.noscript")
+        assert page.locator("#decision-brief ul.brief li").count() >= 3
+        assert page.is_visible("#decision-brief ul.brief li >> nth=0")
+        assert page.locator("#accepted-everywhere table tbody tr").count() >= 1
+        # no space is kept for charts that cannot be drawn
+        heights = page.eval_on_selector_all("div.chart", "cs => cs.map(c => c.getBoundingClientRect().height)")
+        assert heights and all(h == 0 for h in heights), heights
+    finally:
+        context.close()
+
+
+def test_a_chart_in_a_closed_block_is_drawn_when_the_block_is_opened(browser, tmp_path):
+    """A chart inside a closed <details> in the first screen has no box, so it waits until the block opens."""
+    import altair as alt
+    import polars as pl
+
+    from ratescape.report.page import Section, build_report_html
+
+    chart = alt.Chart(pl.DataFrame({"x": [1, 2, 3], "y": [3.0, 1.0, 2.0]})).mark_bar().encode(x="x:O", y="y:Q")
+    html = build_report_html([Section("Folded", chart=chart), Section("Open", chart=chart)], title="T")
+    folded = '<div class="chart" id="chart-1"></div>'
+    assert html.count(folded) == 1
+    html = html.replace(folded, f'<details id="fold"><summary>Show the chart</summary>{folded}</details>')
+    out = tmp_path / "folded.html"
+    out.write_text(html, encoding="utf-8")
+    page, log = open_report(browser, out, explorer=False)
+    try:
+        # both are in the first screen; only the visible one is drawn at open
+        assert page.get_attribute("#chart-2", "data-rendered") == "1"
+        assert page.get_attribute("#chart-1", "data-rendered") == "0"
+        assert page.locator("#chart-1 svg.marks").count() == 0
+        page.click("#fold summary")
+        page.wait_for_selector('#chart-1[data-rendered="1"]', state="attached", timeout=30_000)
+        assert page.locator("#chart-1 svg.marks").count() == 1
+        assert log["errors"] == [] and log["requests"] == []
+    finally:
+        page.close()

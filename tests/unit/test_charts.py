@@ -331,3 +331,38 @@ def test_save_chart_formats(tmp_path):
     assert json.loads((charts.save_chart(chart, tmp_path / "c.json")).read_text())["mark"]["type"] == "bar"
     with pytest.raises(ValueError, match=r"\.html, \.png, \.svg or \.json"):
         charts.save_chart(chart, tmp_path / "c.pdf")
+
+
+# ---------------------------------------------------------------------------
+# the page: chart specifications wait, inert, until drawn (browser side: tests/browser)
+# ---------------------------------------------------------------------------
+
+def test_chart_specs_wait_in_inert_blocks_with_their_reserved_height():
+    """Each chart is an empty element plus an application/json block (not run by the browser: WHATWG HTML,
+    "the script element", a type that is not a JavaScript MIME type is a data block) holding its exact
+    specification and the height kept for it: a fixed height plus 65 px of frame, or, for a
+    {"step": s} height, s per distinct band value (Vega-Lite documentation, "Width and Height":
+    a discrete axis with a step is step x number of values wide or tall)."""
+    import re
+
+    import altair as alt
+
+    from ratescape.report.page import Section, build_report_html
+
+    bars = charts.acceptance_share_bars(pl.DataFrame({
+        "project_id": ["a", "b", "c", "d"], "name": ["Roof", "Boiler", HOSTILE, "Roof"],
+        "accept_share": [0.5, 1.0, 0.0, 0.25]}))
+    fixed = alt.Chart(pl.DataFrame({"x": [1, 2], "y": [2.0, 3.0]})).mark_line().encode(x="x:Q", y="y:Q") \
+        .properties(height=300, width=400)
+    page = build_report_html([Section("Bars", chart=bars), Section("Line", chart=fixed)], title="T")
+    bars_spec = bars.to_dict()
+    step = bars_spec["height"]["step"]
+    labels = {r[bars_spec["encoding"]["y"]["field"]] for r in layer_data(bars_spec, bars_spec)}
+    assert len(labels) == 4          # every project its own band, the duplicate name included
+    for n, (chart, height) in enumerate(((bars, step * 4 + 65), (fixed, 300 + 65)), start=1):
+        assert f'<div class="chart" id="chart-{n}"></div>' in page        # empty: nothing drawn by the writer
+        block = re.search(rf'<script type="application/json" id="spec-{n}" data-chart="chart-{n}" '
+                          rf'data-height="(\d+)">(.*?)</script>', page, re.S)
+        assert block is not None
+        assert int(block.group(1)) == height
+        assert json.loads(block.group(2)) == chart.to_dict()

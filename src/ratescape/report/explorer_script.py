@@ -139,7 +139,11 @@ EXPLORER_JS = r"""
     s.title = title;
     return s;
   }
-  function openProject(i) {
+  // The drill-down opened with the page is drawn when its charts come within 200 px of the window
+  // (or the page is printed); one the reader asks for (search, a name in the table) is drawn at once.
+  var deferredDrill = null;
+  var drillObserver = null;
+  function openProject(i, lazy) {
     var box = $('project-detail');
     var k = String(i);
     var head = $('detail-title'); head.textContent = label(i);
@@ -161,6 +165,36 @@ EXPLORER_JS = r"""
       return;
     }
     charts.hidden = false; $('detail-missing').hidden = true;
+    deferredDrill = null;
+    if (lazy && 'IntersectionObserver' in window) {
+      deferredDrill = i;
+      box.setAttribute('data-rendered', 'deferred');
+      if (!drillObserver) {
+        drillObserver = new IntersectionObserver(function (entries) {
+          if (entries.some(function (e) { return e.isIntersecting; })) drawDeferredDrill();
+        }, {rootMargin: '200px 0px'});
+      }
+      drillObserver.observe(charts);
+      return;
+    }
+    drawDrill(i);
+  }
+  function drawDeferredDrill() {
+    if (drillObserver) drillObserver.disconnect();
+    if (deferredDrill === null) return;
+    var i = deferredDrill;
+    deferredDrill = null;
+    drawDrill(i);
+  }
+  window.addEventListener('beforeprint', drawDeferredDrill);
+  if (window.matchMedia) {
+    var printMedia = window.matchMedia('print');
+    var onPrint = function (m) { if (m.matches) drawDeferredDrill(); };
+    if (printMedia.addEventListener) printMedia.addEventListener('change', onPrint);
+    else if (printMedia.addListener) printMedia.addListener(onPrint);
+  }
+  function drawDrill(i) {
+    var box = $('project-detail'), k = String(i);
     box.setAttribute('data-rendered', 'pending');
     var x = D.drill[k], pw = D.pw[k], pl = D.plane;
     var curve = [], cells = [];
@@ -225,8 +259,10 @@ EXPLORER_JS = r"""
   });
   update();
   var first = D.first === null || D.first === undefined ? null : D.first;
-  if (first !== null) openProject(first);
-  window.__ratescapeExplorer = {open: openProject, update: update};
+  if (first !== null) openProject(first, true);
+  window.__ratescapeExplorer = {open: openProject, update: update, ready: true};
+  performance.mark('ratescape-explorer-ready');
+  $('scenario-ranking').setAttribute('data-ready', '1');
 })();
 """
 

@@ -2,7 +2,9 @@
 sections of paragraphs, escaped tables and chart specifications.
 
 Chart specifications sit in ``<script type="application/json">`` blocks written by
-:func:`ratescape.report.escaping.json_script_block`, and every table cell is HTML-escaped.
+:func:`ratescape.report.escaping.json_script_block`, and every table cell is HTML-escaped. The render
+script parses and draws a chart only when it is needed: in the first screen at open, when scrolled
+to or its closed block opened, and every chart before printing (the deferral rule in ``_RENDER``).
 Never use Altair's or vl-convert's own HTML writers for output: they put data into a script
 block unescaped.
 """
@@ -119,39 +121,112 @@ window.addEventListener('unhandledrejection', function (e) {
 """
 
 
-_RENDER = """
+_RENDER = r"""
 (function () {
   'use strict';
+  // Deferral rule: a chart is drawn when its box comes within MARGIN of the window (at open: the
+  // first screen), when a closed block holding it is opened (the observer sees it appear), or when
+  // the page is printed (beforeprint draws every chart). Until then its specification stays an
+  // unparsed application/json block.
+  var MARGIN = '200px';
   var errors = window.__ratescapeErrors;
   var status = document.getElementById('render-status');
   var blocks = document.querySelectorAll('script[type="application/json"][data-chart]');
-  function finish() {
+  var charts = [];               // {block, target, job}
+  var opened = null;             // charts drawn by the first observation, once known
+  var api = {drawn: 0};
+  function record(extra) {
     var rendered = document.querySelectorAll('.vega-embed svg.marks, .vega-embed canvas.marks').length;
-    status.textContent = JSON.stringify({
-      charts: blocks.length, rendered: rendered, errors: errors,
-      pwned: typeof window.__pwned
-    });
-    status.setAttribute('data-state', 'done');
+    var state = {charts: charts.length, drawn: api.drawn, rendered: rendered,
+                 deferred: charts.filter(function (c) { return !c.job; }).length,
+                 errors: errors, pwned: typeof window.__pwned};
+    if (extra) Object.keys(extra).forEach(function (k) { state[k] = extra[k]; });
+    status.textContent = JSON.stringify(state);
   }
-  if (typeof window.vegaEmbed !== 'function') {
-    errors.push('vegaEmbed is not defined');
-    finish();
-    return;
-  }
-  var jobs = [];
-  Array.prototype.forEach.call(blocks, function (block) {
-    var target = document.getElementById(block.getAttribute('data-chart'));
+  function draw(c) {
+    if (c.job) return c.job;
+    c.target.setAttribute('data-rendered', 'pending');
     var spec;
     try {
-      spec = JSON.parse(block.textContent);
+      spec = JSON.parse(c.block.textContent);
     } catch (e) {
-      errors.push('bad chart specification ' + block.id + ': ' + e);
-      return;
+      errors.push('bad chart specification ' + c.block.id + ': ' + e);
+      c.target.setAttribute('data-rendered', 'failed');
+      c.job = Promise.resolve();
+      return c.job;
     }
-    jobs.push(window.vegaEmbed(target, spec, {actions: false, renderer: 'svg', mode: 'vega-lite'})
-      .catch(function (e) { errors.push('chart ' + target.id + ' failed: ' + e); }));
+    c.job = window.vegaEmbed(c.target, spec, {actions: false, renderer: 'svg', mode: 'vega-lite'})
+      .then(function () {
+        api.drawn += 1;
+        c.target.style.minHeight = '';
+        c.target.setAttribute('data-rendered', '1');
+      })
+      .catch(function (e) {
+        errors.push('chart ' + c.target.id + ' failed: ' + e);
+        c.target.setAttribute('data-rendered', 'failed');
+      });
+    return c.job;
+  }
+  api.drawAll = function () { return Promise.all(charts.map(draw)).then(function () { record(); }); };
+  api.draw = function (id) {
+    var c = charts.filter(function (x) { return x.target.id === id; })[0];
+    return c ? draw(c).then(function () { record(); }) : Promise.resolve();
+  };
+  window.__ratescapeCharts = api;
+  if (typeof window.vegaEmbed !== 'function') {
+    errors.push('vegaEmbed is not defined');
+    record();
+    status.setAttribute('data-state', 'done');
+    return;
+  }
+  Array.prototype.forEach.call(blocks, function (block) {
+    var target = document.getElementById(block.getAttribute('data-chart'));
+    if (!target) { errors.push('no element for chart ' + block.id); return; }
+    var h = parseInt(block.getAttribute('data-height'), 10);
+    if (h > 0) target.style.minHeight = h + 'px';   // space kept, so drawing does not shift the page
+    target.setAttribute('data-rendered', '0');
+    charts.push({block: block, target: target, job: null});
   });
-  Promise.all(jobs).then(function () { setTimeout(finish, 50); });
+  // printing or saving as PDF: every chart (drawn in the microtasks that follow the event, before
+  // the page is laid out for print)
+  window.addEventListener('beforeprint', api.drawAll);
+  if (window.matchMedia) {
+    var mq = window.matchMedia('print');
+    var onPrint = function (m) { if (m.matches) api.drawAll(); };
+    if (mq.addEventListener) mq.addEventListener('change', onPrint); else if (mq.addListener) mq.addListener(onPrint);
+  }
+  function firstScreenDone() {
+    performance.mark('ratescape-first-charts');
+    record({first_screen: opened.length});
+    status.setAttribute('data-state', 'done');
+  }
+  if (!('IntersectionObserver' in window)) {     // no observer: draw everything now
+    opened = charts;
+    api.drawAll().then(function () { setTimeout(firstScreenDone, 0); });
+    return;
+  }
+  var byTarget = new Map(charts.map(function (c) { return [c.target, c]; }));
+  var observer = new IntersectionObserver(function (entries) {
+    var now = [];
+    entries.forEach(function (e) {
+      if (!e.isIntersecting) return;
+      observer.unobserve(e.target);
+      now.push(byTarget.get(e.target));
+    });
+    var jobs = now.map(draw);
+    if (opened === null) {       // the first observation: the charts of the first screen
+      opened = now;
+      Promise.all(jobs).then(function () { setTimeout(firstScreenDone, 0); });
+    } else {
+      Promise.all(jobs).then(function () { record(); });
+    }
+  }, {rootMargin: MARGIN + ' 0px'});
+  if (!charts.length) {
+    opened = [];
+    setTimeout(firstScreenDone, 0);
+    return;
+  }
+  charts.forEach(function (c) { observer.observe(c.target); });
 })();
 """
 
@@ -295,7 +370,8 @@ def build_report_html(
                 parts.append(f'<div class="chart" id="{cid}"></div>')
                 if sec.guide:
                     parts.append(f'<p class="guide">{escape_html(sec.guide)}</p>')
-                specs.append(json_script_block(spec, f"spec-{chart_no}", chart=cid))
+                specs.append(json_script_block(spec, f"spec-{chart_no}", chart=cid,
+                                               height=str(reserved_height(spec))))
         parts.append(paragraphs(sec.notes))
         parts.append("</section>")
     meta_html = ""
@@ -328,6 +404,45 @@ def build_report_html(
         *(f"<script>{check_inline_script(js)}</script>" for js in scripts),
         "</body></html>\n",
     ])
+
+def reserved_height(spec: Mapping[str, Any]) -> int:
+    """Pixels kept for a chart before it is drawn (its plot height plus title and axis), so that
+    drawing a deferred chart does not move the page.
+
+    A fixed ``height`` counts as it is; a ``{"step": s}`` height counts ``s`` per distinct value of
+    the y field in the chart's data set (or per row when the field is not found); anything else
+    gets 400. An estimate: the page drops the reserve once the chart is drawn.
+
+    Examples
+    --------
+    >>> reserved_height({"height": 300})
+    365
+    >>> reserved_height({"height": {"step": 16}, "data": {"name": "d"}, "encoding": {"y": {"field": "n"}},
+    ...                  "datasets": {"d": [{"n": "a"}, {"n": "b"}, {"n": "a"}]}})
+    97
+    """
+    height = spec.get("height")
+    if isinstance(height, (int, float)) and not isinstance(height, bool):
+        return int(height) + _CHART_FRAME
+    if isinstance(height, Mapping) and isinstance(height.get("step"), (int, float)):
+        datasets = spec.get("datasets") or {}
+        name = (spec.get("data") or {}).get("name") if isinstance(spec.get("data"), Mapping) else None
+        rows = datasets.get(name) if name in datasets else next(iter(datasets.values()), [])
+        encoding = spec.get("encoding") or next((layer.get("encoding") for layer in spec.get("layer", [])
+                                                 if isinstance(layer, Mapping) and layer.get("encoding")), {})
+        field_name = (encoding.get("y") or {}).get("field")
+        if field_name and rows and all(isinstance(r, Mapping) and field_name in r for r in rows):
+            count = len({str(r[field_name]) for r in rows})
+        else:
+            count = len(rows) if isinstance(rows, list) else 0
+        if count:
+            return int(height["step"] * count) + _CHART_FRAME
+    return 400
+
+
+#: title, axis and padding around a chart's plot, in pixels (Altair's defaults, as measured in Chromium)
+_CHART_FRAME = 65
+
 
 def vega_lite_version() -> str | None:
     """vl-convert's name for the Vega-Lite version Altair writes (e.g. '6.4'), if it has it."""
