@@ -3,8 +3,12 @@
 A fresh process with an empty Numba cache (NUMBA_CACHE_DIR) screens a small invented portfolio
 whose streams change sign once, then lists every Numba dispatcher of ratescape that holds a
 compiled signature. Only the kernels such a run calls may be there, each compiled once (one
-signature: one dtype per argument, C-contiguous arrays, no literal-valued duplicates); the
-certified cell search of streams with several sign changes is not compiled at all.
+signature: one dtype per argument, C-contiguous arrays, no literal-valued duplicates).
+
+A small portfolio runs the rank pass and the IRR search in plain NumPy (decide/rank_numpy.py,
+evaluate/irr_numpy.py: the same numbers), so it compiles none of their kernels; the same run with
+the size limits set to zero (as a large portfolio has them) compiles the compiled forms, and only
+those it calls: the certified cell search of streams with several sign changes is not among them.
 """
 import json
 import os
@@ -23,6 +27,10 @@ from numba.core.registry import CPUDispatcher
 from ratescape import load_portfolio, screen_portfolio
 import ratescape.evaluate.compiled, ratescape.evaluate.irr_kernels, ratescape.decide.rank_kernel
 tmp = Path(sys.argv[1])
+if sys.argv[2] == "large":      # the size limits of the NumPy forms at zero: every call compiled
+    ratescape.decide.rank_kernel.NUMPY_MAX_PROJECTS = 0
+    for name in ("NUMPY_MAX_ROWS", "NUMPY_MAX_CELLS", "NUMPY_MAX_FACTS"):
+        setattr(ratescape.evaluate.irr_kernels, name, -1)
 rows = ["project_id,name,first_cost,annual_benefit,benefit_basis,annual_cost,cost_basis,life"]
 for k in range(12):
     rows.append(f"K{k},Invented {k},{100 + 7 * k},{12 + k},{'nominal' if k % 3 == 0 else 'real'},"
@@ -38,10 +46,12 @@ for mod in (ratescape.evaluate.compiled, ratescape.evaluate.irr_kernels, ratesca
 print("KERNELS" + json.dumps(out))
 """
 
-NEEDED = {
+SMALL = {
     # point worth, per-project summaries and streams (evaluate/compiled.py)
     "compiled._bracketed_roots", "compiled._class_weighted_streams", "compiled._column_summaries",
     "compiled._geometric_sum", "compiled._index_from_worth", "compiled._worth_at",
+}
+LARGE = SMALL | {
     # IRR of one-sign-change streams: the classifier and the Newton solve (evaluate/irr_kernels.py)
     "irr_kernels._stream_facts", "irr_kernels._single_roots", "irr_kernels._scaled_worth",
     "irr_kernels._newton_or_bisect", "irr_kernels._steps_done",
@@ -51,18 +61,19 @@ NEEDED = {
 }
 
 
-def test_a_run_compiles_only_the_kernels_it_needs_once_each(tmp_path):
+@pytest.mark.parametrize("size,needed", [("small", SMALL), ("large", LARGE)])
+def test_a_run_compiles_only_the_kernels_it_needs_once_each(tmp_path, size, needed):
     cache = tmp_path / "numba-cache"
     cache.mkdir()
     env = dict(os.environ, NUMBA_CACHE_DIR=str(cache),
                PYTHONPATH=os.pathsep.join([str(Path(__file__).resolve().parents[2] / "src"),
                                            os.environ.get("PYTHONPATH", "")]))
-    done = subprocess.run([sys.executable, "-c", SCRIPT, str(tmp_path)], env=env, capture_output=True,
+    done = subprocess.run([sys.executable, "-c", SCRIPT, str(tmp_path), size], env=env, capture_output=True,
                           text=True, timeout=600)
     assert done.returncode == 0, done.stderr
     line = next(x for x in done.stdout.splitlines() if x.startswith("KERNELS"))
     kernels = json.loads(line[len("KERNELS"):])
-    assert set(kernels) == NEEDED
+    assert set(kernels) == needed
     assert {name: len(sigs) for name, sigs in kernels.items() if len(sigs) != 1} == {}
     # the empty cache was filled by this run: every compiled kernel was written once
-    assert {p.name.split("-")[0] for p in cache.rglob("*.nbi")} >= NEEDED
+    assert {p.name.split("-")[0] for p in cache.rglob("*.nbi")} >= needed
