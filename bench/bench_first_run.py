@@ -16,7 +16,8 @@ a function's own compilation, so the self times add up to the whole compile time
 e.g. from ``git archive``) the two versions are run interleaved, repeat by repeat.
 
 Usage: PYTHONPATH=src .venv/bin/python bench/bench_first_run.py [--repeats 2] [--modes demo,nobudget]
-       [--before /tmp/ratescape-before] [--top 12]
+       [--before /tmp/ratescape-before] [--after DIR] [--top 12]
+  e.g. git archive <commit> src data_demo queries | tar -x -C /tmp/ratescape-before
 """
 from __future__ import annotations
 
@@ -114,9 +115,10 @@ def main(argv=None):
     ap.add_argument("--repeats", type=int, default=2)
     ap.add_argument("--modes", default="demo,nobudget")
     ap.add_argument("--before", type=Path, help="folder of another version (src/, data_demo/, queries/)")
+    ap.add_argument("--after", type=Path, default=HERE, help="folder of the version measured (default: this one)")
     ap.add_argument("--top", type=int, default=12, help="functions listed per cold run")
     a = ap.parse_args(argv)
-    versions = ([("before", a.before)] if a.before else []) + [("after", HERE)]
+    versions = ([("before", a.before)] if a.before else []) + [("after", a.after)]
     work = Path(tempfile.mkdtemp(prefix="ratescape-first-run-"))
     rows = []
     try:
