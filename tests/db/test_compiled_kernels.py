@@ -5,8 +5,9 @@ whose streams change sign once, then lists every Numba dispatcher of ratescape t
 compiled signature. Only the kernels such a run calls may be there, each compiled once (one
 signature: one dtype per argument, C-contiguous arrays, no literal-valued duplicates).
 
-A small portfolio runs the rank pass and the IRR search in plain NumPy (decide/rank_numpy.py,
-evaluate/irr_numpy.py: the same numbers), so it compiles none of their kernels; the same run with
+A small portfolio runs the rank pass, the IRR search and the per-chunk summaries in plain NumPy
+(decide/rank_numpy.py, evaluate/irr_numpy.py, evaluate/compiled_numpy.py: the same numbers), so
+it compiles none of their kernels; the same run with
 the size limits set to zero (as a large portfolio has them) compiles the compiled forms, and only
 those it calls: the certified cell search of streams with several sign changes is not among them.
 """
@@ -29,6 +30,7 @@ import ratescape.evaluate.compiled, ratescape.evaluate.irr_kernels, ratescape.de
 tmp = Path(sys.argv[1])
 if sys.argv[2] == "large":      # the size limits of the NumPy forms at zero: every call compiled
     ratescape.decide.rank_kernel.NUMPY_MAX_PROJECTS = 0
+    ratescape.evaluate.compiled.NUMPY_MAX_ELEMENTS = -1
     for name in ("NUMPY_MAX_ROWS", "NUMPY_MAX_CELLS", "NUMPY_MAX_FACTS"):
         setattr(ratescape.evaluate.irr_kernels, name, -1)
 rows = ["project_id,name,first_cost,annual_benefit,benefit_basis,annual_cost,cost_basis,life"]
@@ -47,11 +49,12 @@ print("KERNELS" + json.dumps(out))
 """
 
 SMALL = {
-    # point worth, per-project summaries and streams (evaluate/compiled.py)
-    "compiled._bracketed_roots", "compiled._class_weighted_streams", "compiled._column_summaries",
-    "compiled._geometric_sum", "compiled._index_from_worth", "compiled._worth_at",
+    # the switching values' root search on the point worth (evaluate/compiled.py)
+    "compiled._bracketed_roots", "compiled._geometric_sum", "compiled._worth_at",
 }
 LARGE = SMALL | {
+    # per-project summaries, profitability index and streams (evaluate/compiled.py)
+    "compiled._class_weighted_streams", "compiled._column_summaries", "compiled._index_from_worth",
     # IRR of one-sign-change streams: the classifier and the Newton solve (evaluate/irr_kernels.py)
     "irr_kernels._stream_facts", "irr_kernels._single_roots", "irr_kernels._scaled_worth",
     "irr_kernels._newton_or_bisect", "irr_kernels._steps_done",

@@ -9,6 +9,18 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from .compiled_numpy import class_weighted_numpy, column_summaries_numpy, index_and_fixed_numpy
+
+# Arrays of up to this many elements take the NumPy forms of compiled_numpy.py (the same numbers,
+# bit for bit) in index_and_fixed_investment, column_summaries and class_weighted_streams, and the
+# loops below are not compiled for them: at that size NumPy's temporaries cost nothing and the
+# compilation (about 0.8 s of CPU for the three, on a first run) would cost more than it saves.
+NUMPY_MAX_ELEMENTS = 4_000_000
+
+
+def _use_compiled(n: int, compiled: bool | None) -> bool:
+    return n > NUMPY_MAX_ELEMENTS if compiled is None else bool(compiled)
+
 # A geometric sequence q^t built by repeated multiplication drifts by about one rounding per step;
 # it is re-anchored with an exact exp() every this many periods (drift stays below ~1e-14).
 ANCHOR_STEPS = 32
@@ -95,19 +107,23 @@ def index_from_worth(present_worth, outlay_worth, out=None) -> np.ndarray:
     return index_and_fixed_investment(present_worth, outlay_worth, out)[0]
 
 
-def index_and_fixed_investment(present_worth, outlay_worth, out=None) -> tuple[np.ndarray, np.ndarray]:
+def index_and_fixed_investment(present_worth, outlay_worth, out=None, *,
+                               compiled: bool | None = None) -> tuple[np.ndarray, np.ndarray]:
     """:func:`index_from_worth` and, per project, the investment's PW where it is the same in
     every scenario (an outlay at time 0, no cost axis): (S, P), (S, P) -> (S, P), (P,).
 
     The second result is that positive outlay [currency] or NaN (it varies, or there is none).
     Where it is a number, PI = 1 + PW / it exactly in every scenario, so a stored row need not
-    carry its PI (the ``results`` view derives it).
+    carry its PI (the ``results`` view derives it). Up to ``NUMPY_MAX_ELEMENTS`` elements (or as
+    ``compiled`` says) in NumPy (:mod:`ratescape.evaluate.compiled_numpy`, the same numbers).
     """
     pw = np.ascontiguousarray(present_worth, dtype=float)
     outlay = np.ascontiguousarray(outlay_worth, dtype=float)
     if pw.shape != outlay.shape or pw.ndim != 2:
         raise ValueError(f"present_worth {pw.shape} and outlay_worth {outlay.shape} must be the same 2-D shape")
     pi = np.empty(pw.shape) if out is None else out
+    if not _use_compiled(pw.size, compiled):
+        return index_and_fixed_numpy(pw, outlay, pi)
     fixed = np.empty(pw.shape[1])
     _index_from_worth(pw, outlay, pi, fixed)
     return pi, fixed
@@ -138,7 +154,7 @@ def _column_summaries(pw, w, lo, hi, total, weighted, accepted, weighted_accepte
                 weighted_accepted[p] += ws
 
 
-def column_summaries(present_worth, weights) -> dict:
+def column_summaries(present_worth, weights, *, compiled: bool | None = None) -> dict:
     """Per-project summaries over scenarios of a scenario-major PW matrix (S, P), in one pass.
 
     Returns ``pw_min``, ``pw_max``, ``pw_mean`` (plain mean over scenarios), ``pw_expected``
@@ -146,16 +162,22 @@ def column_summaries(present_worth, weights) -> dict:
     ``accept_probability`` (sum of the weights of those scenarios), each (P,). Money in the
     amounts' currency. Equals the NumPy reductions ``pw.min(axis=0)``, ``weights @ pw``,
     ``(pw >= 0).mean(axis=0)``, ... to summation order. Present worth is finite here (the
-    discount tensor is checked finite before any chunk runs).
+    discount tensor is checked finite before any chunk runs). Up to ``NUMPY_MAX_ELEMENTS``
+    elements (or as ``compiled`` says) in NumPy (:mod:`ratescape.evaluate.compiled_numpy`, the
+    same numbers).
     """
     pw = np.ascontiguousarray(present_worth, dtype=float)
     w = np.ascontiguousarray(weights, dtype=float)
     if pw.ndim != 2 or w.shape != (pw.shape[0],):
         raise ValueError(f"present_worth must be (S, P) and weights (S,), got {pw.shape} and {w.shape}")
     S, P = pw.shape
-    out = {k: np.empty(P) for k in ("pw_min", "pw_max", "total", "pw_expected", "accepted", "accept_probability")}
-    _column_summaries(pw, w, out["pw_min"], out["pw_max"], out["total"], out["pw_expected"], out["accepted"],
-                      out["accept_probability"])
+    names = ("pw_min", "pw_max", "total", "pw_expected", "accepted", "accept_probability")
+    if not _use_compiled(pw.size, compiled):
+        out = dict(zip(names, column_summaries_numpy(pw, w)))
+    else:
+        out = {k: np.empty(P) for k in names}
+        _column_summaries(pw, w, out["pw_min"], out["pw_max"], out["total"], out["pw_expected"], out["accepted"],
+                          out["accept_probability"])
     out["pw_mean"] = out.pop("total") / S if S else np.full(P, np.nan)
     out["accept_share"] = out.pop("accepted") / S if S else np.full(P, np.nan)
     return out
@@ -174,18 +196,21 @@ def _class_weighted_streams(amounts, growth, out):
                 out[f, p, t] = acc
 
 
-def class_weighted_streams(amounts, growth) -> np.ndarray:
+def class_weighted_streams(amounts, growth, *, compiled: bool | None = None) -> np.ndarray:
     """out[f, p, t] = sum_c amounts[c, p, t] * growth[c, f, t]: (C, P, T), (C, F, T) -> (F, P, T).
 
     Then-current streams at F inflation levels from amounts by line class and each class's growth
     factors, in one pass that writes the result once (NumPy's ``out += amounts[c] * growth[c]``
     makes a full-size temporary per class). The classes are summed in order from 0.0, as that
-    NumPy loop does, so the two agree bit for bit.
+    NumPy loop does, so the two agree bit for bit; up to ``NUMPY_MAX_ELEMENTS`` output elements
+    (or as ``compiled`` says) that NumPy loop runs instead.
     """
     A = np.ascontiguousarray(amounts, dtype=float)
     g = np.ascontiguousarray(growth, dtype=float)
     if A.ndim != 3 or g.ndim != 3 or g.shape[0] != A.shape[0] or g.shape[2] != A.shape[2]:
         raise ValueError(f"amounts (C, P, T) {A.shape} and growth (C, F, T) {g.shape} do not match")
+    if not _use_compiled(g.shape[1] * A.shape[1] * A.shape[2], compiled):
+        return class_weighted_numpy(A, g)
     out = np.empty((g.shape[1], A.shape[1], A.shape[2]))
     _class_weighted_streams(A, g, out)
     return out
