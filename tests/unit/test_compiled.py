@@ -249,3 +249,31 @@ def test_numpy_forms_equal_the_compiled_loops_bit_for_bit():
     np.testing.assert_array_equal(k.class_weighted_streams(amounts, growth, compiled=True),
                                   k.class_weighted_streams(amounts, growth, compiled=False))
     assert not k._use_compiled(861 * 194, None) and k._use_compiled(k.NUMPY_MAX_ELEMENTS + 1, None)
+
+
+@pytest.mark.parametrize("real_basis", [False, True])
+def test_numpy_root_search_equals_the_compiled_one_bit_for_bit(real_basis):
+    """Chandrupatla's search in NumPy (all rows in lockstep, the C library's exp and log1p) finds
+    the compiled kernel's crossings exactly, for each moved input, a class frozen after period 8,
+    even and uneven period exponents; brackets without a sign change give NaN in both. (The
+    compiled search is checked against scipy.optimize.elementwise.find_root in test_switching.py.)"""
+    from ratescape.evaluate import compiled as k
+    rng = np.random.default_rng(17)
+    C, P, T = 3, 60, 21
+    lines = rng.normal(0, 100, size=(C, P, T))
+    lines[:, :, 0] = -rng.uniform(500, 3000, size=(C, P))
+    real = np.array([True, True, False])
+    frozen = np.array([-1, 8, -1])
+    escalation = np.array([0.0, 0.02, 0.01])
+    multiplier = np.array([1.0, 1.2, 1.0])
+    rows = np.arange(P)
+    found = 0
+    for tau in (np.arange(T, dtype=float), np.sqrt(np.arange(T, dtype=float)) * 3.0):
+        for move, (lo, hi) in ((k.MOVE_DISCOUNT_RATE, (-0.5, 2.0)), (k.MOVE_INFLATION, (-0.2, 0.6)),
+                               (k.MOVE_ESCALATION, (-0.3, 0.5))):
+            args = (lines, real, escalation, multiplier, tau, move, 0.08, 0.03, 0.0, rows, np.full(P, lo),
+                    np.full(P, hi), 1e-12)
+            got = [k.bracketed_roots(*args, frozen=frozen, real_basis=real_basis, compiled=c) for c in (True, False)]
+            np.testing.assert_array_equal(got[0], got[1])
+            found += int(np.isfinite(got[0]).sum())
+    assert found > 100

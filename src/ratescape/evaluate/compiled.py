@@ -9,7 +9,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from .compiled_numpy import class_weighted_numpy, column_summaries_numpy, index_and_fixed_numpy
+from .compiled_numpy import (bracketed_roots_numpy, class_weighted_numpy, column_summaries_numpy,
+                             index_and_fixed_numpy)
 
 # Arrays of up to this many elements take the NumPy forms of compiled_numpy.py (the same numbers,
 # bit for bit) in index_and_fixed_investment, column_summaries and class_weighted_streams, and the
@@ -18,8 +19,14 @@ from .compiled_numpy import class_weighted_numpy, column_summaries_numpy, index_
 NUMPY_MAX_ELEMENTS = 4_000_000
 
 
-def _use_compiled(n: int, compiled: bool | None) -> bool:
-    return n > NUMPY_MAX_ELEMENTS if compiled is None else bool(compiled)
+# Root searches of up to this many projects run Chandrupatla's method in NumPy, all rows in lockstep
+# (compiled_numpy.bracketed_roots_numpy: the same steps and numbers); compiling the search and the
+# point worth costs about 1.5 s of CPU on a first run.
+NUMPY_MAX_ROOTS = 2_000
+
+
+def _use_compiled(n: int, compiled: bool | None, limit: int | None = None) -> bool:
+    return n > (NUMPY_MAX_ELEMENTS if limit is None else limit) if compiled is None else bool(compiled)
 
 # A geometric sequence q^t built by repeated multiplication drifts by about one rounding per step;
 # it is re-anchored with an exact exp() every this many periods (drift stays below ~1e-14).
@@ -312,7 +319,8 @@ def _bracketed_roots(lines, real, frozen, escalation, multiplier, tau, uniform_s
 
 
 def bracketed_roots(lines, real, escalation, multiplier, tau, move, rate, inflation, shift, rows, low, high,
-                    xatol, xrtol=4 * np.finfo(float).eps, frozen=None, *, real_basis: bool = False) -> np.ndarray:
+                    xatol, xrtol=4 * np.finfo(float).eps, frozen=None, *, real_basis: bool = False,
+                    compiled: bool | None = None) -> np.ndarray:
     """Where each project's present worth crosses zero as one input moves within its bracket.
 
     Parameters
@@ -337,11 +345,20 @@ def bracketed_roots(lines, real, escalation, multiplier, tau, move, rate, inflat
     T. R. Chandrupatla, "A new hybrid quadratic/bisection algorithm for finding the zero of a
     nonlinear function without using derivatives", Advances in Engineering Software 28(3), 1997,
     pp. 145-149; the steps and tests follow ``scipy.optimize.elementwise.find_root``, which the
-    tests use as the reference.
+    tests use as the reference. Up to ``NUMPY_MAX_ROOTS`` rows (or as ``compiled`` says) every
+    row runs the same steps in NumPy (:func:`ratescape.evaluate.compiled_numpy.bracketed_roots_numpy`,
+    the same numbers) and nothing is compiled.
     """
     tau = np.ascontiguousarray(tau, dtype=float)
     out = np.empty(np.size(rows))
     frozen = np.full(np.shape(real), -1, dtype=np.int64) if frozen is None else frozen
+    if not _use_compiled(np.size(rows), compiled, NUMPY_MAX_ROOTS):
+        return bracketed_roots_numpy(np.ascontiguousarray(lines, dtype=float), np.asarray(real, dtype=np.bool_),
+                                     np.asarray(frozen, dtype=np.int64), np.asarray(escalation, dtype=float),
+                                     np.asarray(multiplier, dtype=float), tau, _uniform_step(tau), int(move),
+                                     float(rate), float(inflation), float(shift), np.asarray(rows, dtype=np.int64),
+                                     np.asarray(low, dtype=float), np.asarray(high, dtype=float), float(xatol),
+                                     float(xrtol), bool(real_basis))
     _bracketed_roots(np.ascontiguousarray(lines, dtype=float), np.ascontiguousarray(real, dtype=np.bool_),
                      np.ascontiguousarray(frozen, dtype=np.int64),
                      np.ascontiguousarray(escalation, dtype=float), np.ascontiguousarray(multiplier, dtype=float),
