@@ -89,37 +89,54 @@ def rank_rows_numpy(values, base_mean, valid, ranks, rho, acc_min, acc_max, acc_
     rho[ok] = np.minimum(1.0, np.maximum(-1.0, r[ok]))
 
 
-# pairs compared at once by the tau-b count (B x n x n booleans a block)
-_PAIR_CELLS = 4_000_000
+# pairs compared at once by the tau-b count (rows x pairs a block)
+_PAIR_CELLS = 2_000_000
+
+
+def _tied_pairs_sorted(y):
+    """Pairs of equal values in each row of y (B, n): sum of t (t - 1) / 2 over runs of ties."""
+    B, n = y.shape
+    s = np.sort(y, axis=1)
+    new = np.ones((B, n), dtype=bool)
+    new[:, 1:] = s[:, 1:] != s[:, :-1]
+    start = np.where(new, np.arange(n), 0)
+    np.maximum.accumulate(start, axis=1, out=start)
+    return (np.arange(n) - start).sum(axis=1, dtype=np.int64)     # each value: the equal ones before it
 
 
 def tau_numpy(values, order, group_start, n_valid, base_tied_pairs):
     """Kendall's tau-b (B,) of each row of ``values`` against the base ordering given by ``order``,
     ``group_start``, ``n_valid``, ``base_tied_pairs`` (a :class:`ratescape.decide.rank_kernel.BaseOrdering`),
-    by counting the pairs directly: O(B n^2) for n valid projects, the compiled merge sort's
-    counts (discordant pairs, pairs tied in the scenario, pairs tied in both), hence the same tau.
-    (Kendall, Biometrika 1945, tau-b; see :mod:`ratescape.decide.rank_kernel`.)"""
+    from the compiled merge sort's counts, found here directly: pairs tied in the scenario (runs of
+    a sorted row), pairs tied in both (pairs within a base group) and discordant pairs (pairs of
+    different base groups whose scenario values are in the other order: O(B n^2) comparisons for
+    n valid projects), hence the same tau. (Kendall, Biometrika 1945, tau-b; see
+    :mod:`ratescape.decide.rank_kernel`.)"""
     B = values.shape[0]
     n = int(n_valid)
     tau = np.full(B, np.nan)
     n0 = n * (n - 1) // 2
     if n < 2 or B == 0:
         return tau
-    y = np.where(np.isnan(values[:, order[:n]]), np.inf, -values[:, order[:n]])   # base order
+    y = values[:, order[:n]]                                       # base order
+    y = np.where(np.isnan(y), np.inf, -y)
     sizes = np.diff(group_start)
     group = np.repeat(np.arange(sizes.size), sizes)[:n]
-    later = group[:, None] < group[None, :]                 # i's base group before j's
-    same = np.triu(group[:, None] == group[None, :], 1)     # i < j in one base group
-    upper = np.triu(np.ones((n, n), dtype=bool), 1)
-    step = max(1, _PAIR_CELLS // (n * n))
+    i, j = np.triu_indices(n, 1)
+    apart = group[i] < group[j]
+    i_apart, j_apart = i[apart], j[apart]                          # base strictly ordered: i before j
+    i_same, j_same = i[~apart], j[~apart]                          # tied in the base
+    scenario_tied = _tied_pairs_sorted(y)
+    both_tied = np.zeros(B, dtype=np.int64)
+    discordant = np.zeros(B, dtype=np.int64)
+    step = max(1, _PAIR_CELLS // max(1, i_apart.size))
     for a in range(0, B, step):
         yb = y[a:a + step]
-        equal = yb[:, :, None] == yb[:, None, :]
-        scenario_tied = (equal & upper).sum(axis=(1, 2), dtype=np.int64)
-        both_tied = (equal & same).sum(axis=(1, 2), dtype=np.int64)
-        discordant = ((yb[:, :, None] > yb[:, None, :]) & later).sum(axis=(1, 2), dtype=np.int64)
-        denom = float(n0 - base_tied_pairs) * (n0 - scenario_tied).astype(float)
-        num = (n0 - base_tied_pairs - scenario_tied + both_tied - 2 * discordant).astype(float)
-        good = denom > 0.0
-        tau[a:a + step][good] = num[good] / np.sqrt(denom[good])
+        discordant[a:a + step] = np.count_nonzero(yb[:, i_apart] > yb[:, j_apart], axis=1)
+        if i_same.size:
+            both_tied[a:a + step] = np.count_nonzero(yb[:, i_same] == yb[:, j_same], axis=1)
+    denom = float(n0 - base_tied_pairs) * (n0 - scenario_tied).astype(float)
+    num = (n0 - base_tied_pairs - scenario_tied + both_tied - 2 * discordant).astype(float)
+    good = denom > 0.0
+    tau[good] = num[good] / np.sqrt(denom[good])
     return tau
