@@ -10,7 +10,7 @@ import numpy as np
 from numba import njit
 
 from .compiled_numpy import (bracketed_roots_numpy, class_weighted_numpy, column_summaries_numpy,
-                             index_and_fixed_numpy)
+                             geometric_sums_numpy, index_and_fixed_numpy)
 
 # Arrays of up to this many elements take the NumPy forms of compiled_numpy.py (the same numbers,
 # bit for bit) in index_and_fixed_investment, column_summaries and class_weighted_streams, and the
@@ -19,9 +19,9 @@ from .compiled_numpy import (bracketed_roots_numpy, class_weighted_numpy, column
 NUMPY_MAX_ELEMENTS = 4_000_000
 
 
-# Root searches of up to this many projects run Chandrupatla's method in NumPy, all rows in lockstep
-# (compiled_numpy.bracketed_roots_numpy: the same steps and numbers); compiling the search and the
-# point worth costs about 1.5 s of CPU on a first run.
+# Root searches (and point-worth sums) of up to this many projects run in NumPy, all rows in
+# lockstep (compiled_numpy.bracketed_roots_numpy, geometric_sums_numpy: the same steps and
+# numbers); compiling the search and the point worth costs about 1.5 s of CPU on a first run.
 NUMPY_MAX_ROOTS = 2_000
 
 
@@ -67,7 +67,7 @@ def _uniform_step(tau) -> float:
     return float(steps[0]) if steps.size and np.all(steps == steps[0]) and steps[0] > 0 else 0.0
 
 
-def weighted_exponential_sums(lines, log_ratio, tau) -> np.ndarray:
+def weighted_exponential_sums(lines, log_ratio, tau, *, compiled: bool | None = None) -> np.ndarray:
     """sum_t lines[p, t] * exp(log_ratio[p] * tau[t]) for every row p: (P, T), (P,), (T,) -> (P,).
 
     The present worth of one line class at a per-project point, with log_ratio =
@@ -76,10 +76,13 @@ def weighted_exponential_sums(lines, log_ratio, tau) -> np.ndarray:
     :func:`ratescape.evaluate.timing.discount_exponents`), the factors are a geometric sequence
     and cost one multiplication each instead of an exp(). Equals
     ``np.einsum("pt,pt->p", lines, np.exp(np.multiply.outer(log_ratio, tau)))`` to ~1e-14 relative.
+    Up to ``NUMPY_MAX_ROOTS`` rows the same sums run in NumPy (the same numbers; nothing compiled).
     """
     lines = np.ascontiguousarray(lines, dtype=float)
     x = np.ascontiguousarray(log_ratio, dtype=float)
     tau = np.ascontiguousarray(tau, dtype=float)
+    if not _use_compiled(lines.shape[0], compiled, NUMPY_MAX_ROOTS):
+        return geometric_sums_numpy(lines, x, tau, _uniform_step(tau))
     out = np.empty(lines.shape[0])
     _weighted_geometric_sums(lines, x, tau, _uniform_step(tau), out)
     return out

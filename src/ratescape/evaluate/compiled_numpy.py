@@ -76,7 +76,7 @@ libm_exp = _libm(math.exp)
 libm_log1p = _libm(math.log1p)
 
 
-def _geometric_sums(rows, xp, tau, uniform_step):
+def geometric_sums_numpy(rows, xp, tau, uniform_step):
     """``compiled._geometric_sum`` of each row of ``rows`` (n, T) at its own ``xp`` (n,)."""
     n, T = rows.shape
     acc = np.zeros(n)
@@ -111,10 +111,10 @@ def _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step,
             log_g = libm_log1p(escalation[c] + d) + log_f if real[c] else libm_log1p(np.full(n, escalation[c]))
             k = int(frozen[c])
             if k < 0 or not real[c]:
-                total = total + _geometric_sums(lines[c][p], log_g - log_i, tau, uniform_step) * multiplier[c]
+                total = total + geometric_sums_numpy(lines[c][p], log_g - log_i, tau, uniform_step) * multiplier[c]
             else:
-                head = _geometric_sums(lines[c][p, :k], log_g - log_i, tau[:k], uniform_step)
-                tail = _geometric_sums(lines[c][p, k:], -log_i, tau[k:], uniform_step) * libm_exp(log_g * tau[k])
+                head = geometric_sums_numpy(lines[c][p, :k], log_g - log_i, tau[:k], uniform_step)
+                tail = geometric_sums_numpy(lines[c][p, k:], -log_i, tau[k:], uniform_step) * libm_exp(log_g * tau[k])
                 total = total + (head + tail) * multiplier[c]
     return total
 
