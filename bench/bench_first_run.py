@@ -10,8 +10,9 @@ Each is run *cold* (``NUMBA_CACHE_DIR`` an empty folder: what a fresh install se
 *warm* (the same command again with the folder it filled). For every run it prints the wall time,
 the CPU time of the child (user + system, less sensitive to other jobs on a shared machine) and
 the Numba compilation time attributed per function from Numba's event API
-(``numba.core.event``, kind ``numba:compile``): *self* time excludes the callees compiled inside
-a function's own compilation, so the self times add up to the whole compile time. With
+(``numba.core.event``, kind ``numba:compile``), as wall time and as CPU time of the compiling
+thread: *self* time excludes the callees compiled inside a function's own compilation, so the
+self times add up to the whole compile time. With
 ``--before DIR`` (a folder holding another version's ``src/``, ``data_demo/`` and ``queries/``,
 e.g. from ``git archive``) the two versions are run interleaved, repeat by repeat.
 
@@ -39,23 +40,28 @@ import atexit, json, os, runpy, sys, time
 from numba.core import event
 
 report_path, mode, out = sys.argv[1], sys.argv[2], sys.argv[3]
-stack = []            # [name, start, child seconds]
-self_time = {}
+stack = []            # [name, start, child seconds, start CPU, child CPU] (compilations are serialised
+self_time = {}        # by Numba's compiler lock, so one stack serves every thread)
+self_cpu = {}
 inclusive = {}
 counts = {}
 
 class Attribution(event.Listener):
     def on_start(self, ev):
         d = ev.data["dispatcher"]
-        stack.append([d.py_func.__module__.rsplit(".", 1)[-1] + "." + d.py_func.__qualname__, time.perf_counter(), 0.0])
+        stack.append([d.py_func.__module__.rsplit(".", 1)[-1] + "." + d.py_func.__qualname__, time.perf_counter(), 0.0,
+                      time.thread_time(), 0.0])
 
     def on_end(self, ev):
-        name, start, children = stack.pop()
+        name, start, children, cpu_start, cpu_children = stack.pop()
         took = time.perf_counter() - start
+        cpu = time.thread_time() - cpu_start          # CPU time of the compiling thread
         self_time[name] = self_time.get(name, 0.0) + took - children
+        self_cpu[name] = self_cpu.get(name, 0.0) + cpu - cpu_children
         counts[name] = counts.get(name, 0) + 1
         if stack:
             stack[-1][2] += took
+            stack[-1][4] += cpu
         else:
             inclusive[name] = inclusive.get(name, 0.0) + took
 
@@ -63,7 +69,7 @@ event.register("numba:compile", Attribution())
 t0 = time.perf_counter()
 
 def dump():
-    json.dump({"self": self_time, "inclusive": inclusive, "count": counts,
+    json.dump({"self": self_time, "self_cpu": self_cpu, "inclusive": inclusive, "count": counts,
                "in_process": time.perf_counter() - t0}, open(report_path, "w"))
 
 atexit.register(dump)
@@ -107,7 +113,8 @@ def run_once(src: Path, mode: str, cache: Path, work: Path) -> dict:
     stats = json.loads(report.read_text())
     shutil.rmtree(out, ignore_errors=True)
     cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
-    return dict(wall=wall, cpu=cpu, compile=sum(stats["self"].values()), load=load, **stats)
+    return dict(wall=wall, cpu=cpu, compile=sum(stats["self"].values()), compile_cpu=sum(stats["self_cpu"].values()),
+                load=load, **stats)
 
 
 def main(argv=None):
@@ -131,23 +138,24 @@ def main(argv=None):
                     shutil.rmtree(cache, ignore_errors=True)
                     rows.append((rep, mode, label, cold, warm))
                     print(f"[{rep}] {mode:<8} {label:<6} cold wall {cold['wall']:6.2f} s cpu {cold['cpu']:6.2f} s "
-                          f"compile {cold['compile']:5.2f} s (load {cold['load']}) | warm wall {warm['wall']:6.2f} s "
-                          f"cpu {warm['cpu']:6.2f} s compile {warm['compile']:5.2f} s (load {warm['load']})",
-                          flush=True)
-                    top = sorted(cold["self"].items(), key=lambda kv: -kv[1])[: a.top]
-                    print("      compile self-time, cold: " + ", ".join(
+                          f"compile {cold['compile']:5.2f} s wall, {cold['compile_cpu']:5.2f} s cpu (load {cold['load']})"
+                          f" | warm wall {warm['wall']:6.2f} s cpu {warm['cpu']:6.2f} s compile {warm['compile']:5.2f} s "
+                          f"(load {warm['load']})", flush=True)
+                    top = sorted(cold["self_cpu"].items(), key=lambda kv: -kv[1])[: a.top]
+                    print("      compile self-time (CPU s), cold: " + ", ".join(
                         f"{k} {v:.2f}" + (f" (x{cold['count'][k]})" if cold["count"][k] > 1 else "")
                         for k, v in top), flush=True)
     finally:
         shutil.rmtree(work, ignore_errors=True)
-    print("\nmode      version  cold wall  cold cpu  compile  warm wall  warm cpu   (medians)")
+    print("\nseconds, one figure per repeat")
+    print("mode      version  cold wall       cold CPU        compile CPU     warm wall       warm CPU")
     for mode in a.modes.split(","):
         for label, _ in versions:
             sel = [(c, w) for _, m, lab, c, w in rows if m == mode and lab == label]
-            med = lambda xs: sorted(xs)[len(xs) // 2]   # noqa: E731
-            print(f"{mode:<9} {label:<7} {med([c['wall'] for c, _ in sel]):9.2f} {med([c['cpu'] for c, _ in sel]):9.2f} "
-                  f"{med([c['compile'] for c, _ in sel]):8.2f} {med([w['wall'] for _, w in sel]):10.2f} "
-                  f"{med([w['cpu'] for _, w in sel]):9.2f}")
+            fig = lambda xs: ", ".join(f"{x:.2f}" for x in xs).ljust(15)   # noqa: E731
+            print(f"{mode:<9} {label:<7}  {fig([c['wall'] for c, _ in sel])} {fig([c['cpu'] for c, _ in sel])} "
+                  f"{fig([c['compile_cpu'] for c, _ in sel])} {fig([w['wall'] for _, w in sel])} "
+                  f"{fig([w['cpu'] for _, w in sel])}")
     print(f"load average at the end: {load_average()}")
 
 
