@@ -43,7 +43,9 @@ def rank_rows_numpy(values, base_mean, valid, ranks, rho, acc_min, acc_max, acc_
     running tallies when ``acc_min`` has P entries (see :func:`ratescape.decide.rank_kernel.rank_rows`).
 
     Ties are ordered by project (a stable sort of the keys), the order in which the compiled
-    kernel sums the tie corrections of Spearman's average places.
+    kernel sums the tie corrections of Spearman's average places. (C. Spearman, "The proof and
+    measurement of association between two things", American Journal of Psychology 15(1), 1904,
+    pp. 72-101: Pearson's correlation of ranks.)
     """
     B, P = values.shape
     keys = sort_keys(values)

@@ -131,7 +131,11 @@ def _smaller(a, b):
 def bracketed_roots_numpy(lines, real, frozen, escalation, multiplier, tau, uniform_step, move, rate, inflation,
                           shift, rows, low, high, xatol, xrtol, real_basis):
     """``compiled._bracketed_roots``: Chandrupatla's method on every row at once, in lockstep (each
-    row takes the compiled loop's steps; a row leaves the loop where the compiled one breaks)."""
+    row takes the compiled loop's steps; a row leaves the loop where the compiled one breaks).
+
+    T. R. Chandrupatla, "A new hybrid quadratic/bisection algorithm for finding the zero of a
+    nonlinear function without using derivatives", Advances in Engineering Software 28(3), 1997,
+    pp. 145-149, with the steps and tests of ``scipy.optimize.elementwise.find_root``."""
     J = rows.size
     out = np.full(J, np.nan)
     if J == 0:

@@ -118,7 +118,10 @@ def _steps_done(xn, step1, lo, hi):
 
 
 def single_roots_numpy(A, last, u_lo: float, u_hi: float, maxiter: int):
-    """``irr_kernels._single_roots`` over all rows at once: (N, T), (N,) -> u (N,), code (N,) int8."""
+    """``irr_kernels._single_roots`` over all rows at once: (N, T), (N,) -> u (N,), code (N,) int8.
+
+    Safeguarded Newton (W. H. Press et al., Numerical Recipes, 3rd ed., Cambridge University Press,
+    2007, section 9.4, ``rtsafe``; from memory) from a secant guess, as the compiled kernel."""
     A = np.asarray(A, dtype=float)
     L = np.asarray(last, dtype=np.int64)
     N = A.shape[0]
@@ -319,7 +322,11 @@ class _Cells:
 
 def cell_roots_numpy(A, last, rows, u0, u1, touch_tol, cap, maxcells, maxiter):
     """``irr_kernels._cells_kernel`` over all cells at once: roots (J, cap), touching (J, cap),
-    count (J,), flag (J,) int8 (0 resolved, 1 unresolved, 2 not converged; count 0 where set)."""
+    count (J,), flag (J,) int8 (0 resolved, 1 unresolved, 2 not converged; count 0 where set).
+
+    The certification (Rolle's theorem and the interpolation-error bound, common practice; in the
+    spirit of interval exclusion tests, R. E. Moore, R. B. Kearfott, M. J. Cloud, Introduction to
+    Interval Analysis, SIAM, 2009, from memory) is :func:`ratescape.evaluate.irr_kernels.cell_roots`'s."""
     A = np.asarray(A, dtype=float)[rows]
     L = np.asarray(last, dtype=np.int64)[rows]
     s = _Cells(A, L, np.asarray(u0, dtype=float), np.asarray(u1, dtype=float), cap)
