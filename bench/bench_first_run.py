@@ -152,7 +152,7 @@ def main(argv=None):
     for mode in a.modes.split(","):
         for label, _ in versions:
             sel = [(c, w) for _, m, lab, c, w in rows if m == mode and lab == label]
-            fig = lambda xs: ", ".join(f"{x:.2f}" for x in xs).ljust(15)   # noqa: E731
+            fig = lambda xs: ", ".join(f"{x:.2f}" for x in xs).ljust(15)
             print(f"{mode:<9} {label:<7}  {fig([c['wall'] for c, _ in sel])} {fig([c['cpu'] for c, _ in sel])} "
                   f"{fig([c['compile_cpu'] for c, _ in sel])} {fig([w['wall'] for _, w in sel])} "
                   f"{fig([w['cpu'] for _, w in sel])}")

@@ -11,12 +11,11 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from test_irr_roots_complete import _close_pair_streams
 
 import ratescape.evaluate.irr_kernels as K
 from ratescape.evaluate.irr import irr_roots
 from ratescape.evaluate.irr_numpy import libm_exp
-
-from test_irr_roots_complete import _close_pair_streams
 
 FIELDS = ("roots", "count", "status", "sign_changes", "norstrom", "touching")
 
@@ -53,7 +52,7 @@ def _both(monkeypatch, fn):
 @pytest.mark.parametrize("low,high", [(-0.99, 10.0), (-0.5, 0.5), (-0.999, 50.0)])
 def test_numpy_irr_equals_compiled_bit_for_bit(monkeypatch, low, high):
     for a in _streams(7):
-        compiled, plain = _both(monkeypatch, lambda: irr_roots(a, low=low, high=high))
+        compiled, plain = _both(monkeypatch, lambda a=a: irr_roots(a, low=low, high=high))
         for f in FIELDS:
             np.testing.assert_array_equal(getattr(plain, f), getattr(compiled, f), err_msg=f)
         if a.shape == (6, 5) and (low, high) == (-0.99, 10.0):           # the odd rows

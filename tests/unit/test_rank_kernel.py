@@ -12,7 +12,6 @@ from scipy.stats import kendalltau, rankdata, spearmanr
 
 from ratescape.decide.rank_kernel import BaseOrdering, mean_ranks, rank_rows, ranks_and_tau
 
-
 ENGINES = pytest.mark.parametrize("compiled", [True, False], ids=["compiled", "numpy"])
 
 

@@ -9,8 +9,13 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from .compiled_numpy import (bracketed_roots_numpy, class_weighted_numpy, column_summaries_numpy,
-                             geometric_sums_numpy, index_and_fixed_numpy)
+from .compiled_numpy import (
+    bracketed_roots_numpy,
+    class_weighted_numpy,
+    column_summaries_numpy,
+    geometric_sums_numpy,
+    index_and_fixed_numpy,
+)
 
 # Arrays of up to this many elements take the NumPy forms of compiled_numpy.py (the same numbers,
 # bit for bit) in index_and_fixed_investment, column_summaries and class_weighted_streams, and the
