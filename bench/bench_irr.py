@@ -44,7 +44,7 @@ def main(argv=None):
     A[2][nominal] += benefit[nominal]
     levels = np.linspace(0.0, 0.1, a.levels)
     plan = SimpleNamespace(inflation_levels=levels, classes=classes, exponents=discount_exponents(T),
-                           irr_multipliers={}, spec=SimpleNamespace(periods_per_year=1.0))
+                           irr_multipliers={}, spec=SimpleNamespace(periods_per_year=1.0, timing="end"))
     t0 = time.perf_counter()
     table = irr_over_inflation(plan, A)
     engine = time.perf_counter() - t0

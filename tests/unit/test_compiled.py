@@ -148,7 +148,8 @@ def test_shared_points_with_an_escalation_shift_follow_the_definition():
         np.testing.assert_allclose(got[:, k], want, rtol=1e-12, atol=1e-10)
 
 
-def test_column_summaries_equal_the_numpy_reductions():
+@pytest.mark.parametrize("compiled", [True, False], ids=["compiled", "numpy"])
+def test_column_summaries_equal_the_numpy_reductions(compiled):
     # reference: NumPy's own reductions over the scenario axis (common practice)
     from ratescape.evaluate.compiled import column_summaries
     rng = np.random.default_rng(11)
@@ -157,7 +158,7 @@ def test_column_summaries_equal_the_numpy_reductions():
     pw[:, 4] = -1.0                                 # never accepted
     w = rng.uniform(size=257)
     w /= w.sum()
-    got = column_summaries(pw, w)
+    got = column_summaries(pw, w, compiled=compiled)
     accepted = pw >= 0.0
     np.testing.assert_array_equal(got["pw_min"], pw.min(axis=0))
     np.testing.assert_array_equal(got["pw_max"], pw.max(axis=0))
@@ -185,7 +186,8 @@ def test_index_from_worth_equals_the_where_formulation():
         index_from_worth(pw, outlay[:, :3])
 
 
-def test_fixed_investment_is_the_outlay_where_it_never_changes():
+@pytest.mark.parametrize("compiled", [True, False], ids=["compiled", "numpy"])
+def test_fixed_investment_is_the_outlay_where_it_never_changes(compiled):
     # identity: the outlay's PW equal in every scenario and positive -> that value; else NaN
     from ratescape.evaluate.compiled import index_and_fixed_investment
     outlay = -np.array([[100.0, 50.0, 0.0, 70.0, -5.0],
@@ -193,19 +195,20 @@ def test_fixed_investment_is_the_outlay_where_it_never_changes():
                         [100.0, 50.0, 0.0, 70.0, -5.0]])
     outlay[1, 3] = -np.nextafter(70.0, 71.0)         # one ulp apart is not the same
     pw = np.arange(15.0).reshape(3, 5)
-    pi, fixed = index_and_fixed_investment(pw, outlay.copy())
+    pi, fixed = index_and_fixed_investment(pw, outlay.copy(), compiled=compiled)
     np.testing.assert_array_equal(fixed, [100.0, np.nan, np.nan, np.nan, np.nan])
     np.testing.assert_allclose(pi[:, 0], 1 + pw[:, 0] / 100.0, rtol=0, atol=0)
     # in place (the outlay buffer becomes the PI), as the screen calls it
     buffer = outlay.copy()
-    pi2, fixed2 = index_and_fixed_investment(pw, buffer, out=buffer)
+    pi2, fixed2 = index_and_fixed_investment(pw, buffer, out=buffer, compiled=compiled)
     assert pi2 is buffer
     np.testing.assert_array_equal(np.isnan(pi2), np.isnan(pi))
     np.testing.assert_array_equal(pi2[~np.isnan(pi)], pi[~np.isnan(pi)])
     np.testing.assert_array_equal(np.isnan(fixed2), np.isnan(fixed))
 
 
-def test_class_weighted_streams_equal_the_numpy_loop_bit_for_bit():
+@pytest.mark.parametrize("compiled", [True, False], ids=["compiled", "numpy"])
+def test_class_weighted_streams_equal_the_numpy_loop_bit_for_bit(compiled):
     """One compiled pass equals ``out += amounts[c] * growth[c]`` over classes from zeros (the
     NumPy formulation it replaces), bit for bit: same products, same order of addition."""
     from ratescape.evaluate.compiled import class_weighted_streams
@@ -216,6 +219,72 @@ def test_class_weighted_streams_equal_the_numpy_loop_bit_for_bit():
         want = np.zeros((F, P, T))
         for c in range(C):
             want += amounts[c][None, :, :] * growth[c][:, None, :]
-        np.testing.assert_array_equal(class_weighted_streams(amounts, growth), want)
+        np.testing.assert_array_equal(class_weighted_streams(amounts, growth, compiled=compiled), want)
     with pytest.raises(ValueError, match="do not match"):
         class_weighted_streams(np.ones((2, 3, 4)), np.ones((3, 1, 4)))
+
+
+def test_numpy_forms_equal_the_compiled_loops_bit_for_bit():
+    """Small arrays take the NumPy forms (evaluate/compiled_numpy.py) so that a first run compiles
+    none of these loops; they must equal the compiled loops exactly: PI and fixed investment (NaN
+    where NaN), every per-project summary, the class-weighted streams."""
+    from ratescape.evaluate import compiled as k
+    rng = np.random.default_rng(5)
+    pw = rng.normal(0.0, 1e5, size=(861, 194))
+    pw[:, 3] = 0.0
+    outlay = -rng.uniform(1e4, 1e6, size=(861, 194))
+    outlay[:, 10] = outlay[0, 10]                    # a fixed investment
+    outlay[:, 2] = 0.0
+    outlay[7, 6] = np.nan
+    w = rng.uniform(size=861)
+    for a, b in zip(k.index_and_fixed_investment(pw, outlay, compiled=True),
+                    k.index_and_fixed_investment(pw, outlay, compiled=False)):
+        np.testing.assert_array_equal(a, b)
+    assert np.isfinite(k.index_and_fixed_investment(pw, outlay)[1][10])
+    c, n = k.column_summaries(pw, w, compiled=True), k.column_summaries(pw, w, compiled=False)
+    for key in c:
+        np.testing.assert_array_equal(c[key], n[key], err_msg=key)
+    amounts = rng.normal(0, 1e4, size=(3, 194, 41))
+    growth = np.exp(rng.normal(0, 0.3, size=(3, 21, 41)))
+    np.testing.assert_array_equal(k.class_weighted_streams(amounts, growth, compiled=True),
+                                  k.class_weighted_streams(amounts, growth, compiled=False))
+    assert not k._use_compiled(861 * 194, None) and k._use_compiled(k.NUMPY_MAX_ELEMENTS + 1, None)
+
+
+@pytest.mark.parametrize("real_basis", [False, True])
+def test_numpy_root_search_equals_the_compiled_one_bit_for_bit(real_basis):
+    """Chandrupatla's search in NumPy (all rows in lockstep, the C library's exp and log1p) finds
+    the compiled kernel's crossings exactly, for each moved input, a class frozen after period 8,
+    even and uneven period exponents; brackets without a sign change give NaN in both. (The
+    compiled search is checked against scipy.optimize.elementwise.find_root in test_switching.py.)"""
+    from ratescape.evaluate import compiled as k
+    rng = np.random.default_rng(17)
+    C, P, T = 3, 60, 21
+    lines = rng.normal(0, 100, size=(C, P, T))
+    lines[:, :, 0] = -rng.uniform(500, 3000, size=(C, P))
+    real = np.array([True, True, False])
+    frozen = np.array([-1, 8, -1])
+    escalation = np.array([0.0, 0.02, 0.01])
+    multiplier = np.array([1.0, 1.2, 1.0])
+    rows = np.arange(P)
+    found = 0
+    for tau in (np.arange(T, dtype=float), np.sqrt(np.arange(T, dtype=float)) * 3.0):
+        for move, (lo, hi) in ((k.MOVE_DISCOUNT_RATE, (-0.5, 2.0)), (k.MOVE_INFLATION, (-0.2, 0.6)),
+                               (k.MOVE_ESCALATION, (-0.3, 0.5))):
+            args = (lines, real, escalation, multiplier, tau, move, 0.08, 0.03, 0.0, rows, np.full(P, lo),
+                    np.full(P, hi), 1e-12)
+            got = [k.bracketed_roots(*args, frozen=frozen, real_basis=real_basis, compiled=c) for c in (True, False)]
+            np.testing.assert_array_equal(got[0], got[1])
+            found += int(np.isfinite(got[0]).sum())
+    assert found > 100
+
+
+def test_numpy_geometric_sums_equal_the_compiled_ones_bit_for_bit():
+    """The per-project point worth sums in NumPy (anchored geometric factors, the C library's exp)
+    equal the compiled loop's, for even and uneven exponents and per-row ratios of both signs."""
+    rng = np.random.default_rng(23)
+    lines = rng.normal(0, 1e3, size=(300, 70))
+    x = rng.uniform(-0.3, 0.2, size=300)
+    for tau in (np.arange(70.0), np.arange(70.0) + 0.5, np.sqrt(np.arange(70.0))):
+        np.testing.assert_array_equal(weighted_exponential_sums(lines, x, tau, compiled=True),
+                                      weighted_exponential_sums(lines, x, tau, compiled=False))

@@ -1,14 +1,18 @@
-"""The compiled rank pass against SciPy's reference implementations.
+"""The rank pass, compiled and plain NumPy, against SciPy's reference implementations.
 
 Sources: scipy.stats.rankdata (method="min": competition ranking), scipy.stats.kendalltau
 (tau-b, Knight's algorithm) and scipy.stats.spearmanr. Ties, NaN and values closer than the
-packed sort keeps apart are generated on purpose.
+packed sort keeps apart are generated on purpose. Each test runs both forms (``compiled=True``:
+the Numba kernels; ``compiled=False``: :mod:`ratescape.decide.rank_numpy`, which small portfolios
+use so that a first run compiles nothing for the rank pass), and the two must agree bit for bit.
 """
 import numpy as np
 import pytest
 from scipy.stats import kendalltau, rankdata, spearmanr
 
 from ratescape.decide.rank_kernel import BaseOrdering, mean_ranks, rank_rows, ranks_and_tau
+
+ENGINES = pytest.mark.parametrize("compiled", [True, False], ids=["compiled", "numpy"])
 
 
 def _scipy_ranks(values):
@@ -37,23 +41,26 @@ def _cases(seed, n):
         yield values, base
 
 
-def test_rank_rows_equals_scipy_rankdata_min():
+@ENGINES
+def test_rank_rows_equals_scipy_rankdata_min(compiled):
     for values, base in _cases(0, 400):
-        ranks, _ = rank_rows(values)
+        ranks, _ = rank_rows(values, compiled=compiled)
         np.testing.assert_array_equal(ranks, _scipy_ranks(values))
 
 
-def test_rank_rows_large_portfolio_with_near_ties():
+@ENGINES
+def test_rank_rows_large_portfolio_with_near_ties(compiled):
     """100,000 values with many pairs 1 ulp apart: the exact re-sort must keep them apart."""
     rng = np.random.default_rng(1)
     v = rng.normal(size=100_000) * 1e6
     v[1::2] = np.nextafter(v[0::2], np.inf)
     values = np.vstack([v, -v])
-    ranks, _ = rank_rows(values)
+    ranks, _ = rank_rows(values, compiled=compiled)
     np.testing.assert_array_equal(ranks, _scipy_ranks(values))
 
 
-def test_rank_rows_long_runs_within_the_dropped_bits():
+@ENGINES
+def test_rank_rows_long_runs_within_the_dropped_bits(compiled):
     """Runs of 5, 40 and 3,000 values a few ulps apart, in reverse project order and with exact
     ties mixed in: short runs take the insertion sort, long ones the merge sort; ranks, tallies
     and Spearman's rho still equal SciPy's."""
@@ -67,7 +74,7 @@ def test_rank_rows_long_runs_within_the_dropped_bits():
     values = np.vstack([v, v[::-1], -v])
     base = mean_ranks(values[0])
     tally = RankTally(v.size, 10)
-    ranks, rho = rank_rows(values, base, tally=tally)
+    ranks, rho = rank_rows(values, base, tally=tally, compiled=compiled)
     want = _scipy_ranks(values)
     np.testing.assert_array_equal(ranks, want)
     np.testing.assert_array_equal(tally.min, want.min(axis=0))
@@ -77,38 +84,42 @@ def test_rank_rows_long_runs_within_the_dropped_bits():
         assert rho[b] == pytest.approx(spearmanr(values[0], values[b]).statistic, abs=1e-12)
 
 
-def test_spearman_rho_equals_scipy_spearmanr():
+@ENGINES
+def test_spearman_rho_equals_scipy_spearmanr(compiled):
     rng = np.random.default_rng(2)
     for trial in range(100):
         P = int(rng.integers(3, 80))
         base = rng.integers(0, 6, size=P).astype(float) if trial % 2 else rng.normal(size=P)
         values = np.vstack([base + rng.normal(size=P) * s for s in (0.0, 0.5, 5.0)])
-        _, rho = rank_rows(values, mean_ranks(base))
+        _, rho = rank_rows(values, mean_ranks(base), compiled=compiled)
         for b in range(3):
             want = spearmanr(values[b], base).statistic
             assert rho[b] == pytest.approx(want, abs=1e-12)
 
 
-def test_spearman_rho_over_valid_projects_ranked_first():
+@ENGINES
+def test_spearman_rho_over_valid_projects_ranked_first(compiled):
     """Projects without a value (NaN in every scenario) rank last and are left out of rho."""
     rng = np.random.default_rng(3)
     base = rng.normal(size=30)
     base[[3, 8, 20]] = np.nan
     values = np.vstack([base + rng.normal(size=30) * 0.3, base])
     ok = np.isfinite(base)
-    _, rho = rank_rows(values, mean_ranks(base), ok)
+    _, rho = rank_rows(values, mean_ranks(base), ok, compiled=compiled)
     assert rho[0] == pytest.approx(spearmanr(values[0, ok], base[ok]).statistic, abs=1e-12)
     assert rho[1] == pytest.approx(1.0)
 
 
-def test_rho_is_nan_when_a_ranking_is_all_ties():
-    _, rho = rank_rows(np.ones((1, 5)), mean_ranks(np.arange(5.0)))
+@ENGINES
+def test_rho_is_nan_when_a_ranking_is_all_ties(compiled):
+    _, rho = rank_rows(np.ones((1, 5)), mean_ranks(np.arange(5.0)), compiled=compiled)
     assert np.isnan(rho[0])
 
 
-def test_ranks_and_tau_equal_scipy():
+@ENGINES
+def test_ranks_and_tau_equal_scipy(compiled):
     for values, base in _cases(4, 300):
-        ranks, tau = ranks_and_tau(values, BaseOrdering(base))
+        ranks, tau = ranks_and_tau(values, BaseOrdering(base), compiled=compiled)
         np.testing.assert_array_equal(ranks, _scipy_ranks(values))
         ok = np.isfinite(base)
         last = np.where(np.isnan(values), -np.inf, values)      # NaN ranks last, tied with each other
@@ -120,10 +131,11 @@ def test_ranks_and_tau_equal_scipy():
                 assert tau[b] == pytest.approx(want, abs=1e-12)
 
 
-def test_tau_of_a_reversed_order_is_minus_one_and_identity_is_one():
+@ENGINES
+def test_tau_of_a_reversed_order_is_minus_one_and_identity_is_one(compiled):
     """tau-b = 1 for the same order, -1 for the reverse (common practice)."""
     base = np.arange(50.0)
-    _, tau = ranks_and_tau(np.vstack([base * 2.0, -base]), BaseOrdering(base))
+    _, tau = ranks_and_tau(np.vstack([base * 2.0, -base]), BaseOrdering(base), compiled=compiled)
     np.testing.assert_allclose(tau, [1.0, -1.0])
 
 
@@ -132,7 +144,8 @@ def test_rank_rows_refuses_a_wrong_out_buffer():
         rank_rows(np.ones((2, 3)), out=np.empty((2, 3)))
 
 
-def test_rank_tally_matches_numpy_reductions_over_several_calls():
+@ENGINES
+def test_rank_tally_matches_numpy_reductions_over_several_calls(compiled):
     """Lowest and highest rank, top-K count and NaN flags accumulated block by block equal the
     reductions of the whole rank matrix (scipy.stats.rankdata, method="min")."""
     from ratescape.decide.rank_kernel import RankTally
@@ -141,7 +154,7 @@ def test_rank_tally_matches_numpy_reductions_over_several_calls():
     values[rng.random(values.shape) < 0.05] = np.nan
     tally = RankTally(40, top_k=5)
     for a in range(0, 23, 6):
-        rank_rows(values[a:a + 6], tally=tally)
+        rank_rows(values[a:a + 6], tally=tally, compiled=compiled)
     want = _scipy_ranks(values)
     np.testing.assert_array_equal(tally.min, want.min(axis=0))
     np.testing.assert_array_equal(tally.max, want.max(axis=0))
@@ -158,8 +171,9 @@ def test_mean_ranks_equal_scipy_average_ranks():
         np.testing.assert_allclose(mean_ranks(v), want)
 
 
+@ENGINES
 @pytest.mark.parametrize("S", [1, 2, 7, 64, 2601])
-def test_column_medians_equal_numpy_median(S):
+def test_column_medians_equal_numpy_median(S, compiled):
     """Each column's exact median (the mean of the two middle values when S is even) equals
     ``numpy.median(axis=0)``; widths around the transpose's block of columns, ranks and floats."""
     from ratescape.decide.rank_kernel import column_medians
@@ -167,12 +181,37 @@ def test_column_medians_equal_numpy_median(S):
     for W in (1, 63, 64, 65, 200):
         ranks = rng.integers(1, 1000, size=(S, W)).astype(np.uint32)
         ranks[:, :3] = 7                                             # constant columns
-        np.testing.assert_array_equal(column_medians(ranks), np.median(ranks, axis=0))
+        np.testing.assert_array_equal(column_medians(ranks, compiled=compiled), np.median(ranks, axis=0))
         work = np.empty(S * W + 5, dtype=np.uint32)                 # a larger reused buffer
         out = np.empty(W)
-        assert column_medians(ranks, out=out, work=work) is out
+        assert column_medians(ranks, out=out, work=work, compiled=compiled) is out
         np.testing.assert_array_equal(out, np.median(ranks, axis=0))
         floats = rng.normal(size=(S, W))
-        np.testing.assert_array_equal(column_medians(floats), np.median(floats, axis=0))
+        np.testing.assert_array_equal(column_medians(floats, compiled=compiled), np.median(floats, axis=0))
     with pytest.raises(ValueError, match="work must hold"):
-        column_medians(np.ones((S, 3), dtype=np.uint32), work=np.empty(1, dtype=np.uint32))
+        column_medians(np.ones((S, 3), dtype=np.uint32), work=np.empty(1, dtype=np.uint32), compiled=compiled)
+
+
+def test_numpy_rank_pass_equals_the_compiled_one_bit_for_bit():
+    """Ranks, Spearman's rho (same sums in the same order), Kendall's tau-b and the tallies of the
+    NumPy forms equal the compiled kernels' exactly, on the tie/NaN/signed-zero/infinity cases and
+    on a portfolio of the demo's size; and a portfolio that small takes the NumPy form by default
+    (the compiled kernels are then never called: see tests/db/test_compiled_kernels.py)."""
+    from ratescape.decide import rank_kernel
+    from ratescape.decide.rank_kernel import RankTally
+    rng = np.random.default_rng(21)
+    demo_sized = rng.normal(size=(40, 194)).round(1)           # rounding makes ties
+    demo_sized[:, :7] = np.nan
+    cases = list(_cases(9, 200)) + [(demo_sized, demo_sized[0].copy())]
+    for values, base in cases:
+        P = values.shape[1]
+        got = {}
+        for compiled in (True, False):
+            tally = RankTally(P, 3)
+            ranks, rho = rank_rows(values, mean_ranks(base), np.isfinite(base), tally=tally, compiled=compiled)
+            ranks2, tau = ranks_and_tau(values, BaseOrdering(base), compiled=compiled)
+            got[compiled] = (ranks, ranks2, rho, tau, tally.min, tally.max, tally.top, tally.any_nan)
+        for a, b in zip(got[True], got[False]):
+            np.testing.assert_array_equal(a, b)          # exactly equal (NaN where NaN)
+    assert rank_kernel.NUMPY_MAX_PROJECTS >= 194
+    assert not rank_kernel._use_compiled(194, None) and rank_kernel._use_compiled(rank_kernel.NUMPY_MAX_PROJECTS + 1, None)

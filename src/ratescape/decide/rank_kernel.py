@@ -30,6 +30,20 @@ from concurrent.futures import ThreadPoolExecutor
 import numpy as np
 from numba import njit
 
+from .rank_numpy import rank_rows_numpy, tau_numpy
+
+# Up to this many projects the rank pass runs in plain NumPy (rank_numpy.py: the same numbers,
+# bit for bit) and the kernels below are not compiled at all: at that size compiling them (about
+# 6 s of CPU on a first run, before Numba's cache holds them) costs far more than they save. The
+# NumPy forms cost about 0.07 ms (ranks) and 0.24 ms (tau, by counting pairs: O(P^2)) a scenario
+# at 194 projects, against 0.002 and 0.011 ms compiled; at 1,024 projects the pair count alone
+# takes 34 ms a scenario, so above this size the compiled kernels pay for their compilation.
+NUMPY_MAX_PROJECTS = 256
+
+
+def _use_compiled(P: int, compiled: bool | None) -> bool:
+    return P > NUMPY_MAX_PROJECTS if compiled is None else bool(compiled)
+
 
 _RUN = 32   # elements insertion-sorted before merging
 ZERO = np.int64(0)   # a typed 0, not a literal: one compiled signature per callee
@@ -191,7 +205,7 @@ class BaseOrdering:
         self.size = base.size
 
 
-def ranks_and_tau(values, base: BaseOrdering):
+def ranks_and_tau(values, base: BaseOrdering, *, compiled: bool | None = None):
     """Competition ranks (B, P) and Kendall's tau-b (B,) of B scenarios against a base ordering.
 
     Parameters
@@ -211,10 +225,17 @@ def ranks_and_tau(values, base: BaseOrdering):
         Kendall's tau-b between scenario b and the base over the projects with a base value
         (``scipy.stats.kendalltau``, variant "b"); NaN when fewer than two such projects or
         when either ordering is all ties.
+
+    ``compiled``: None (default) runs the Numba kernel above ``NUMPY_MAX_PROJECTS`` projects and
+    plain NumPy up to it (:mod:`ratescape.decide.rank_numpy`, the same numbers); True or False
+    forces one of them.
     """
     values = np.ascontiguousarray(values, dtype=float)
     if values.ndim != 2 or values.shape[1] != base.size:
         raise ValueError(f"values must have shape (B, {base.size}), got {values.shape}")
+    if not _use_compiled(base.size, compiled):
+        ranks, _ = rank_rows(values, compiled=False)
+        return ranks, tau_numpy(values, base.order, base.group_start, base.n_valid, base.tied_pairs)
     ranks = np.empty(values.shape, dtype=np.uint32)
     tau = np.empty(values.shape[0])
     B = values.shape[0]
@@ -435,23 +456,30 @@ def _transpose(values, out):
                 out[c, s] = values[s, c]
 
 
-def column_medians(values, out=None, work=None):
+def column_medians(values, out=None, work=None, *, compiled: bool | None = None):
     """Exact median of each column of a scenario-major (S, W) array, e.g. each project's median
     rank over the scenarios: float64 (W,), equal to ``np.median(values, axis=0)`` (the mean of
     the two middle values when S is even).
 
     The columns are laid out as rows by a blocked transpose into ``work`` (a reused buffer of at
     least S * W items of the values' dtype, overwritten) and partitioned in place by NumPy
-    (introselect).
+    (introselect). Up to ``NUMPY_MAX_PROJECTS`` columns (or with ``compiled=False``) NumPy's
+    ``np.median(values, axis=0)`` runs instead and nothing is compiled (the same medians).
     """
     values = np.ascontiguousarray(values)
     if values.ndim != 2:
         raise ValueError(f"values must be 2-D (scenarios, columns), got shape {values.shape}")
     S, W = values.shape
+    if work is not None and (work.dtype != values.dtype or work.size < S * W):
+        raise ValueError(f"work must hold at least {S * W} items of {values.dtype}")
+    if not _use_compiled(W, compiled):
+        result = np.median(values, axis=0) if S else np.full(W, np.nan)
+        if out is None:
+            return np.asarray(result, dtype=float)
+        out[:] = result
+        return out
     if work is None:
         work = np.empty(S * W, dtype=values.dtype)
-    if work.dtype != values.dtype or work.size < S * W:
-        raise ValueError(f"work must hold at least {S * W} items of {values.dtype}")
     by_column = work[: S * W].reshape(W, S)
     if S and W:
         _transpose(values, by_column)
@@ -517,7 +545,8 @@ _NO_TALLY = (np.empty(0, dtype=np.uint32), np.empty(0, dtype=np.uint32), np.empt
              np.empty(0, dtype=np.bool_))
 
 
-def rank_rows(values, base_mean_ranks=None, valid=None, *, out=None, tally: RankTally | None = None):
+def rank_rows(values, base_mean_ranks=None, valid=None, *, out=None, tally: RankTally | None = None,
+              compiled: bool | None = None):
     """Competition ranks (B, P) of each row, 1 = highest; NaN last and tied with each other.
 
     Exactly ``scipy.stats.rankdata(-values, method="min", axis=1)`` with NaN last, but built
@@ -540,6 +569,10 @@ def rank_rows(values, base_mean_ranks=None, valid=None, *, out=None, tally: Rank
     With ``tally`` (a :class:`RankTally`), each project's lowest and highest rank, count of
     ranks <= top_k and whether any of its values is NaN are updated in the same pass.
 
+    ``compiled``: None (default) runs the Numba kernels above ``NUMPY_MAX_PROJECTS`` projects and
+    plain NumPy up to it (:func:`ratescape.decide.rank_numpy.rank_rows_numpy`: a stable argsort,
+    the same ranks, tallies and rho bit for bit); True or False forces one of them.
+
     References
     ----------
     C. Spearman, "The proof and measurement of association between two things", American
@@ -557,6 +590,10 @@ def rank_rows(values, base_mean_ranks=None, valid=None, *, out=None, tally: Rank
     mask = np.ones(P, dtype=np.bool_) if valid is None else np.ascontiguousarray(valid, dtype=np.bool_)
     if base.size not in (0, P) or mask.size != P:
         raise ValueError(f"base_mean_ranks and valid must have {P} entries")
+    if not _use_compiled(P, compiled):
+        acc = tally.for_this_thread() if tally is not None else _NO_TALLY
+        rank_rows_numpy(values, base, mask, ranks, rho, *acc, tally.top_k if tally is not None else 0)
+        return ranks, rho
     bits = max(1, int(P - 1).bit_length())
 
     def part(lo, hi):          # compiled kernels and NumPy's sort release the GIL: rows in parallel

@@ -9,6 +9,30 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from .compiled_numpy import (
+    bracketed_roots_numpy,
+    class_weighted_numpy,
+    column_summaries_numpy,
+    geometric_sums_numpy,
+    index_and_fixed_numpy,
+)
+
+# Arrays of up to this many elements take the NumPy forms of compiled_numpy.py (the same numbers,
+# bit for bit) in index_and_fixed_investment, column_summaries and class_weighted_streams, and the
+# loops below are not compiled for them: at that size NumPy's temporaries cost nothing and the
+# compilation (about 0.8 s of CPU for the three, on a first run) would cost more than it saves.
+NUMPY_MAX_ELEMENTS = 4_000_000
+
+
+# Root searches (and point-worth sums) of up to this many projects run in NumPy, all rows in
+# lockstep (compiled_numpy.bracketed_roots_numpy, geometric_sums_numpy: the same steps and
+# numbers); compiling the search and the point worth costs about 1.5 s of CPU on a first run.
+NUMPY_MAX_ROOTS = 2_000
+
+
+def _use_compiled(n: int, compiled: bool | None, limit: int | None = None) -> bool:
+    return n > (NUMPY_MAX_ELEMENTS if limit is None else limit) if compiled is None else bool(compiled)
+
 # A geometric sequence q^t built by repeated multiplication drifts by about one rounding per step;
 # it is re-anchored with an exact exp() every this many periods (drift stays below ~1e-14).
 ANCHOR_STEPS = 32
@@ -48,7 +72,7 @@ def _uniform_step(tau) -> float:
     return float(steps[0]) if steps.size and np.all(steps == steps[0]) and steps[0] > 0 else 0.0
 
 
-def weighted_exponential_sums(lines, log_ratio, tau) -> np.ndarray:
+def weighted_exponential_sums(lines, log_ratio, tau, *, compiled: bool | None = None) -> np.ndarray:
     """sum_t lines[p, t] * exp(log_ratio[p] * tau[t]) for every row p: (P, T), (P,), (T,) -> (P,).
 
     The present worth of one line class at a per-project point, with log_ratio =
@@ -57,10 +81,13 @@ def weighted_exponential_sums(lines, log_ratio, tau) -> np.ndarray:
     :func:`ratescape.evaluate.timing.discount_exponents`), the factors are a geometric sequence
     and cost one multiplication each instead of an exp(). Equals
     ``np.einsum("pt,pt->p", lines, np.exp(np.multiply.outer(log_ratio, tau)))`` to ~1e-14 relative.
+    Up to ``NUMPY_MAX_ROOTS`` rows the same sums run in NumPy (the same numbers; nothing compiled).
     """
     lines = np.ascontiguousarray(lines, dtype=float)
     x = np.ascontiguousarray(log_ratio, dtype=float)
     tau = np.ascontiguousarray(tau, dtype=float)
+    if not _use_compiled(lines.shape[0], compiled, NUMPY_MAX_ROOTS):
+        return geometric_sums_numpy(lines, x, tau, _uniform_step(tau))
     out = np.empty(lines.shape[0])
     _weighted_geometric_sums(lines, x, tau, _uniform_step(tau), out)
     return out
@@ -95,19 +122,23 @@ def index_from_worth(present_worth, outlay_worth, out=None) -> np.ndarray:
     return index_and_fixed_investment(present_worth, outlay_worth, out)[0]
 
 
-def index_and_fixed_investment(present_worth, outlay_worth, out=None) -> tuple[np.ndarray, np.ndarray]:
+def index_and_fixed_investment(present_worth, outlay_worth, out=None, *,
+                               compiled: bool | None = None) -> tuple[np.ndarray, np.ndarray]:
     """:func:`index_from_worth` and, per project, the investment's PW where it is the same in
     every scenario (an outlay at time 0, no cost axis): (S, P), (S, P) -> (S, P), (P,).
 
     The second result is that positive outlay [currency] or NaN (it varies, or there is none).
     Where it is a number, PI = 1 + PW / it exactly in every scenario, so a stored row need not
-    carry its PI (the ``results`` view derives it).
+    carry its PI (the ``results`` view derives it). Up to ``NUMPY_MAX_ELEMENTS`` elements (or as
+    ``compiled`` says) in NumPy (:mod:`ratescape.evaluate.compiled_numpy`, the same numbers).
     """
     pw = np.ascontiguousarray(present_worth, dtype=float)
     outlay = np.ascontiguousarray(outlay_worth, dtype=float)
     if pw.shape != outlay.shape or pw.ndim != 2:
         raise ValueError(f"present_worth {pw.shape} and outlay_worth {outlay.shape} must be the same 2-D shape")
     pi = np.empty(pw.shape) if out is None else out
+    if not _use_compiled(pw.size, compiled):
+        return index_and_fixed_numpy(pw, outlay, pi)
     fixed = np.empty(pw.shape[1])
     _index_from_worth(pw, outlay, pi, fixed)
     return pi, fixed
@@ -138,7 +169,7 @@ def _column_summaries(pw, w, lo, hi, total, weighted, accepted, weighted_accepte
                 weighted_accepted[p] += ws
 
 
-def column_summaries(present_worth, weights) -> dict:
+def column_summaries(present_worth, weights, *, compiled: bool | None = None) -> dict:
     """Per-project summaries over scenarios of a scenario-major PW matrix (S, P), in one pass.
 
     Returns ``pw_min``, ``pw_max``, ``pw_mean`` (plain mean over scenarios), ``pw_expected``
@@ -146,16 +177,22 @@ def column_summaries(present_worth, weights) -> dict:
     ``accept_probability`` (sum of the weights of those scenarios), each (P,). Money in the
     amounts' currency. Equals the NumPy reductions ``pw.min(axis=0)``, ``weights @ pw``,
     ``(pw >= 0).mean(axis=0)``, ... to summation order. Present worth is finite here (the
-    discount tensor is checked finite before any chunk runs).
+    discount tensor is checked finite before any chunk runs). Up to ``NUMPY_MAX_ELEMENTS``
+    elements (or as ``compiled`` says) in NumPy (:mod:`ratescape.evaluate.compiled_numpy`, the
+    same numbers).
     """
     pw = np.ascontiguousarray(present_worth, dtype=float)
     w = np.ascontiguousarray(weights, dtype=float)
     if pw.ndim != 2 or w.shape != (pw.shape[0],):
         raise ValueError(f"present_worth must be (S, P) and weights (S,), got {pw.shape} and {w.shape}")
     S, P = pw.shape
-    out = {k: np.empty(P) for k in ("pw_min", "pw_max", "total", "pw_expected", "accepted", "accept_probability")}
-    _column_summaries(pw, w, out["pw_min"], out["pw_max"], out["total"], out["pw_expected"], out["accepted"],
-                      out["accept_probability"])
+    names = ("pw_min", "pw_max", "total", "pw_expected", "accepted", "accept_probability")
+    if not _use_compiled(pw.size, compiled):
+        out = dict(zip(names, column_summaries_numpy(pw, w)))
+    else:
+        out = {k: np.empty(P) for k in names}
+        _column_summaries(pw, w, out["pw_min"], out["pw_max"], out["total"], out["pw_expected"], out["accepted"],
+                          out["accept_probability"])
     out["pw_mean"] = out.pop("total") / S if S else np.full(P, np.nan)
     out["accept_share"] = out.pop("accepted") / S if S else np.full(P, np.nan)
     return out
@@ -174,18 +211,21 @@ def _class_weighted_streams(amounts, growth, out):
                 out[f, p, t] = acc
 
 
-def class_weighted_streams(amounts, growth) -> np.ndarray:
+def class_weighted_streams(amounts, growth, *, compiled: bool | None = None) -> np.ndarray:
     """out[f, p, t] = sum_c amounts[c, p, t] * growth[c, f, t]: (C, P, T), (C, F, T) -> (F, P, T).
 
     Then-current streams at F inflation levels from amounts by line class and each class's growth
     factors, in one pass that writes the result once (NumPy's ``out += amounts[c] * growth[c]``
     makes a full-size temporary per class). The classes are summed in order from 0.0, as that
-    NumPy loop does, so the two agree bit for bit.
+    NumPy loop does, so the two agree bit for bit; up to ``NUMPY_MAX_ELEMENTS`` output elements
+    (or as ``compiled`` says) that NumPy loop runs instead.
     """
     A = np.ascontiguousarray(amounts, dtype=float)
     g = np.ascontiguousarray(growth, dtype=float)
     if A.ndim != 3 or g.ndim != 3 or g.shape[0] != A.shape[0] or g.shape[2] != A.shape[2]:
         raise ValueError(f"amounts (C, P, T) {A.shape} and growth (C, F, T) {g.shape} do not match")
+    if not _use_compiled(g.shape[1] * A.shape[1] * A.shape[2], compiled):
+        return class_weighted_numpy(A, g)
     out = np.empty((g.shape[1], A.shape[1], A.shape[2]))
     _class_weighted_streams(A, g, out)
     return out
@@ -287,7 +327,8 @@ def _bracketed_roots(lines, real, frozen, escalation, multiplier, tau, uniform_s
 
 
 def bracketed_roots(lines, real, escalation, multiplier, tau, move, rate, inflation, shift, rows, low, high,
-                    xatol, xrtol=4 * np.finfo(float).eps, frozen=None, *, real_basis: bool = False) -> np.ndarray:
+                    xatol, xrtol=4 * np.finfo(float).eps, frozen=None, *, real_basis: bool = False,
+                    compiled: bool | None = None) -> np.ndarray:
     """Where each project's present worth crosses zero as one input moves within its bracket.
 
     Parameters
@@ -312,11 +353,20 @@ def bracketed_roots(lines, real, escalation, multiplier, tau, move, rate, inflat
     T. R. Chandrupatla, "A new hybrid quadratic/bisection algorithm for finding the zero of a
     nonlinear function without using derivatives", Advances in Engineering Software 28(3), 1997,
     pp. 145-149; the steps and tests follow ``scipy.optimize.elementwise.find_root``, which the
-    tests use as the reference.
+    tests use as the reference. Up to ``NUMPY_MAX_ROOTS`` rows (or as ``compiled`` says) every
+    row runs the same steps in NumPy (:func:`ratescape.evaluate.compiled_numpy.bracketed_roots_numpy`,
+    the same numbers) and nothing is compiled.
     """
     tau = np.ascontiguousarray(tau, dtype=float)
     out = np.empty(np.size(rows))
     frozen = np.full(np.shape(real), -1, dtype=np.int64) if frozen is None else frozen
+    if not _use_compiled(np.size(rows), compiled, NUMPY_MAX_ROOTS):
+        return bracketed_roots_numpy(np.ascontiguousarray(lines, dtype=float), np.asarray(real, dtype=np.bool_),
+                                     np.asarray(frozen, dtype=np.int64), np.asarray(escalation, dtype=float),
+                                     np.asarray(multiplier, dtype=float), tau, _uniform_step(tau), int(move),
+                                     float(rate), float(inflation), float(shift), np.asarray(rows, dtype=np.int64),
+                                     np.asarray(low, dtype=float), np.asarray(high, dtype=float), float(xatol),
+                                     float(xrtol), bool(real_basis))
     _bracketed_roots(np.ascontiguousarray(lines, dtype=float), np.ascontiguousarray(real, dtype=np.bool_),
                      np.ascontiguousarray(frozen, dtype=np.int64),
                      np.ascontiguousarray(escalation, dtype=float), np.ascontiguousarray(multiplier, dtype=float),

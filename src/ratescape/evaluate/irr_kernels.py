@@ -10,6 +10,19 @@ import numpy as np
 from numba import njit
 
 from .compiled import ANCHOR_STEPS
+from .irr_numpy import cell_roots_numpy, single_roots_numpy, stream_facts_numpy
+
+# Up to these many rows (cells) a call runs the NumPy forms of irr_numpy.py (the same numbers, bit
+# for bit) and the Numba kernel is not compiled: a small run's few rows cost milliseconds there,
+# against about 1 s (one sign change) and 3 s (cell search) of CPU to compile the kernels on a
+# first run. Above them the compiled kernels pay for their compilation.
+NUMPY_MAX_ROWS = 2_000
+NUMPY_MAX_CELLS = 1_000
+NUMPY_MAX_FACTS = 50_000
+
+
+def _use_compiled(n: int, limit: int, compiled: bool | None) -> bool:
+    return n > limit if compiled is None else bool(compiled)
 
 _EPS = np.finfo(float).eps
 # arguments passed as typed NumPy scalars, not Python literals: Numba compiles a callee once per
@@ -132,7 +145,8 @@ def _single_roots(A, last, u_lo, u_hi, maxiter, roots, code):
         code[r] = ROOT_FOUND if converged else ROOT_NOT_CONVERGED
 
 
-def single_sign_change_solve(amounts, last, u_low: float, u_high: float, maxiter: int = _MAXITER):
+def single_sign_change_solve(amounts, last, u_low: float, u_high: float, maxiter: int = _MAXITER, *,
+                             compiled: bool | None = None):
     """The IRR of streams whose amounts change sign once, with a status code per row.
 
     By Descartes' rule of signs such a stream has exactly one root in r > -1, so a root lies in
@@ -149,9 +163,14 @@ def single_sign_change_solve(amounts, last, u_low: float, u_high: float, maxiter
     |worth| <= ``ROOT_TOL`` * sum |terms|; a row that fails the check or reaches ``maxiter``
     gets ``ROOT_NOT_CONVERGED``, never a value. (Safeguarded Newton: W. H. Press et al.,
     Numerical Recipes, 3rd ed., Cambridge University Press, 2007, ``rtsafe``; from memory.)
+
+    ``compiled``: None (default) runs the Numba kernel above ``NUMPY_MAX_ROWS`` rows and
+    :func:`ratescape.evaluate.irr_numpy.single_roots_numpy` (the same numbers) up to it.
     """
     A = np.ascontiguousarray(amounts, dtype=float)
     last = np.ascontiguousarray(last, dtype=np.int64)
+    if not _use_compiled(A.shape[0], NUMPY_MAX_ROWS, compiled):
+        return single_roots_numpy(A, last, float(u_low), float(u_high), int(maxiter))
     roots = np.empty(A.shape[0])
     code = np.empty(A.shape[0], dtype=np.int8)
     _single_roots(A, last, float(u_low), float(u_high), int(maxiter), roots, code)
@@ -402,7 +421,8 @@ def _cells_kernel(A, last, rows, u0, u1, touch_tol, maxcells, maxiter, roots, to
         flag[j] = f
 
 
-def cell_roots(amounts, last, rows, u0, u1, touch_tol=1e-12, cap=8, maxcells=4000, maxiter=_MAXITER):
+def cell_roots(amounts, last, rows, u0, u1, touch_tol=1e-12, cap=8, maxcells=4000, maxiter=_MAXITER, *,
+               compiled: bool | None = None):
     """Every root of the worth of ``amounts[rows[j]]`` in the cell [u0[j], u1[j]] of u = log(1 + r).
 
     Each root is certified: the cell is split until, on each piece, one of these holds (bounds
@@ -428,17 +448,26 @@ def cell_roots(amounts, last, rows, u0, u1, touch_tol=1e-12, cap=8, maxcells=400
     practice); the certification is in the spirit of interval Newton / Krawczyk exclusion tests,
     R. E. Moore, R. B. Kearfott, M. J. Cloud, Introduction to Interval Analysis, SIAM, 2009
     (from memory).
+
+    ``compiled``: None (default) runs the Numba kernel above ``NUMPY_MAX_CELLS`` cells and
+    :func:`ratescape.evaluate.irr_numpy.cell_roots_numpy` (the same depth-first search in lockstep
+    over the cells, the same numbers) up to it.
     """
     A = np.ascontiguousarray(amounts, dtype=float)
     last = np.ascontiguousarray(last, dtype=np.int64)
     rows = np.ascontiguousarray(rows, dtype=np.int64)
     J = rows.size
-    roots = np.full((J, cap), np.nan)
-    touch = np.zeros((J, cap), dtype=np.bool_)
-    count = np.zeros(J, dtype=np.int64)
-    flag = np.zeros(J, dtype=np.int8)
-    _cells_kernel(A, last, rows, np.ascontiguousarray(u0, dtype=float), np.ascontiguousarray(u1, dtype=float),
-                  float(touch_tol), int(maxcells), int(maxiter), roots, touch, count, flag)
+    if not _use_compiled(J, NUMPY_MAX_CELLS, compiled):
+        roots, touch, count, flag = cell_roots_numpy(A, last, rows, np.asarray(u0, dtype=float),
+                                                     np.asarray(u1, dtype=float), float(touch_tol), int(cap),
+                                                     int(maxcells), int(maxiter))
+    else:
+        roots = np.full((J, cap), np.nan)
+        touch = np.zeros((J, cap), dtype=np.bool_)
+        count = np.zeros(J, dtype=np.int64)
+        flag = np.zeros(J, dtype=np.int8)
+        _cells_kernel(A, last, rows, np.ascontiguousarray(u0, dtype=float), np.ascontiguousarray(u1, dtype=float),
+                      float(touch_tol), int(maxcells), int(maxiter), roots, touch, count, flag)
     bad = flag != 0
     roots[bad] = np.nan
     touch[bad] = False
@@ -479,12 +508,15 @@ def _stream_facts(A, sc, sc_cum, last, finite, total_nonzero):
         total_nonzero[r] = cum != 0.0
 
 
-def stream_facts(amounts):
+def stream_facts(amounts, *, compiled: bool | None = None):
     """Per row of (N, T) amounts: sign changes of the non-zero amounts and of their running sums,
     the last non-zero period (0 if none), whether every amount is finite, and whether the total is
-    non-zero. One pass per row (the NumPy form needs several full-size temporaries).
+    non-zero. One pass per row (the NumPy form needs several full-size temporaries: it runs up to
+    ``NUMPY_MAX_FACTS`` rows, or as ``compiled`` says, and then nothing is compiled).
     """
     A = np.ascontiguousarray(amounts, dtype=float)
+    if not _use_compiled(A.shape[0], NUMPY_MAX_FACTS, compiled):
+        return stream_facts_numpy(A)
     N = A.shape[0]
     sc = np.empty(N, dtype=np.int64)
     sc_cum = np.empty(N, dtype=np.int64)
