@@ -7,7 +7,7 @@ import polars as pl
 
 from .settings import make_run_settings, parse_budget, read_settings_toml
 from .load import read_portfolio
-from .store.database import connect_read, connect_write, fetch_frame
+from .store.database import close_when_idle, connect_read, connect_write, fetch_frame
 from .store.portfolio_writer import store_portfolio
 
 
@@ -64,7 +64,7 @@ def screen_portfolio(db, *, grid=None, discount_rates=None, inflation=None, disc
         return screen(con, spec, resume=resume, chunk_size=chunk_size, progress=progress,
                       stop_after_chunks=stop_after_chunks, cluster=cluster, workers=workers)
     finally:
-        con.close()
+        close_when_idle(con)
 
 
 def read_table(db, sql: str, params=None) -> pl.DataFrame:

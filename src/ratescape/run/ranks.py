@@ -20,6 +20,7 @@ from ratescape.run.evaluation import chunk_worths
 from ratescape.run.plan import Plan
 from ratescape.run.progress import log
 from ratescape.run.read import chunk_amounts
+from ratescape.store.database import DB_THREAD_PREFIX
 from ratescape.store.worth_files import RankFiles
 
 # Cells of the (scenarios x projects) block ranked at once (reused buffers of ~40 MB each).
@@ -98,8 +99,8 @@ def rank_statistics(con, plan: Plan):
     # Block n is ranked while block n + 1 is read (reader thread) and block n - 1's ranks are
     # appended to the rank files (writer thread, in block order). Buffer set n % 2 holds block n:
     # its values are free once block n is ranked, its ranks once block n's append is done.
-    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-rank-read") as reads, \
-            ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-rank-write") as writes:
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix=f"{DB_THREAD_PREFIX}rank-read") as reads, \
+            ThreadPoolExecutor(max_workers=1, thread_name_prefix=f"{DB_THREAD_PREFIX}rank-write") as writes:
         loaded = reads.submit(load, 0)
         stored = {}
         for n, (a, b) in enumerate(blocks):

@@ -21,7 +21,7 @@ from ratescape.run.plan import (
     TAX_SHIELD_CLASS,
     Plan,
 )
-from ratescape.store.database import fetch_frame
+from ratescape.store.database import DB_THREAD_PREFIX, fetch_frame
 
 
 def chunk_amounts(con, plan: Plan, first: int, stop: int):
@@ -253,7 +253,7 @@ class ChunkReader:
 
     def __init__(self, con, plan: Plan, chunks, depth: int = 2):
         self.con, self.plan = con.cursor(), plan
-        self.pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-reader")
+        self.pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix=f"{DB_THREAD_PREFIX}reader")
         self.chunks = iter(chunks)
         self.queue = deque()
         for _ in range(depth):

@@ -16,7 +16,7 @@ from ratescape.evaluate.irr import STATUS_LABELS
 from ratescape.run.cost_only import COST_ONLY
 from ratescape.run.evaluation import _per_period_to_annual
 from ratescape.run.plan import Plan, utc_now
-from ratescape.store.database import append_rows, transaction
+from ratescape.store.database import DB_THREAD_PREFIX, append_rows, transaction
 from ratescape.store.worth_files import BEFORE_TAX
 
 SWITCH_LABELS = {0: "one", 1: "several", 2: "none", 3: "at_base"}
@@ -266,8 +266,8 @@ class ChunkWriter:
     def __init__(self, con, plan: Plan, bar, pending_rows=()):
         self.plan, self.bar = plan, bar
         self.summary_con, self.rows_con = con.cursor(), con.cursor()
-        self.summaries = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-summaries")
-        self.rows = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-rows")
+        self.summaries = ThreadPoolExecutor(max_workers=1, thread_name_prefix=f"{DB_THREAD_PREFIX}summaries")
+        self.rows = ThreadPoolExecutor(max_workers=1, thread_name_prefix=f"{DB_THREAD_PREFIX}rows")
         self.pending = deque()                     # stage-1 futures, oldest first
         self.error: BaseException | None = None
         self.stopping = threading.Event()

@@ -148,6 +148,34 @@ def _name_runs_of_older_databases(con) -> None:
         con.execute(RUN_PROJECT_NAMES_FALLBACK)
 
 
+#: the name prefix of every thread that runs statements on a cursor of a run's connection
+DB_THREAD_PREFIX = "ratescape-db-"
+
+
+def close_when_idle(con, wait_seconds: float = 120.0) -> None:
+    """Close a connection whose cursors other ratescape threads may still be using.
+
+    DuckDB refuses to close a connection while one of its cursors runs a statement on another
+    thread ("connection is busy"). After an interruption a writer or reader thread can still be
+    finishing its transaction (one started in the instant the signal arrived, before its pool
+    knew of it): wait for the database threads (named ``ratescape-db-...``; their pools are shut
+    down on the way out, so they end) to finish, then close.
+    """
+    import threading
+    import time
+    try:
+        con.close()
+        return
+    except duckdb.Error as exc:
+        if "busy" not in str(exc).lower():
+            raise
+    deadline = time.monotonic() + wait_seconds
+    for thread in threading.enumerate():
+        if thread is not threading.current_thread() and thread.name.startswith(DB_THREAD_PREFIX):
+            thread.join(max(0.0, deadline - time.monotonic()))
+    con.close()
+
+
 def is_interrupt(exc: BaseException) -> bool:
     """True for Ctrl-C, including DuckDB's own form of it (a query interrupted by SIGINT)."""
     text = str(exc).lower()
