@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 from datetime import datetime, timezone
+from pathlib import Path
 
 import polars as pl
 
@@ -40,4 +41,204 @@ def store_portfolio(con, portfolio: Portfolio) -> int:
             load_id, datetime.now(timezone.utc).replace(tzinfo=None), portfolio.files.get("projects"),
             portfolio.files.get("cash_flows"), portfolio.inputs_hash, projects.height, flows.height,
             __version__, "\n".join(portfolio.notes)])
+    return load_id
+
+
+# ---- the streamed load (issue 16, part 1) --------------------------------------------------------------
+#
+# ``ratescape load`` never holds the portfolio in memory: the files are checked block by block
+# (:func:`ratescape.load.scan_portfolio`) and each clean block is appended to a scratch staging
+# database beside the target; only when both files passed every check is the target opened and
+# its portfolio replaced in one transaction, by SQL that copies the staged projects, expands the
+# parametric ones to cash-flow lines and copies the staged lines. A refused input never opens
+# the target (it stays byte for byte as it was); an interrupted load rolls back; the staging
+# folder is removed in every case.
+
+# Rows buffered per staging append (a few tens of MB of typed columns).
+STAGE_ROWS = 1 << 19
+# DuckDB's memory while staging and while writing the target: beyond it, it spills to disk.
+LOAD_MEMORY_LIMIT = "768MB"
+# Disk a loaded line takes, in bytes, for the space check before work starts: measured on the
+# bench portfolios (bench/RESULTS.md, issue 16 part 1: about 6-9 bytes a line in the file once
+# checkpointed), with room for DuckDB's uncheckpointed writes and the staging copy.
+DISK_BYTES_PER_LINE = 24
+DISK_BYTES_PER_PROJECT = 200
+DISK_MARGIN_BYTES = 64 << 20
+
+_SQL_TYPES = {"String": "VARCHAR", "Int64": "BIGINT", "Float64": "DOUBLE", "Boolean": "BOOLEAN"}
+
+
+def _ddl(name: str, schema: dict) -> str:
+    cols = ", ".join(f"{c} {_SQL_TYPES[str(t)]}" for c, t in schema.items())
+    return f"CREATE TABLE {name} ({cols})"
+
+
+class StagingSink:
+    """Appends the scan's typed blocks to the staging database (``staged_projects``, ``staged_flows``)."""
+
+    def __init__(self, con, project_schema: dict, flow_schema: dict):
+        self.con = con
+        self.parts: dict[str, list[pl.DataFrame]] = {"staged_projects": [], "staged_flows": []}
+        self.rows = {"staged_projects": 0, "staged_flows": 0}
+        con.execute(_ddl("staged_projects", project_schema))
+        con.execute(_ddl("staged_flows", flow_schema))
+
+    def projects(self, frame: pl.DataFrame) -> None:
+        self._add("staged_projects", frame)
+
+    def cash_flows(self, frame: pl.DataFrame) -> None:
+        self._add("staged_flows", frame)
+
+    def _add(self, table: str, frame: pl.DataFrame) -> None:
+        self.parts[table].append(frame)
+        self.rows[table] += frame.height
+        if self.rows[table] >= STAGE_ROWS:
+            self.flush(table)
+
+    def flush(self, table: str | None = None) -> None:
+        for name in [table] if table else list(self.parts):
+            parts = self.parts[name]
+            if not parts:
+                continue
+            rows = pl.concat(parts, how="vertical").to_arrow()
+            self.parts[name], self.rows[name] = [], 0
+            self.con.register("incoming_block", rows)
+            try:
+                self.con.execute(f"INSERT INTO {name} SELECT * FROM incoming_block")
+            finally:
+                self.con.unregister("incoming_block")
+
+
+def _sql_text(value: str) -> str:
+    return "'" + value.replace("'", "''") + "'"
+
+
+def expansion_sql(source: str) -> str:
+    """The parametric projects of ``staged_projects`` as long-form cash-flow lines (one SELECT).
+
+    The same lines as :func:`ratescape.load.portfolio._expand_parametric` (the in-memory path):
+    first cost paid at period 0, annual benefit received and annual cost paid at periods
+    1..life in their own basis and escalation, salvage received at period ``life``.
+    """
+    src = _sql_text(source)
+    base = "FROM staged.staged_projects WHERE parametric AND life IS NOT NULL"
+    return f"""
+        SELECT project_id, 0 AS period, -first_cost AS amount, 'real' AS basis, 0.0 AS escalation,
+               'investment' AS kind, {src} AS source, source_line
+        {base} AND coalesce(first_cost, 0) <> 0
+        UNION ALL
+        SELECT project_id, unnest(range(1, life + 1)), annual_benefit, benefit_basis, benefit_escalation,
+               'benefit', {src}, source_line
+        {base} AND coalesce(annual_benefit, 0) <> 0
+        UNION ALL
+        SELECT project_id, unnest(range(1, life + 1)), -annual_cost, cost_basis, cost_escalation,
+               'cost', {src}, source_line
+        {base} AND coalesce(annual_cost, 0) <> 0
+        UNION ALL
+        SELECT project_id, life, salvage, 'real', 0.0, 'salvage', {src}, source_line
+        {base} AND coalesce(salvage, 0) <> 0"""
+
+
+def estimated_disk_bytes(lines: int, projects: int) -> int:
+    """Disk a load of ``lines`` cash-flow lines and ``projects`` projects may need (staging and target)."""
+    return lines * DISK_BYTES_PER_LINE + projects * DISK_BYTES_PER_PROJECT + DISK_MARGIN_BYTES
+
+
+def check_disk_space(folder: Path, needed: int, what: str) -> None:
+    """Refuse, before the work starts, a load whose estimated size does not fit on the disk of ``folder``."""
+    import shutil
+
+    from ..errors import RatescapeError
+    free = shutil.disk_usage(folder).free
+    if needed > free:
+        raise RatescapeError(f"not enough disk space for {what}: it needs about {needed / 2**30:.1f} GB in "
+                             f"{folder}, and {free / 2**30:.1f} GB are free; nothing was written. Fix: free disk "
+                             "space there, or give --db a path on a disk with more room")
+
+
+def load_streamed(db, projects_path, cash_flows_path=None, *, allow_extreme_rates: bool = False,
+                  progress=None, log=None) -> dict:
+    """Check the CSV files block by block, stage them, then replace the database's portfolio atomically.
+
+    Returns the counts, notes, inputs hash and load id. Raises ValidationError (every problem,
+    the first of each kind with a count of the rest) without opening ``db``; ``progress`` is
+    called with the bytes read since its last call, ``log`` with a line before the write.
+    """
+    import shutil
+    import tempfile
+    import time
+
+    import duckdb
+
+    from ..load.portfolio import CASH_FLOW_SCHEMA, PROJECT_SCHEMA, scan_portfolio
+    from .database import check_database_file, connect_write
+
+    db = Path(db)
+    check_database_file(db)
+    folder = db.resolve().parent
+    sizes = sum(Path(p).stat().st_size for p in (projects_path, cash_flows_path) if p and Path(p).is_file())
+    # before reading: a long-form file stages about as many lines as it has (~30 bytes a line)
+    check_disk_space(folder, estimated_disk_bytes(sizes // 30, 0), f"loading {sizes / 2**20:.0f} MB of CSV")
+    work = Path(tempfile.mkdtemp(prefix=f".{db.name}.load-", dir=folder))
+    try:
+        staging = work / "staging.duckdb"
+        scon = duckdb.connect(str(staging), config={"memory_limit": LOAD_MEMORY_LIMIT,
+                                                    "temp_directory": str(work / "spill"),
+                                                    "preserve_insertion_order": False})
+        try:
+            scon.execute("SET enable_progress_bar = false")
+            sink = StagingSink(scon, PROJECT_SCHEMA, CASH_FLOW_SCHEMA)
+            scan = scan_portfolio(projects_path, cash_flows_path, allow_extreme_rates=allow_extreme_rates,
+                                  sink=sink, progress=progress)
+            sink.flush()
+            scon.execute("CHECKPOINT")
+        finally:
+            scon.close()
+        check_disk_space(folder, estimated_disk_bytes(scan.cash_flow_rows, scan.project_count),
+                         f"{scan.cash_flow_rows:,} cash-flow lines")
+        if log is not None:
+            log(f"load: writing {scan.project_count:,} projects and {scan.cash_flow_rows:,} cash-flow lines "
+                f"into {db} ...")
+        start = time.monotonic()
+        con = connect_write(db)
+        try:
+            con.execute(f"SET memory_limit = '{LOAD_MEMORY_LIMIT}'")
+            con.execute("SET preserve_insertion_order = false")
+            con.execute("SET enable_progress_bar = false")
+            con.execute(f"ATTACH {_sql_text(str(staging))} AS staged (READ_ONLY)")
+            try:
+                load_id = _replace_portfolio(con, scan, Path(projects_path).name)
+            finally:
+                con.execute("DETACH staged")
+                con.execute("RESET memory_limit")
+                con.execute("RESET preserve_insertion_order")
+        finally:
+            con.close()
+        if log is not None:
+            log(f"load: written in {time.monotonic() - start:.1f} s")
+    finally:
+        shutil.rmtree(work, ignore_errors=True)
+    return {"projects": scan.project_count, "cash_flow_rows": scan.cash_flow_rows, "notes": scan.notes,
+            "inputs_hash": scan.inputs_hash, "load_id": load_id}
+
+
+def _replace_portfolio(con, scan, projects_source: str) -> int:
+    """One transaction: the staged projects (keys in file order), their parametric lines, the staged lines."""
+    cols = [c for c in PROJECT_COLUMNS if c != "project_key"]
+    flows = ", ".join(CASH_FLOW_COLUMNS)
+    with transaction(con):
+        con.execute("DELETE FROM projects")
+        con.execute("DELETE FROM cash_flows")
+        con.execute(f"INSERT INTO projects (project_key, {', '.join(cols)}) "
+                    f"SELECT CAST(row_number() OVER (ORDER BY source_line) - 1 AS INTEGER), {', '.join(cols)} "
+                    "FROM staged.staged_projects ORDER BY source_line")
+        if scan.parametric_flow_rows:
+            con.execute(f"INSERT INTO cash_flows ({flows}) {expansion_sql(projects_source)}")
+        if scan.file_flow_rows:
+            con.execute(f"INSERT INTO cash_flows ({flows}) SELECT {flows} FROM staged.staged_flows")
+        load_id = con.execute("SELECT coalesce(max(load_id), 0) + 1 FROM loads").fetchone()[0]
+        con.execute("INSERT INTO loads VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", [
+            load_id, datetime.now(timezone.utc).replace(tzinfo=None), scan.files.get("projects"),
+            scan.files.get("cash_flows"), scan.inputs_hash, scan.project_count, scan.cash_flow_rows,
+            __version__, "\n".join(scan.notes)])
     return load_id
