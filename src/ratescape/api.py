@@ -57,7 +57,7 @@ def _load_progress(total_bytes: int):
 
     def tick(n: int) -> None:
         seen[0] += n
-        whole = seen[0] // mb
+        whole = bar.total if seen[0] >= total_bytes else seen[0] // mb
         if whole > seen[1]:
             bar.update(whole - seen[1])
             seen[1] = whole
