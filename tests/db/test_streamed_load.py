@@ -180,7 +180,7 @@ def test_an_interrupted_write_rolls_back_and_leaves_no_staging(inputs, tmp_path,
     api.load_portfolio(tmp_path / "old.csv", None, db)
     before = _tables(db)
 
-    def interrupted(source):        # Ctrl-C after the projects were replaced, inside the transaction
+    def interrupted(source, projects):   # Ctrl-C after the projects were replaced, inside the transaction
         raise KeyboardInterrupt
     monkeypatch.setattr(portfolio_writer, "expansion_sql", interrupted)
     with pytest.raises(KeyboardInterrupt):

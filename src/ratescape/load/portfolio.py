@@ -137,8 +137,8 @@ def _typed_projects(cells: Cells) -> pl.DataFrame:
     """Parse and check one batch of project cells (:data:`PROJECT_SCHEMA`)."""
     ids = cells.identifier("project_id")
     # group names and required ids are compared like ids: in Unicode normal form C
-    cols = [ids, cells.text("name").alias("name"), cells.text("group_name").str.normalize("NFC").alias("group_name"),
-            cells.text("requires").str.normalize("NFC").alias("requires"), cells.boolean("mandatory"),
+    cols = [ids, cells.text("name").alias("name"), cells.normal_text("group_name"),
+            cells.normal_text("requires"), cells.boolean("mandatory"),
             cells.text("category").alias("category")]
     money = {c: cells.money(c, required=False, what="a non-negative amount of money") for c in PARAMETRIC_MONEY}
     for c, series in money.items():
@@ -209,16 +209,16 @@ def scan_portfolio(projects_path, cash_flows_path=None, *, allow_extreme_rates: 
     if source is not None:
         counts: dict = {}
         done = 0
-        for batch in source.batches():
-            cells = Cells(source.name, batch, issues, counts, allow_extreme_rates)
+        for batch, plain, spaceless, read in source.read_ahead():
+            cells = Cells(source.name, batch, issues, counts, allow_extreme_rates, plain, spaceless)
             frame = _typed_projects(cells)
             keys.append(_key_frame(frame, cells.text("project_id")))
             parametric_rows += _parametric_lines(frame)
             if sink is not None and not issues:
                 sink.projects(frame)
             if progress is not None:
-                progress(source.bytes_read - done)
-                done = source.bytes_read
+                progress(read - done)
+                done = read
         source.finish()
         notes.extend(source.notes)
         if source.rows == 0 and not source.broken:
@@ -272,8 +272,8 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
     def unknown_fix(pid: str) -> str:
         return f"add '{pid}' to {projects_name} or correct the id"
 
-    for batch in source.batches():
-        cells = Cells(source.name, batch, issues, counts, allow_extreme_rates)
+    for batch, plain, spaceless, read in source.read_ahead():
+        cells = Cells(source.name, batch, issues, counts, allow_extreme_rates, plain, spaceless)
         typed = _typed_flows(cells, name)
         if known_list is not None:
             unknown = ~typed["project_id"].is_in(known_list) & (typed["project_id"] != "")
@@ -285,8 +285,8 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
         if sink is not None and not issues:
             sink.cash_flows(typed)
         if progress is not None:
-            progress(source.bytes_read - done)
-            done = source.bytes_read
+            progress(read - done)
+            done = read
     source.finish()
     notes.extend(source.notes)
     if source.broken:

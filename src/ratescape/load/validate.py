@@ -6,6 +6,7 @@ fix). Nothing here writes anywhere.
 """
 from __future__ import annotations
 
+import functools
 import re
 
 import polars as pl
@@ -31,7 +32,9 @@ def _invisible_fix(value: str) -> str:
             "they look, so they may hold only printable text")
 
 
+@functools.lru_cache(maxsize=64)
 def _const(value, n: int, dtype) -> pl.Series:
+    """A column of ``n`` copies of ``value`` (cached: every block of a file has about the same size)."""
     return pl.select(pl.repeat(value, n, dtype=dtype)).to_series()
 
 
@@ -58,8 +61,13 @@ class Cells:
     """Collects issues for one file while its columns are parsed."""
 
     def __init__(self, path: str, frame: pl.DataFrame, issues: list[Issue], counts: dict | None = None,
-                 allow_extreme_rates: bool = False):
+                 allow_extreme_rates: bool = False, plain_ascii: bool = False, spaceless: bool = False):
         self.path = path
+        # the cells hold printable ASCII only (see reader._plain_ascii): normal form C, nothing invisible;
+        # spaceless: and no space, so nothing to strip (fast paths, the same results)
+        self.plain_ascii = plain_ascii
+        self.spaceless = spaceless
+        self._texts: dict[str, pl.Series] = {}
         self.allow_extreme_rates = allow_extreme_rates
         self.frame = frame
         self.issues = issues
@@ -91,8 +99,11 @@ class Cells:
 
     def text(self, column: str) -> pl.Series:
         if column not in self.frame.columns:
-            return pl.Series(column, [""] * self.frame.height, dtype=pl.String)
-        return self.frame[column].fill_null("").str.strip_chars()
+            return _const("", self.frame.height, pl.String).alias(column)
+        if column not in self._texts:
+            cells = self.frame[column].fill_null("")
+            self._texts[column] = cells if self.spaceless else cells.str.strip_chars()
+        return self._texts[column]
 
     def number(self, column: str, *, required: bool, default: float | None = None,
                what: str = "a plain number") -> pl.Series:
@@ -152,7 +163,10 @@ class Cells:
         return values
 
     def choice(self, column: str, allowed: tuple[str, ...], *, default: str | None) -> pl.Series:
-        raw = self.text(column).str.to_lowercase()
+        raw = self.text(column)
+        if default is not None and raw.is_in(list(allowed) + [""]).all():   # the usual file: no fault, lower case
+            return raw.zip_with(raw != "", _const(default, len(raw), pl.String)).alias(column)
+        raw = raw.str.to_lowercase()
         blank = raw == ""
         bad = ~blank & ~raw.is_in(list(allowed))
         self.report(bad, column, "unknown value", "use one of: " + ", ".join(allowed))
@@ -172,9 +186,16 @@ class Cells:
         holding invisible or control characters are refused."""
         raw = self.text(column)
         self.report(raw == "", column, "blank id", "give every row an id")
+        if self.plain_ascii:
+            return raw.alias(column)
         hidden = raw.str.contains(INVISIBLE)
         self.report(hidden, column, "an id holding an invisible or control character", _invisible_fix)
         return raw.str.normalize("NFC").alias(column)
+
+    def normal_text(self, column: str) -> pl.Series:
+        """A text column in Unicode normal form C (compared like ids)."""
+        text = self.text(column)
+        return (text if self.plain_ascii else text.str.normalize("NFC")).alias(column)
 
 
 def check_unique_ids(cells: Cells, ids: pl.Series) -> None:

@@ -47,81 +47,76 @@ def store_portfolio(con, portfolio: Portfolio) -> int:
 # ---- the streamed load (issue 16, part 1) --------------------------------------------------------------
 #
 # ``ratescape load`` never holds the portfolio in memory: the files are checked block by block
-# (:func:`ratescape.load.scan_portfolio`) and each clean block is appended to a scratch staging
-# database beside the target; only when both files passed every check is the target opened and
-# its portfolio replaced in one transaction, by SQL that copies the staged projects, expands the
-# parametric ones to cash-flow lines and copies the staged lines. A refused input never opens
-# the target (it stays byte for byte as it was); an interrupted load rolls back; the staging
-# folder is removed in every case.
+# (:func:`ratescape.load.scan_portfolio`) and each clean block is written to a Parquet file in a
+# staging folder beside the target; only when both files passed every check is the target opened
+# and its portfolio replaced in one transaction, by SQL that reads the staged projects (keys in
+# file order), expands the parametric ones to cash-flow lines and copies the staged lines. A
+# refused input never opens the target (it stays byte for byte as it was); an interrupted load
+# rolls back; the staging folder is removed in every case.
 
-# Rows buffered per staging append (a few tens of MB of typed columns).
+# Rows per staged Parquet file (a few tens of MB of typed columns held before each write).
 STAGE_ROWS = 1 << 19
-# DuckDB's memory while staging and while writing the target: beyond it, it spills to disk.
+# DuckDB's memory while it writes the target: beyond it, it spills to disk.
 LOAD_MEMORY_LIMIT = "768MB"
-# Disk a loaded line takes, in bytes, for the space check before work starts: measured on the
-# bench portfolios (bench/RESULTS.md, issue 16 part 1: about 6-9 bytes a line in the file once
-# checkpointed), with room for DuckDB's uncheckpointed writes and the staging copy.
-DISK_BYTES_PER_LINE = 24
+# Disk a loaded line takes, in bytes, for the space check before work starts: the bench
+# portfolios took 6-9 bytes a line in the database once checkpointed and about 8 in the staged
+# Parquet files (bench/RESULTS.md, issue 16 part 1); this leaves room for DuckDB's writes before
+# its checkpoint.
+DISK_BYTES_PER_LINE = 32
 DISK_BYTES_PER_PROJECT = 200
 DISK_MARGIN_BYTES = 64 << 20
 
-_SQL_TYPES = {"String": "VARCHAR", "Int64": "BIGINT", "Float64": "DOUBLE", "Boolean": "BOOLEAN"}
-
-
-def _ddl(name: str, schema: dict) -> str:
-    cols = ", ".join(f"{c} {_SQL_TYPES[str(t)]}" for c, t in schema.items())
-    return f"CREATE TABLE {name} ({cols})"
-
 
 class StagingSink:
-    """Appends the scan's typed blocks to the staging database (``staged_projects``, ``staged_flows``)."""
+    """Writes the scan's typed blocks to Parquet files in ``folder`` (``projects_*.parquet``,
+    ``flows_*.parquet``), :data:`STAGE_ROWS` rows a file, numbered in file order."""
 
-    def __init__(self, con, project_schema: dict, flow_schema: dict):
-        self.con = con
-        self.parts: dict[str, list[pl.DataFrame]] = {"staged_projects": [], "staged_flows": []}
-        self.rows = {"staged_projects": 0, "staged_flows": 0}
-        con.execute(_ddl("staged_projects", project_schema))
-        con.execute(_ddl("staged_flows", flow_schema))
+    def __init__(self, folder: Path):
+        self.folder = folder
+        self.parts: dict[str, list[pl.DataFrame]] = {"projects": [], "flows": []}
+        self.rows = {"projects": 0, "flows": 0}
+        self.files: dict[str, list[Path]] = {"projects": [], "flows": []}
 
     def projects(self, frame: pl.DataFrame) -> None:
-        self._add("staged_projects", frame)
+        self._add("projects", frame)
 
     def cash_flows(self, frame: pl.DataFrame) -> None:
-        self._add("staged_flows", frame)
+        self._add("flows", frame)
 
-    def _add(self, table: str, frame: pl.DataFrame) -> None:
-        self.parts[table].append(frame)
-        self.rows[table] += frame.height
-        if self.rows[table] >= STAGE_ROWS:
-            self.flush(table)
+    def _add(self, kind: str, frame: pl.DataFrame) -> None:
+        self.parts[kind].append(frame)
+        self.rows[kind] += frame.height
+        if self.rows[kind] >= STAGE_ROWS:
+            self.flush(kind)
 
-    def flush(self, table: str | None = None) -> None:
-        for name in [table] if table else list(self.parts):
+    def flush(self, kind: str | None = None) -> None:
+        for name in [kind] if kind else list(self.parts):
             parts = self.parts[name]
             if not parts:
                 continue
-            rows = pl.concat(parts, how="vertical").to_arrow()
+            path = self.folder / f"{name}_{len(self.files[name]):06d}.parquet"
+            pl.concat(parts, how="vertical").write_parquet(path, compression="lz4", statistics=False)
+            self.files[name].append(path)
             self.parts[name], self.rows[name] = [], 0
-            self.con.register("incoming_block", rows)
-            try:
-                self.con.execute(f"INSERT INTO {name} SELECT * FROM incoming_block")
-            finally:
-                self.con.unregister("incoming_block")
 
 
 def _sql_text(value: str) -> str:
     return "'" + value.replace("'", "''") + "'"
 
 
-def expansion_sql(source: str) -> str:
-    """The parametric projects of ``staged_projects`` as long-form cash-flow lines (one SELECT).
+def _parquet(files: list[Path]) -> str:
+    return "read_parquet([" + ", ".join(_sql_text(str(f)) for f in files) + "])"
+
+
+def expansion_sql(source: str, projects: str = "staged_projects") -> str:
+    """The parametric projects of the relation ``projects`` as long-form cash-flow lines (one SELECT).
 
     The same lines as :func:`ratescape.load.portfolio._expand_parametric` (the in-memory path):
     first cost paid at period 0, annual benefit received and annual cost paid at periods
     1..life in their own basis and escalation, salvage received at period ``life``.
     """
     src = _sql_text(source)
-    base = "FROM staged.staged_projects WHERE parametric AND life IS NOT NULL"
+    base = f"FROM {projects} WHERE parametric AND life IS NOT NULL"
     return f"""
         SELECT project_id, 0 AS period, -first_cost AS amount, 'real' AS basis, 0.0 AS escalation,
                'investment' AS kind, {src} AS source, source_line
@@ -168,9 +163,7 @@ def load_streamed(db, projects_path, cash_flows_path=None, *, allow_extreme_rate
     import tempfile
     import time
 
-    import duckdb
-
-    from ..load.portfolio import CASH_FLOW_SCHEMA, PROJECT_SCHEMA, scan_portfolio
+    from ..load.portfolio import scan_portfolio
     from .database import check_database_file, connect_write
 
     db = Path(db)
@@ -181,19 +174,10 @@ def load_streamed(db, projects_path, cash_flows_path=None, *, allow_extreme_rate
     check_disk_space(folder, estimated_disk_bytes(sizes // 30, 0), f"loading {sizes / 2**20:.0f} MB of CSV")
     work = Path(tempfile.mkdtemp(prefix=f".{db.name}.load-", dir=folder))
     try:
-        staging = work / "staging.duckdb"
-        scon = duckdb.connect(str(staging), config={"memory_limit": LOAD_MEMORY_LIMIT,
-                                                    "temp_directory": str(work / "spill"),
-                                                    "preserve_insertion_order": False})
-        try:
-            scon.execute("SET enable_progress_bar = false")
-            sink = StagingSink(scon, PROJECT_SCHEMA, CASH_FLOW_SCHEMA)
-            scan = scan_portfolio(projects_path, cash_flows_path, allow_extreme_rates=allow_extreme_rates,
-                                  sink=sink, progress=progress)
-            sink.flush()
-            scon.execute("CHECKPOINT")
-        finally:
-            scon.close()
+        sink = StagingSink(work)
+        scan = scan_portfolio(projects_path, cash_flows_path, allow_extreme_rates=allow_extreme_rates,
+                              sink=sink, progress=progress)
+        sink.flush()
         check_disk_space(folder, estimated_disk_bytes(scan.cash_flow_rows, scan.project_count),
                          f"{scan.cash_flow_rows:,} cash-flow lines")
         if log is not None:
@@ -205,13 +189,12 @@ def load_streamed(db, projects_path, cash_flows_path=None, *, allow_extreme_rate
             con.execute(f"SET memory_limit = '{LOAD_MEMORY_LIMIT}'")
             con.execute("SET preserve_insertion_order = false")
             con.execute("SET enable_progress_bar = false")
-            con.execute(f"ATTACH {_sql_text(str(staging))} AS staged (READ_ONLY)")
+            con.execute(f"SET temp_directory = {_sql_text(str(work / 'spill'))}")
             try:
-                load_id = _replace_portfolio(con, scan, Path(projects_path).name)
+                load_id = _replace_portfolio(con, scan, sink.files, Path(projects_path).name)
             finally:
-                con.execute("DETACH staged")
-                con.execute("RESET memory_limit")
-                con.execute("RESET preserve_insertion_order")
+                for setting in ("memory_limit", "preserve_insertion_order", "temp_directory"):
+                    con.execute(f"RESET {setting}")
         finally:
             con.close()
         if log is not None:
@@ -222,7 +205,7 @@ def load_streamed(db, projects_path, cash_flows_path=None, *, allow_extreme_rate
             "inputs_hash": scan.inputs_hash, "load_id": load_id}
 
 
-def _replace_portfolio(con, scan, projects_source: str) -> int:
+def _replace_portfolio(con, scan, files: dict[str, list[Path]], projects_source: str) -> int:
     """One transaction: the staged projects (keys in file order), their parametric lines, the staged lines."""
     cols = [c for c in PROJECT_COLUMNS if c != "project_key"]
     flows = ", ".join(CASH_FLOW_COLUMNS)
@@ -231,11 +214,12 @@ def _replace_portfolio(con, scan, projects_source: str) -> int:
         con.execute("DELETE FROM cash_flows")
         con.execute(f"INSERT INTO projects (project_key, {', '.join(cols)}) "
                     f"SELECT CAST(row_number() OVER (ORDER BY source_line) - 1 AS INTEGER), {', '.join(cols)} "
-                    "FROM staged.staged_projects ORDER BY source_line")
+                    f"FROM {_parquet(files['projects'])} ORDER BY source_line")
         if scan.parametric_flow_rows:
-            con.execute(f"INSERT INTO cash_flows ({flows}) {expansion_sql(projects_source)}")
+            con.execute(f"INSERT INTO cash_flows ({flows}) "
+                        f"{expansion_sql(projects_source, _parquet(files['projects']))}")
         if scan.file_flow_rows:
-            con.execute(f"INSERT INTO cash_flows ({flows}) SELECT {flows} FROM staged.staged_flows")
+            con.execute(f"INSERT INTO cash_flows ({flows}) SELECT {flows} FROM {_parquet(files['flows'])}")
         load_id = con.execute("SELECT coalesce(max(load_id), 0) + 1 FROM loads").fetchone()[0]
         con.execute("INSERT INTO loads VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", [
             load_id, datetime.now(timezone.utc).replace(tzinfo=None), scan.files.get("projects"),
