@@ -354,7 +354,7 @@ def _check_structure(projects: pl.DataFrame, stats: pl.DataFrame | None, ppath: 
         for line, pid in _listed(issues, both, ppath, "first_cost", problem).select("source_line", "project_id").iter_rows():
             issues.append(Issue(ppath, line, "first_cost", pid, problem,
                                 "describe each project one way: clear its parametric columns or remove its cash-flow rows"))
-        zero = stats.filter(pl.col("total") == 0).join(ids, on="project_id", how="inner").sort("line")
+        zero = stats.filter(pl.col("total") == 0).join(ids, on="project_id", how="inner").sort("source_line")
         problem = "all of the project's cash flows are zero"
         for pid, line in _listed(issues, zero, ppath, "project_id", problem).select("project_id", "source_line").iter_rows():
             issues.append(Issue(ppath, line, "project_id", pid, problem,
