@@ -265,7 +265,9 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
         return 0, None, None
     name = Path(path).name
     counts: dict = {}
-    known_list = known.implode() if known is not None else None
+    # A set built once: a block's few distinct ids are looked up in it (is_in against all the
+    # projects' ids would hash every id of the portfolio again for every block).
+    known_set = set(known.to_list()) if known is not None else None
     stats: list[pl.DataFrame] = []
     done = 0
 
@@ -275,9 +277,11 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
     for batch, plain, spaceless, read in source.read_ahead():
         cells = Cells(source.name, batch, issues, counts, allow_extreme_rates, plain, spaceless)
         typed = _typed_flows(cells, name)
-        if known_list is not None:
-            unknown = ~typed["project_id"].is_in(known_list) & (typed["project_id"] != "")
-            cells.report(unknown, "project_id", "cash flows for a project not in the projects file", unknown_fix)
+        if known_set is not None:
+            missing = [i for i in typed["project_id"].unique().to_list() if i and i not in known_set]
+            if missing:
+                unknown = typed["project_id"].is_in(pl.Series(missing, dtype=pl.String).implode())
+                cells.report(unknown, "project_id", "cash flows for a project not in the projects file", unknown_fix)
         stats.append(typed.group_by("project_id").agg(pl.col("amount").abs().sum().alias("total"),
                                                       pl.col("source_line").min().alias("line")))
         if len(stats) >= 32:

@@ -188,12 +188,17 @@ def load_streamed(db, projects_path, cash_flows_path=None, *, allow_extreme_rate
         try:
             con.execute(f"SET memory_limit = '{LOAD_MEMORY_LIMIT}'")
             con.execute("SET preserve_insertion_order = false")
-            con.execute("SET enable_progress_bar = false")
+            # DuckDB's progress is read (query_progress) for the lines before and during the write; its
+            # own bar is never printed
+            con.execute("SET enable_progress_bar = true")
+            con.execute("SET enable_progress_bar_print = false")
             con.execute(f"SET temp_directory = {_sql_text(str(work / 'spill'))}")
+            run = _Statements(con, log, scan.cash_flow_rows)
             try:
-                load_id = _replace_portfolio(con, scan, sink.files, Path(projects_path).name)
+                load_id = _replace_portfolio(con, scan, sink.files, Path(projects_path).name, run)
             finally:
-                for setting in ("memory_limit", "preserve_insertion_order", "temp_directory"):
+                for setting in ("memory_limit", "preserve_insertion_order", "temp_directory", "enable_progress_bar",
+                                "enable_progress_bar_print"):
                     con.execute(f"RESET {setting}")
         finally:
             con.close()
@@ -205,8 +210,59 @@ def load_streamed(db, projects_path, cash_flows_path=None, *, allow_extreme_rate
             "inputs_hash": scan.inputs_hash, "load_id": load_id}
 
 
-def _replace_portfolio(con, scan, files: dict[str, list[Path]], projects_source: str) -> int:
+# Seconds between the lines that report the write's progress (DuckDB's own estimate, per statement).
+WRITE_REPORT_SECONDS = 10.0
+
+
+class _Statements:
+    """Runs the write's statements; with ``log``, each long one on a worker thread while this thread
+    reports DuckDB's progress of it with the time left (``query_progress``), every
+    :data:`WRITE_REPORT_SECONDS`. Ctrl-C interrupts the statement (the transaction then rolls back)."""
+
+    def __init__(self, con, log, lines: int):
+        self.con, self.log, self.lines = con, log, lines
+
+    def __call__(self, sql: str, what: str | None = None) -> None:
+        if self.log is None or what is None:
+            self.con.execute(sql)
+            return
+        import threading
+        import time
+        box: dict = {}
+
+        def work() -> None:
+            try:
+                self.con.execute(sql)
+            except BaseException as exc:      # noqa: BLE001  (re-raised on the caller's thread)
+                box["error"] = exc
+        thread = threading.Thread(target=work, name="load write", daemon=True)
+        start = last = time.monotonic()
+        thread.start()
+        try:
+            while thread.is_alive():
+                thread.join(0.5)
+                now = time.monotonic()
+                if thread.is_alive() and now - last >= WRITE_REPORT_SECONDS:
+                    last = now
+                    try:
+                        pct = float(self.con.query_progress())
+                    except Exception:                  # noqa: BLE001  (no estimate is no error)
+                        pct = -1.0
+                    if 0 < pct < 100:
+                        left = (now - start) * (100 - pct) / pct
+                        self.log(f"load: writing {what}: {pct:.0f} % done, {now - start:.0f} s elapsed, "
+                                 f"about {left:.0f} s left")
+        except BaseException:
+            self.con.interrupt()
+            thread.join()
+            raise
+        if "error" in box:
+            raise box["error"]
+
+
+def _replace_portfolio(con, scan, files: dict[str, list[Path]], projects_source: str, run=None) -> int:
     """One transaction: the staged projects (keys in file order), their parametric lines, the staged lines."""
+    run = run or _Statements(con, None, 0)
     cols = [c for c in PROJECT_COLUMNS if c != "project_key"]
     flows = ", ".join(CASH_FLOW_COLUMNS)
     with transaction(con):
@@ -216,10 +272,11 @@ def _replace_portfolio(con, scan, files: dict[str, list[Path]], projects_source:
                     f"SELECT CAST(row_number() OVER (ORDER BY source_line) - 1 AS INTEGER), {', '.join(cols)} "
                     f"FROM {_parquet(files['projects'])} ORDER BY source_line")
         if scan.parametric_flow_rows:
-            con.execute(f"INSERT INTO cash_flows ({flows}) "
-                        f"{expansion_sql(projects_source, _parquet(files['projects']))}")
+            run(f"INSERT INTO cash_flows ({flows}) {expansion_sql(projects_source, _parquet(files['projects']))}",
+                f"{scan.parametric_flow_rows:,} lines of parametric projects")
         if scan.file_flow_rows:
-            con.execute(f"INSERT INTO cash_flows ({flows}) SELECT {flows} FROM {_parquet(files['flows'])}")
+            run(f"INSERT INTO cash_flows ({flows}) SELECT {flows} FROM {_parquet(files['flows'])}",
+                f"{scan.file_flow_rows:,} lines of the cash-flow file")
         load_id = con.execute("SELECT coalesce(max(load_id), 0) + 1 FROM loads").fetchone()[0]
         con.execute("INSERT INTO loads VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", [
             load_id, datetime.now(timezone.utc).replace(tzinfo=None), scan.files.get("projects"),
