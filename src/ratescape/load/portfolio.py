@@ -269,6 +269,7 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
     # projects' ids would hash every id of the portfolio again for every block).
     known_set = set(known.to_list()) if known is not None else None
     stats: list[pl.DataFrame] = []
+    merged = pending = 0
     done = 0
 
     def unknown_fix(pid: str) -> str:
@@ -284,8 +285,10 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
                 cells.report(unknown, "project_id", "cash flows for a project not in the projects file", unknown_fix)
         stats.append(typed.group_by("project_id").agg(pl.col("amount").abs().sum().alias("total"),
                                                       pl.col("source_line").min().alias("line")))
-        if len(stats) >= 32:
-            stats = [_flow_stats(stats)]
+        pending += stats[-1].height
+        if len(stats) >= 32 and pending >= max(merged, 1 << 16):   # merge when the new rows are as many as
+            stats = [_flow_stats(stats)]                            # the merged ones: linear in the file
+            merged, pending = stats[0].height, 0
         if sink is not None and not issues:
             sink.cash_flows(typed)
         if progress is not None:
