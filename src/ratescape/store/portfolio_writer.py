@@ -59,9 +59,9 @@ STAGE_ROWS = 1 << 19
 # DuckDB's memory while it writes the target: beyond it, it spills to disk.
 LOAD_MEMORY_LIMIT = "768MB"
 # Disk a loaded line takes, in bytes, for the space check before work starts: the bench
-# portfolios took 6-9 bytes a line in the database once checkpointed and about 8 in the staged
-# Parquet files (bench/RESULTS.md, issue 16 part 1); this leaves room for DuckDB's writes before
-# its checkpoint.
+# portfolios took 5.5 (parametric) and 8 (long form) bytes a line in the database once written,
+# and about 5 in the staged Parquet files (bench/RESULTS.md, issue 16 part 1); this leaves room
+# for DuckDB's writes before its checkpoint and for the lines a reload replaces.
 DISK_BYTES_PER_LINE = 32
 DISK_BYTES_PER_PROJECT = 200
 DISK_MARGIN_BYTES = 64 << 20
