@@ -7,7 +7,8 @@ Usage:
       N projects with a long-form cash-flow file of about N x 40 lines (50 million for 1,250,000)
 
 Each side runs in its own child process; wall time from the parent, peak resident memory of that
-child alone from os.wait4 (ru_maxrss). The anchor ("native") is DuckDB's own CSV reader into a
+child alone and its CPU time (user + system, less sensitive than wall time to other jobs on a busy
+machine) from os.wait4. The anchor ("native") is DuckDB's own CSV reader into a
 new database plus, for the parametric file, the SQL expansion to the same cash-flow lines; it
 checks nothing. Both databases are counted afterwards to show they hold the same number of
 lines. The input files are written once and kept in --dir. Prints the load average beside the
@@ -57,8 +58,8 @@ def load_average() -> str:
     return " ".join(Path("/proc/loadavg").read_text().split()[:3])
 
 
-def measure(cmd: list[str], env=None) -> tuple[float, float, int]:
-    """(wall seconds, peak RSS in MB of that child, exit code)."""
+def measure(cmd: list[str], env=None) -> tuple[float, float, float, int]:
+    """(wall seconds, peak RSS in MB of that child, its CPU seconds (user + system), exit code)."""
     start = time.monotonic()
     proc = subprocess.Popen(cmd, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE)
     _, status, usage = os.wait4(proc.pid, 0)
@@ -71,7 +72,7 @@ def measure(cmd: list[str], env=None) -> tuple[float, float, int]:
     else:
         for line in (out + err).strip().splitlines()[-3:]:
             print("   ", line)
-    return wall, usage.ru_maxrss / 1024, code
+    return wall, usage.ru_maxrss / 1024, usage.ru_utime + usage.ru_stime, code
 
 
 def count_lines(db: Path) -> tuple[int, int]:
@@ -121,14 +122,14 @@ def main() -> None:
         for path in (db, Path(f"{db}.wal")):
             path.unlink(missing_ok=True)
         print(f"{name} ...")
-        wall, rss, code = measure(cmd, env)
+        wall, rss, cpu, code = measure(cmd, env)
         counts = count_lines(db) if code == 0 else None
-        figures[name] = (wall, rss)
-        print(f"  {name}: {wall:.1f} s, peak RSS {rss:,.0f} MB, exit {code}, projects and cash-flow lines "
+        figures[name] = (wall, rss, cpu)
+        print(f"  {name}: {wall:.1f} s, CPU {cpu:.1f} s, peak RSS {rss:,.0f} MB, exit {code}, projects and cash-flow lines "
               f"{counts}, database {db.stat().st_size / 2**20:,.0f} MB; load average {load_average()}")
     if len(figures) == 2:
-        (w1, r1), (w2, r2) = figures.values()
-        print(f"ratio of times ratescape / native: {w1 / w2:.2f} (target at most 2); "
+        (w1, r1, c1), (w2, r2, c2) = figures.values()
+        print(f"ratio of times ratescape / native: {w1 / w2:.2f} (target at most 2), of CPU times {c1 / c2:.2f}; "
               f"peak RSS ratescape {r1:,.0f} MB (target about 1,500 MB at most)")
 
 

@@ -1,11 +1,15 @@
-"""The Python API: the same operations as the command line, returning Polars frames."""
+"""The Python API: the same operations as the command line, returning Polars frames.
+
+The screen's modules (settings, the numeric core) are imported by the functions that need them,
+so ``ratescape load`` starts without compiling or importing them (and an early Ctrl-C finds it
+outside a long import).
+"""
 from __future__ import annotations
 
 from pathlib import Path
 
 import polars as pl
 
-from .settings import make_run_settings, parse_budget, read_settings_toml
 from .load import scan_portfolio
 from .run.progress import Progress, log
 from .store.database import connect_read, connect_write, fetch_frame
@@ -75,6 +79,7 @@ def screen_portfolio(db, *, grid=None, discount_rates=None, inflation=None, disc
     (then the grid arguments are not read again).
     """
     from .run.screen import screen
+    from .settings import make_run_settings, parse_budget, read_settings_toml
     spec = settings
     if not resume and spec is None:
         toml_settings = read_settings_toml(grid) if grid else None
