@@ -187,7 +187,8 @@ def load_streamed(db, projects_path, cash_flows_path=None, *, allow_extreme_rate
         con = connect_write(db)
         try:
             con.execute(f"SET memory_limit = '{LOAD_MEMORY_LIMIT}'")
-            con.execute("SET preserve_insertion_order = false")
+            # insertion order kept (DuckDB's default): the lines land in the same order on every load of
+            # the same files, so sums over them (and every result) repeat to the last bit
             # DuckDB's progress is read (query_progress) for the lines before and during the write; its
             # own bar is never printed
             con.execute("SET enable_progress_bar = true")
@@ -197,7 +198,7 @@ def load_streamed(db, projects_path, cash_flows_path=None, *, allow_extreme_rate
             try:
                 load_id = _replace_portfolio(con, scan, sink.files, Path(projects_path).name, run)
             finally:
-                for setting in ("memory_limit", "preserve_insertion_order", "temp_directory", "enable_progress_bar",
+                for setting in ("memory_limit", "temp_directory", "enable_progress_bar",
                                 "enable_progress_bar_print"):
                     con.execute(f"RESET {setting}")
         finally:
