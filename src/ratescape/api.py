@@ -1,41 +1,71 @@
-"""The Python API: the same operations as the command line, returning Polars frames."""
+"""The Python API: the same operations as the command line, returning Polars frames.
+
+The screen's modules (settings, the numeric core) are imported by the functions that need them,
+so ``ratescape load`` starts without compiling or importing them (and an early Ctrl-C finds it
+outside a long import).
+"""
 from __future__ import annotations
 
 from pathlib import Path
 
 import polars as pl
 
-from .settings import make_run_settings, parse_budget, read_settings_toml
-from .load import read_portfolio
+from .load import scan_portfolio
+from .run.progress import Progress, log
 from .store.database import close_when_idle, connect_read, connect_write, fetch_frame
-from .store.portfolio_writer import store_portfolio
+from .store.portfolio_writer import load_streamed
 
 
-def load_portfolio(projects, cash_flows=None, db=None, *, allow_extreme_rates: bool = False) -> dict:
+# Inputs at least this big show progress (a bar on a terminal, a line every 10 s otherwise) while
+# they are read and checked, and a line before the database is written.
+LOAD_PROGRESS_BYTES = 32 << 20
+
+
+def load_portfolio(projects, cash_flows=None, db=None, *, allow_extreme_rates: bool = False,
+                   progress: bool | None = None) -> dict:
     """Validate CSV files and (if ``db`` is given) load them atomically; return counts and notes.
 
-    Raises ValidationError listing every problem; nothing is written then. Escalation and loan
-    rates above 100 % in size are refused as percentage typos unless ``allow_extreme_rates``.
+    Raises ValidationError listing every problem (the first of each kind with a count of the
+    rest); nothing is written then. Escalation and loan rates above 100 % in size are refused as
+    percentage typos unless ``allow_extreme_rates``. The files are read block by block, so memory
+    does not grow with their size (see DEVELOPERS.md, "The load"). ``progress``: report progress
+    on standard error (default: for inputs of at least :data:`LOAD_PROGRESS_BYTES`).
     """
-    portfolio = read_portfolio(projects, cash_flows, allow_extreme_rates=allow_extreme_rates)
-    info = {"projects": portfolio.projects.height, "cash_flow_rows": portfolio.cash_flows.height,
-            "notes": portfolio.notes, "inputs_hash": portfolio.inputs_hash}
-    if db is not None:
+    sizes = sum(Path(f).stat().st_size for f in (projects, cash_flows) if f and Path(f).is_file())
+    show = sizes >= LOAD_PROGRESS_BYTES if progress is None else progress
+    bar, tick = _load_progress(sizes) if show else (None, None)
+    try:
+        if db is None:
+            scan = scan_portfolio(projects, cash_flows, allow_extreme_rates=allow_extreme_rates, progress=tick)
+            return {"projects": scan.project_count, "cash_flow_rows": scan.cash_flow_rows,
+                    "notes": scan.notes, "inputs_hash": scan.inputs_hash}
         created = not Path(db).exists()
-        con = connect_write(db)
         try:
-            info["load_id"] = store_portfolio(con, portfolio)
-            con.close()
+            return load_streamed(db, projects, cash_flows, allow_extreme_rates=allow_extreme_rates,
+                                 progress=tick, log=log if show else None)
         except BaseException:
-            try:
-                con.close()
-            except Exception:
-                pass
             if created:     # a first load that failed (e.g. at a file-size limit) leaves no database behind
                 for path in (Path(db), Path(f"{db}.wal")):
                     path.unlink(missing_ok=True)
             raise
-    return info
+    finally:
+        if bar is not None:
+            bar.close()
+
+
+def _load_progress(total_bytes: int):
+    """A progress report in MB of input read, and the callback the loader calls with bytes read."""
+    mb = 1 << 20
+    bar = Progress(max(1, -(-total_bytes // mb)), "load: reading and checking", unit="MB block")
+    seen = [0, 0]     # bytes read, whole MB reported
+
+    def tick(n: int) -> None:
+        seen[0] += n
+        whole = bar.total if seen[0] >= total_bytes else seen[0] // mb
+        if whole > seen[1]:
+            bar.update(whole - seen[1])
+            seen[1] = whole
+    return bar, tick
 
 
 def screen_portfolio(db, *, grid=None, discount_rates=None, inflation=None, discount_basis=None, budgets=None,
@@ -49,6 +79,7 @@ def screen_portfolio(db, *, grid=None, discount_rates=None, inflation=None, disc
     (then the grid arguments are not read again).
     """
     from .run.screen import screen
+    from .settings import make_run_settings, parse_budget, read_settings_toml
     spec = settings
     if not resume and spec is None:
         toml_settings = read_settings_toml(grid) if grid else None

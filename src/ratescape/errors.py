@@ -14,6 +14,15 @@ MAX_ISSUES_SHOWN = 50
 # MAX_KINDS_SHOWN kinds), each with a count of the rest of its kind.
 FIRST_PER_KIND = 5
 MAX_KINDS_SHOWN = 40
+# Issues kept per kind by an :class:`Issues` list; the others of the kind are only counted, so a
+# file of millions of bad cells is refused in memory for a few hundred issues.
+MAX_ISSUES_PER_KIND = 200
+
+
+def issue_kind(file: str, column: str | None, problem: str) -> tuple:
+    """The kind of an issue: its file, column and problem with numbers and quoted values blanked
+    ("7 fields where the header has 6" and "5 fields where the header has 6" are one kind)."""
+    return (file, column, re.sub(r"\d+", "N", re.sub(r"'[^']*'", "'...'", problem)))
 
 
 class RatescapeError(Exception):
@@ -44,36 +53,96 @@ class Issue:
         return f"{where}: {self.problem}{shown}. Fix: {self.fix}"
 
 
+class Issues(list):
+    """A list of :class:`Issue` that keeps the first :data:`MAX_ISSUES_PER_KIND` of each kind
+    (:func:`issue_kind`) and counts the others (``omitted``, per kind), so a huge file with many
+    faults is reported as the first faults of each kind with a count of the rest."""
+
+    def __init__(self, *args):
+        super().__init__(*args)
+        self.seen: dict[tuple, int] = {}
+        self.omitted: dict[tuple, int] = {}
+
+    def append(self, issue: Issue) -> None:
+        kind = issue_kind(issue.file, issue.column, issue.problem)
+        n = self.seen.get(kind, 0) + 1
+        self.seen[kind] = n
+        if n <= MAX_ISSUES_PER_KIND:
+            super().append(issue)
+        else:
+            self.omitted[kind] = self.omitted.get(kind, 0) + 1
+
+    def room(self, file: str, column: str | None, problem: str) -> int:
+        """How many more issues of this kind will be kept."""
+        return max(0, MAX_ISSUES_PER_KIND - self.seen.get(issue_kind(file, column, problem), 0))
+
+    def count_more(self, file: str, column: str | None, problem: str, n: int) -> None:
+        """Count ``n`` further issues of a kind without keeping them."""
+        if n > 0:
+            kind = issue_kind(file, column, problem)
+            self.seen[kind] = self.seen.get(kind, 0) + n
+            self.omitted[kind] = self.omitted.get(kind, 0) + n
+
+    @property
+    def total(self) -> int:
+        return len(self) + sum(self.omitted.values())
+
+
+def room_for(issues: list, file: str, column: str | None, problem: str) -> int | None:
+    """Issues of this kind ``issues`` still keeps (None: a plain list, which keeps every one)."""
+    return issues.room(file, column, problem) if isinstance(issues, Issues) else None
+
+
+def count_more(issues: list, file: str, column: str | None, problem: str, n: int) -> None:
+    """Count ``n`` issues of a kind that were not listed (a plain list cannot hold counts: no-op)."""
+    if isinstance(issues, Issues):
+        issues.count_more(file, column, problem, n)
+
+
 @dataclass
 class ValidationError(RatescapeError):
-    """Raised when input files are invalid; holds every issue found, not only the first."""
+    """Raised when input files are invalid; holds every issue found, not only the first.
+
+    ``omitted``: issues of each kind (:func:`issue_kind`) found but not kept (taken from an
+    :class:`Issues` list when that is what is passed).
+    """
 
     issues: list[Issue] = field(default_factory=list)
+    omitted: dict = field(default_factory=dict)
 
     def __post_init__(self):
+        if isinstance(self.issues, Issues) and not self.omitted:
+            self.omitted = dict(self.issues.omitted)
         files = list(dict.fromkeys(i.file for i in self.issues))
         self.issues = sorted(self.issues, key=lambda i: (files.index(i.file), i.line or 0))
         super().__init__(self.message)
 
     @property
+    def total(self) -> int:
+        """Problems found: those listed plus those only counted."""
+        return len(self.issues) + sum(self.omitted.values())
+
+    @property
     def message(self) -> str:
         """Every issue when there are at most MAX_ISSUES_SHOWN; otherwise the first few of each kind
-        (file, column and problem) with a count of the rest, so that a fault far into a big file is
-        not hidden behind many of another kind."""
-        n = len(self.issues)
+        (file, column and problem) with a count of the rest of that kind, so that a fault far into a
+        big file is not hidden behind many of another kind."""
+        n = self.total
         head = f"{n} problem{'s' if n != 1 else ''} found in the input; nothing was written."
         if n <= MAX_ISSUES_SHOWN:
             return "\n".join([head] + ["  " + i.format() for i in self.issues])
         kinds: dict[tuple, list[Issue]] = {}
         for issue in self.issues:
-            kinds.setdefault((issue.file, issue.column, re.sub(r"\d+", "N", issue.problem)), []).append(issue)
+            kinds.setdefault(issue_kind(issue.file, issue.column, issue.problem), []).append(issue)
         lines = [head]
-        for (file, column, _), group in list(kinds.items())[:MAX_KINDS_SHOWN]:
+        for kind, group in list(kinds.items())[:MAX_KINDS_SHOWN]:
+            file, column, _ = kind
             lines += ["  " + i.format() for i in group[:FIRST_PER_KIND]]
-            if len(group) > FIRST_PER_KIND:
+            more = len(group) - FIRST_PER_KIND + self.omitted.get(kind, 0)
+            if more > 0:
                 where = file + (f", column '{column}'" if column else "")
-                lines.append(f"  ... and {len(group) - FIRST_PER_KIND} more like this in {where}: {group[0].problem}")
-        rest = sum(len(g) for g in list(kinds.values())[MAX_KINDS_SHOWN:])
+                lines.append(f"  ... and {more} more of this kind ({where}: {group[0].problem})")
+        rest = sum(len(g) + self.omitted.get(k, 0) for k, g in list(kinds.items())[MAX_KINDS_SHOWN:])
         if rest:
             lines.append(f"  ... and {rest} more of {len(kinds) - MAX_KINDS_SHOWN} other kinds "
                          "(fix these first, then run again).")

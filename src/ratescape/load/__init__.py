@@ -1,4 +1,4 @@
 """Load stage: CSV files → validated, typed Polars frames (file edge of the pipeline)."""
-from .portfolio import Portfolio, read_portfolio
+from .portfolio import Portfolio, PortfolioSink, ScanResult, read_portfolio, scan_portfolio
 
-__all__ = ["Portfolio", "read_portfolio"]
+__all__ = ["Portfolio", "PortfolioSink", "ScanResult", "read_portfolio", "scan_portfolio"]

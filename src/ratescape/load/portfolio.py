@@ -1,27 +1,56 @@
-"""Read and validate a portfolio (projects CSV + optional cash-flow CSV).
+"""Read and validate a portfolio (projects CSV + optional cash-flow CSV), block by block.
 
-``read_portfolio`` is pure with respect to the database: it returns typed
-Polars frames or raises :class:`~ratescape.errors.ValidationError` listing
-every problem at once. Parametric project rows are expanded to cash-flow
-lines here, so the engine only ever sees long-form cash flows.
+:func:`scan_portfolio` is the loader's one pass over the files: each block of each
+file is checked cell by cell (every fault located by file, line, column and value,
+with its fix) and, while the files are clean, handed typed to a *sink*; whole-file
+and cross-file checks (duplicate ids, unknown ids, groups, ``requires``, projects
+without flows) run at the end on compact per-project key frames, never on the
+rows themselves. Memory is bounded by the block size plus those key frames.
+
+* ``ratescape load`` streams into a staging database
+  (:mod:`ratescape.store.portfolio_writer`), which expands parametric projects to
+  cash-flow lines in SQL;
+* :func:`read_portfolio` collects the blocks in memory and expands parametric
+  rows here (:func:`_expand_parametric`): the in-memory path, for small inputs,
+  the API and the tests that compare the two.
+
+Nothing here writes anywhere; an invalid input raises
+:class:`~ratescape.errors.ValidationError` listing every problem (the first of
+each kind with a count of the rest).
 """
 from __future__ import annotations
 
 import hashlib
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Callable, Protocol
 
 import polars as pl
 
 from .columns import BASES, CASH_FLOW_COLUMNS, DEPRECIATION_CONVENTIONS, DEPRECIATION_METHODS, KINDS, PARAMETRIC_MONEY, PROJECT_COLUMNS
-from ..errors import Issue, ValidationError
-from .reader import open_table, read_table
-from .validate import Cells, check_unique_ids
+from ..errors import Issue, Issues, ValidationError, count_more, room_for
+from .reader import open_table
+from .validate import Cells, check_unique_id_frame
 
 CASH_FLOW_SCHEMA = {
     "project_id": pl.String, "period": pl.Int64, "amount": pl.Float64, "basis": pl.String,
     "escalation": pl.Float64, "kind": pl.String, "source": pl.String, "source_line": pl.Int64,
 }
+
+#: Columns of a typed block of project rows, in order (``parametric``: the row gives parametric amounts).
+PROJECT_SCHEMA = {
+    "project_id": pl.String, "name": pl.String, "group_name": pl.String, "requires": pl.String,
+    "mandatory": pl.Boolean, "category": pl.String, "first_cost": pl.Float64, "annual_benefit": pl.Float64,
+    "annual_cost": pl.Float64, "salvage": pl.Float64, "benefit_basis": pl.String, "benefit_escalation": pl.Float64,
+    "cost_basis": pl.String, "cost_escalation": pl.Float64, "life": pl.Int64, "depreciation_method": pl.String,
+    "depreciation_convention": pl.String, "service_quarter": pl.Int64, "recovery_years": pl.Int64,
+    "depreciable_basis": pl.Float64, "loan_amount": pl.Float64, "loan_rate": pl.Float64, "loan_term": pl.Int64,
+    "terminal_value": pl.Float64, "source_line": pl.Int64, "parametric": pl.Boolean,
+}
+
+# The per-project key frame kept for the whole-file checks (a few tens of bytes a project).
+KEY_COLUMNS = ("project_id", "raw_id", "source_line", "parametric", "group_name", "requires", "mandatory",
+               "terminal_value")
 
 
 @dataclass
@@ -35,6 +64,32 @@ class Portfolio:
     files: dict = field(default_factory=dict)
 
 
+class PortfolioSink(Protocol):
+    """Where :func:`scan_portfolio` hands typed blocks while no fault has been found."""
+
+    def projects(self, frame: pl.DataFrame) -> None:
+        """A block of project rows (:data:`PROJECT_SCHEMA`), in file order."""
+
+    def cash_flows(self, frame: pl.DataFrame) -> None:
+        """A block of the cash-flow file's lines (:data:`CASH_FLOW_SCHEMA`), in file order."""
+
+
+@dataclass
+class ScanResult:
+    """What a clean scan found: counts, notes and the inputs' hash (the rows went to the sink)."""
+
+    project_count: int
+    file_flow_rows: int          # lines of the cash-flow file
+    parametric_flow_rows: int    # lines the parametric projects expand to
+    inputs_hash: str
+    notes: list[str] = field(default_factory=list)
+    files: dict = field(default_factory=dict)
+
+    @property
+    def cash_flow_rows(self) -> int:
+        return self.file_flow_rows + self.parametric_flow_rows
+
+
 def _sha256(path) -> str:
     h = hashlib.sha256()
     with open(path, "rb") as fh:
@@ -43,10 +98,11 @@ def _sha256(path) -> str:
     return h.hexdigest()
 
 
-# Cash-flow files up to this size are validated and typed in one read. A bigger
-# file is read twice: the first read only validates (memory for one block), the
-# second builds the typed rows once the file is known to be good, so refusing a
-# file of any size needs memory for one block only.
+# Cash-flow files up to this size are collected during the one read of :func:`read_portfolio`. A
+# bigger file is read twice there: the first read only validates (memory for one block), the
+# second collects the rows once the file is known to be good, so refusing a file of any size needs
+# memory for one block only. (``ratescape load`` reads once: it stages the rows in a scratch
+# database instead of memory.)
 SINGLE_READ_BYTES = 16 << 20
 
 
@@ -68,7 +124,7 @@ def _typed_flows(cells: Cells, source: str) -> pl.DataFrame:
         .when(pl.col("amount") >= 0).then(pl.lit("benefit"))
         .otherwise(pl.lit("cost")).alias("kind"),
         pl.lit(source).alias("source"),
-    )
+    ).select(list(CASH_FLOW_SCHEMA))
 
 
 def _flow_stats(parts: list[pl.DataFrame]) -> pl.DataFrame:
@@ -77,74 +133,12 @@ def _flow_stats(parts: list[pl.DataFrame]) -> pl.DataFrame:
     return frame.group_by("project_id").agg(pl.col("total").sum(), pl.col("line").min())
 
 
-def _read_cash_flows(path, issues: list[Issue], notes: list[str], known_ids: set[str] | None,
-                     projects_name: str, allow_extreme_rates: bool = False) -> tuple[pl.DataFrame | None, pl.DataFrame | None]:
-    """Stream the cash-flow file block by block; return (typed rows or None, per-project stats or None).
-
-    The rows are None whenever an issue was found anywhere (nothing will be
-    written then); the stats (``project_id, total, line``) feed the
-    cross-file checks and are None only when the file cannot be read as a
-    table.
-    """
-    source = open_table(path, CASH_FLOW_COLUMNS, issues)
-    if source is None:
-        return None, None
-    name = Path(path).name
-    counts: dict = {}
-    known = pl.Series("known", sorted(known_ids), dtype=pl.String).implode() if known_ids is not None else None
-    kept: list[pl.DataFrame] = []
-    keep = source.path.stat().st_size <= SINGLE_READ_BYTES
-    stats: list[pl.DataFrame] = []
-
-    def unknown_fix(pid: str) -> str:
-        return f"add '{pid}' to {projects_name} or correct the id"
-
-    for batch in source.batches():
-        cells = Cells(source.name, batch, issues, counts, allow_extreme_rates)
-        typed = _typed_flows(cells, name)
-        if known is not None:
-            unknown = ~typed["project_id"].is_in(known) & (typed["project_id"] != "")
-            cells.report(unknown, "project_id", "cash flows for a project not in the projects file", unknown_fix)
-        stats.append(typed.group_by("project_id").agg(pl.col("amount").abs().sum().alias("total"),
-                                                      pl.col("source_line").min().alias("line")))
-        if len(stats) >= 32:
-            stats = [_flow_stats(stats)]
-        if keep and not issues:
-            kept.append(typed)
-        else:
-            keep, kept = False, []
-    source.finish()
-    Cells(source.name, pl.DataFrame(), issues, counts).finish()
-    notes.extend(source.notes)
-    if source.broken:
-        return None, None
-    if source.rows == 0:
-        issues.append(Issue(source.name, 2, None, None, "the file has a header but no data rows",
-                            "add at least one data row"))
-        return None, None
-    merged = _flow_stats(stats)
-    if issues:
-        return None, merged
-    if not keep:  # the file is good but too big to keep during the first read: read it again
-        second = open_table(path, CASH_FLOW_COLUMNS, [])
-        assert second is not None
-        kept = [_typed_flows(Cells(source.name, batch, issues, {}, allow_extreme_rates), name)
-                for batch in second.batches()]
-    return pl.concat(kept, how="vertical"), merged
-
-
-def _read_projects(path, issues: list[Issue], notes: list[str],
-                   allow_extreme_rates: bool = False) -> tuple[pl.DataFrame | None, Cells | None]:
-    table = read_table(path, PROJECT_COLUMNS, issues)
-    notes.extend(table.notes)
-    if table.frame is None:
-        return None, None
-    cells = Cells(table.path, table.frame, issues, allow_extreme_rates=allow_extreme_rates)
+def _typed_projects(cells: Cells) -> pl.DataFrame:
+    """Parse and check one batch of project cells (:data:`PROJECT_SCHEMA`)."""
     ids = cells.identifier("project_id")
-    check_unique_ids(cells, ids)
     # group names and required ids are compared like ids: in Unicode normal form C
-    cols = [ids, cells.text("name").alias("name"), cells.text("group_name").str.normalize("NFC").alias("group_name"),
-            cells.text("requires").str.normalize("NFC").alias("requires"), cells.boolean("mandatory"),
+    cols = [ids, cells.text("name").alias("name"), cells.normal_text("group_name"),
+            cells.normal_text("requires"), cells.boolean("mandatory"),
             cells.text("category").alias("category")]
     money = {c: cells.money(c, required=False, what="a non-negative amount of money") for c in PARAMETRIC_MONEY}
     for c, series in money.items():
@@ -166,18 +160,149 @@ def _read_projects(path, issues: list[Issue], notes: list[str],
              cells.integer("loan_term", required=False, minimum=1, what="a loan term in periods"),
              cells.number("terminal_value", required=False,
                           what="the value at the end of a study period (base-year money, + received)")]
-    cells.finish()
-    frame = pl.DataFrame(cols).with_columns(table.frame["line"].cast(pl.Int64).alias("source_line"))
+    frame = pl.DataFrame(cols).with_columns(cells.frame["line"].cast(pl.Int64).alias("source_line"))
     any_money = pl.any_horizontal([pl.col(c).is_not_null() & (pl.col(c) != 0) for c in PARAMETRIC_MONEY])
     frame = frame.with_columns(any_money.alias("parametric"))
-    no_life = frame.filter(pl.col("parametric") & pl.col("life").is_null())
-    for line, pid in no_life.select("source_line", "project_id").iter_rows():
-        if not any(i.line == line and i.column == "life" for i in issues):
-            issues.append(Issue(cells.path, line, "life", "", "parametric amounts given without a life",
-                                "give the life in periods (a whole number >= 1)"))
-    if table.broken:   # rows of the wrong shape: cells checked, but no cross-file checks on a partial table
-        return None, cells
-    return frame, cells
+    # a blank life beside parametric amounts (a life written but refused is reported as such)
+    cells.report(frame["parametric"] & frame["life"].is_null() & (cells.text("life") == ""), "life",
+                 "parametric amounts given without a life", "give the life in periods (a whole number >= 1)")
+    return frame.select(list(PROJECT_SCHEMA))
+
+
+def _parametric_lines(frame: pl.DataFrame) -> int:
+    """Cash-flow lines the parametric rows of ``frame`` expand to (see :func:`_expand_parametric`)."""
+    p = frame.filter(pl.col("parametric") & pl.col("life").is_not_null())
+    if p.height == 0:
+        return 0
+    nz = {c: (p[c].fill_null(0) != 0) for c in PARAMETRIC_MONEY}
+    life = p["life"]
+    return int(nz["first_cost"].sum() + nz["salvage"].sum()
+               + (life * nz["annual_benefit"].cast(pl.Int64)).sum() + (life * nz["annual_cost"].cast(pl.Int64)).sum())
+
+
+def _key_frame(frame: pl.DataFrame, raw_ids: pl.Series) -> pl.DataFrame:
+    """The compact per-project columns the whole-file checks need (raw id only where it is not NFC)."""
+    raw = pl.lit(raw_ids)
+    return frame.with_columns(pl.when(raw != pl.col("project_id")).then(raw).otherwise(None).alias("raw_id")) \
+        .select(list(KEY_COLUMNS))
+
+
+Progress = Callable[[int], None]
+
+
+def scan_portfolio(projects_path, cash_flows_path=None, *, allow_extreme_rates: bool = False,
+                   sink: PortfolioSink | None = None, progress: Progress | None = None) -> ScanResult:
+    """Validate the files block by block, handing typed blocks to ``sink`` while they are clean.
+
+    Raises ValidationError listing every problem (the first of each kind, with a count of the
+    rest) once both files have been read; the sink's rows must then be discarded. ``progress``
+    is called with the bytes read since its last call.
+    """
+    issues = Issues()
+    notes: list[str] = []
+    hashes: list[str | None] = []
+    pname = Path(projects_path).name
+    parametric_rows = 0
+    keys: list[pl.DataFrame] = []
+    source = open_table(projects_path, PROJECT_COLUMNS, issues)
+    projects_ok = False
+    if source is not None:
+        counts: dict = {}
+        done = 0
+        for batch, plain, spaceless, read in source.read_ahead():
+            cells = Cells(source.name, batch, issues, counts, allow_extreme_rates, plain, spaceless)
+            frame = _typed_projects(cells)
+            keys.append(_key_frame(frame, cells.text("project_id")))
+            parametric_rows += _parametric_lines(frame)
+            if sink is not None and not issues:
+                sink.projects(frame)
+            if progress is not None:
+                progress(read - done)
+                done = read
+        source.finish()
+        notes.extend(source.notes)
+        if source.rows == 0 and not source.broken:
+            issues.append(Issue(source.name, 2, None, None, "the file has a header but no data rows",
+                                "add at least one data row"))
+        hashes.append(source.sha256)
+        projects_ok = source.rows > 0 and not source.broken
+    key = pl.concat(keys, how="vertical") if keys else None
+    del keys
+    if key is not None and key.height:
+        check_unique_id_frame(str(projects_path), key.select(pl.col("source_line").alias("line"),
+                                                             pl.col("project_id").alias("id"),
+                                                             pl.col("raw_id").alias("raw")), issues)
+    if not projects_ok:
+        key = None
+    flow_rows, stats = 0, None
+    if cash_flows_path:
+        known = key["project_id"].unique() if key is not None else None
+        flow_rows, stats, digest = _scan_cash_flows(cash_flows_path, issues, notes, known, pname,
+                                                    allow_extreme_rates, sink, progress)
+        hashes.append(digest)
+    if key is not None and (cash_flows_path is None or stats is not None):
+        _check_structure(key, stats, str(projects_path), str(cash_flows_path) if cash_flows_path else None, issues)
+    if issues:
+        raise ValidationError(issues)
+    assert key is not None
+    h = hashlib.sha256()
+    for path, digest in zip([projects_path, cash_flows_path], hashes):
+        h.update((digest or _sha256(path)).encode())
+    files = {"projects": str(projects_path), "cash_flows": str(cash_flows_path) if cash_flows_path else None}
+    return ScanResult(key.height, flow_rows, parametric_rows, h.hexdigest(), notes, files)
+
+
+def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Series | None, projects_name: str,
+                     allow_extreme_rates: bool, sink: PortfolioSink | None,
+                     progress: Progress | None) -> tuple[int, pl.DataFrame | None, str | None]:
+    """Stream the cash-flow file block by block; return (rows, per-project stats or None, file hash).
+
+    The stats (``project_id, total, line``) feed the cross-file checks and are None only when
+    the file cannot be read as a table.
+    """
+    source = open_table(path, CASH_FLOW_COLUMNS, issues)
+    if source is None:
+        return 0, None, None
+    name = Path(path).name
+    counts: dict = {}
+    # A set built once: a block's few distinct ids are looked up in it (is_in against all the
+    # projects' ids would hash every id of the portfolio again for every block).
+    known_set = set(known.to_list()) if known is not None else None
+    stats: list[pl.DataFrame] = []
+    merged = pending = 0
+    done = 0
+
+    def unknown_fix(pid: str) -> str:
+        return f"add '{pid}' to {projects_name} or correct the id"
+
+    for batch, plain, spaceless, read in source.read_ahead():
+        cells = Cells(source.name, batch, issues, counts, allow_extreme_rates, plain, spaceless)
+        typed = _typed_flows(cells, name)
+        if known_set is not None:
+            missing = [i for i in typed["project_id"].unique().to_list() if i and i not in known_set]
+            if missing:
+                unknown = typed["project_id"].is_in(pl.Series(missing, dtype=pl.String).implode())
+                cells.report(unknown, "project_id", "cash flows for a project not in the projects file", unknown_fix)
+        stats.append(typed.group_by("project_id").agg(pl.col("amount").abs().sum().alias("total"),
+                                                      pl.col("source_line").min().alias("line")))
+        pending += stats[-1].height
+        if len(stats) >= 32 and pending >= max(merged, 1 << 16):   # merge when the new rows are as many as
+            stats = [_flow_stats(stats)]                            # the merged ones: linear in the file
+            merged, pending = stats[0].height, 0
+        if sink is not None and not issues:
+            sink.cash_flows(typed)
+        if progress is not None:
+            progress(read - done)
+            done = read
+    source.finish()
+    notes.extend(source.notes)
+    if source.broken:
+        return source.rows, None, None
+    if source.rows == 0:
+        issues.append(Issue(source.name, 2, None, None, "the file has a header but no data rows",
+                            "add at least one data row"))
+        return 0, None, None
+    return source.rows, _flow_stats(stats), source.sha256
 
 
 def _expand_parametric(projects: pl.DataFrame, source: str) -> pl.DataFrame:
@@ -209,38 +334,49 @@ def _expand_parametric(projects: pl.DataFrame, source: str) -> pl.DataFrame:
     return out.select(list(CASH_FLOW_SCHEMA)).cast(CASH_FLOW_SCHEMA)
 
 
+def _listed(issues: list[Issue], frame: pl.DataFrame, path: str, column: str, problem: str) -> pl.DataFrame:
+    """The rows of ``frame`` to list as issues of one kind; the others are counted (see Issues)."""
+    room = room_for(issues, path, column, problem)
+    if room is None or frame.height <= room:
+        return frame
+    count_more(issues, path, column, problem, frame.height - room)
+    return frame.head(room)
+
+
 def _check_structure(projects: pl.DataFrame, stats: pl.DataFrame | None, ppath: str, cpath: str | None,
                      issues: list[Issue]) -> None:
     """Cross-file checks: projects without flows or with both descriptions, all-zero flows, groups, requires.
 
-    ``stats`` holds one row per project id of the cash-flow file (``total`` =
-    sum of absolute amounts, ``line`` = its first line), or None without a
-    cash-flow file.
+    ``projects`` is the compact key frame (:data:`KEY_COLUMNS`, one row per project, file order);
+    ``stats`` holds one row per project id of the cash-flow file (``total`` = sum of absolute
+    amounts, ``line`` = its first line), or None without a cash-flow file. Joins, not Python
+    sets: a million projects are checked in memory of the same order as the key frame.
     """
-    ids = set(projects["project_id"].to_list())
-    line_of = dict(zip(projects["project_id"].to_list(), projects["source_line"].to_list()))
-    with_rows: set[str] = set()
+    ids = projects.select("project_id", "source_line", "group_name").unique("project_id", keep="first")
+    with_rows = pl.DataFrame(schema={"project_id": pl.String})
     if stats is not None and stats.height:
-        with_rows = set(stats.filter(pl.col("project_id") != "")["project_id"].to_list())
-        both = projects.filter(pl.col("parametric") & pl.col("project_id").is_in(list(with_rows)))
-        for line, pid in both.select("source_line", "project_id").iter_rows():
-            issues.append(Issue(ppath, line, "first_cost", pid,
-                                "project has both parametric amounts and rows in the cash-flow file",
+        with_rows = stats.filter(pl.col("project_id") != "").select("project_id")
+        both = projects.filter(pl.col("parametric")).join(with_rows, on="project_id", how="semi")
+        problem = "project has both parametric amounts and rows in the cash-flow file"
+        for line, pid in _listed(issues, both, ppath, "first_cost", problem).select("source_line", "project_id").iter_rows():
+            issues.append(Issue(ppath, line, "first_cost", pid, problem,
                                 "describe each project one way: clear its parametric columns or remove its cash-flow rows"))
-        zero = stats.filter((pl.col("total") == 0) & pl.col("project_id").is_in(list(ids)))
-        for pid in zero["project_id"].to_list():
-            issues.append(Issue(ppath, line_of.get(pid), "project_id", pid, "all of the project's cash flows are zero",
+        zero = stats.filter(pl.col("total") == 0).join(ids, on="project_id", how="inner").sort("source_line")
+        problem = "all of the project's cash flows are zero"
+        for pid, line in _listed(issues, zero, ppath, "project_id", problem).select("project_id", "source_line").iter_rows():
+            issues.append(Issue(ppath, line, "project_id", pid, problem,
                                 "give the project's cash flows or remove it from the portfolio"))
-    no_flows = projects.filter(~pl.col("parametric") & ~pl.col("project_id").is_in(list(with_rows))
-                               & (pl.col("project_id") != ""))
-    for line, pid in no_flows.select("source_line", "project_id").head(200).iter_rows():
+    no_flows = projects.filter(~pl.col("parametric") & (pl.col("project_id") != "")).join(
+        with_rows, on="project_id", how="anti")
+    problem = "project has no cash flows"
+    for line, pid in _listed(issues, no_flows, ppath, "project_id", problem).select("source_line", "project_id").iter_rows():
         where = f"rows in {Path(cpath).name}" if cpath else "a cash-flow file (--cash-flows)"
-        issues.append(Issue(ppath, line, "project_id", pid, "project has no cash flows",
+        issues.append(Issue(ppath, line, "project_id", pid, problem,
                             f"give first_cost/annual_benefit/annual_cost/salvage and life, or {where}"))
     # groups of mutually exclusive alternatives
     groups = projects.filter(pl.col("group_name") != "").group_by("group_name").agg(
         pl.len().alias("n"), pl.col("source_line").min().alias("line"),
-        pl.col("mandatory").n_unique().alias("mandatory_kinds"))
+        pl.col("mandatory").n_unique().alias("mandatory_kinds")).sort("line")
     for g, n, line, kinds in groups.select("group_name", "n", "line", "mandatory_kinds").iter_rows():
         if n < 2:
             issues.append(Issue(ppath, line, "group", g, "a group with only one member",
@@ -250,33 +386,41 @@ def _check_structure(projects: pl.DataFrame, stats: pl.DataFrame | None, ppath: 
                                 "mark every member of a mandatory group true (or none)"))
     # a terminal value is used only for an alternative cut at a study period
     stray = projects.filter(pl.col("terminal_value").is_not_null() & (pl.col("group_name") == ""))
-    for line, value in stray.select("source_line", "terminal_value").head(200).iter_rows():
-        issues.append(Issue(ppath, line, "terminal_value", f"{value:g}",
-                            "a terminal value on a project outside any group (it is used only when the "
-                            "alternatives of a group are compared over a study period)",
+    problem = ("a terminal value on a project outside any group (it is used only when the "
+               "alternatives of a group are compared over a study period)")
+    for line, value in _listed(issues, stray, ppath, "terminal_value", problem).select("source_line", "terminal_value").iter_rows():
+        issues.append(Issue(ppath, line, "terminal_value", f"{value:g}", problem,
                             "leave terminal_value blank, or give the project its group of alternatives"))
     # requires: known ids, no self-reference, no cycles, not within one group
-    lower_ids = {i.lower(): i for i in ids}
+    req = projects.filter(pl.col("requires") != "").select("project_id", "requires", "source_line", "group_name")
+    if req.height == 0:
+        return
+    targets = req.with_columns(pl.col("requires").str.split(";").alias("target")).explode("target") \
+        .with_columns(pl.col("target").str.strip_chars()).filter(pl.col("target") != "")
+    known = targets.join(ids.select("project_id", pl.col("group_name").alias("target_group"), pl.lit(True).alias("known")),
+                         left_on="target", right_on="project_id", how="left", maintain_order="left")
+    lower = ids.select(pl.col("project_id").str.to_lowercase().alias("lower"), pl.col("project_id").alias("suggest")) \
+        .unique("lower", keep="last")
+    known = known.with_columns(pl.col("target").str.to_lowercase().alias("lower")).join(
+        lower, on="lower", how="left", maintain_order="left")
     graph: dict[str, list[str]] = {}
-    group_of = dict(zip(projects["project_id"].to_list(), projects["group_name"].to_list()))
-    for pid, req, line in projects.select("project_id", "requires", "source_line").iter_rows():
-        if not req:
-            continue
-        targets = [t.strip() for t in req.split(";") if t.strip()]
-        for t in targets:
-            if t not in ids:
-                hint = f"did you mean '{lower_ids[t.lower()]}'?" if t.lower() in lower_ids else "list existing project ids separated by ';'"
-                issues.append(Issue(ppath, line, "requires", t, "requires an unknown project", hint))
-            elif t == pid:
-                issues.append(Issue(ppath, line, "requires", t, "a project requires itself", "remove the self-reference"))
-            elif group_of.get(t) and group_of.get(t) == group_of.get(pid):
+    for pid, line, group, t, ok, tgroup, suggest in known.select(
+            "project_id", "source_line", "group_name", "target", "known", "target_group", "suggest").iter_rows():
+        if not ok:
+            hint = f"did you mean '{suggest}'?" if suggest is not None else "list existing project ids separated by ';'"
+            issues.append(Issue(ppath, line, "requires", t, "requires an unknown project", hint))
+        elif t == pid:
+            issues.append(Issue(ppath, line, "requires", t, "a project requires itself", "remove the self-reference"))
+        else:
+            if tgroup and tgroup == group:
                 issues.append(Issue(ppath, line, "requires", t,
                                     "requires a mutually exclusive alternative of its own group",
                                     "remove the requirement or the group"))
-        graph[pid] = [t for t in targets if t in ids and t != pid]
+            graph.setdefault(pid, []).append(t)
     cycle = _find_cycle(graph)
     if cycle:
-        issues.append(Issue(ppath, line_of.get(cycle[0]), "requires", " -> ".join(cycle),
+        line = ids.filter(pl.col("project_id") == cycle[0])["source_line"].to_list()
+        issues.append(Issue(ppath, line[0] if line else None, "requires", " -> ".join(cycle),
                             "'requires' dependencies form a cycle", "break the cycle: a project cannot depend on itself through others"))
 
 
@@ -306,8 +450,28 @@ def _find_cycle(graph: dict[str, list[str]]) -> list[str] | None:
     return None
 
 
+class _Collect:
+    """A sink that keeps every block in memory (the in-memory path of :func:`read_portfolio`)."""
+
+    def __init__(self, flows: bool = True):
+        self.project_parts: list[pl.DataFrame] = []
+        self.flow_parts: list[pl.DataFrame] = []
+        self.keep_flows = flows
+
+    def projects(self, frame: pl.DataFrame) -> None:
+        self.project_parts.append(frame)
+
+    def cash_flows(self, frame: pl.DataFrame) -> None:
+        if self.keep_flows:
+            self.flow_parts.append(frame)
+
+
 def read_portfolio(projects_path, cash_flows_path=None, *, allow_extreme_rates: bool = False) -> Portfolio:
-    """Read, validate and expand a portfolio; raise ValidationError listing every problem.
+    """Read, validate and expand a portfolio in memory; raise ValidationError listing every problem.
+
+    The same checks as ``ratescape load`` (:func:`scan_portfolio`); the rows are collected in
+    memory instead of staged in a database, so this is for portfolios that fit in memory (the
+    API, tests, and the reference the streamed load is compared with).
 
     Parameters
     ----------
@@ -321,25 +485,14 @@ def read_portfolio(projects_path, cash_flows_path=None, *, allow_extreme_rates: 
     Portfolio with ``projects`` (one row per project) and ``cash_flows``
     (long form, signed amounts; parametric rows expanded).
     """
-    issues: list[Issue] = []
-    notes: list[str] = []
-    projects, _ = _read_projects(projects_path, issues, notes, allow_extreme_rates)
-    known = set(projects["project_id"].to_list()) if projects is not None else None
-    flows, stats = (_read_cash_flows(cash_flows_path, issues, notes, known, Path(projects_path).name,
-                                     allow_extreme_rates)
-                    if cash_flows_path else (None, None))
-    if projects is not None and (cash_flows_path is None or stats is not None):
-        _check_structure(projects, stats, str(projects_path), str(cash_flows_path) if cash_flows_path else None, issues)
-    if issues:
-        raise ValidationError(issues)
-    assert projects is not None
-    parts = [_expand_parametric(projects, Path(projects_path).name)]
-    if flows is not None:
-        parts.append(flows.select(list(CASH_FLOW_SCHEMA)).cast(CASH_FLOW_SCHEMA))
+    once = not cash_flows_path or not Path(cash_flows_path).is_file() or \
+        Path(cash_flows_path).stat().st_size <= SINGLE_READ_BYTES
+    sink = _Collect(flows=once)
+    scan = scan_portfolio(projects_path, cash_flows_path, allow_extreme_rates=allow_extreme_rates, sink=sink)
+    if not once:   # the file is good but was too big to keep during the first read: read it again
+        sink = _Collect()
+        scan = scan_portfolio(projects_path, cash_flows_path, allow_extreme_rates=allow_extreme_rates, sink=sink)
+    projects = pl.concat(sink.project_parts, how="vertical")
+    parts = [_expand_parametric(projects, Path(projects_path).name)] + sink.flow_parts
     cash_flows = pl.concat(parts, how="vertical")
-    h = hashlib.sha256()
-    h.update(_sha256(projects_path).encode())
-    if cash_flows_path:
-        h.update(_sha256(cash_flows_path).encode())
-    files = {"projects": str(projects_path), "cash_flows": str(cash_flows_path) if cash_flows_path else None}
-    return Portfolio(projects.drop("parametric"), cash_flows, h.hexdigest(), notes, files)
+    return Portfolio(projects.drop("parametric"), cash_flows, scan.inputs_hash, scan.notes, scan.files)

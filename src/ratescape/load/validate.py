@@ -6,16 +6,17 @@ fix). Nothing here writes anywhere.
 """
 from __future__ import annotations
 
+import functools
 import re
 
 import polars as pl
 
 from .columns import BASES, FALSE_WORDS, KINDS, MAX_AMOUNT, MAX_PERIOD, PERCENT_RATE_LIMIT, TRUE_WORDS
-from ..errors import Issue, percent_typo
+from ..errors import MAX_ISSUES_PER_KIND, Issue, count_more, percent_typo, room_for
 
-# Cap on issues recorded per column, so a 2 GB file of bad cells still
-# produces a readable message (the total count is reported).
-MAX_ISSUES_PER_COLUMN = 200
+# Issues listed per kind (column and problem): the loader's list keeps this many of each kind and
+# counts the rest, so a 2 GB file of bad cells still produces a readable message.
+MAX_ISSUES_PER_COLUMN = MAX_ISSUES_PER_KIND
 
 _CURRENCY = re.compile(r"[$€£¥₹]")
 # Characters an id may not hold: C0/C1 controls (Cc), invisible format characters such as
@@ -31,7 +32,9 @@ def _invisible_fix(value: str) -> str:
             "they look, so they may hold only printable text")
 
 
+@functools.lru_cache(maxsize=64)
 def _const(value, n: int, dtype) -> pl.Series:
+    """A column of ``n`` copies of ``value`` (cached: every block of a file has about the same size)."""
     return pl.select(pl.repeat(value, n, dtype=dtype)).to_series()
 
 
@@ -58,8 +61,13 @@ class Cells:
     """Collects issues for one file while its columns are parsed."""
 
     def __init__(self, path: str, frame: pl.DataFrame, issues: list[Issue], counts: dict | None = None,
-                 allow_extreme_rates: bool = False):
+                 allow_extreme_rates: bool = False, plain_ascii: bool = False, spaceless: bool = False):
         self.path = path
+        # the cells hold printable ASCII only (see reader._plain_ascii): normal form C, nothing invisible;
+        # spaceless: and no space, so nothing to strip (fast paths, the same results)
+        self.plain_ascii = plain_ascii
+        self.spaceless = spaceless
+        self._texts: dict[str, pl.Series] = {}
         self.allow_extreme_rates = allow_extreme_rates
         self.frame = frame
         self.issues = issues
@@ -69,32 +77,33 @@ class Cells:
     def report(self, mask: pl.Series, column: str, problem: str, fix) -> None:
         """Add an issue for each row where ``mask`` is true (fix may be a callable of the value).
 
-        At most :data:`MAX_ISSUES_PER_COLUMN` issues are listed per column over
-        all batches of a file; :meth:`finish` adds the count of the others.
+        The issue list keeps the first issues of each kind (column and problem) over all
+        batches of a file and counts the others (:class:`ratescape.errors.Issues`); only the rows
+        it keeps are turned into issues.
         """
-        bad = self.frame.filter(mask)
-        if bad.height == 0:
+        if not mask.any():
             return
-        already = self.counts.get(column, 0)
-        self.counts[column] = already + bad.height
-        shown = bad.head(max(0, MAX_ISSUES_PER_COLUMN - already))
+        bad = self.frame.filter(mask)
+        n = bad.height
+        room = room_for(self.issues, self.path, column, problem)
+        shown = bad if room is None else bad.head(room)
+        self.counts[(column, problem)] = self.counts.get((column, problem), 0) + n
         for line, value in zip(shown["line"].to_list(), shown[column].to_list() if column in shown.columns else [None] * shown.height):
             text = "" if value is None else str(value)
             self.issues.append(Issue(self.path, line, column, text, problem,
                                      fix(text) if callable(fix) else fix))
+        count_more(self.issues, self.path, column, problem, n - shown.height)
 
     def finish(self) -> None:
-        """Add one issue per column with more bad cells than were listed."""
-        for column, n in self.counts.items():
-            if n > MAX_ISSUES_PER_COLUMN:
-                self.issues.append(Issue(self.path, None, column, None,
-                                         f"{n - MAX_ISSUES_PER_COLUMN} more bad cells in this column",
-                                         "fix the cells listed above the same way"))
+        """Kept for callers: the counts of issues not listed are held by the issue list itself."""
 
     def text(self, column: str) -> pl.Series:
         if column not in self.frame.columns:
-            return pl.Series(column, [""] * self.frame.height, dtype=pl.String)
-        return self.frame[column].fill_null("").str.strip_chars()
+            return _const("", self.frame.height, pl.String).alias(column)
+        if column not in self._texts:
+            cells = self.frame[column].fill_null("")
+            self._texts[column] = cells if self.spaceless else cells.str.strip_chars()
+        return self._texts[column]
 
     def number(self, column: str, *, required: bool, default: float | None = None,
                what: str = "a plain number") -> pl.Series:
@@ -154,7 +163,10 @@ class Cells:
         return values
 
     def choice(self, column: str, allowed: tuple[str, ...], *, default: str | None) -> pl.Series:
-        raw = self.text(column).str.to_lowercase()
+        raw = self.text(column)
+        if default is not None and raw.is_in(list(allowed) + [""]).all():   # the usual file: no fault, lower case
+            return raw.zip_with(raw != "", _const(default, len(raw), pl.String)).alias(column)
+        raw = raw.str.to_lowercase()
         blank = raw == ""
         bad = ~blank & ~raw.is_in(list(allowed))
         self.report(bad, column, "unknown value", "use one of: " + ", ".join(allowed))
@@ -174,31 +186,49 @@ class Cells:
         holding invisible or control characters are refused."""
         raw = self.text(column)
         self.report(raw == "", column, "blank id", "give every row an id")
+        if self.plain_ascii:
+            return raw.alias(column)
         hidden = raw.str.contains(INVISIBLE)
         self.report(hidden, column, "an id holding an invisible or control character", _invisible_fix)
         return raw.str.normalize("NFC").alias(column)
 
+    def normal_text(self, column: str) -> pl.Series:
+        """A text column in Unicode normal form C (compared like ids)."""
+        text = self.text(column)
+        return (text if self.plain_ascii else text.str.normalize("NFC")).alias(column)
+
 
 def check_unique_ids(cells: Cells, ids: pl.Series) -> None:
     """Duplicate ids, including ids that differ only in letter case or Unicode normalisation, are refused."""
-    lower = ids.str.to_lowercase()
-    frame = pl.DataFrame({"line": cells.frame["line"], "id": ids, "key": lower, "raw": cells.text("project_id")})
-    frame = frame.filter(pl.col("id") != "")
-    first = frame.group_by("key", maintain_order=True).agg(pl.col("line").first().alias("first_line"),
-                                                           pl.col("id").first().alias("first_id"),
-                                                           pl.col("raw").first().alias("first_raw"))
-    joined = frame.join(first, on="key").filter(pl.col("line") != pl.col("first_line"))
+    frame = pl.DataFrame({"line": cells.frame["line"], "id": ids, "raw": cells.text("project_id")})
+    check_unique_id_frame(cells.path, frame, cells.issues)
+
+
+DUPLICATE_FIX = "give every project a unique id (ids are compared ignoring case)"
+
+
+def check_unique_id_frame(path: str, frame: pl.DataFrame, issues: list[Issue]) -> None:
+    """The duplicate-id check over a whole file's ``line, id, raw`` (``raw``: the id as written when
+    it differs from its normal form ``id``, else null or the same), in file order."""
+    frame = frame.filter(pl.col("id") != "").with_columns(
+        pl.col("id").str.to_lowercase().alias("key"), pl.coalesce("raw", "id").alias("raw"))
+    dup = frame.filter(pl.col("key").is_duplicated())
+    if dup.height == 0:
+        return
+    first = dup.group_by("key", maintain_order=True).agg(pl.col("line").first().alias("first_line"),
+                                                         pl.col("id").first().alias("first_id"),
+                                                         pl.col("raw").first().alias("first_raw"))
+    joined = dup.join(first, on="key").filter(pl.col("line") != pl.col("first_line")).sort("line")
     for line, pid, first_line, first_id, raw, first_raw in joined.select(
-            "line", "id", "first_line", "first_id", "raw", "first_raw").head(MAX_ISSUES_PER_COLUMN).iter_rows():
+            "line", "id", "first_line", "first_id", "raw", "first_raw").iter_rows():
         if pid != first_id:
             how = f"an id that differs only in letter case from '{first_id}'"
         elif raw != first_raw:
             how = f"an id that is the same after Unicode normalisation (NFC) as '{first_raw}'"
         else:
             how = "the same id"
-        cells.issues.append(Issue(cells.path, line, "project_id", pid,
-                                  f"{how} already appears on line {first_line}",
-                                  "give every project a unique id (ids are compared ignoring case)"))
+        issues.append(Issue(path, line, "project_id", pid, f"{how} already appears on line {first_line}",
+                            DUPLICATE_FIX))
 
 
-__all__ = ["Cells", "check_unique_ids", "number_fix", "BASES", "KINDS"]
+__all__ = ["Cells", "check_unique_ids", "check_unique_id_frame", "number_fix", "BASES", "KINDS"]

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 from datetime import datetime, timezone
+from pathlib import Path
 
 import polars as pl
 
@@ -40,4 +41,246 @@ def store_portfolio(con, portfolio: Portfolio) -> int:
             load_id, datetime.now(timezone.utc).replace(tzinfo=None), portfolio.files.get("projects"),
             portfolio.files.get("cash_flows"), portfolio.inputs_hash, projects.height, flows.height,
             __version__, "\n".join(portfolio.notes)])
+    return load_id
+
+
+# ---- the streamed load (issue 16, part 1) --------------------------------------------------------------
+#
+# ``ratescape load`` never holds the portfolio in memory: the files are checked block by block
+# (:func:`ratescape.load.scan_portfolio`) and each clean block is written to a Parquet file in a
+# staging folder beside the target; only when both files passed every check is the target opened
+# and its portfolio replaced in one transaction, by SQL that reads the staged projects (keys in
+# file order), expands the parametric ones to cash-flow lines and copies the staged lines. A
+# refused input never opens the target (it stays byte for byte as it was); an interrupted load
+# rolls back; the staging folder is removed in every case.
+
+# Rows per staged Parquet file (a few tens of MB of typed columns held before each write).
+STAGE_ROWS = 1 << 19
+# DuckDB's memory while it writes the target: beyond it, it spills to disk.
+LOAD_MEMORY_LIMIT = "768MB"
+# Disk a loaded line takes, in bytes, for the space check before work starts: the bench
+# portfolios took 5.5 (parametric) and 8 (long form) bytes a line in the database once written,
+# and about 5 in the staged Parquet files (bench/RESULTS.md, issue 16 part 1); this leaves room
+# for DuckDB's writes before its checkpoint and for the lines a reload replaces.
+DISK_BYTES_PER_LINE = 32
+DISK_BYTES_PER_PROJECT = 200
+DISK_MARGIN_BYTES = 64 << 20
+
+
+class StagingSink:
+    """Writes the scan's typed blocks to Parquet files in ``folder`` (``projects_*.parquet``,
+    ``flows_*.parquet``), :data:`STAGE_ROWS` rows a file, numbered in file order."""
+
+    def __init__(self, folder: Path):
+        self.folder = folder
+        self.parts: dict[str, list[pl.DataFrame]] = {"projects": [], "flows": []}
+        self.rows = {"projects": 0, "flows": 0}
+        self.files: dict[str, list[Path]] = {"projects": [], "flows": []}
+
+    def projects(self, frame: pl.DataFrame) -> None:
+        self._add("projects", frame)
+
+    def cash_flows(self, frame: pl.DataFrame) -> None:
+        self._add("flows", frame)
+
+    def _add(self, kind: str, frame: pl.DataFrame) -> None:
+        self.parts[kind].append(frame)
+        self.rows[kind] += frame.height
+        if self.rows[kind] >= STAGE_ROWS:
+            self.flush(kind)
+
+    def flush(self, kind: str | None = None) -> None:
+        for name in [kind] if kind else list(self.parts):
+            parts = self.parts[name]
+            if not parts:
+                continue
+            path = self.folder / f"{name}_{len(self.files[name]):06d}.parquet"
+            pl.concat(parts, how="vertical").write_parquet(path, compression="lz4", statistics=False)
+            self.files[name].append(path)
+            self.parts[name], self.rows[name] = [], 0
+
+
+def _sql_text(value: str) -> str:
+    return "'" + value.replace("'", "''") + "'"
+
+
+def _parquet(files: list[Path]) -> str:
+    return "read_parquet([" + ", ".join(_sql_text(str(f)) for f in files) + "])"
+
+
+def expansion_sql(source: str, projects: str = "staged_projects") -> str:
+    """The parametric projects of the relation ``projects`` as long-form cash-flow lines (one SELECT).
+
+    The same lines as :func:`ratescape.load.portfolio._expand_parametric` (the in-memory path):
+    first cost paid at period 0, annual benefit received and annual cost paid at periods
+    1..life in their own basis and escalation, salvage received at period ``life``.
+    """
+    src = _sql_text(source)
+    base = f"FROM {projects} WHERE parametric AND life IS NOT NULL"
+    return f"""
+        SELECT project_id, 0 AS period, -first_cost AS amount, 'real' AS basis, 0.0 AS escalation,
+               'investment' AS kind, {src} AS source, source_line
+        {base} AND coalesce(first_cost, 0) <> 0
+        UNION ALL
+        SELECT project_id, unnest(range(1, life + 1)), annual_benefit, benefit_basis, benefit_escalation,
+               'benefit', {src}, source_line
+        {base} AND coalesce(annual_benefit, 0) <> 0
+        UNION ALL
+        SELECT project_id, unnest(range(1, life + 1)), -annual_cost, cost_basis, cost_escalation,
+               'cost', {src}, source_line
+        {base} AND coalesce(annual_cost, 0) <> 0
+        UNION ALL
+        SELECT project_id, life, salvage, 'real', 0.0, 'salvage', {src}, source_line
+        {base} AND coalesce(salvage, 0) <> 0"""
+
+
+def estimated_disk_bytes(lines: int, projects: int) -> int:
+    """Disk a load of ``lines`` cash-flow lines and ``projects`` projects may need (staging and target)."""
+    return lines * DISK_BYTES_PER_LINE + projects * DISK_BYTES_PER_PROJECT + DISK_MARGIN_BYTES
+
+
+def check_disk_space(folder: Path, needed: int, what: str) -> None:
+    """Refuse, before the work starts, a load whose estimated size does not fit on the disk of ``folder``."""
+    import shutil
+
+    from ..errors import RatescapeError
+    free = shutil.disk_usage(folder).free
+    if needed > free:
+        raise RatescapeError(f"not enough disk space for {what}: it needs about {needed / 2**30:.1f} GB in "
+                             f"{folder}, and {free / 2**30:.1f} GB are free; nothing was written. Fix: free disk "
+                             "space there, or give --db a path on a disk with more room")
+
+
+def load_streamed(db, projects_path, cash_flows_path=None, *, allow_extreme_rates: bool = False,
+                  progress=None, log=None) -> dict:
+    """Check the CSV files block by block, stage them, then replace the database's portfolio atomically.
+
+    Returns the counts, notes, inputs hash and load id. Raises ValidationError (every problem,
+    the first of each kind with a count of the rest) without opening ``db``; ``progress`` is
+    called with the bytes read since its last call, ``log`` with a line before the write.
+    """
+    import shutil
+    import tempfile
+    import time
+
+    from ..load.portfolio import scan_portfolio
+    from .database import check_database_file, connect_write
+
+    db = Path(db)
+    check_database_file(db)
+    folder = db.resolve().parent
+    sizes = sum(Path(p).stat().st_size for p in (projects_path, cash_flows_path) if p and Path(p).is_file())
+    # before reading: a long-form file stages about as many lines as it has (~30 bytes a line)
+    check_disk_space(folder, estimated_disk_bytes(sizes // 30, 0), f"loading {sizes / 2**20:.0f} MB of CSV")
+    work = Path(tempfile.mkdtemp(prefix=f".{db.name}.load-", dir=folder))
+    try:
+        sink = StagingSink(work)
+        scan = scan_portfolio(projects_path, cash_flows_path, allow_extreme_rates=allow_extreme_rates,
+                              sink=sink, progress=progress)
+        sink.flush()
+        check_disk_space(folder, estimated_disk_bytes(scan.cash_flow_rows, scan.project_count),
+                         f"{scan.cash_flow_rows:,} cash-flow lines")
+        if log is not None:
+            log(f"load: writing {scan.project_count:,} projects and {scan.cash_flow_rows:,} cash-flow lines "
+                f"into {db} ...")
+        start = time.monotonic()
+        con = connect_write(db)
+        try:
+            con.execute(f"SET memory_limit = '{LOAD_MEMORY_LIMIT}'")
+            # insertion order kept (DuckDB's default): the lines land in the same order on every load of
+            # the same files, so sums over them (and every result) repeat to the last bit
+            # DuckDB's progress is read (query_progress) for the lines before and during the write; its
+            # own bar is never printed
+            con.execute("SET enable_progress_bar = true")
+            con.execute("SET enable_progress_bar_print = false")
+            con.execute(f"SET temp_directory = {_sql_text(str(work / 'spill'))}")
+            run = _Statements(con, log, scan.cash_flow_rows)
+            try:
+                load_id = _replace_portfolio(con, scan, sink.files, Path(projects_path).name, run)
+            finally:
+                for setting in ("memory_limit", "temp_directory", "enable_progress_bar",
+                                "enable_progress_bar_print"):
+                    con.execute(f"RESET {setting}")
+        finally:
+            con.close()
+        if log is not None:
+            log(f"load: written in {time.monotonic() - start:.1f} s")
+    finally:
+        shutil.rmtree(work, ignore_errors=True)
+    return {"projects": scan.project_count, "cash_flow_rows": scan.cash_flow_rows, "notes": scan.notes,
+            "inputs_hash": scan.inputs_hash, "load_id": load_id}
+
+
+# Seconds between the lines that report the write's progress (DuckDB's own estimate, per statement).
+WRITE_REPORT_SECONDS = 10.0
+
+
+class _Statements:
+    """Runs the write's statements; with ``log``, each long one on a worker thread while this thread
+    reports DuckDB's progress of it with the time left (``query_progress``), every
+    :data:`WRITE_REPORT_SECONDS`. Ctrl-C interrupts the statement (the transaction then rolls back)."""
+
+    def __init__(self, con, log, lines: int):
+        self.con, self.log, self.lines = con, log, lines
+
+    def __call__(self, sql: str, what: str | None = None) -> None:
+        if self.log is None or what is None:
+            self.con.execute(sql)
+            return
+        import threading
+        import time
+        box: dict = {}
+
+        def work() -> None:
+            try:
+                self.con.execute(sql)
+            except BaseException as exc:      # noqa: BLE001  (re-raised on the caller's thread)
+                box["error"] = exc
+        thread = threading.Thread(target=work, name="load write", daemon=True)
+        start = last = time.monotonic()
+        thread.start()
+        try:
+            while thread.is_alive():
+                thread.join(0.5)
+                now = time.monotonic()
+                if thread.is_alive() and now - last >= WRITE_REPORT_SECONDS:
+                    last = now
+                    try:
+                        pct = float(self.con.query_progress())
+                    except Exception:                  # noqa: BLE001  (no estimate is no error)
+                        pct = -1.0
+                    if 0 < pct < 100:
+                        left = (now - start) * (100 - pct) / pct
+                        self.log(f"load: writing {what}: {pct:.0f} % done, {now - start:.0f} s elapsed, "
+                                 f"about {left:.0f} s left")
+        except BaseException:
+            self.con.interrupt()
+            thread.join()
+            raise
+        if "error" in box:
+            raise box["error"]
+
+
+def _replace_portfolio(con, scan, files: dict[str, list[Path]], projects_source: str, run=None) -> int:
+    """One transaction: the staged projects (keys in file order), their parametric lines, the staged lines."""
+    run = run or _Statements(con, None, 0)
+    cols = [c for c in PROJECT_COLUMNS if c != "project_key"]
+    flows = ", ".join(CASH_FLOW_COLUMNS)
+    with transaction(con):
+        con.execute("DELETE FROM projects")
+        con.execute("DELETE FROM cash_flows")
+        con.execute(f"INSERT INTO projects (project_key, {', '.join(cols)}) "
+                    f"SELECT CAST(row_number() OVER (ORDER BY source_line) - 1 AS INTEGER), {', '.join(cols)} "
+                    f"FROM {_parquet(files['projects'])} ORDER BY source_line")
+        if scan.parametric_flow_rows:
+            run(f"INSERT INTO cash_flows ({flows}) {expansion_sql(projects_source, _parquet(files['projects']))}",
+                f"{scan.parametric_flow_rows:,} lines of parametric projects")
+        if scan.file_flow_rows:
+            run(f"INSERT INTO cash_flows ({flows}) SELECT {flows} FROM {_parquet(files['flows'])}",
+                f"{scan.file_flow_rows:,} lines of the cash-flow file")
+        load_id = con.execute("SELECT coalesce(max(load_id), 0) + 1 FROM loads").fetchone()[0]
+        con.execute("INSERT INTO loads VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", [
+            load_id, datetime.now(timezone.utc).replace(tzinfo=None), scan.files.get("projects"),
+            scan.files.get("cash_flows"), scan.inputs_hash, scan.project_count, scan.cash_flow_rows,
+            __version__, "\n".join(scan.notes)])
     return load_id
