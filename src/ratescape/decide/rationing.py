@@ -53,6 +53,7 @@ __all__ = [
     "METHOD_LP_BOUND",
     "METHOD_MILP",
     "METHOD_MILP_FIXED",
+    "solver_block_size",
 ]
 
 
@@ -86,9 +87,13 @@ METHOD_MILP_FIXED = 2  # MILP after reduced-cost fixing
 METHOD_NONE = -1  # infeasible LP: nothing to solve
 
 
-#: distinct scenarios solved as one block (one pool of earlier optima). The split depends only on
-#: the number of distinct scenarios, so the answer is the same whatever the number of processes.
+#: scenarios solved as one block (one pool of earlier optima): blocks are fixed ranges of scenario
+#: indices [0, b), [b, 2b), ..., so the answer is the same whatever the number of processes and
+#: whether the scenarios are solved all at once or streamed in larger blocks that are multiples of b.
 BLOCK_SIZE = 256
+#: fewer scenarios per block for large portfolios: about this many (scenario, project) cells a block
+BLOCK_CELLS = 4_000_000
+MIN_BLOCK_SIZE = 8
 
 
 @dataclass(frozen=True)
@@ -385,7 +390,7 @@ def _solve_one(prob, s, a_ub, rest_b, a_eq, b_eq, lp_info, cands, mip_rel_gap, t
 def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=None,
                    group_mandatory=None, requires=None, mip_rel_gap=1e-3, time_limit=None,
                    reuse_identical=True, pool_size=32, quiet=True, processes=None,
-                   block_size=BLOCK_SIZE):
+                   block_size=None, progress=None):
     """Best portfolio of projects under period budgets, in every scenario.
 
     Parameters
@@ -422,8 +427,8 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
         Seconds per scenario for the branch and bound; on reaching it the
         best portfolio found is reported with status ``STATUS_LIMIT``.
     reuse_identical : bool, optional
-        Solve once per distinct (class, budgets, pw column) and copy the
-        answer to identical scenarios (default True).
+        Solve once per distinct (class, budgets, pw column) within a block
+        and copy the answer to identical scenarios (default True).
     pool_size : int, optional
         How many distinct optimal portfolios to keep as starting
         candidates for later scenarios (default 32).
@@ -435,8 +440,12 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
         2, or 1 on a one-core machine; 1 solves in this process). The
         answer does not depend on it.
     block_size : int, optional
-        Distinct scenarios per block (default 256); each block keeps its
-        own pool of earlier optima.
+        Scenarios per block (default :func:`solver_block_size`: 256, fewer
+        above 15,625 projects); blocks are the index ranges [0, b), [b, 2b),
+        ..., each with its own pool of earlier optima, identical scenarios
+        solved once within a block.
+    progress : callable, optional
+        Called with the number of scenarios of each block as it is solved.
 
     Returns
     -------
@@ -506,26 +515,33 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
         raise ValueError(f"time_limit must be > 0 seconds, got {time_limit}")
     P, S = prob.pw.shape
     B = prob.inv.shape[1]
+    block_size = solver_block_size(P) if block_size is None else max(1, int(block_size))
 
-    # distinct scenarios
-    if reuse_identical:
-        key = np.concatenate([prob.cls[:, None].astype(float), prob.budgets, prob.pw.T], axis=1)
-        _, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
-        inverse = inverse.ravel()
-        uniq = np.sort(first)
-        solved_as = first[inverse]  # first scenario with the same key
-    else:
-        uniq = np.arange(S)
-        solved_as = np.arange(S)
-
+    # fixed blocks of scenario indices; identical scenarios are solved once within a block
+    blocks = [np.arange(a, min(a + block_size, S)) for a in range(0, S, block_size)]
+    solved_as = np.arange(S)
+    uniq_of = []
+    for blk in blocks:
+        if reuse_identical and blk.size > 1:
+            key = np.concatenate([prob.cls[blk, None].astype(float), prob.budgets[blk], prob.pw[:, blk].T], axis=1)
+            _, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
+            solved_as[blk] = blk[first[inverse.ravel()]]
+            uniq_of.append(blk[np.sort(first)])
+        else:
+            uniq_of.append(blk)
+    uniq = np.concatenate(uniq_of)
     n_u = uniq.size
-    blocks = _blocks(n_u, block_size)
     args = (mip_rel_gap, time_limit, pool_size, quiet)
     workers = _worker_count(processes, len(blocks))
+    counts = [blk.size for blk in blocks]
     if workers > 1:
-        parts = _solve_blocks_in_processes(prob, uniq, blocks, args, workers)
+        parts = _solve_blocks_in_processes(prob, uniq_of, counts, args, workers, progress)
     else:
-        parts = [_solve_block(prob, uniq[blk], *args) for blk in blocks]
+        parts = []
+        for u, n in zip(uniq_of, counts):
+            parts.append(_solve_block(prob, u, *args))
+            if progress is not None:
+                progress(n)
     sel_u, lp_u, bound_u, st_u, meth_u, sec_u, ok_u, g_sel, g_ok = (np.concatenate(x) for x in zip(*parts))
 
     # back to all scenarios
@@ -559,10 +575,10 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
     )
 
 
-def _blocks(n, block_size):
-    """Split range(n) into ceil(n / block_size) contiguous blocks of near-equal size."""
-    count = max(1, -(-n // max(1, int(block_size))))
-    return [blk for blk in np.array_split(np.arange(n), count) if blk.size] or [np.arange(0)]
+def solver_block_size(project_count: int) -> int:
+    """Scenarios per solver block for a portfolio of ``project_count`` projects: BLOCK_SIZE, fewer
+    for large portfolios so that a block's (scenarios x projects) arrays stay near BLOCK_CELLS."""
+    return int(max(MIN_BLOCK_SIZE, min(BLOCK_SIZE, BLOCK_CELLS // max(1, int(project_count)))))
 
 
 def _worker_count(processes, n_blocks):
@@ -572,14 +588,24 @@ def _worker_count(processes, n_blocks):
     return max(1, min(int(processes), n_blocks))
 
 
-def _solve_blocks_in_processes(prob, uniq, blocks, args, workers):
-    """Solve the blocks on ``workers`` forked processes (here, one after another, where fork is missing)."""
+def _solve_blocks_in_processes(prob, uniq_of, counts, args, workers, progress=None):
+    """Solve the blocks on ``workers`` forked processes (here, one after another, where fork is missing);
+    ``progress(n)`` is called with a block's scenario count as each block finishes."""
     import multiprocessing
-    from concurrent.futures import ProcessPoolExecutor
+    from concurrent.futures import ProcessPoolExecutor, as_completed
     if "fork" not in multiprocessing.get_all_start_methods() or multiprocessing.current_process().daemon:
-        return [_solve_block(prob, uniq[blk], *args) for blk in blocks]
+        out = []
+        for u, n in zip(uniq_of, counts):
+            out.append(_solve_block(prob, u, *args))
+            if progress is not None:
+                progress(n)
+        return out
     with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("fork")) as ex:
-        futures = [ex.submit(_solve_block, prob, uniq[blk], *args) for blk in blocks]
+        futures = [ex.submit(_solve_block, prob, u, *args) for u in uniq_of]
+        if progress is not None:
+            size = {f: n for f, n in zip(futures, counts)}
+            for f in as_completed(futures):
+                progress(size[f])
         return [f.result() for f in futures]
 
 
