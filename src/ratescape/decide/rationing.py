@@ -31,8 +31,8 @@ from contextlib import contextmanager
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.optimize import Bounds, LinearConstraint, linprog, milp
 
+from ratescape.decide.highs_models import LP_OPTIMAL, MIP_INFEASIBLE, MIP_LIMIT, MIP_OPTIMAL, HighsModels
 from ratescape.decide.rationing_problem import (
     FEASIBILITY_TOL,
     greedy_fill,
@@ -211,24 +211,6 @@ def _prune(prob, x, pw_s, k, budget):
             return x
 
 
-def _lp(prob, s, a_ub, rest_b, a_eq, b_eq):
-    """LP relaxation of scenario s: (status, U, x, d_lo, d_up, upper bounds, seconds)."""
-    t0 = time.perf_counter()
-    pw_s = prob.pw[:, s]
-    P = pw_s.size
-    ub = np.where((pw_s > 0) | prob.may_be_forced, 1.0, 0.0)
-    has_eq = a_eq.shape[0] > 0
-    lp = linprog(
-        -pw_s, A_ub=a_ub, b_ub=np.r_[prob.budgets[s], rest_b],
-        A_eq=a_eq if has_eq else None, b_eq=b_eq if has_eq else None,
-        bounds=np.c_[np.zeros(P), ub], method="highs", options={"presolve": False},
-    )
-    if lp.status != 0:
-        return lp.status, np.nan, None, None, None, ub, time.perf_counter() - t0
-    return (0, -lp.fun, lp.x, np.asarray(lp.lower.marginals), -np.asarray(lp.upper.marginals),
-            ub, time.perf_counter() - t0)
-
-
 def _lp_rounding_starts(prob, lp_x, cls, budgets):
     """LP solutions (n, P) rounded down, requires repaired, infeasible ones emptied."""
     start = lp_x > 1 - 1e-6
@@ -305,12 +287,12 @@ def _improve(prob, x, pw_s, ub, k, budget, max_iter=25):
     return x
 
 
-def _solve_one(prob, s, a_ub, rest_b, a_eq, b_eq, lp_info, cands, mip_rel_gap, time_limit):
-    """Branch and bound for scenario s, if needed. Returns (x or None, bound, status, method, seconds)."""
+def _solve_one(prob, s, models, lp_info, cands, mip_rel_gap):
+    """Certify or branch and bound scenario s. Returns (x or None, bound, status, method, seconds)."""
     t0 = time.perf_counter()
-    U, lp_x, d_lo, d_up, ub = lp_info
+    U, lp_x, d, ub = lp_info
     pw_s = prob.pw[:, s]
-    k = prob.cls[s]
+    k = int(prob.cls[s])
     budget = prob.budgets[s]
     P = pw_s.size
     # incumbent: best feasible candidate portfolio
@@ -328,43 +310,20 @@ def _solve_one(prob, s, a_ub, rest_b, a_eq, b_eq, lp_info, cands, mip_rel_gap, t
     if x_inc is not None and U - L <= mip_rel_gap * max(abs(L), 1e-12):
         return x_inc, max(U, L), STATUS_OPTIMAL, METHOD_LP_BOUND, time.perf_counter() - t0
     lb_v = np.zeros(P)
-    ub_v = ub.copy()
+    ub_v = ub.astype(float)
     method = METHOD_MILP
     if x_inc is not None:
-        # reduced-cost fixing: moving x_j off its LP bound costs at least d_j
+        # reduced-cost fixing: moving x_j off its LP bound costs at least d_j, so a portfolio better
+        # than L keeps every x_j whose d_j exceeds U - L where the LP put it
         margin = U - L + 1e-7 * max(1.0, abs(U))
-        fix0 = (d_lo > margin) & (lp_x < 0.5)
-        fix1 = (d_up > margin) & (lp_x > 0.5)
-        ub_v[fix0] = 0.0
-        lb_v[fix1] = 1.0
+        ub_v[(d > margin) & (lp_x < 0.5)] = 0.0
+        lb_v[(d > margin) & (lp_x > 0.5)] = 1.0
         method = METHOD_MILP_FIXED
-    ones = lb_v == 1.0
-    free = lb_v < ub_v
-    const = float(pw_s[ones].sum())
-    if not free.any():
-        return ones, U, STATUS_OPTIMAL, method, time.perf_counter() - t0
-    fidx = np.flatnonzero(free)
-    b_ub = np.r_[budget, rest_b]
-    shift_ub = np.asarray(a_ub[:, ones].sum(axis=1)).ravel() if ones.any() else 0.0
-    cons = [LinearConstraint(a_ub[:, fidx], -np.inf, b_ub - shift_ub)]
-    if a_eq.shape[0]:
-        shift_eq = np.asarray(a_eq[:, ones].sum(axis=1)).ravel() if ones.any() else 0.0
-        cons.append(LinearConstraint(a_eq[:, fidx], b_eq - shift_eq, b_eq - shift_eq))
     gap = mip_rel_gap
-    if method == METHOD_MILP_FIXED:
-        # gap on the reduced objective that means mip_rel_gap of the whole one
-        red = abs(L - const)
-        gap = min(0.5, max(mip_rel_gap, mip_rel_gap * abs(L) / max(red, 1e-12)))
     for attempt in range(2):
-        opts = {"mip_rel_gap": gap, "presolve": False}
-        if time_limit is not None:
-            opts["time_limit"] = float(time_limit)
-        res = milp(-pw_s[fidx], integrality=np.ones(fidx.size), bounds=Bounds(lb_v[fidx], ub_v[fidx]),
-                   constraints=cons, options=opts)
-        x, obj = None, -np.inf
-        if res.x is not None:
-            x = ones.copy()
-            x[fidx] = res.x > 0.5
+        code, x, bnd, _ = models.mip(k, pw_s, budget, lb_v, ub_v, x_inc, gap)
+        obj = -np.inf
+        if x is not None:
             if _structurally_ok(prob, x[None])[0] and _feasible(prob, x[None], k, budget)[0]:
                 obj = float(pw_s[x].sum())
             else:  # rounded solver answer not feasible (numerical trouble)
@@ -372,19 +331,20 @@ def _solve_one(prob, s, a_ub, rest_b, a_eq, b_eq, lp_info, cands, mip_rel_gap, t
         if x_inc is not None and L >= obj:
             x, obj = x_inc, L
         if x is None:
-            st = {2: STATUS_INFEASIBLE, 1: STATUS_LIMIT}.get(res.status, STATUS_OTHER)
+            st = {MIP_INFEASIBLE: STATUS_INFEASIBLE, MIP_LIMIT: STATUS_LIMIT}.get(code, STATUS_OTHER)
             return None, np.nan, st, method, time.perf_counter() - t0
-        bound = U
-        if res.status == 0 and res.mip_dual_bound is not None and np.isfinite(res.mip_dual_bound):
-            bound = min(U, max(obj, const - res.mip_dual_bound))
+        # proven bound: the solver's dual bound over the fixed space, or the incumbent (anything
+        # outside the fixed space is worth less than L <= obj)
+        bound = min(U, max(obj, bnd)) if code == MIP_OPTIMAL else U
         excess = bound - obj - mip_rel_gap * max(abs(obj), 1e-12)
-        if res.status != 0 or excess <= 0 or attempt:
+        if code != MIP_OPTIMAL or excess <= 0 or attempt:
             break
-        # the solver's gap is relative to its own (reduced) objective: solve again with a
-        # tolerance small enough that the gap proven is within mip_rel_gap of this objective
+        # the solver measures its gap its own way: solve again with a tolerance small enough that
+        # the gap proven is within mip_rel_gap of this objective
         gap = max(0.0, 0.5 * gap * mip_rel_gap * max(abs(obj), 1e-12) / max(bound - obj, 1e-300))
+        x_inc, L = x, obj
     seconds = time.perf_counter() - t0
-    return x, bound, (STATUS_OPTIMAL if res.status == 0 else STATUS_LIMIT), method, seconds
+    return x, bound, (STATUS_OPTIMAL if code == MIP_OPTIMAL else STATUS_LIMIT), method, seconds
 
 
 def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=None,
@@ -615,6 +575,7 @@ def _solve_block(prob, uniq, mip_rel_gap, time_limit, pool_size, quiet):
     Returns per-scenario arrays of length ``uniq.size``: selection, LP bound, proven bound,
     status, method, seconds, solved, greedy selection, greedy feasible."""
     a_ub, rest_b, a_eq, b_eq = problem_structure(prob)
+    models = HighsModels(a_ub, rest_b, a_eq, b_eq, prob.inv.shape[1], time_limit)
     pw_u = prob.pw[:, uniq].T  # (U, P)
     cls_u = prob.cls[uniq]
     bud_u = prob.budgets[uniq]
@@ -635,12 +596,14 @@ def _solve_block(prob, uniq, mip_rel_gap, time_limit, pool_size, quiet):
         # 1. LP relaxations
         for i, s in enumerate(uniq):
             k = int(prob.cls[s])
-            st, U, x, d_lo, d_up, ub, sec = _lp(prob, s, a_ub[k], rest_b, a_eq, b_eq)
+            pw_s = prob.pw[:, s]
+            ub = np.where((pw_s > 0) | prob.may_be_forced, 1.0, 0.0)
+            st, U, x, d, sec = models.lp(k, pw_s, prob.budgets[s], ub)
             sec_u[i] = sec
-            if st == 0:
+            if st == LP_OPTIMAL:
                 lp_u[i] = U
                 lp_x[i] = x
-                lp_info[i] = (U, x, d_lo, d_up, ub)
+                lp_info[i] = (U, x, d, ub)
             else:
                 st_u[i] = STATUS_INFEASIBLE if st == 2 else STATUS_OTHER
         # 2. LP solutions rounded down and filled greedily (all scenarios at once)
@@ -656,8 +619,7 @@ def _solve_block(prob, uniq, mip_rel_gap, time_limit, pool_size, quiet):
                 cands.append(g_sel[i])
             if r_ok[i]:
                 cands.append(r_sel[i])
-            x, bnd, st, meth, sec = _solve_one(prob, s, a_ub[k], rest_b, a_eq, b_eq, lp_info[i], cands,
-                                               mip_rel_gap, time_limit)
+            x, bnd, st, meth, sec = _solve_one(prob, s, models, lp_info[i], cands, mip_rel_gap)
             st_u[i], meth_u[i] = st, meth
             sec_u[i] += sec
             if x is None:
