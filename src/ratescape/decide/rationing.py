@@ -94,6 +94,8 @@ BLOCK_SIZE = 256
 #: fewer scenarios per block for large portfolios: about this many (scenario, project) cells a block
 BLOCK_CELLS = 4_000_000
 MIN_BLOCK_SIZE = 8
+#: the local search's swaps look at most this many projects on each side (memory: B x side x side)
+SWAP_SIDE = 512
 
 
 @dataclass(frozen=True)
@@ -256,6 +258,12 @@ def _improve(prob, x, pw_s, ub, k, budget, max_iter=25):
             continue
         if ins.size == 0:
             break
+        if ins.size > SWAP_SIDE:        # large portfolios: swap the least worth in for the most worth out
+            ins = ins[np.argsort(pw_s[ins], kind="stable")[:SWAP_SIDE]]
+            gi_all = grp[ins]
+        if outs.size > SWAP_SIDE:
+            keep = np.argsort(-pw_s[outs], kind="stable")[:SWAP_SIDE]
+            outs, gj, pre_ok = outs[keep], gj[keep], pre_ok[keep]
         needed = np.zeros(x.size, dtype=bool)
         if prob.requires.size:
             dep, pre = prob.requires[:, 0], prob.requires[:, 1]
