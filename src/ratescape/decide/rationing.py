@@ -7,8 +7,10 @@ In each scenario s choose x in {0, 1}^P to
                 sum_{j in g} x_j <= 1   (or == 1 if group g is mandatory)
                 x_dep <= x_pre          every (dependent, prerequisite) pair
 
-with ``scipy.optimize.milp`` (HiGHS). Beside the optimum it reports the LP
-relaxation bound, the gap, and the profitability-index greedy answer.
+with HiGHS through its own Python interface (``highspy``; persistent models
+per cost class, see :mod:`ratescape.decide.highs_models`). Beside the optimum
+it reports the LP relaxation bound, the gap, and the profitability-index
+greedy answer.
 
 References
 ----------
@@ -57,7 +59,7 @@ __all__ = [
 ]
 
 
-#: status codes (S,) of :class:`RationingResult`, as ``scipy.optimize.milp``'s
+#: status codes (S,) of :class:`RationingResult` (the numbers of ``scipy.optimize.milp``'s)
 STATUS_OPTIMAL = 0  # optimal within mip_rel_gap
 
 
@@ -442,8 +444,10 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
     Each distinct scenario is solved in three steps, which reuse the work
     of earlier scenarios:
 
-    1. The LP relaxation (HiGHS dual simplex) gives ``lp_bound`` U and the
-       reduced costs d_j.
+    1. The LP relaxation gives ``lp_bound`` U and the reduced costs d_j
+       (HiGHS simplex on one LP model per cost class, changed in place from
+       one scenario to the next, so each solve restarts from the previous
+       optimal basis).
     2. Candidate portfolios: the profitability-index greedy answer, the LP
        solution rounded down and then filled greedily, and the distinct
        optima of earlier scenarios (``pool_size`` most recent) that fit
@@ -454,13 +458,16 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
        (``METHOD_LP_BOUND``).
     3. Otherwise, reduced-cost fixing: a variable at 0 (1) in the LP with
        |d_j| > U - L cannot change in any portfolio better than L, so it is
-       fixed; the smaller 0-1 program over the rest goes to
-       ``scipy.optimize.milp``, with the gap tolerance rescaled so that it
-       still means ``mip_rel_gap`` of the whole objective. The better of its
-       answer and L is kept.
+       fixed; HiGHS's branch and bound then solves the 0-1 program over the
+       rest, starting from L (``setSolution``) on the class's persistent
+       model, to ``mip_rel_gap``. The better of its answer and L is kept; its
+       proven bound is max(answer, dual bound), which also bounds the
+       portfolios the fixing excluded (they are worth less than L). If that
+       bound is not within ``mip_rel_gap`` of the answer (the solver measures
+       its gap its own way), it solves once more to a tighter tolerance.
 
-    ``scipy.optimize.milp`` takes no starting solution, hence the fixing
-    step to carry the incumbent's information into the solve.
+    Every stored gap is proven: by the LP bound or the branch-and-bound dual
+    bound, never assumed.
 
     References
     ----------
