@@ -525,13 +525,13 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
     idx = pos[solved_as]
     selected = sel_u[idx]
     ok = ok_u[idx]
-    objective = np.where(ok, np.einsum("sp,ps->s", selected.astype(float), prob.pw), np.nan)
+    objective = np.where(ok, _worth_of(selected, prob.pw), np.nan)
     bound = bound_u[idx]
     with np.errstate(divide="ignore", invalid="ignore"):
         gap = np.where(ok, (bound - objective) / np.maximum(np.abs(objective), 1e-300), np.nan)
     gap = np.where(ok & (bound - objective <= 0), 0.0, gap)
     greedy_sel = g_sel[idx]
-    greedy_obj = np.where(g_ok[idx], np.einsum("sp,ps->s", greedy_sel.astype(float), prob.pw), np.nan)
+    greedy_obj = np.where(g_ok[idx], _worth_of(greedy_sel, prob.pw), np.nan)
     used = np.einsum("sbp,sp->sb", prob.inv[prob.cls], selected.astype(float)) if S * B * P <= 5e7 else \
         _used_by_class(prob, selected)
     seconds = np.where(solved_as == np.arange(S), sec_u[idx], 0.0)
@@ -648,6 +648,14 @@ def _solve_block(prob, uniq, mip_rel_gap, time_limit, pool_size, quiet):
                 if len(pool) > pool_size:
                     pool.pop(0)
     return sel_u, lp_u, bound_u, st_u, meth_u, sec_u, ok_u, g_sel, g_ok
+
+
+def _worth_of(selected, pw, rows=64):
+    """Worth (S,) of portfolios (S, P) under pw (P, S), ``rows`` scenarios at a time (no (S, P) float copy)."""
+    out = np.empty(selected.shape[0])
+    for a in range(0, selected.shape[0], rows):
+        out[a:a + rows] = np.einsum("sp,ps->s", selected[a:a + rows].astype(float), pw[:, a:a + rows])
+    return out
 
 
 def _used_by_class(prob, selected):
