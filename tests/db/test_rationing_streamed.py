@@ -242,3 +242,37 @@ def test_an_interrupted_rationing_resumes_to_the_same_rows(runs, tmp_path, monke
             assert _rows(con, run_id, sql) == _rows(*runs["streamed"], sql)
     finally:
         con.close()
+
+
+def test_progress_of_the_rationing_stage_shows_time_left(tmp_path, monkeypatch, capsys):
+    """Off a terminal the stage prints plain progress lines with the time left (run/progress.py)."""
+    monkeypatch.setattr(rationing, "BLOCK_SIZE", 4)
+    monkeypatch.setattr(stage, "RATION_CELL_LIMIT", P * 8)
+    (tmp_path / "grid.toml").write_text(GRID)
+    db = load_csv(tmp_path, PROJECTS, FLOWS)
+    capsys.readouterr()
+    screen_portfolio(db, grid=tmp_path / "grid.toml", progress=True)
+    err = capsys.readouterr().err
+    assert ("capital rationing: 14 projects x 30 scenarios in 4 block(s) of up to 8 scenarios read from the "
+            "worth files (4 to solve;") in err
+    assert "capital rationing: 30/30 scenarios, " in err and " s left" in err
+
+
+def test_a_portfolio_whose_rationing_cannot_fit_is_refused_before_the_run_starts(tmp_path, monkeypatch):
+    """The estimate is compared with the memory available before anything of the run is written."""
+    from ratescape.errors import RunError
+    (tmp_path / "grid.toml").write_text(GRID)
+    db = load_csv(tmp_path, PROJECTS, FLOWS)
+    monkeypatch.setattr(stage, "available_memory", lambda: 1_000_000)
+    need = stage.rationing_memory(P, 30, 30, periods=2)
+    with pytest.raises(RunError) as err:
+        screen_portfolio(db, grid=tmp_path / "grid.toml")
+    assert str(err.value) == (
+        f"capital rationing of 14 projects x 30 scenarios needs about {need / 1e9:.1f} GB of memory even in its "
+        "smallest blocks (30 scenarios at a time), and 0.0 GB is available. Fix: free memory or use a machine "
+        "with more, or screen without --budget (rationing is then not run)")
+    con = duckdb.connect(str(db), read_only=True)
+    try:
+        assert con.execute("SELECT count(*) FROM runs").fetchall() == [(0,)]
+    finally:
+        con.close()

@@ -107,12 +107,13 @@ def check_rationing_fits(plan) -> None:
     if not plan.spec.budgets:
         return
     P, S = plan.project_count, plan.scenarios.size
-    need = rationing_memory(P, S, min(S, solver_block_size(P)), periods=len(plan.spec.budgets))
+    smallest = min(S, solver_block_size(P))
+    need = rationing_memory(P, S, smallest, periods=len(plan.spec.budgets))
     have = available_memory()
     if need > have:
         raise RunError(
             f"capital rationing of {P:,} projects x {S:,} scenarios needs about {need / 1e9:.1f} GB of memory even "
-            f"in its smallest blocks ({solver_block_size(P)} scenarios at a time), and {have / 1e9:.1f} GB is "
+            f"in its smallest blocks ({smallest} scenarios at a time), and {have / 1e9:.1f} GB is "
             "available. Fix: free memory or use a machine with more, or screen without --budget (rationing is "
             "then not run)")
 
