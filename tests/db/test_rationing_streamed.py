@@ -77,7 +77,7 @@ TABLES = {
 
 
 def _screen(folder, monkeypatch, cell_limit, fail_after=None):
-    """Load and screen the portfolio with solver blocks of 4 scenarios and the given read limit."""
+    """Load and screen the portfolio with small solver blocks (8 scenarios, the least) and the given read limit."""
     monkeypatch.setattr(rationing, "BLOCK_SIZE", 4)
     monkeypatch.setattr(stage, "RATION_CELL_LIMIT", cell_limit)
     (folder / "grid.toml").write_text(GRID)
@@ -268,11 +268,37 @@ def test_a_portfolio_whose_rationing_cannot_fit_is_refused_before_the_run_starts
     with pytest.raises(RunError) as err:
         screen_portfolio(db, grid=tmp_path / "grid.toml")
     assert str(err.value) == (
-        f"capital rationing of 14 projects x 30 scenarios needs about {need / 1e9:.1f} GB of memory even in its "
-        "smallest blocks (30 scenarios at a time), and 0.0 GB is available. Fix: free memory or use a machine "
+        f"capital rationing of 14 projects x 30 scenarios needs about {need / 1e9:.1f} GB of memory (blocks of 30 "
+        "scenarios read, 30 solved at a time), and 0.0 GB is available. Fix: free memory or use a machine "
         "with more, or screen without --budget (rationing is then not run)")
     con = duckdb.connect(str(db), read_only=True)
     try:
         assert con.execute("SELECT count(*) FROM runs").fetchall() == [(0,)]
     finally:
         con.close()
+
+
+def test_a_resume_whose_blocks_differ_is_refused(tmp_path, monkeypatch):
+    """Stored blocks that do not match the blocks of the resuming code are never mixed with new ones."""
+    from ratescape.errors import RunError
+    real = stage._store_block
+    calls = []
+
+    def store_then_stop(*args, **kw):
+        if calls:
+            raise KeyboardInterrupt("test: stop during rationing")
+        calls.append(1)
+        return real(*args, **kw)
+
+    monkeypatch.setattr(stage, "_store_block", store_then_stop)
+    with pytest.raises(KeyboardInterrupt):
+        _screen(tmp_path, monkeypatch, P * 8)
+    monkeypatch.setattr(stage, "_store_block", real)
+    monkeypatch.setattr(stage, "RATION_CELL_LIMIT", P * 16)                   # blocks of 16: another split
+    con = duckdb.connect(str(tmp_path / "plan.duckdb"))
+    run_id = con.execute("SELECT run_id FROM runs").fetchall()[0][0]
+    con.close()
+    with pytest.raises(RunError) as err:
+        screen_portfolio(tmp_path / "plan.duckdb", resume=run_id)
+    assert str(err.value) == (f"run {run_id} stored capital rationing in blocks of scenarios other than this version "
+                              "of ratescape uses, so it cannot be resumed. Fix: start a new run with `ratescape screen`")

@@ -15,8 +15,8 @@ Orchestration only (the mathematics is :mod:`ratescape.decide.rationing` and
    portfolio and the min-max-regret portfolio, accumulated over the stored selections and the
    worth files one block at a time (no projects x scenarios matrix is held).
 
-Before a run starts, :func:`check_rationing_fits` refuses a portfolio whose smallest rationing
-block would not fit the machine's memory.
+Before a run starts, :func:`check_rationing_fits` refuses a portfolio whose rationing would not
+fit the machine's memory.
 """
 from __future__ import annotations
 
@@ -90,13 +90,13 @@ def rationing_memory(P: int, S: int, read_scenarios: int, classes: int = 1, peri
     return read + solving + candidates + outlays
 
 
-def read_block_scenarios(P: int, S: int, cell_limit: int | None = None, memory: int | None = None) -> int:
-    """Scenarios per read: all of them when S x P cells fit ``cell_limit`` (and half the memory),
-    else the largest multiple of the solver block that does (at least one solver block)."""
+def read_block_scenarios(P: int, S: int, cell_limit: int | None = None) -> int:
+    """Scenarios per read: all of them when S x P cells fit ``cell_limit``, else the largest
+    multiple of the solver block that does (at least one solver block). It depends on the sizes
+    only, so a resumed run splits the scenarios exactly as the interrupted one did."""
     limit = RATION_CELL_LIMIT if cell_limit is None else int(cell_limit)
     solve = solver_block_size(P)
-    memory = available_memory() if memory is None else memory
-    fit = min(limit // max(P, 1), max(0, memory // 2 - rationing_memory(P, S, 0)) // (24 * max(P, 1)))
+    fit = limit // max(P, 1)
     if fit >= S:
         return S
     return max(solve, (fit // solve) * solve)
@@ -108,14 +108,14 @@ def check_rationing_fits(plan) -> None:
         return
     P, S = plan.project_count, plan.scenarios.size
     smallest = min(S, solver_block_size(P))
-    need = rationing_memory(P, S, smallest, periods=len(plan.spec.budgets))
+    need = rationing_memory(P, S, read_block_scenarios(P, S), periods=len(plan.spec.budgets))
     have = available_memory()
     if need > have:
         raise RunError(
-            f"capital rationing of {P:,} projects x {S:,} scenarios needs about {need / 1e9:.1f} GB of memory even "
-            f"in its smallest blocks ({smallest} scenarios at a time), and {have / 1e9:.1f} GB is "
-            "available. Fix: free memory or use a machine with more, or screen without --budget (rationing is "
-            "then not run)")
+            f"capital rationing of {P:,} projects x {S:,} scenarios needs about {need / 1e9:.1f} GB of memory "
+            f"(blocks of {read_block_scenarios(P, S):,} scenarios read, {smallest} solved at a time), and "
+            f"{have / 1e9:.1f} GB is available. Fix: free memory or use a machine with more, or screen without "
+            "--budget (rationing is then not run)")
 
 
 def budget_outlays(con, plan, reader=chunk_amounts):
@@ -185,8 +185,14 @@ def ration_stage(con, plan, *, cell_limit: int | None = None, progress: bool = T
         return
     P, S = plan.project_count, plan.scenarios.size
     blocks, size = _blocks(plan, cell_limit)
-    done = {r[0] for r in con.execute("SELECT block_index FROM run_ration_blocks WHERE run_id = ?",
-                                      [plan.run_id]).fetchall()}
+    stored = con.execute("SELECT block_index, first_scenario_id, last_scenario_id FROM run_ration_blocks "
+                         "WHERE run_id = ?", [plan.run_id]).fetchall()
+    for n, first, last in stored:
+        if n >= len(blocks) or blocks[n] != (first, last + 1):
+            raise RunError(f"run {plan.run_id} stored capital rationing in blocks of scenarios other than this "
+                           "version of ratescape uses, so it cannot be resumed. Fix: start a new run with "
+                           "`ratescape screen`")
+    done = {n for n, _, _ in stored}
     todo = [n for n in range(len(blocks)) if n not in done]
     if not todo:
         return
