@@ -33,13 +33,16 @@ from ratescape.evaluate.kernel import then_current_streams
 from ratescape.run.progress import Progress, log
 from ratescape.run.ranks import ensure_worth_files
 from ratescape.run.read import chunk_amounts
-from ratescape.run.plan import utc_now
+from ratescape.run.plan import DUCKDB_MEMORY_LIMIT, utc_now
 from ratescape.run.write import arrow_labels
 from ratescape.store.database import append_rows, fetch_frame, transaction
 
 #: Largest (projects x scenarios) block of worths rationing reads at once (float64: 320 MB). A
 #: portfolio within it is solved from one read; a larger one streams blocks of scenarios.
 RATION_CELL_LIMIT = 40_000_000
+
+#: DuckDB's memory limit while rationing runs (its buffers are released for the solver processes)
+RATION_DUCKDB_MEMORY = "256MB"
 
 #: Bytes per (scenario, project) cell that a solver block holds while it is solved (worths, the
 #: greedy fills' orderings and ratios, LP solutions, selections: about twelve 8-byte arrays).
@@ -205,6 +208,9 @@ def ration_stage(con, plan, *, cell_limit: int | None = None, progress: bool = T
     bar = Progress(sum(blocks[n][1] - blocks[n][0] for n in todo), "capital rationing", unit="scenario",
                    enabled=progress)
     started = time.perf_counter()
+    # DuckDB's buffers (up to DUCKDB_MEMORY_LIMIT after the screen) would otherwise sit beside the
+    # solver processes for the whole stage: a block's inserts need far less
+    con.execute(f"SET memory_limit = '{RATION_DUCKDB_MEMORY}'")
     try:
         for n in todo:
             a, b = blocks[n]
@@ -219,6 +225,7 @@ def ration_stage(con, plan, *, cell_limit: int | None = None, progress: bool = T
             del res
     finally:
         bar.close()
+        con.execute(f"SET memory_limit = '{DUCKDB_MEMORY_LIMIT}'")
     log(f"capital rationing: {sum(blocks[n][1] - blocks[n][0] for n in todo):,} scenarios solved in "
         f"{time.perf_counter() - started:.1f} s")
 
