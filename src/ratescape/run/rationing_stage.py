@@ -225,7 +225,10 @@ def ration_stage(con, plan, *, cell_limit: int | None = None, progress: bool = T
             del res
     finally:
         bar.close()
-        con.execute(f"SET memory_limit = '{DUCKDB_MEMORY_LIMIT}'")
+        try:
+            con.execute(f"SET memory_limit = '{DUCKDB_MEMORY_LIMIT}'")
+        except Exception:                        # noqa: BLE001 - never hides the error that ended the stage
+            pass
     log(f"capital rationing: {sum(blocks[n][1] - blocks[n][0] for n in todo):,} scenarios solved in "
         f"{time.perf_counter() - started:.1f} s")
 
