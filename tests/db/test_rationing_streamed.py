@@ -105,7 +105,7 @@ def _rows(con, run_id, sql):
     return con.execute(sql, [run_id]).fetchall()
 
 
-def test_the_streamed_run_reads_several_blocks_and_the_whole_one_one(runs):
+def test_the_streamed_run_reads_several_blocks_and_the_whole_run_one(runs):
     con, run_id = runs["streamed"]
     blocks = _rows(con, run_id, "SELECT first_scenario_id, last_scenario_id FROM run_ration_blocks "
                                 "WHERE run_id = ? ORDER BY block_index")
