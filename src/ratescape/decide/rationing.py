@@ -7,8 +7,10 @@ In each scenario s choose x in {0, 1}^P to
                 sum_{j in g} x_j <= 1   (or == 1 if group g is mandatory)
                 x_dep <= x_pre          every (dependent, prerequisite) pair
 
-with ``scipy.optimize.milp`` (HiGHS). Beside the optimum it reports the LP
-relaxation bound, the gap, and the profitability-index greedy answer.
+with HiGHS through its own Python interface (``highspy``; persistent models
+per cost class, see :mod:`ratescape.decide.highs_models`). Beside the optimum
+it reports the LP relaxation bound, the gap, and the profitability-index
+greedy answer.
 
 References
 ----------
@@ -31,8 +33,8 @@ from contextlib import contextmanager
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.optimize import Bounds, LinearConstraint, linprog, milp
 
+from ratescape.decide.highs_models import LP_OPTIMAL, MIP_INFEASIBLE, MIP_LIMIT, MIP_OPTIMAL, HighsModels
 from ratescape.decide.rationing_problem import (
     FEASIBILITY_TOL,
     greedy_fill,
@@ -53,10 +55,11 @@ __all__ = [
     "METHOD_LP_BOUND",
     "METHOD_MILP",
     "METHOD_MILP_FIXED",
+    "solver_block_size",
 ]
 
 
-#: status codes (S,) of :class:`RationingResult`, as ``scipy.optimize.milp``'s
+#: status codes (S,) of :class:`RationingResult` (the numbers of ``scipy.optimize.milp``'s)
 STATUS_OPTIMAL = 0  # optimal within mip_rel_gap
 
 
@@ -86,9 +89,15 @@ METHOD_MILP_FIXED = 2  # MILP after reduced-cost fixing
 METHOD_NONE = -1  # infeasible LP: nothing to solve
 
 
-#: distinct scenarios solved as one block (one pool of earlier optima). The split depends only on
-#: the number of distinct scenarios, so the answer is the same whatever the number of processes.
+#: scenarios solved as one block (one pool of earlier optima): blocks are fixed ranges of scenario
+#: indices [0, b), [b, 2b), ..., so the answer is the same whatever the number of processes and
+#: whether the scenarios are solved all at once or streamed in larger blocks that are multiples of b.
 BLOCK_SIZE = 256
+#: fewer scenarios per block for large portfolios: about this many (scenario, project) cells a block
+BLOCK_CELLS = 4_000_000
+MIN_BLOCK_SIZE = 8
+#: the local search's swaps look at most this many projects on each side (memory: B x side x side)
+SWAP_SIDE = 512
 
 
 @dataclass(frozen=True)
@@ -206,24 +215,6 @@ def _prune(prob, x, pw_s, k, budget):
             return x
 
 
-def _lp(prob, s, a_ub, rest_b, a_eq, b_eq):
-    """LP relaxation of scenario s: (status, U, x, d_lo, d_up, upper bounds, seconds)."""
-    t0 = time.perf_counter()
-    pw_s = prob.pw[:, s]
-    P = pw_s.size
-    ub = np.where((pw_s > 0) | prob.may_be_forced, 1.0, 0.0)
-    has_eq = a_eq.shape[0] > 0
-    lp = linprog(
-        -pw_s, A_ub=a_ub, b_ub=np.r_[prob.budgets[s], rest_b],
-        A_eq=a_eq if has_eq else None, b_eq=b_eq if has_eq else None,
-        bounds=np.c_[np.zeros(P), ub], method="highs", options={"presolve": False},
-    )
-    if lp.status != 0:
-        return lp.status, np.nan, None, None, None, ub, time.perf_counter() - t0
-    return (0, -lp.fun, lp.x, np.asarray(lp.lower.marginals), -np.asarray(lp.upper.marginals),
-            ub, time.perf_counter() - t0)
-
-
 def _lp_rounding_starts(prob, lp_x, cls, budgets):
     """LP solutions (n, P) rounded down, requires repaired, infeasible ones emptied."""
     start = lp_x > 1 - 1e-6
@@ -269,6 +260,12 @@ def _improve(prob, x, pw_s, ub, k, budget, max_iter=25):
             continue
         if ins.size == 0:
             break
+        if ins.size > SWAP_SIDE:        # large portfolios: swap the least worth in for the most worth out
+            ins = ins[np.argsort(pw_s[ins], kind="stable")[:SWAP_SIDE]]
+            gi_all = grp[ins]
+        if outs.size > SWAP_SIDE:
+            keep = np.argsort(-pw_s[outs], kind="stable")[:SWAP_SIDE]
+            outs, gj, pre_ok = outs[keep], gj[keep], pre_ok[keep]
         needed = np.zeros(x.size, dtype=bool)
         if prob.requires.size:
             dep, pre = prob.requires[:, 0], prob.requires[:, 1]
@@ -300,12 +297,12 @@ def _improve(prob, x, pw_s, ub, k, budget, max_iter=25):
     return x
 
 
-def _solve_one(prob, s, a_ub, rest_b, a_eq, b_eq, lp_info, cands, mip_rel_gap, time_limit):
-    """Branch and bound for scenario s, if needed. Returns (x or None, bound, status, method, seconds)."""
+def _solve_one(prob, s, models, lp_info, cands, mip_rel_gap):
+    """Certify or branch and bound scenario s. Returns (x or None, bound, status, method, seconds)."""
     t0 = time.perf_counter()
-    U, lp_x, d_lo, d_up, ub = lp_info
+    U, lp_x, d, ub = lp_info
     pw_s = prob.pw[:, s]
-    k = prob.cls[s]
+    k = int(prob.cls[s])
     budget = prob.budgets[s]
     P = pw_s.size
     # incumbent: best feasible candidate portfolio
@@ -323,43 +320,20 @@ def _solve_one(prob, s, a_ub, rest_b, a_eq, b_eq, lp_info, cands, mip_rel_gap, t
     if x_inc is not None and U - L <= mip_rel_gap * max(abs(L), 1e-12):
         return x_inc, max(U, L), STATUS_OPTIMAL, METHOD_LP_BOUND, time.perf_counter() - t0
     lb_v = np.zeros(P)
-    ub_v = ub.copy()
+    ub_v = ub.astype(float)
     method = METHOD_MILP
     if x_inc is not None:
-        # reduced-cost fixing: moving x_j off its LP bound costs at least d_j
+        # reduced-cost fixing: moving x_j off its LP bound costs at least d_j, so a portfolio better
+        # than L keeps every x_j whose d_j exceeds U - L where the LP put it
         margin = U - L + 1e-7 * max(1.0, abs(U))
-        fix0 = (d_lo > margin) & (lp_x < 0.5)
-        fix1 = (d_up > margin) & (lp_x > 0.5)
-        ub_v[fix0] = 0.0
-        lb_v[fix1] = 1.0
+        ub_v[(d > margin) & (lp_x < 0.5)] = 0.0
+        lb_v[(d > margin) & (lp_x > 0.5)] = 1.0
         method = METHOD_MILP_FIXED
-    ones = lb_v == 1.0
-    free = lb_v < ub_v
-    const = float(pw_s[ones].sum())
-    if not free.any():
-        return ones, U, STATUS_OPTIMAL, method, time.perf_counter() - t0
-    fidx = np.flatnonzero(free)
-    b_ub = np.r_[budget, rest_b]
-    shift_ub = np.asarray(a_ub[:, ones].sum(axis=1)).ravel() if ones.any() else 0.0
-    cons = [LinearConstraint(a_ub[:, fidx], -np.inf, b_ub - shift_ub)]
-    if a_eq.shape[0]:
-        shift_eq = np.asarray(a_eq[:, ones].sum(axis=1)).ravel() if ones.any() else 0.0
-        cons.append(LinearConstraint(a_eq[:, fidx], b_eq - shift_eq, b_eq - shift_eq))
     gap = mip_rel_gap
-    if method == METHOD_MILP_FIXED:
-        # gap on the reduced objective that means mip_rel_gap of the whole one
-        red = abs(L - const)
-        gap = min(0.5, max(mip_rel_gap, mip_rel_gap * abs(L) / max(red, 1e-12)))
     for attempt in range(2):
-        opts = {"mip_rel_gap": gap, "presolve": False}
-        if time_limit is not None:
-            opts["time_limit"] = float(time_limit)
-        res = milp(-pw_s[fidx], integrality=np.ones(fidx.size), bounds=Bounds(lb_v[fidx], ub_v[fidx]),
-                   constraints=cons, options=opts)
-        x, obj = None, -np.inf
-        if res.x is not None:
-            x = ones.copy()
-            x[fidx] = res.x > 0.5
+        code, x, bnd, _ = models.mip(k, pw_s, budget, lb_v, ub_v, x_inc, gap)
+        obj = -np.inf
+        if x is not None:
             if _structurally_ok(prob, x[None])[0] and _feasible(prob, x[None], k, budget)[0]:
                 obj = float(pw_s[x].sum())
             else:  # rounded solver answer not feasible (numerical trouble)
@@ -367,25 +341,26 @@ def _solve_one(prob, s, a_ub, rest_b, a_eq, b_eq, lp_info, cands, mip_rel_gap, t
         if x_inc is not None and L >= obj:
             x, obj = x_inc, L
         if x is None:
-            st = {2: STATUS_INFEASIBLE, 1: STATUS_LIMIT}.get(res.status, STATUS_OTHER)
+            st = {MIP_INFEASIBLE: STATUS_INFEASIBLE, MIP_LIMIT: STATUS_LIMIT}.get(code, STATUS_OTHER)
             return None, np.nan, st, method, time.perf_counter() - t0
-        bound = U
-        if res.status == 0 and res.mip_dual_bound is not None and np.isfinite(res.mip_dual_bound):
-            bound = min(U, max(obj, const - res.mip_dual_bound))
+        # proven bound: the solver's dual bound over the fixed space, or the incumbent (anything
+        # outside the fixed space is worth less than L <= obj)
+        bound = min(U, max(obj, bnd)) if code == MIP_OPTIMAL else U
         excess = bound - obj - mip_rel_gap * max(abs(obj), 1e-12)
-        if res.status != 0 or excess <= 0 or attempt:
+        if code != MIP_OPTIMAL or excess <= 0 or attempt:
             break
-        # the solver's gap is relative to its own (reduced) objective: solve again with a
-        # tolerance small enough that the gap proven is within mip_rel_gap of this objective
+        # the solver measures its gap its own way: solve again with a tolerance small enough that
+        # the gap proven is within mip_rel_gap of this objective
         gap = max(0.0, 0.5 * gap * mip_rel_gap * max(abs(obj), 1e-12) / max(bound - obj, 1e-300))
+        x_inc, L = x, obj
     seconds = time.perf_counter() - t0
-    return x, bound, (STATUS_OPTIMAL if res.status == 0 else STATUS_LIMIT), method, seconds
+    return x, bound, (STATUS_OPTIMAL if code == MIP_OPTIMAL else STATUS_LIMIT), method, seconds
 
 
 def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=None,
                    group_mandatory=None, requires=None, mip_rel_gap=1e-3, time_limit=None,
                    reuse_identical=True, pool_size=32, quiet=True, processes=None,
-                   block_size=BLOCK_SIZE):
+                   block_size=None, progress=None):
     """Best portfolio of projects under period budgets, in every scenario.
 
     Parameters
@@ -422,8 +397,8 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
         Seconds per scenario for the branch and bound; on reaching it the
         best portfolio found is reported with status ``STATUS_LIMIT``.
     reuse_identical : bool, optional
-        Solve once per distinct (class, budgets, pw column) and copy the
-        answer to identical scenarios (default True).
+        Solve once per distinct (class, budgets, pw column) within a block
+        and copy the answer to identical scenarios (default True).
     pool_size : int, optional
         How many distinct optimal portfolios to keep as starting
         candidates for later scenarios (default 32).
@@ -435,8 +410,12 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
         2, or 1 on a one-core machine; 1 solves in this process). The
         answer does not depend on it.
     block_size : int, optional
-        Distinct scenarios per block (default 256); each block keeps its
-        own pool of earlier optima.
+        Scenarios per block (default :func:`solver_block_size`: 256, fewer
+        above 15,625 projects); blocks are the index ranges [0, b), [b, 2b),
+        ..., each with its own pool of earlier optima, identical scenarios
+        solved once within a block.
+    progress : callable, optional
+        Called with the number of scenarios of each block as it is solved.
 
     Returns
     -------
@@ -465,8 +444,10 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
     Each distinct scenario is solved in three steps, which reuse the work
     of earlier scenarios:
 
-    1. The LP relaxation (HiGHS dual simplex) gives ``lp_bound`` U and the
-       reduced costs d_j.
+    1. The LP relaxation gives ``lp_bound`` U and the reduced costs d_j
+       (HiGHS simplex on one LP model per cost class, changed in place from
+       one scenario to the next, so each solve restarts from the previous
+       optimal basis).
     2. Candidate portfolios: the profitability-index greedy answer, the LP
        solution rounded down and then filled greedily, and the distinct
        optima of earlier scenarios (``pool_size`` most recent) that fit
@@ -477,13 +458,16 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
        (``METHOD_LP_BOUND``).
     3. Otherwise, reduced-cost fixing: a variable at 0 (1) in the LP with
        |d_j| > U - L cannot change in any portfolio better than L, so it is
-       fixed; the smaller 0-1 program over the rest goes to
-       ``scipy.optimize.milp``, with the gap tolerance rescaled so that it
-       still means ``mip_rel_gap`` of the whole objective. The better of its
-       answer and L is kept.
+       fixed; HiGHS's branch and bound then solves the 0-1 program over the
+       rest, starting from L (``setSolution``) on the class's persistent
+       model, to ``mip_rel_gap``. The better of its answer and L is kept; its
+       proven bound is max(answer, dual bound), which also bounds the
+       portfolios the fixing excluded (they are worth less than L). If that
+       bound is not within ``mip_rel_gap`` of the answer (the solver measures
+       its gap its own way), it solves once more to a tighter tolerance.
 
-    ``scipy.optimize.milp`` takes no starting solution, hence the fixing
-    step to carry the incumbent's information into the solve.
+    Every stored gap is proven: by the LP bound or the branch-and-bound dual
+    bound, never assumed.
 
     References
     ----------
@@ -506,26 +490,33 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
         raise ValueError(f"time_limit must be > 0 seconds, got {time_limit}")
     P, S = prob.pw.shape
     B = prob.inv.shape[1]
+    block_size = solver_block_size(P) if block_size is None else max(1, int(block_size))
 
-    # distinct scenarios
-    if reuse_identical:
-        key = np.concatenate([prob.cls[:, None].astype(float), prob.budgets, prob.pw.T], axis=1)
-        _, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
-        inverse = inverse.ravel()
-        uniq = np.sort(first)
-        solved_as = first[inverse]  # first scenario with the same key
-    else:
-        uniq = np.arange(S)
-        solved_as = np.arange(S)
-
+    # fixed blocks of scenario indices; identical scenarios are solved once within a block
+    blocks = [np.arange(a, min(a + block_size, S)) for a in range(0, S, block_size)]
+    solved_as = np.arange(S)
+    uniq_of = []
+    for blk in blocks:
+        if reuse_identical and blk.size > 1:
+            key = np.concatenate([prob.cls[blk, None].astype(float), prob.budgets[blk], prob.pw[:, blk].T], axis=1)
+            _, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
+            solved_as[blk] = blk[first[inverse.ravel()]]
+            uniq_of.append(blk[np.sort(first)])
+        else:
+            uniq_of.append(blk)
+    uniq = np.concatenate(uniq_of)
     n_u = uniq.size
-    blocks = _blocks(n_u, block_size)
     args = (mip_rel_gap, time_limit, pool_size, quiet)
     workers = _worker_count(processes, len(blocks))
+    counts = [blk.size for blk in blocks]
     if workers > 1:
-        parts = _solve_blocks_in_processes(prob, uniq, blocks, args, workers)
+        parts = _solve_blocks_in_processes(prob, uniq_of, counts, args, workers, progress)
     else:
-        parts = [_solve_block(prob, uniq[blk], *args) for blk in blocks]
+        parts = []
+        for u, n in zip(uniq_of, counts):
+            parts.append(_solve_block(prob, u, *args))
+            if progress is not None:
+                progress(n)
     sel_u, lp_u, bound_u, st_u, meth_u, sec_u, ok_u, g_sel, g_ok = (np.concatenate(x) for x in zip(*parts))
 
     # back to all scenarios
@@ -534,13 +525,13 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
     idx = pos[solved_as]
     selected = sel_u[idx]
     ok = ok_u[idx]
-    objective = np.where(ok, np.einsum("sp,ps->s", selected.astype(float), prob.pw), np.nan)
+    objective = np.where(ok, _worth_of(selected, prob.pw), np.nan)
     bound = bound_u[idx]
     with np.errstate(divide="ignore", invalid="ignore"):
         gap = np.where(ok, (bound - objective) / np.maximum(np.abs(objective), 1e-300), np.nan)
     gap = np.where(ok & (bound - objective <= 0), 0.0, gap)
     greedy_sel = g_sel[idx]
-    greedy_obj = np.where(g_ok[idx], np.einsum("sp,ps->s", greedy_sel.astype(float), prob.pw), np.nan)
+    greedy_obj = np.where(g_ok[idx], _worth_of(greedy_sel, prob.pw), np.nan)
     used = np.einsum("sbp,sp->sb", prob.inv[prob.cls], selected.astype(float)) if S * B * P <= 5e7 else \
         _used_by_class(prob, selected)
     seconds = np.where(solved_as == np.arange(S), sec_u[idx], 0.0)
@@ -559,10 +550,10 @@ def ration_capital(pw, investment, budgets, *, scenario_class=None, group_index=
     )
 
 
-def _blocks(n, block_size):
-    """Split range(n) into ceil(n / block_size) contiguous blocks of near-equal size."""
-    count = max(1, -(-n // max(1, int(block_size))))
-    return [blk for blk in np.array_split(np.arange(n), count) if blk.size] or [np.arange(0)]
+def solver_block_size(project_count: int) -> int:
+    """Scenarios per solver block for a portfolio of ``project_count`` projects: BLOCK_SIZE, fewer
+    for large portfolios so that a block's (scenarios x projects) arrays stay near BLOCK_CELLS."""
+    return int(max(MIN_BLOCK_SIZE, min(BLOCK_SIZE, BLOCK_CELLS // max(1, int(project_count)))))
 
 
 def _worker_count(processes, n_blocks):
@@ -572,14 +563,24 @@ def _worker_count(processes, n_blocks):
     return max(1, min(int(processes), n_blocks))
 
 
-def _solve_blocks_in_processes(prob, uniq, blocks, args, workers):
-    """Solve the blocks on ``workers`` forked processes (here, one after another, where fork is missing)."""
+def _solve_blocks_in_processes(prob, uniq_of, counts, args, workers, progress=None):
+    """Solve the blocks on ``workers`` forked processes (here, one after another, where fork is missing);
+    ``progress(n)`` is called with a block's scenario count as each block finishes."""
     import multiprocessing
-    from concurrent.futures import ProcessPoolExecutor
+    from concurrent.futures import ProcessPoolExecutor, as_completed
     if "fork" not in multiprocessing.get_all_start_methods() or multiprocessing.current_process().daemon:
-        return [_solve_block(prob, uniq[blk], *args) for blk in blocks]
+        out = []
+        for u, n in zip(uniq_of, counts):
+            out.append(_solve_block(prob, u, *args))
+            if progress is not None:
+                progress(n)
+        return out
     with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("fork")) as ex:
-        futures = [ex.submit(_solve_block, prob, uniq[blk], *args) for blk in blocks]
+        futures = [ex.submit(_solve_block, prob, u, *args) for u in uniq_of]
+        if progress is not None:
+            size = {f: n for f, n in zip(futures, counts)}
+            for f in as_completed(futures):
+                progress(size[f])
         return [f.result() for f in futures]
 
 
@@ -589,6 +590,7 @@ def _solve_block(prob, uniq, mip_rel_gap, time_limit, pool_size, quiet):
     Returns per-scenario arrays of length ``uniq.size``: selection, LP bound, proven bound,
     status, method, seconds, solved, greedy selection, greedy feasible."""
     a_ub, rest_b, a_eq, b_eq = problem_structure(prob)
+    models = HighsModels(a_ub, rest_b, a_eq, b_eq, prob.inv.shape[1], time_limit)
     pw_u = prob.pw[:, uniq].T  # (U, P)
     cls_u = prob.cls[uniq]
     bud_u = prob.budgets[uniq]
@@ -609,12 +611,14 @@ def _solve_block(prob, uniq, mip_rel_gap, time_limit, pool_size, quiet):
         # 1. LP relaxations
         for i, s in enumerate(uniq):
             k = int(prob.cls[s])
-            st, U, x, d_lo, d_up, ub, sec = _lp(prob, s, a_ub[k], rest_b, a_eq, b_eq)
+            pw_s = prob.pw[:, s]
+            ub = np.where((pw_s > 0) | prob.may_be_forced, 1.0, 0.0)
+            st, U, x, d, sec = models.lp(k, pw_s, prob.budgets[s], ub)
             sec_u[i] = sec
-            if st == 0:
+            if st == LP_OPTIMAL:
                 lp_u[i] = U
                 lp_x[i] = x
-                lp_info[i] = (U, x, d_lo, d_up, ub)
+                lp_info[i] = (U, x, d, ub)
             else:
                 st_u[i] = STATUS_INFEASIBLE if st == 2 else STATUS_OTHER
         # 2. LP solutions rounded down and filled greedily (all scenarios at once)
@@ -630,8 +634,7 @@ def _solve_block(prob, uniq, mip_rel_gap, time_limit, pool_size, quiet):
                 cands.append(g_sel[i])
             if r_ok[i]:
                 cands.append(r_sel[i])
-            x, bnd, st, meth, sec = _solve_one(prob, s, a_ub[k], rest_b, a_eq, b_eq, lp_info[i], cands,
-                                               mip_rel_gap, time_limit)
+            x, bnd, st, meth, sec = _solve_one(prob, s, models, lp_info[i], cands, mip_rel_gap)
             st_u[i], meth_u[i] = st, meth
             sec_u[i] += sec
             if x is None:
@@ -645,6 +648,14 @@ def _solve_block(prob, uniq, mip_rel_gap, time_limit, pool_size, quiet):
                 if len(pool) > pool_size:
                     pool.pop(0)
     return sel_u, lp_u, bound_u, st_u, meth_u, sec_u, ok_u, g_sel, g_ok
+
+
+def _worth_of(selected, pw, rows=64):
+    """Worth (S,) of portfolios (S, P) under pw (P, S), ``rows`` scenarios at a time (no (S, P) float copy)."""
+    out = np.empty(selected.shape[0])
+    for a in range(0, selected.shape[0], rows):
+        out[a:a + rows] = np.einsum("sp,ps->s", selected[a:a + rows].astype(float), pw[:, a:a + rows])
+    return out
 
 
 def _used_by_class(prob, selected):

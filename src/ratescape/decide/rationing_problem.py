@@ -218,13 +218,22 @@ def greedy_fill(prob, pw_sp, cls, budgets, start=None):
         taken[rr, g] = True
         feasible[r[~got]] = False
     n_pos = int((pw_sp > 0).sum(axis=1).max()) if Sn else 0
+    # position-major copies of the first n_pos positions: each step reads one contiguous row
+    order_t = np.ascontiguousarray(order[:, :n_pos].T)                          # (n_pos, S')
+    candidate_t = np.ascontiguousarray((np.take_along_axis(pi, order[:, :n_pos], axis=1) > -np.inf).T)
+    has_pre = np.diff(prereq.indptr) > 0
+    any_pre = bool(has_pre.any())
+    cap = budgets + slack
     for k in range(n_pos):  # sequential by nature; vectorised over scenarios
-        j = order[:, k]
-        ok = (pi[rows, j] > -np.inf) & ~chosen[rows, j]
+        j = order_t[k]
+        ok = candidate_t[k] & ~chosen[rows, j]
         a = inv_t[cls, j]  # (S', B)
-        ok &= np.all(used + a <= budgets + slack, axis=1)
+        ok &= np.all(used + a <= cap, axis=1)
         ok &= ~taken[rows, gcol[j]]
-        ok &= prerequisites_met(prereq, chosen, rows, j)
+        if any_pre:
+            need = ok & has_pre[j]
+            if need.any():
+                ok[need] = prerequisites_met(prereq, chosen, rows[need], j[need])
         if not ok.any():
             continue
         r = rows[ok]

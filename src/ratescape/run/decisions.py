@@ -13,8 +13,6 @@ of :mod:`ratescape.decide`, and writes
 """
 from __future__ import annotations
 
-import time
-
 import numpy as np
 import pyarrow as pa
 
@@ -30,26 +28,21 @@ from ratescape.decide.equal_service import (
     straight_line_terminal_value,
 )
 from ratescape.decide.frontier import indifference_frontier
-from ratescape.decide.portfolio_stats import core_portfolio, min_max_regret, selection_share
-from ratescape.decide.rationing import STATUS_INFEASIBLE, STATUS_LABELS, ration_capital
 from ratescape.errors import RunError
 from ratescape.evaluate.kernel import (
     LineClass,
     discount_tensor,
     present_worth_classes,
-    then_current_streams,
 )
 from ratescape.evaluate.tax import carry_forward_adjustment
 from ratescape.run.evaluation import carries_losses
 from ratescape.run.plan import AFTER_TAX_CLASSES, multiplier_for, scenario_multipliers
 from ratescape.run.progress import log
-from ratescape.run.ranks import result_block
+from ratescape.run.rationing_stage import ration_summary
 from ratescape.run.read import chunk_amounts
 from ratescape.store.database import append_rows, fetch_frame
 
 DO_NOTHING_LABEL = "do nothing"
-# Largest projects x scenarios cube the decision stage holds in memory (float64: 8 bytes a cell).
-CUBE_CELL_LIMIT = 40_000_000
 FRONTIER_KINDS = {0: "edge", 1: "transversal", 2: "triple"}
 
 
@@ -123,27 +116,16 @@ def check_alternatives(con, spec) -> None:
                 "assumption)")
 
 
-def _pw_cube(con, plan, column: str = "present_worth") -> np.ndarray | None:
-    """(P, S) matrix of a results column, projects in project_key order (stored or recomputed)."""
-    block = result_block(con, plan, 0, plan.scenarios.size)
-    return None if block is None else block[column]
-
-
 def decide_run(con, plan) -> None:
-    """Run every decision analysis the portfolio and settings call for."""
+    """Run every decision analysis the portfolio and settings call for (inside the run's final
+    transaction; capital rationing itself was solved and stored block by block before it, by
+    :func:`ratescape.run.rationing_stage.ration_stage`)."""
     projects = _projects(con)
     groups = _group_members(projects)
     if groups:
         _decide_groups(con, plan, groups, chunk_amounts)
-    if not plan.spec.budgets:
-        return
-    cells = plan.project_count * plan.scenarios.size
-    pw = _pw_cube(con, plan) if cells <= CUBE_CELL_LIMIT else None
-    if pw is None:
-        log(f"decision stage: {cells:,} project-scenario cells are more than capital rationing holds in memory "
-            f"({CUBE_CELL_LIMIT:,}); rationing is skipped for this run")
-        return
-    _ration(con, plan, projects, pw, chunk_amounts)
+    if plan.spec.budgets:
+        ration_summary(con, plan)
 
 
 def _group_members(projects) -> dict:
@@ -398,102 +380,3 @@ def _alternatives_note(spec, statements: list[str]) -> str:
     return (f"Alternatives whose lives differ are compared by {words}; alternatives of equal lives by present "
             "worth over their common life (every basis then gives the same decision). Decision maps and "
             "frontiers use the same measure. By group: " + "; ".join(statements) + ".")
-
-
-def _budget_outlays(con, plan, reader):
-    """Investment outlays (K, B, P) in then-current money per scenario class, and each scenario's class.
-
-    Classes are the distinct (inflation, cost multiplier) pairs: outlays of real investment
-    lines grow with inflation and escalation; nominal ones are fixed.
-    """
-    cols = plan.scenarios.columns
-    periods = sorted(plan.spec.budgets)
-    cm = cols.get("cost_multiplier", np.ones(plan.scenarios.size))
-    pairs = np.stack([cols["inflation"], cm], axis=1)
-    uniq, scenario_class = np.unique(pairs, axis=0, return_inverse=True)
-    P = plan.project_count
-    outlay = np.zeros((len(uniq), len(periods), P))
-    T = plan.n_periods
-    for first in range(0, P, plan.chunk_size):
-        stop = min(first + plan.chunk_size, P)
-        A = reader(con, plan, first, stop)[0][0]                           # investment role (C, p, T)
-        mult = {name: np.ones(len(uniq)) for name in plan.base_multipliers}   # cost multiplier applied below
-        streams = then_current_streams(A, plan.classes, plan.exponents, uniq[:, 0], mult)   # (K, p, T)
-        streams = streams * uniq[:, 1][:, None, None]
-        for b, period in enumerate(periods):
-            if period < T:
-                outlay[:, b, first:stop] = -streams[:, :, period]
-    return np.clip(outlay, 0.0, None), scenario_class.ravel(), periods
-
-
-def _ration(con, plan, projects, pw: np.ndarray, reader) -> None:
-    ids = np.asarray(projects["project_id"].to_list(), dtype=object)
-    P = len(ids)
-    group_names = sorted({g for g in projects["group_name"].to_list() if g})
-    gi = {g: n for n, g in enumerate(group_names)}
-    group_index = np.array([gi.get(g, -1) if g else -1 for g in projects["group_name"].to_list()], dtype=np.int64)
-    mandatory = np.zeros(len(group_names), dtype=bool)
-    for g, m in zip(projects["group_name"].to_list(), projects["mandatory"].to_list()):
-        if g and m:
-            mandatory[gi[g]] = True
-    # a must-fund project (mandatory, in no group) is a mandatory group of one: x_j = 1 in every scenario
-    must_fund = np.array([bool(m) and not g for g, m in zip(projects["group_name"].to_list(),
-                                                           projects["mandatory"].to_list())], dtype=bool)
-    group_index[must_fund] = len(group_names) + np.arange(int(must_fund.sum()))
-    mandatory = np.concatenate([mandatory, np.ones(int(must_fund.sum()), dtype=bool)])
-    key_of = {pid: k for k, pid in enumerate(ids)}
-    pairs = [(key_of[pid], key_of[t.strip()]) for pid, req in zip(ids, projects["requires"].to_list()) if req
-             for t in req.split(";") if t.strip() in key_of]
-    requires = np.array(pairs, dtype=np.int64).reshape(-1, 2)
-    outlay, scenario_class, periods = _budget_outlays(con, plan, reader)
-    budgets = np.array([plan.spec.budgets[p] for p in periods], dtype=float)
-    t0 = time.perf_counter()
-    res = ration_capital(pw, outlay, budgets, scenario_class=scenario_class, group_index=group_index,
-                         group_mandatory=mandatory, requires=requires)
-    log(f"capital rationing: {plan.scenarios.size} scenarios x {P} projects solved in {time.perf_counter() - t0:.1f} s")
-    S = plan.scenarios.size
-    status_names = STATUS_LABELS
-    infeasible = int(np.sum(np.asarray(res.status) == STATUS_INFEASIBLE))
-    if infeasible and mandatory.any():
-        forced = ", ".join([str(p) for p in ids[must_fund]] + [g for g, m in zip(group_names, mandatory) if m])
-        message = (f"capital rationing: the must-fund projects and mandatory groups ({forced}) do not fit the "
-                   f"budgets in {infeasible} of {S} scenarios; those scenarios have status 'infeasible' and no "
-                   "portfolio. Fix: raise the budgets of the periods they spend in, or review what is marked mandatory")
-        log(message)
-        _insert(con, "run_notes", {"topic": ["rationing"], "note": [message]}, plan.run_id)
-    used = np.asarray(res.budget_used)
-    _insert(con, "portfolios", {
-        "scenario_id": np.arange(S, dtype=np.int32), "objective": np.asarray(res.objective, dtype=float),
-        "lp_bound": np.asarray(res.lp_bound, dtype=float), "mip_gap": np.asarray(res.mip_gap, dtype=float),
-        "greedy_objective": np.asarray(res.greedy_objective, dtype=float),
-        "projects_selected": np.asarray(res.selected).sum(axis=1).astype(np.int32),
-        "budget_used": ["; ".join(f"{p}={u:.6g}" for p, u in zip(periods, row)) for row in used],
-        "status": [status_names[int(v)] for v in np.asarray(res.status)],
-        "solve_seconds": np.asarray(res.solve_seconds, dtype=float)}, plan.run_id)
-    for table, sel in (("selections", res.selected), ("greedy_selections", res.greedy_selected)):
-        s_idx, p_idx = np.nonzero(np.asarray(sel))
-        _insert(con, table, {"scenario_id": s_idx.astype(np.int32), "project_id": ids[p_idx].tolist()}, plan.run_id)
-    threshold = float(plan.spec.decisions.get("core_share", 0.8))
-    share = np.asarray(selection_share(res.selected), dtype=float)
-    prob = np.asarray(selection_share(res.selected, plan.weights), dtype=float)
-    core = np.asarray(core_portfolio(res.selected, threshold), dtype=bool)
-    if np.all(np.isnan(np.asarray(res.objective, dtype=float))):   # no scenario has a portfolio: no regret
-        regret = None
-        best = np.zeros(P, dtype=bool)
-    else:
-        regret = min_max_regret(pw, res.selected, res.objective, outlay, budgets, scenario_class=scenario_class)
-        best = np.asarray(regret.best_selected, dtype=bool) if regret.best >= 0 else np.zeros(P, dtype=bool)
-    _insert(con, "portfolio_summary", {"project_id": ids.tolist(), "selected_share": share,
-                                       "selected_probability": prob, "in_core": core, "in_min_max_regret": best},
-            plan.run_id)
-    K = 0 if regret is None else len(regret.portfolios)
-    if K:
-        _insert(con, "portfolio_regret", {
-            "candidate": np.arange(K, dtype=np.int32), "max_regret": np.asarray(regret.max_regret, dtype=float),
-            "mean_regret": np.where(np.asarray(regret.feasible), np.asarray(regret.regret), np.nan).mean(axis=1)
-            if K else np.zeros(0), "scenarios_optimal": np.asarray(regret.optimal_in).astype(np.int32),
-            "chosen": np.arange(K) == regret.best}, plan.run_id)
-    con.execute("""UPDATE project_summary AS s SET selected_share = ps.selected_share,
-                   selected_probability = ps.selected_probability
-                   FROM portfolio_summary ps WHERE ps.run_id = s.run_id AND ps.project_id = s.project_id
-                   AND s.run_id = ?""", [plan.run_id])

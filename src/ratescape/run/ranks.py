@@ -150,13 +150,3 @@ def rank_statistics(con, plan: Plan):
             out["rank_base"] = np.where(ok, st["base"].astype(np.int64), -1)
             out["top_k_share"] = np.where(ok, tally.top / S, np.nan)
     return out, agreement
-
-
-def result_block(con, plan: Plan, a: int, b: int) -> dict | None:
-    """Present worth and profitability index (P, b - a) of scenarios [a, b) for every project.
-
-    Read from the run's worth files (the numbers the chunks produced, whatever ``--keep`` stored).
-    """
-    ensure_worth_files(con, plan)
-    return {column: np.ascontiguousarray(plan.worth_files.read_block(name, a, b).T)
-            for column, name in (("present_worth", "pw"), ("profitability_index", "pi"))}

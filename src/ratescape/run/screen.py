@@ -33,6 +33,7 @@ from ratescape.run.plan import (
     utc_now,
 )
 from ratescape.run.progress import Progress, log
+from ratescape.run.rationing_stage import check_rationing_fits, ration_stage
 from ratescape.run.ranks import ensure_worth_files, rank_statistics
 from ratescape.run.read import ChunkReader
 from ratescape.run.write import ChunkWriter, arrow_floats
@@ -42,9 +43,9 @@ from ratescape.run.notes import write_overflow_note, write_run_notes
 from ratescape.store.worth_files import WorthFiles, worth_files_folder
 
 
-def _finalize(con, plan: Plan, writer: "ChunkWriter | None" = None, reader=None) -> None:
+def _finalize(con, plan: Plan, writer: "ChunkWriter | None" = None, reader=None, progress: bool = True) -> None:
     """Rank statistics across all projects per scenario (while ``writer`` still stores result rows),
-    the decision stage, then mark the run done."""
+    capital rationing (committed block by block), the decision stage, then mark the run done."""
     t0 = time.perf_counter()
     stats, agreement = rank_statistics(reader if reader is not None else con, plan)
     log(f"ranks: {plan.project_count:,} projects x {plan.scenarios.size:,} scenarios in "
@@ -53,6 +54,7 @@ def _finalize(con, plan: Plan, writer: "ChunkWriter | None" = None, reader=None)
         t0 = time.perf_counter()
         writer.finish()
         log(f"result rows: the last chunks stored {time.perf_counter() - t0:.1f} s after the rank pass")
+    ration_stage(con, plan, progress=progress)
     t0 = time.perf_counter()
     table = pa.table({"project_key": pa.array(np.arange(plan.project_count, dtype=np.int32)),
                       **{k: pa.array(v, mask=(v < 0) if v.dtype.kind == "i" else ~np.isfinite(v))
@@ -116,6 +118,7 @@ def screen(con, spec: RunSettings | None = None, *, resume: str | None = None, c
                            "Fix: start a new run with `ratescape screen`")
         spec = RunSettings.from_json(grid_json)
         plan = make_plan(con, resume, spec, stored_chunk)
+        check_rationing_fits(plan)
         plan.scenario_key_base = int(con.execute("SELECT min(scenario_key) FROM scenarios WHERE run_id = ?",
                                                  [resume]).fetchall()[0][0])
         con.execute("UPDATE runs SET status = 'running', process_id = ?, message = NULL WHERE run_id = ?",
@@ -127,6 +130,7 @@ def screen(con, spec: RunSettings | None = None, *, resume: str | None = None, c
         run_id = f"run-{datetime.now().strftime('%Y%m%d-%H%M%S')}-{uuid.uuid4().hex[:6]}"
         plan = make_plan(con, run_id, spec, chunk_size)
         check_alternatives(con, spec)           # before anything of the run is written
+        check_rationing_fits(plan)              # refused before any work that could not finish
         if plan.project_count == 0:
             raise RunError("the portfolio has no projects. Fix: load a projects file first")
         inputs_hash, _, _ = current_inputs(con)
@@ -230,7 +234,7 @@ def screen(con, spec: RunSettings | None = None, *, resume: str | None = None, c
             f"(result rows of {plan.chunk_count - len(done) - writer.bar.count} still being stored)")
         evaluator.close()
         evaluator = None
-        _finalize(con, plan, writer, reader)       # ranks while the rows thread stores the rest
+        _finalize(con, plan, writer, reader, progress)       # ranks while the rows thread stores the rest
         writer = None
         reader.close()
         bar.close()

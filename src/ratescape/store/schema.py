@@ -44,6 +44,11 @@ TABLES = {
     "run_chunk_summaries": """CREATE TABLE IF NOT EXISTS run_chunk_summaries (
         run_id VARCHAR NOT NULL, chunk_index INTEGER NOT NULL, finished_at TIMESTAMP, seconds DOUBLE,
         PRIMARY KEY (run_id, chunk_index))""",
+    # A block of scenarios of capital rationing committed (its portfolios, selections and greedy
+    # selections): a resumed run solves only the blocks not listed.
+    "run_ration_blocks": """CREATE TABLE IF NOT EXISTS run_ration_blocks (
+        run_id VARCHAR NOT NULL, block_index INTEGER NOT NULL, first_scenario_id INTEGER, last_scenario_id INTEGER,
+        finished_at TIMESTAMP, seconds DOUBLE, PRIMARY KEY (run_id, block_index))""",
     "scenarios": """CREATE TABLE IF NOT EXISTS scenarios (
         run_id VARCHAR NOT NULL, scenario_id INTEGER NOT NULL, discount_rate DOUBLE NOT NULL,
         real_rate DOUBLE NOT NULL, inflation DOUBLE NOT NULL, tax_rate DOUBLE, cost_multiplier DOUBLE,
