@@ -139,14 +139,33 @@ def _group_members(projects) -> dict:
     return out
 
 
-def _member_amounts(con, plan, keys, reader) -> tuple:
-    """Amounts (C, A, T) of a group's members (summed over roles), their investment lines (A, T)
-    summed over classes, and their horizons (A,) in periods."""
-    parts = [reader(con, plan, k, k + 1) for k in keys]
-    A = np.concatenate([p[0].sum(axis=0) for p in parts], axis=1)
-    invest = np.concatenate([p[0][0].sum(axis=0) for p in parts], axis=0)
-    horizon = np.concatenate([np.asarray(p[2], dtype=np.int64) for p in parts])
-    return A, invest, horizon
+class _MemberAmounts:
+    """The amounts of every group member, read once in blocks of ``plan.chunk_size`` consecutive
+    project keys (one query per block that holds a member, not one per member: 10,000 members of
+    a 100,000-project portfolio are a few dozen queries instead of 10,000). Kept per member: its
+    amounts summed over roles (C, T), its investment lines summed over classes (T,), its horizon."""
+
+    def __init__(self, con, plan, keys, reader):
+        keys = np.unique(np.asarray(list(keys), dtype=np.int64))
+        self.rows: dict[int, tuple] = {}
+        size = max(int(plan.chunk_size), 1)
+        for block in np.unique(keys // size):
+            first = int(block) * size
+            stop = min(first + size, plan.project_count)
+            A_by_role, _, horizon = reader(con, plan, first, stop)
+            mine = keys[(keys >= first) & (keys < stop)]
+            j = mine - first
+            total = A_by_role.sum(axis=0)[:, j, :]                      # (C, m, T): members only
+            invest = A_by_role[0].sum(axis=0)[j]                        # (m, T)
+            for n, key in enumerate(mine.tolist()):
+                self.rows[key] = (total[:, n, :], invest[n], int(np.asarray(horizon)[j[n]]))
+
+    def of(self, keys) -> tuple:
+        """Amounts (C, A, T) of these members (summed over roles), their investment lines (A, T)
+        summed over classes, and their horizons (A,) in periods."""
+        parts = [self.rows[int(k)] for k in keys]
+        return (np.stack([p[0] for p in parts], axis=1), np.stack([p[1] for p in parts]),
+                np.array([p[2] for p in parts], dtype=np.int64))
 
 
 def _planes(plan) -> list[dict]:
@@ -289,8 +308,9 @@ def _decide_groups(con, plan, groups: dict, reader) -> None:
     fr = {k: [] for k in ("group_name", "alternative_a", "alternative_b", "x_axis", "x", "y_axis", "y", "segment",
                           "point", "kind", "residual", "converged")}
     statements: list[str] = []
+    members = _MemberAmounts(con, plan, [k for g in groups.values() for k in g["keys"]], reader)
     for name, g in sorted(groups.items()):
-        A, invest, horizon = _member_amounts(con, plan, g["keys"], reader)   # (C, A, T), (A, T), (A,)
+        A, invest, horizon = members.of(g["keys"])                           # (C, A, T), (A, T), (A,)
         extras = [extras_of.get(pid, (None, 0.0, False)) for pid in g["ids"]]
         differ = lives_differ(horizon)
         basis = spec.alternatives_basis if differ else "present-worth"
