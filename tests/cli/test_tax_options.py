@@ -213,14 +213,7 @@ def test_carried_losses_follow_a_nominal_lines_contractual_escalation(tmp_path):
 
 def flows_x(f, tax, carry):
     """Project X's after-tax then-current flows at inflation f, the same year-by-year table as table_x."""
-    out, carried = [-90000.0], 0.0
-    for year, benefit in ((1, 10000.0), (2, 40000.0), (3, 60000.0)):
-        cash = benefit * (1 + f) ** year
-        taxable = cash - 30000.0
-        used = min(carried, max(taxable, 0.0)) if carry else 0.0
-        carried += (max(-taxable, 0.0) - used) if carry else 0.0
-        out.append(cash - tax * (max(taxable - used, 0.0) if carry else taxable))
-    return out
+    return flows_x_moved(f, tax, carry=carry)
 
 
 def test_irr_and_mirr_include_the_carried_losses(tmp_path):

@@ -34,6 +34,7 @@ from ratescape.run.progress import Progress, log
 from ratescape.run.ranks import ensure_worth_files
 from ratescape.run.read import chunk_amounts
 from ratescape.run.plan import DUCKDB_MEMORY_LIMIT, utc_now
+from ratescape.run.plan import available_memory as plan_available_memory  # None: unknown
 from ratescape.run.write import arrow_labels
 from ratescape.store.database import append_rows, fetch_frame, transaction
 
@@ -65,18 +66,10 @@ def _insert(con, table: str, data: dict, run_id: str) -> None:
 
 
 def available_memory() -> int:
-    """Bytes of memory available to a new allocation (``MemAvailable``; physical memory elsewhere)."""
-    try:
-        with open("/proc/meminfo", encoding="ascii") as fh:
-            for line in fh:
-                if line.startswith("MemAvailable:"):
-                    return int(line.split()[1]) * 1024
-    except OSError:
-        pass
-    try:
-        return int(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
-    except (ValueError, OSError, AttributeError):
-        return 1 << 62
+    """Bytes of memory available to a new allocation (:func:`ratescape.run.plan.available_memory`;
+    unknown counts as plenty: the check then lets the run go ahead)."""
+    have = plan_available_memory()
+    return 1 << 62 if have is None else have
 
 
 def _processes() -> int:
