@@ -39,3 +39,21 @@ def test_group_results_do_not_depend_on_the_block_size(runs, table):
         con.close()
     assert groups >= 5 and len(a) > 0
     assert a == b
+
+
+def test_group_decisions_inserted_in_batches_are_the_rows_gathered_whole(runs, monkeypatch, tmp_path):
+    # rows are inserted every GROUP_ROWS_PER_INSERT rows (bounded memory with thousands of groups):
+    # a batch smaller than one group's rows gives the same table as one insert of everything
+    import ratescape.run.decisions as decisions
+    db, one_block, _ = runs
+    monkeypatch.setattr(decisions, "GROUP_ROWS_PER_INSERT", 100)
+    batched = screen_portfolio(db, grid=str(demo_data_dir() / "grid.toml"), budgets={})
+    order, columns = TABLES["group_decisions"]
+    con = duckdb.connect(str(db), read_only=True)
+    try:
+        def rows(run_id):
+            return con.execute(f"SELECT {order}, {columns}, least_cost FROM group_decisions WHERE run_id = ? "
+                               f"ORDER BY {order}", [run_id]).fetchall()
+        assert rows(batched) == rows(one_block) and len(rows(batched)) > 100
+    finally:
+        con.close()
