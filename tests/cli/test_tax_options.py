@@ -64,22 +64,27 @@ def notes(db, run_id):
         con.close()
 
 
+def taxes_paid(taxable, tax, carry):
+    """Tax of each year on the taxable incomes given: tax x income at once (a loss saves tax against the
+    firm's other income), or with each loss carried forward without expiry to the project's own later
+    profits (Internal Revenue Code section 172, mechanism only; common practice)."""
+    paid, carried = [], 0.0
+    for x in taxable:
+        if carry:
+            used = min(carried, max(x, 0.0))
+            paid.append(tax * max(x - used, 0.0))
+            carried += max(-x, 0.0) - used
+        else:
+            paid.append(tax * x)
+    return paid
+
+
 def table_x(i, f, tax, carry):
     """Project X year by year: straight-line 30,000 a year over 3 years; a year-1 loss of 20,000
-    (at f = 0) either saves tax at once or is carried to years 2 and 3."""
-    pw = -90000.0
-    carried = 0.0
-    for year, benefit in ((1, 10000.0), (2, 40000.0), (3, 60000.0)):
-        cash = benefit * (1 + f) ** year
-        taxable = cash - 30000.0
-        if carry:
-            used = min(carried, max(taxable, 0.0))
-            paid = tax * max(taxable - used, 0.0)
-            carried += max(-taxable, 0.0) - used
-        else:
-            paid = tax * taxable
-        pw += (cash - paid) / 1.1 ** year
-    return pw
+    (at f = 0) either saves tax at once or is carried to years 2 and 3 (discounted at 10 %)."""
+    cash = [benefit * (1 + f) ** year for year, benefit in ((1, 10000.0), (2, 40000.0), (3, 60000.0))]
+    paid = taxes_paid([c - 30000.0 for c in cash], tax, carry)
+    return -90000.0 + sum((c - p) / 1.1 ** year for year, (c, p) in enumerate(zip(cash, paid), start=1))
 
 
 def test_combined_rate_from_state_and_federal_flags(tmp_path):
@@ -184,20 +189,9 @@ ESCALATED_PROJECTS = PROJECTS.replace("X,Start-up line", "Z,Escalating contract"
 
 
 def flows_z(tax, carry):
-    """After-tax then-current flows of Z, year by year (straight line 30,000 a year over 3 years;
-    loss carried forward without expiry: Internal Revenue Code section 172, mechanism only)."""
-    out, carried = [-90000.0], 0.0
-    for year, benefit in ((1, 5000.0), (2, 45000.0), (3, 70000.0)):
-        cash = benefit * 1.04 ** year
-        taxable = cash - 30000.0
-        if carry:
-            used = min(carried, max(taxable, 0.0))
-            paid = tax * max(taxable - used, 0.0)
-            carried += max(-taxable, 0.0) - used
-        else:
-            paid = tax * taxable
-        out.append(cash - paid)
-    return out
+    """After-tax then-current flows of Z, year by year (straight line 30,000 a year over 3 years)."""
+    cash = [benefit * 1.04 ** year for year, benefit in ((1, 5000.0), (2, 45000.0), (3, 70000.0))]
+    return [-90000.0] + [c - p for c, p in zip(cash, taxes_paid([c - 30000.0 for c in cash], tax, carry))]
 
 
 def test_carried_losses_follow_a_nominal_lines_contractual_escalation(tmp_path):
@@ -387,14 +381,9 @@ def test_investment_tax_credit_follows_the_cost_on_the_grid_and_in_the_tornado(t
 def flows_x_moved(f, tax=0.3, m=1.0, bm=1.0, s=0.0, carry=True):
     """Project X's after-tax flows with its first cost times m (its depreciation too), its benefits
     times bm and its real escalation shifted by s; losses carried forward or offset at once."""
-    out, carried = [-90000.0 * m], 0.0
-    for year, benefit in ((1, 10000.0), (2, 40000.0), (3, 60000.0)):
-        cash = bm * benefit * ((1 + f) * (1 + s)) ** year
-        taxable = cash - 30000.0 * m
-        used = min(carried, max(taxable, 0.0)) if carry else 0.0
-        carried += (max(-taxable, 0.0) - used) if carry else 0.0
-        out.append(cash - tax * (max(taxable - used, 0.0) if carry else taxable))
-    return out
+    cash = [bm * benefit * ((1 + f) * (1 + s)) ** year for year, benefit in ((1, 10000.0), (2, 40000.0), (3, 60000.0))]
+    paid = taxes_paid([c - 30000.0 * m for c in cash], tax, carry)
+    return [-90000.0 * m] + [c - p for c, p in zip(cash, paid)]
 
 
 def test_tornado_and_switching_values_carry_the_losses_forward(tmp_path):
