@@ -117,6 +117,19 @@ def _steps_done(xn, step1, lo, hi):
     return (step1 <= tol) | (hi - lo <= tol)
 
 
+def _bracketed_step(act, xa, f, df, below, lo, hi, step1, step2):
+    """One safeguarded Newton step of the rows ``act`` at ``xa`` (the compiled kernels' step, row by
+    row): the bracket [lo, hi] shrinks to the side of the root (``below``: the worth at ``xa`` has the
+    sign of the low end), the step is Newton's or a bisection (:func:`_newton_or_bisect`), and the
+    step sizes are shifted, all in place. Returns the new points and which rows are done."""
+    lo[act] = np.where(below, xa, lo[act])
+    hi[act] = np.where(below, hi[act], xa)
+    xn = _newton_or_bisect(xa, f, df, lo[act], hi[act], step2[act])
+    step2[act] = step1[act]
+    step1[act] = np.abs(xn - xa)
+    return xn, _steps_done(xn, step1[act], lo[act], hi[act])
+
+
 def single_roots_numpy(A, last, u_lo: float, u_hi: float, maxiter: int):
     """``irr_kernels._single_roots`` over all rows at once: (N, T), (N,) -> u (N,), code (N,) int8.
 
@@ -160,12 +173,7 @@ def single_roots_numpy(A, last, u_lo: float, u_hi: float, maxiter: int):
         act, f, df = act[keep], f[keep], df[keep]
         xa = x[act]
         below = (f < 0.0) == sign_lo[act]
-        lo[act] = np.where(below, xa, lo[act])
-        hi[act] = np.where(below, hi[act], xa)
-        xn = _newton_or_bisect(xa, f, df, lo[act], hi[act], step2[act])
-        step2[act] = step1[act]
-        step1[act] = np.abs(xn - xa)
-        done = _steps_done(xn, step1[act], lo[act], hi[act])
+        xn, done = _bracketed_step(act, xa, f, df, below, lo, hi, step1, step2)
         x[act] = xn
         x_out[act[done]] = xn[done]
         converged[act[done]] = True
@@ -257,12 +265,7 @@ def _refine(A, L, k, p, q, order, s_lo, maxiter):
         act, f, df = act[keep], f[keep], df[keep]
         xa = x[act]
         below = np.where(f > 0.0, 1, -1) == s_lo[act]
-        lo[act] = np.where(below, xa, lo[act])
-        hi[act] = np.where(below, hi[act], xa)
-        xn = _newton_or_bisect(xa, f, df, lo[act], hi[act], step2[act])
-        step2[act] = step1[act]
-        step1[act] = np.abs(xn - xa)
-        done = _steps_done(xn, step1[act], lo[act], hi[act])
+        xn, done = _bracketed_step(act, xa, f, df, below, lo, hi, step1, step2)
         out[act[done]] = xn[done]
         ok[act[done]] = True
         x[act] = xn
