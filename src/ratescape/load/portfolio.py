@@ -21,14 +21,18 @@ each kind with a count of the rest).
 from __future__ import annotations
 
 import hashlib
+import os
+from collections import deque
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable, Protocol
+from typing import Callable, Iterator, Protocol
 
 import polars as pl
 
 from .columns import BASES, CASH_FLOW_COLUMNS, DEPRECIATION_CONVENTIONS, DEPRECIATION_METHODS, KINDS, PARAMETRIC_MONEY, PROJECT_COLUMNS
 from ..errors import Issue, Issues, ValidationError, count_more, room_for
+from .clean_blocks import clean_flow_block
 from .reader import open_table
 from .validate import Cells, check_unique_id_frame
 
@@ -275,9 +279,10 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
     def unknown_fix(pid: str) -> str:
         return f"add '{pid}' to {projects_name} or correct the id"
 
-    for batch, plain, spaceless, read in source.read_ahead():
+    for batch, plain, spaceless, read, typed in _checked_blocks(source, name, allow_extreme_rates):
         cells = Cells(source.name, batch, issues, counts, allow_extreme_rates, plain, spaceless)
-        typed = _typed_flows(cells, name)
+        if typed is None:             # a block with a fault (or not plain ASCII): checked cell by cell
+            typed = _typed_flows(cells, name)
         if known_set is not None:
             missing = [i for i in typed["project_id"].unique().to_list() if i and i not in known_set]
             if missing:
@@ -303,6 +308,29 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
                             "add at least one data row"))
         return 0, None, None
     return source.rows, _flow_stats(stats), source.sha256
+
+
+#: Cash-flow blocks typed ahead on worker threads while the next blocks are read (Polars releases
+#: the interpreter lock while it parses; each block is about 1 MB of text, a few MB as frames)
+BLOCKS_AHEAD = 4
+
+
+def _checked_blocks(source, name: str, allow_extreme_rates: bool) -> Iterator[tuple]:
+    """``source.read_ahead()`` with each block's fast-path typing (:func:`clean_flow_block`, None
+    when the block has a fault) done on a worker thread, yielded in file order."""
+    workers = max(1, min(2, os.cpu_count() or 1))
+    with ThreadPoolExecutor(max_workers=workers, thread_name_prefix="ratescape-load") as pool:
+        pending: deque = deque()
+        for batch, plain, spaceless, read in source.read_ahead():
+            pending.append((batch, plain, spaceless, read, pool.submit(
+                clean_flow_block, batch, source=name, plain_ascii=plain, spaceless=spaceless,
+                allow_extreme_rates=allow_extreme_rates)))
+            if len(pending) > BLOCKS_AHEAD:
+                batch, plain, spaceless, read, typed = pending.popleft()
+                yield batch, plain, spaceless, read, typed.result()
+        while pending:
+            batch, plain, spaceless, read, typed = pending.popleft()
+            yield batch, plain, spaceless, read, typed.result()
 
 
 def _expand_parametric(projects: pl.DataFrame, source: str) -> pl.DataFrame:
