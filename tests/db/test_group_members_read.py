@@ -57,3 +57,44 @@ def test_group_decisions_inserted_in_batches_are_the_rows_gathered_whole(runs, m
         assert rows(batched) == rows(one_block) and len(rows(batched)) > 100
     finally:
         con.close()
+
+
+def test_a_run_stopped_after_its_groups_were_committed_resumes_to_the_same_rows(runs, monkeypatch):
+    # the groups' rows are committed in batches before the run's final transaction; a run stopped
+    # in that transaction has them stored but is not done, and its resume decides every group
+    # again without duplicating a row
+    import ratescape.run.decisions as decisions
+    import ratescape.run.screen as screen_module
+    db, one_block, _ = runs
+    monkeypatch.setattr(decisions, "GROUP_ROWS_PER_INSERT", 1000)            # several commits
+
+    def stop(*args, **kw):
+        raise KeyboardInterrupt("test: stop in the final transaction")
+
+    monkeypatch.setattr(screen_module, "write_overflow_note", stop)
+    with pytest.raises(KeyboardInterrupt):
+        screen_portfolio(db, grid=str(demo_data_dir() / "grid.toml"), budgets={})
+    con = duckdb.connect(str(db))
+    try:
+        run_id, status = con.execute("SELECT run_id, status FROM runs ORDER BY started_at DESC LIMIT 1").fetchone()
+        stored = con.execute("SELECT count(*) FROM group_decisions WHERE run_id = ?", [run_id]).fetchone()[0]
+    finally:
+        con.close()
+    assert status != "done" and stored > 1000          # committed before the stop
+    monkeypatch.undo()
+    assert screen_portfolio(db, resume=run_id) == run_id
+    con = duckdb.connect(str(db), read_only=True)
+    try:
+        for table, (order, columns) in TABLES.items():
+            def rows(rid):
+                return con.execute(f"SELECT {order}, {columns} FROM {table} WHERE run_id = ? ORDER BY {order}",
+                                   [rid]).fetchall()
+            assert rows(run_id) == rows(one_block), table
+        keys = con.execute("SELECT count(*), count(DISTINCT (group_name, scenario_id)) FROM group_decisions "
+                           "WHERE run_id = ?", [run_id]).fetchone()
+        notes = con.execute("SELECT count(*) FROM run_notes WHERE run_id = ? AND topic = 'alternatives'",
+                            [run_id]).fetchone()[0]
+        status = con.execute("SELECT status FROM runs WHERE run_id = ?", [run_id]).fetchone()[0]
+    finally:
+        con.close()
+    assert keys[0] == keys[1] and notes == 1 and status == "done"

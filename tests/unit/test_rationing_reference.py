@@ -123,6 +123,16 @@ def test_streamed_statistics_equal_the_in_memory_ones(block):
     for a in range(0, S, block):
         regret.add(pw[:, a:a + block], res.objective[a:a + block], budgets, cls[a:a + block])
     got = regret.result()
+    np.testing.assert_array_equal(np.unpackbits(got.packed_portfolios, axis=1, count=P).astype(bool), ports)
+    packed_tally = RegretTally(packed, counts, inv, batch_cells=3 * P, n_projects=P)   # packed rows in
+    for a in range(0, S, block):
+        packed_tally.add(pw[:, a:a + block], res.objective[a:a + block], budgets, cls[a:a + block])
+    from_packed = packed_tally.result()
+    np.testing.assert_array_equal(from_packed.max_regret, got.max_regret)
+    np.testing.assert_array_equal(from_packed.mean_regret, got.mean_regret)
+    np.testing.assert_array_equal(from_packed.best_selected, got.best_selected)
+    with pytest.raises(ValueError, match="packed portfolios must have shape"):
+        RegretTally(packed[:, :-1], counts, inv, n_projects=P)
     np.testing.assert_allclose(got.max_regret, ref.max_regret, rtol=1e-12, atol=1e-12)
     np.testing.assert_allclose(got.max_regret_where_feasible, ref.max_regret_where_feasible, rtol=1e-12,
                                atol=1e-12)

@@ -310,10 +310,12 @@ class RegretSummary:
 
     Attributes as in :class:`RegretResult` without the (K, S) matrices, plus ``mean_regret`` (K,):
     the mean regret over every scenario, NaN unless the portfolio fits every scenario and every
-    scenario has an optimum (as the in-memory mean over the (K, S) regret matrix gives).
+    scenario has an optimum (as the in-memory mean over the (K, S) regret matrix gives). The
+    candidates are ``packed_portfolios`` (K, ceil(P / 8)) uint8, 8 projects to a byte
+    (``np.unpackbits(..., axis=1, count=P)`` gives them as selections).
     """
 
-    portfolios: np.ndarray
+    packed_portfolios: np.ndarray
     optimal_in: np.ndarray
     max_regret: np.ndarray
     max_regret_where_feasible: np.ndarray
@@ -327,13 +329,17 @@ class RegretTally:
 
     Parameters
     ----------
-    portfolios : array_like of bool, shape (K, P)
-        The candidates (the distinct optima, :meth:`PortfolioSet.portfolios` unpacked).
+    portfolios : array_like of bool, shape (K, P), or uint8, shape (K, ceil(P / 8))
+        The candidates (the distinct optima): selections, or with ``n_projects`` given their rows
+        packed 8 projects to a byte as :meth:`PortfolioSet.portfolios` gives them (held packed and
+        unpacked ``batch_cells // P`` candidates at a time: K P / 8 bytes, not K P).
     optimal_in : array_like of int, shape (K,)
     investment : array_like, shape (B, P) or (K_c, B, P)
         Outlays per cost class, as for :func:`ratescape.decide.rationing.ration_capital`.
     batch_cells : int
         Candidates are multiplied with a block's worths ``batch_cells // P`` at a time (memory).
+    n_projects : int, optional
+        P, when ``portfolios`` are packed rows.
 
     ``add(pw, objective, budgets, scenario_class)`` takes the next block: pw (P, b), objective
     (b,) (NaN: no optimum), budgets (b, B) or (B,), classes (b,). :meth:`result` then gives the
@@ -346,17 +352,30 @@ class RegretTally:
     Association 46(253), 1951, pp. 55-67 (minimax regret).
     """
 
-    def __init__(self, portfolios, optimal_in, investment, batch_cells: int = 4_000_000):
-        self.ports = _as_selected(portfolios)
+    def __init__(self, portfolios, optimal_in, investment, batch_cells: int = 4_000_000, *,
+                 n_projects: int | None = None):
+        if n_projects is None:
+            selected = _as_selected(portfolios)
+            P = selected.shape[1]
+            self.packed = np.packbits(selected, axis=1)
+        else:
+            P = int(n_projects)
+            self.packed = np.asarray(portfolios, dtype=np.uint8)
+            if self.packed.ndim != 2 or self.packed.shape[1] != -(-P // 8):
+                raise ValueError(f"packed portfolios must have shape (K, {-(-P // 8)}) for {P} projects, "
+                                 f"got shape {self.packed.shape}")
         self.optimal_in = np.asarray(optimal_in, dtype=np.int64)
         inv = np.asarray(investment, dtype=float)
         self.inv = inv[None] if inv.ndim == 2 else inv
-        K, P = self.ports.shape
+        K = self.packed.shape[0]
         self.K, self.P = K, P
         self.batch = max(1, int(batch_cells) // max(P, 1))
-        # outlay of every candidate in every class and budget period: (K_c, K, B)
-        self.used = np.stack([self._products(self.inv[c].T) for c in range(self.inv.shape[0])]) if K else \
-            np.zeros((self.inv.shape[0], 0, self.inv.shape[1]))
+        # outlay of every candidate in every class and budget period: (K_c, K, B), one pass over
+        # the candidates for all classes
+        K_c, B = self.inv.shape[:2]
+        outlays = self.inv.transpose(2, 0, 1).reshape(P, K_c * B)             # (P, K_c B)
+        self.used = self._products(outlays).reshape(K, K_c, B).transpose(1, 0, 2) if K else \
+            np.zeros((K_c, 0, B))
         self.top = np.full(K, -np.inf)
         self.any_feasible = np.zeros(K, dtype=bool)
         self.everywhere = np.ones(K, dtype=bool)       # feasible in every scenario that has an optimum
@@ -365,11 +384,15 @@ class RegretTally:
         self.scenarios = 0
         self.have_any = False
 
+    def _selected(self, a: int, b: int) -> np.ndarray:
+        """Candidates a..b-1 as selections (b - a, P) of bool."""
+        return np.unpackbits(self.packed[a:b], axis=1, count=self.P).view(bool)
+
     def _products(self, matrix: np.ndarray) -> np.ndarray:
         """candidates (K, P) @ matrix (P, n), ``batch`` candidates at a time."""
         out = np.empty((self.K, matrix.shape[1]))
         for a in range(0, self.K, self.batch):
-            out[a:a + self.batch] = self.ports[a:a + self.batch].astype(float) @ matrix
+            out[a:a + self.batch] = self._selected(a, a + self.batch).astype(float) @ matrix
         return out
 
     def add(self, pw, objective, budgets, scenario_class=None) -> None:
@@ -404,7 +427,7 @@ class RegretTally:
         best = int(np.argmin(max_regret)) if self.everywhere.any() else -1
         with np.errstate(invalid="ignore", divide="ignore"):
             mean = np.where(self.valid == self.scenarios, self.total / max(self.scenarios, 1), np.nan)
-        best_sel = self.ports[best].copy() if best >= 0 else np.zeros(self.P, dtype=bool)
-        return RegretSummary(portfolios=self.ports, optimal_in=self.optimal_in, max_regret=max_regret,
+        best_sel = self._selected(best, best + 1)[0] if best >= 0 else np.zeros(self.P, dtype=bool)
+        return RegretSummary(packed_portfolios=self.packed, optimal_in=self.optimal_in, max_regret=max_regret,
                              max_regret_where_feasible=where_feas, mean_regret=mean, best=best,
                              best_selected=best_sel)

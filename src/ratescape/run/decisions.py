@@ -1,15 +1,19 @@
-"""Decision stage of a run (after every chunk is stored, inside the run's final transaction).
+"""Decision stage of a run (after every chunk is stored).
 
 Orchestration only: reads what it needs from DuckDB, calls the pure functions
 of :mod:`ratescape.decide`, and writes
 
-* ``group_decisions``: the preferred alternative of every group in every scenario, its
-  runner-up and margin (an implicit "do nothing" competes unless the group is mandatory);
-* ``frontiers``: the indifference frontier of every group on the plane of the discount axis
+* :func:`decide_groups`, before the run's final transaction, committed a batch of whole groups
+  at a time (a resumed run deletes the run's rows and decides every group again):
+  ``group_decisions``, the preferred alternative of every group in every scenario, its
+  runner-up and margin (an implicit "do nothing" competes unless the group is mandatory), and
+  ``frontiers``, the indifference frontier of every group on the plane of the discount axis
   and inflation (other axes at their base values), root-found, not a staircase;
-* with budgets: ``portfolios``, ``selections``, ``greedy_selections``, ``portfolio_summary``
-  and ``portfolio_regret`` (capital rationing in every scenario as a 0-1 program);
-* selection shares and weighted probabilities in ``project_summary``.
+* :func:`decide_run`, inside the run's final transaction, with budgets: ``portfolio_summary``
+  and ``portfolio_regret`` and the selection shares and weighted probabilities in
+  ``project_summary`` (capital rationing itself, ``portfolios``, ``selections`` and
+  ``greedy_selections``, was stored block by block before, by
+  :func:`ratescape.run.rationing_stage.ration_stage`).
 """
 from __future__ import annotations
 
@@ -40,7 +44,7 @@ from ratescape.run.plan import AFTER_TAX_CLASSES, multiplier_for, scenario_multi
 from ratescape.run.progress import log
 from ratescape.run.rationing_stage import ration_summary
 from ratescape.run.read import chunk_amounts
-from ratescape.store.database import append_rows, fetch_frame
+from ratescape.store.database import append_rows, fetch_frame, transaction
 
 DO_NOTHING_LABEL = "do nothing"
 FRONTIER_KINDS = {0: "edge", 1: "transversal", 2: "triple"}
@@ -116,14 +120,19 @@ def check_alternatives(con, spec) -> None:
                 "assumption)")
 
 
-def decide_run(con, plan) -> None:
-    """Run every decision analysis the portfolio and settings call for (inside the run's final
-    transaction; capital rationing itself was solved and stored block by block before it, by
-    :func:`ratescape.run.rationing_stage.ration_stage`)."""
+def decide_groups(con, plan) -> None:
+    """Decisions and frontiers of every group of alternatives (outside any transaction: each batch
+    of whole groups is committed, so that memory stays bounded; the run is marked done later)."""
     projects = _projects(con)
     groups = _group_members(projects)
     if groups:
         _decide_groups(con, plan, groups, chunk_amounts)
+
+
+def decide_run(con, plan) -> None:
+    """The rationing summary (inside the run's final transaction; capital rationing itself was
+    solved and stored block by block before it, by :func:`ratescape.run.rationing_stage.ration_stage`,
+    and the groups decided by :func:`decide_groups`)."""
     if plan.spec.budgets:
         ration_summary(con, plan)
 
@@ -285,9 +294,10 @@ def _group_measure(plan, A, invest, horizon, extras, basis, tv_tensor):
     return pw, A, plan.classes, None, None
 
 
-#: group-decision rows gathered before they are inserted (within the run's final transaction): a
-#: row held as Python objects takes a few hundred bytes, and 3,333 groups x 2,601 scenarios are
-#: 8.7 million rows, so they are not gathered whole
+#: group-decision rows gathered before they are committed (with the batch's frontier points): a
+#: row held as Python objects takes a few hundred bytes, 3,333 groups x 2,601 scenarios are 8.7
+#: million rows, and DuckDB holds the Arrow batches of a transaction until it ends (measured: about
+#: 80 bytes a row), so they are neither gathered whole nor kept in one transaction
 GROUP_ROWS_PER_INSERT = 250_000
 
 
@@ -315,6 +325,18 @@ def _decide_groups(con, plan, groups: dict, reader) -> None:
                           "point", "kind", "residual", "converged")}
     statements: list[str] = []
     members = _MemberAmounts(con, plan, [k for g in groups.values() for k in g["keys"]], reader)
+    with transaction(con):           # a resumed run decides every group again
+        con.execute("DELETE FROM group_decisions WHERE run_id = ?", [plan.run_id])
+        con.execute("DELETE FROM frontiers WHERE run_id = ?", [plan.run_id])
+
+    def commit(rows, fr, note: str | None = None) -> None:
+        with transaction(con):
+            _insert(con, "group_decisions", rows, plan.run_id)
+            _insert(con, "frontiers", fr, plan.run_id)
+            if note is not None:   # one note per run and topic: a resumed run replaces its note
+                con.execute("DELETE FROM run_notes WHERE run_id = ? AND topic = 'alternatives'", [plan.run_id])
+                _insert(con, "run_notes", {"topic": ["alternatives"], "note": [note]}, plan.run_id)
+
     for name, g in sorted(groups.items()):
         A, invest, horizon = members.of(g["keys"])                           # (C, A, T), (A, T), (A,)
         extras = [extras_of.get(pid, (None, 0.0, False)) for pid in g["ids"]]
@@ -346,9 +368,6 @@ def _decide_groups(con, plan, groups: dict, reader) -> None:
         rows["preferred_worth"] += np.where(best >= 0, measure[np.clip(best, 0, None), np.arange(S)], 0.0).tolist()
         rows["basis"] += [basis] * S
         rows["least_cost"] += [least_cost] * S
-        if len(rows["scenario_id"]) >= GROUP_ROWS_PER_INSERT:   # bounded memory with thousands of groups
-            _insert(con, "group_decisions", rows, plan.run_id)
-            rows = {k: [] for k in rows}
         names = list(g["ids"]) + ([DO_NOTHING_LABEL] if optional else [])
         for plane in planes:   # a decision map per plane; other axes at their base values
             y_values = plane["y"]
@@ -377,12 +396,10 @@ def _decide_groups(con, plan, groups: dict, reader) -> None:
             fr["kind"] += [FRONTIER_KINDS.get(int(k), str(k)) for k in np.asarray(front.kind)]
             fr["residual"] += np.asarray(front.residual, dtype=float).tolist()
             fr["converged"] += np.asarray(front.converged, dtype=bool).tolist()
-    _insert(con, "group_decisions", rows, plan.run_id)
-    _insert(con, "frontiers", fr, plan.run_id)
-    # one note per run and topic: a decision stage run again (a resumed run) replaces its note
-    con.execute("DELETE FROM run_notes WHERE run_id = ? AND topic = 'alternatives'", [plan.run_id])
-    _insert(con, "run_notes", {"topic": ["alternatives"], "note": [_alternatives_note(spec, statements)]},
-            plan.run_id)
+        if len(rows["scenario_id"]) >= GROUP_ROWS_PER_INSERT:   # bounded memory with thousands of groups
+            commit(rows, fr)
+            rows, fr = {k: [] for k in rows}, {k: [] for k in fr}
+    commit(rows, fr, _alternatives_note(spec, statements))
 
 
 def _group_statement(name, basis, differ, least_cost, mandatory, lives, terminal, ids) -> str:

@@ -298,8 +298,7 @@ def ration_summary(con, plan, *, cell_limit: int | None = None) -> None:
     regret = None
     if np.isfinite(objective).any():
         packed, counts = optima.portfolios()
-        ports = np.unpackbits(packed, axis=1, count=P).astype(bool)
-        regrets = RegretTally(ports, counts, inputs["outlay"])
+        regrets = RegretTally(packed, counts, inputs["outlay"], n_projects=P)
         for a, b in blocks:
             pw = plan.worth_files.read_block("pw", a, b).T
             regrets.add(pw, objective[a:b], inputs["budgets"], inputs["scenario_class"][a:b])
@@ -311,7 +310,7 @@ def ration_summary(con, plan, *, cell_limit: int | None = None) -> None:
     _insert(con, "portfolio_summary", {"project_id": ids.tolist(), "selected_share": tally.share(),
                                        "selected_probability": tally.probability(), "in_core": tally.core(threshold),
                                        "in_min_max_regret": best}, plan.run_id)
-    K = 0 if regret is None else len(regret.portfolios)
+    K = 0 if regret is None else len(regret.max_regret)
     if K:
         _insert(con, "portfolio_regret", {
             "candidate": np.arange(K, dtype=np.int32), "max_regret": np.asarray(regret.max_regret, dtype=float),

@@ -21,7 +21,7 @@ import pyarrow as pa
 from ratescape import __version__
 from ratescape.errors import RunError
 from ratescape.evaluate.kernel import capital_recovery_factor
-from ratescape.run.decisions import check_alternatives, decide_run
+from ratescape.run.decisions import check_alternatives, decide_groups, decide_run
 from ratescape.run.evaluation import evaluate_chunk
 from ratescape.run.plan import (
     CHECKPOINT_THRESHOLD,
@@ -45,7 +45,8 @@ from ratescape.store.worth_files import WorthFiles, worth_files_folder
 
 def _finalize(con, plan: Plan, writer: "ChunkWriter | None" = None, reader=None, progress: bool = True) -> None:
     """Rank statistics across all projects per scenario (while ``writer`` still stores result rows),
-    capital rationing (committed block by block), the decision stage, then mark the run done."""
+    capital rationing (committed block by block), the groups' decisions (committed a batch of groups
+    at a time), then the summaries and the run marked done in one transaction."""
     t0 = time.perf_counter()
     stats, agreement = rank_statistics(reader if reader is not None else con, plan)
     log(f"ranks: {plan.project_count:,} projects x {plan.scenarios.size:,} scenarios in "
@@ -56,6 +57,7 @@ def _finalize(con, plan: Plan, writer: "ChunkWriter | None" = None, reader=None,
         log(f"result rows: the last chunks stored {time.perf_counter() - t0:.1f} s after the rank pass")
     ration_stage(con, plan, progress=progress)
     t0 = time.perf_counter()
+    decide_groups(con, plan)
     table = pa.table({"project_key": pa.array(np.arange(plan.project_count, dtype=np.int32)),
                       **{k: pa.array(v, mask=(v < 0) if v.dtype.kind == "i" else ~np.isfinite(v))
                          for k, v in stats.items()}})
