@@ -22,8 +22,6 @@ from __future__ import annotations
 
 import hashlib
 import os
-from collections import deque
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Iterator, Protocol
@@ -310,27 +308,14 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
     return source.rows, _flow_stats(stats), source.sha256
 
 
-#: Cash-flow blocks typed ahead on worker threads while the next blocks are read (Polars releases
-#: the interpreter lock while it parses; each block is about 1 MB of text, a few MB as frames)
-BLOCKS_AHEAD = 4
-
-
 def _checked_blocks(source, name: str, allow_extreme_rates: bool) -> Iterator[tuple]:
-    """``source.read_ahead()`` with each block's fast-path typing (:func:`clean_flow_block`, None
-    when the block has a fault) done on a worker thread, yielded in file order."""
-    workers = max(1, min(2, os.cpu_count() or 1))
-    with ThreadPoolExecutor(max_workers=workers, thread_name_prefix="ratescape-load") as pool:
-        pending: deque = deque()
-        for batch, plain, spaceless, read in source.read_ahead():
-            pending.append((batch, plain, spaceless, read, pool.submit(
-                clean_flow_block, batch, source=name, plain_ascii=plain, spaceless=spaceless,
-                allow_extreme_rates=allow_extreme_rates)))
-            if len(pending) > BLOCKS_AHEAD:
-                batch, plain, spaceless, read, typed = pending.popleft()
-                yield batch, plain, spaceless, read, typed.result()
-        while pending:
-            batch, plain, spaceless, read, typed = pending.popleft()
-            yield batch, plain, spaceless, read, typed.result()
+    """``(frame, plain_ascii, spaceless, bytes_read, typed)`` of each block in file order, parsed and
+    typed on worker threads (:meth:`CsvSource.read_parallel`); ``typed`` is the block typed by
+    :func:`clean_flow_block`, or None when the block has a fault to report cell by cell."""
+    def typer(frame, plain, spaceless):
+        return clean_flow_block(frame, source=name, plain_ascii=plain, spaceless=spaceless,
+                                allow_extreme_rates=allow_extreme_rates)
+    return source.read_parallel(typer, workers=max(1, min(2, os.cpu_count() or 1)))
 
 
 def _expand_parametric(projects: pl.DataFrame, source: str) -> pl.DataFrame:

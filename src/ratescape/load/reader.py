@@ -21,9 +21,11 @@ import csv
 import difflib
 import hashlib
 import io
+from collections import deque
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Iterator
+from typing import Callable, Iterator
 
 import polars as pl
 
@@ -167,27 +169,83 @@ class CsvSource:
         no further frames are yielded, but the rest of the file is still
         checked so that every ragged row is listed.
         """
-        n = len(self.columns)
         for first_line, block in self._blocks():
-            try:
-                text = block.decode("utf-8")
-            except UnicodeDecodeError:
-                text = self._bad_utf8(block, first_line)
-            frame = _parse_plain(text, n, first_line, self) if '"' not in text else _parse_quoted(text, n, first_line, self)
-            if frame is None:
-                continue
-            frame.columns = [*self.columns, "line"]
-            self.rows += frame.height
-            self.plain_ascii = _plain_ascii(block)
-            self.spaceless = self.plain_ascii and b" " not in block
-            yield frame
+            frame = self._frame(first_line, block)
+            if frame is not None:
+                yield frame
+
+    def _frame(self, first_line: int, block: bytes) -> pl.DataFrame | None:
+        """Parse one block here, reporting its structural faults (None: no row to check)."""
+        n = len(self.columns)
+        try:
+            text = block.decode("utf-8")
+        except UnicodeDecodeError:
+            text = self._bad_utf8(block, first_line)
+        frame = _parse_plain(text, n, first_line, self) if '"' not in text else _parse_quoted(text, n, first_line, self)
+        if frame is None:
+            return None
+        frame.columns = [*self.columns, "line"]
+        self.rows += frame.height
+        self.plain_ascii = _plain_ascii(block)
+        self.spaceless = self.plain_ascii and b" " not in block
+        return frame
 
     def read_ahead(self) -> Iterator[tuple[pl.DataFrame, bool, bool, int]]:
         """:meth:`batches` as ``(frame, plain_ascii, spaceless, bytes_read)``: each frame with the state
-        of the reader after it (a second reading thread was tried and measured no faster on two busy
-        cores)."""
+        of the reader after it."""
         for frame in self.batches():
             yield frame, self.plain_ascii, self.spaceless, self.bytes_read
+
+    def read_parallel(self, typer: Callable[[pl.DataFrame, bool, bool], object], *, workers: int = 2,
+                      ahead: int = 4) -> Iterator[tuple[pl.DataFrame, bool, bool, int, object]]:
+        """:meth:`read_ahead` with ``typer(frame, plain_ascii, spaceless)`` added to each tuple, parsing
+        and typing blocks on ``workers`` threads while this one reads the file (Polars releases the
+        interpreter lock while it splits and parses), yielded in file order.
+
+        Only a regular block is parsed on a worker: valid UTF-8 without quotes, blank or ragged
+        lines (:func:`_parse_plain` without a source). Any other block is parsed here, in file
+        order, by :meth:`_frame`, which reports its faults as :meth:`batches` does; its typed value
+        is None. At most ``ahead`` blocks wait, so memory stays a few blocks.
+        """
+        n = len(self.columns)
+        names = [*self.columns, "line"]
+
+        def work(first_line: int, block: bytes):
+            if b'"' in block:
+                return None
+            try:
+                text = block.decode("utf-8")
+            except UnicodeDecodeError:
+                return None
+            frame = _parse_plain(text, n, first_line, None)
+            if frame is None:
+                return None
+            frame.columns = names
+            plain = _plain_ascii(block)
+            spaceless = plain and b" " not in block
+            return frame, plain, spaceless, typer(frame, plain, spaceless)
+
+        def settle(first_line, block, read, future):
+            done = future.result()
+            if done is None:
+                frame = self._frame(first_line, block)
+                return None if frame is None else (frame, self.plain_ascii, self.spaceless, read, None)
+            frame, self.plain_ascii, self.spaceless, typed = done
+            self.rows += frame.height
+            return frame, self.plain_ascii, self.spaceless, read, typed
+
+        with ThreadPoolExecutor(max_workers=max(1, workers), thread_name_prefix="ratescape-read") as pool:
+            pending: deque = deque()
+            for first_line, block in self._blocks():
+                pending.append((first_line, block, self.bytes_read, pool.submit(work, first_line, block)))
+                while len(pending) > ahead or (pending and pending[0][3].done()):
+                    out = settle(*pending.popleft())
+                    if out is not None:
+                        yield out
+            while pending:
+                out = settle(*pending.popleft())
+                if out is not None:
+                    yield out
 
     def _bad_utf8(self, block: bytes, first_line: int) -> str:
         """Report each line of ``block`` holding invalid UTF-8; return the block decoded with
@@ -237,8 +295,12 @@ def _cut_outside_quotes(data: bytes) -> int:
     return pos
 
 
-def _parse_plain(text: str, n: int, first_line: int, src: CsvSource) -> pl.DataFrame | None:
-    """A block without quotes: split lines and fields with vectorised string operations."""
+def _parse_plain(text: str, n: int, first_line: int, src: CsvSource | None) -> pl.DataFrame | None:
+    """A block without quotes: split lines and fields with vectorised string operations.
+
+    With ``src`` None (a worker's regular block, see :meth:`CsvSource.read_parallel`) a block
+    holding a blank or ragged line gives None: its source parses it again and reports them.
+    """
     lines = text.split("\n")
     if lines and lines[-1] == "":
         lines.pop()
@@ -248,6 +310,8 @@ def _parse_plain(text: str, n: int, first_line: int, src: CsvSource) -> pl.DataF
     blank = raw == ""
     fields = raw.str.count_matches(",", literal=True) + 1
     ragged = ~blank & (fields != n)
+    if src is None and (ragged.any() or blank.any()):
+        return None
     if ragged.any():
         bad = pl.DataFrame({"line": line_no, "raw": raw, "fields": fields}).filter(ragged)
         problem = f"0 fields where the header has {n}"       # the kind (numbers do not count)

@@ -1,0 +1,67 @@
+"""The reader's worker-thread path gives what the one-thread reader gives, fault for fault.
+
+Blocks are cut small (a few hundred bytes) so that a file of a few hundred lines spans dozens of
+blocks: regular ones (parsed on workers) between blocks with quotes, blank lines, ragged rows
+and invalid UTF-8 (parsed on the reading thread, in file order). The data are invented.
+"""
+from __future__ import annotations
+
+import numpy as np
+import polars as pl
+import pytest
+
+from ratescape.errors import Issues
+from ratescape.load.columns import CASH_FLOW_COLUMNS
+from ratescape.load.reader import open_table
+
+
+def _file(tmp_path, faults: bool) -> bytes:
+    rng = np.random.default_rng(3)
+    lines = [b"project_id,period,amount,basis,escalation,kind"]
+    for k in range(600):
+        lines.append(f"P{k % 37},{k % 40},{rng.integers(-9000, 9000)},real,0.01,".encode())
+        if faults and k % 97 == 5:
+            lines.append(b"")                                        # blank line
+        if faults and k % 131 == 7:
+            lines.append(b"P1,2,3")                                  # ragged row
+        if faults and k % 151 == 9:
+            lines.append(b'"P,9",3,4,real,0,benefit')                # quoted cell
+        if faults and k == 333:
+            lines.append(b"P\xff1,1,2,real,0,cost")                   # invalid UTF-8
+        if faults and k % 173 == 11:
+            lines.append(b"P 4 , 5 ,6,nominal,,")                     # spaces
+    return b"\n".join(lines) + b"\n"
+
+
+def _read(path, parallel: bool):
+    issues = Issues()
+    source = open_table(path, CASH_FLOW_COLUMNS, issues)
+    source.block_bytes = 300
+    seen = []
+    if parallel:
+        for frame, plain, spaceless, read, typed in source.read_parallel(
+                lambda f, p, s: (f.height, p, s), workers=2, ahead=3):
+            assert typed is None or typed == (frame.height, plain, spaceless)
+            seen.append((frame, plain, spaceless, read))
+    else:
+        seen = list(source.read_ahead())
+    source.finish()
+    return seen, [(i.file, i.line, i.column, i.value, i.problem, i.fix) for i in issues], (source.rows, source.blank_lines, source.broken, source.sha256)
+
+
+@pytest.mark.parametrize("faults", [False, True])
+def test_worker_threads_read_what_one_thread_reads(tmp_path, faults):
+    path = tmp_path / "flows.csv"
+    path.write_bytes(_file(tmp_path, faults))
+    one, one_issues, one_state = _read(path, parallel=False)
+    many, many_issues, many_state = _read(path, parallel=True)
+    assert len(one) > 20 and len(many) == len(one)
+    for (a, pa_, sa, ra), (b, pb, sb, rb) in zip(one, many):
+        assert a.equals(b) and (pa_, sa, ra) == (pb, sb, rb)
+    assert many_issues == one_issues and many_state == one_state
+    if faults:
+        assert one_state[1] > 0 and one_state[2]                      # blank lines counted, file broken
+        kinds = {i[4] for i in one_issues}
+        assert any("fields where the header has" in k for k in kinds)
+        assert any("UTF-8" in k for k in kinds)
+        assert pl.concat([f for f, *_ in many])["project_id"].str.contains('"').sum() == 0
