@@ -277,17 +277,19 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
     def unknown_fix(pid: str) -> str:
         return f"add '{pid}' to {projects_name} or correct the id"
 
-    for batch, plain, spaceless, read, typed in _checked_blocks(source, name, allow_extreme_rates):
+    for batch, plain, spaceless, read, done_ahead in _checked_blocks(source, name, allow_extreme_rates):
         cells = Cells(source.name, batch, issues, counts, allow_extreme_rates, plain, spaceless)
-        if typed is None:             # a block with a fault (or not plain ASCII): checked cell by cell
+        if done_ahead is None:        # a block with a fault (or not plain ASCII): checked cell by cell
             typed = _typed_flows(cells, name)
+            block_stats, ids = _block_stats(typed)
+        else:
+            typed, block_stats, ids = done_ahead
         if known_set is not None:
-            missing = [i for i in typed["project_id"].unique().to_list() if i and i not in known_set]
+            missing = [i for i in ids if i and i not in known_set]
             if missing:
                 unknown = typed["project_id"].is_in(pl.Series(missing, dtype=pl.String).implode())
                 cells.report(unknown, "project_id", "cash flows for a project not in the projects file", unknown_fix)
-        stats.append(typed.group_by("project_id").agg(pl.col("amount").abs().sum().alias("total"),
-                                                      pl.col("source_line").min().alias("line")))
+        stats.append(block_stats)
         pending += stats[-1].height
         if len(stats) >= 32 and pending >= max(merged, 1 << 16):   # merge when the new rows are as many as
             stats = [_flow_stats(stats)]                            # the merged ones: linear in the file
@@ -308,13 +310,22 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
     return source.rows, _flow_stats(stats), source.sha256
 
 
+def _block_stats(typed: pl.DataFrame) -> tuple[pl.DataFrame, list]:
+    """Per project of a typed block: sum of absolute amounts and first line; and its distinct ids."""
+    return (typed.group_by("project_id").agg(pl.col("amount").abs().sum().alias("total"),
+                                             pl.col("source_line").min().alias("line")),
+            typed["project_id"].unique().to_list())
+
+
 def _checked_blocks(source, name: str, allow_extreme_rates: bool) -> Iterator[tuple]:
-    """``(frame, plain_ascii, spaceless, bytes_read, typed)`` of each block in file order, parsed and
-    typed on worker threads (:meth:`CsvSource.read_parallel`); ``typed`` is the block typed by
-    :func:`clean_flow_block`, or None when the block has a fault to report cell by cell."""
+    """``(frame, plain_ascii, spaceless, bytes_read, done_ahead)`` of each block in file order, parsed
+    and typed on worker threads (:meth:`CsvSource.read_parallel`). ``done_ahead`` is the block typed
+    by :func:`clean_flow_block` with its :func:`_block_stats`, or None when the block has a fault
+    to report cell by cell."""
     def typer(frame, plain, spaceless):
-        return clean_flow_block(frame, source=name, plain_ascii=plain, spaceless=spaceless,
-                                allow_extreme_rates=allow_extreme_rates)
+        typed = clean_flow_block(frame, source=name, plain_ascii=plain, spaceless=spaceless,
+                                 allow_extreme_rates=allow_extreme_rates)
+        return None if typed is None else (typed, *_block_stats(typed))
     return source.read_parallel(typer, workers=max(1, min(2, os.cpu_count() or 1)))
 
 
