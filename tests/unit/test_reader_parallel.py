@@ -37,24 +37,28 @@ def _read(path, parallel: bool):
     issues = Issues()
     source = open_table(path, CASH_FLOW_COLUMNS, issues)
     source.block_bytes = 300
-    seen = []
+    seen, on_workers = [], 0
     if parallel:
         for frame, plain, spaceless, read, typed in source.read_parallel(
                 lambda f, p, s: (f.height, p, s), workers=2, ahead=3):
             assert typed is None or typed == (frame.height, plain, spaceless)
+            on_workers += typed is not None
             seen.append((frame, plain, spaceless, read))
     else:
         seen = list(source.read_ahead())
     source.finish()
-    return seen, [(i.file, i.line, i.column, i.value, i.problem, i.fix) for i in issues], (source.rows, source.blank_lines, source.broken, source.sha256)
+    issues = [(i.file, i.line, i.column, i.value, i.problem, i.fix) for i in issues]
+    return seen, issues, (source.rows, source.blank_lines, source.broken, source.sha256), on_workers
 
 
 @pytest.mark.parametrize("faults", [False, True])
 def test_worker_threads_read_what_one_thread_reads(tmp_path, faults):
     path = tmp_path / "flows.csv"
     path.write_bytes(_file(tmp_path, faults))
-    one, one_issues, one_state = _read(path, parallel=False)
-    many, many_issues, many_state = _read(path, parallel=True)
+    one, one_issues, one_state, _ = _read(path, parallel=False)
+    many, many_issues, many_state, on_workers = _read(path, parallel=True)
+    # regular blocks were parsed on the workers; with faults, the others on the reading thread
+    assert on_workers == len(many) if not faults else 0 < on_workers < len(many)
     assert len(one) > 20 and len(many) == len(one)
     for (a, pa_, sa, ra), (b, pb, sb, rb) in zip(one, many):
         assert a.equals(b) and (pa_, sa, ra) == (pb, sb, rb)
@@ -65,3 +69,33 @@ def test_worker_threads_read_what_one_thread_reads(tmp_path, faults):
         assert any("fields where the header has" in k for k in kinds)
         assert any("UTF-8" in k for k in kinds)
         assert pl.concat([f for f, *_ in many])["project_id"].str.contains('"').sum() == 0
+
+
+NAMES = ["project_id", "period", "amount", "line"]
+
+
+@pytest.mark.parametrize("block", [
+    b"P1,1,2\nP1,2,3\n",
+    b"P 1, 1 ,2\nP1,,\n",                       # spaces kept, empty cells as ""
+])
+def test_a_regular_block_parses_as_the_line_splitter_parses_it(block):
+    from ratescape.load.reader import CsvSource, _parse_plain, _parse_regular
+    fast = _parse_regular(block, NAMES, 7)
+    src = CsvSource(None, "f.csv", NAMES[:-1], 0, [])
+    ref = _parse_plain(block.decode(), 3, 7, src)
+    ref.columns = NAMES
+    assert fast is not None and fast.equals(ref) and not src.broken
+
+
+@pytest.mark.parametrize("block", [
+    b"P1,1,2\nP1,2\nP1,2,3,4\n",                # ragged lines whose commas total right
+    b"P1,1,2\nP1,2\n",                           # too few fields
+    b"P1,1,2\n\nP1,2,3\n",                       # blank line
+    b"P1,1,2\r\nP1,2,3\r\n",                     # carriage returns (left to the line splitter)
+    b'"P1",1,2\n',                               # a quote
+    b"P\xff1,1,2\n",                             # invalid UTF-8
+    b"P1,1,2",                                    # no line end
+])
+def test_an_irregular_block_is_left_to_the_reading_thread(block):
+    from ratescape.load.reader import _parse_regular
+    assert _parse_regular(block, NAMES, 2) is None
