@@ -275,8 +275,8 @@ def _plain_ascii(block: bytes) -> bool:
 def _cut_outside_quotes(data: bytes) -> int:
     """Index of the last b'\\n' in ``data`` preceded by an even number of quotes, or -1."""
     pos = data.rfind(b"\n")
-    if pos < 0:
-        return -1
+    if pos < 0 or b'"' not in data:          # no quote (the usual block): a search, not a count
+        return pos
     parity = data.count(b'"', 0, pos + 1) & 1
     while parity:
         prev = data.rfind(b"\n", 0, pos)
