@@ -98,3 +98,26 @@ def test_a_run_stopped_after_its_groups_were_committed_resumes_to_the_same_rows(
     finally:
         con.close()
     assert keys[0] == keys[1] and notes == 1 and status == "done"
+
+
+def test_the_groups_stage_shows_progress_with_time_left(runs, monkeypatch, capsys):
+    # off a terminal a plain line every 10 s and at the end (run/progress.py); every line at once here
+    import ratescape.run.progress as progress_module
+    db, _, _ = runs
+    real = progress_module.Progress.__init__
+
+    def every_update(self, *args, **kw):
+        real(self, *args, **{**kw, "interval": 0.0})
+
+    monkeypatch.setattr(progress_module.Progress, "__init__", every_update)
+    capsys.readouterr()
+    screen_portfolio(db, grid=str(demo_data_dir() / "grid.toml"), budgets={}, progress=True)
+    err = capsys.readouterr().err
+    con = duckdb.connect(str(db), read_only=True)
+    try:
+        groups = con.execute("SELECT count(DISTINCT group_name) FROM projects WHERE group_name <> ''").fetchone()[0]
+    finally:
+        con.close()
+    lines = [line for line in err.splitlines() if line.startswith("alternatives: ") and " s left" in line]
+    assert len(lines) == groups and lines[-1].startswith(f"alternatives: {groups}/{groups} groups, ")
+    assert f"alternatives: {groups:,} groups decided over " in err

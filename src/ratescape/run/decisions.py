@@ -17,6 +17,8 @@ of :mod:`ratescape.decide`, and writes
 """
 from __future__ import annotations
 
+import time
+
 import numpy as np
 import pyarrow as pa
 
@@ -41,7 +43,7 @@ from ratescape.evaluate.kernel import (
 from ratescape.evaluate.tax import carry_forward_adjustment
 from ratescape.run.evaluation import carries_losses
 from ratescape.run.plan import AFTER_TAX_CLASSES, multiplier_for, scenario_multipliers
-from ratescape.run.progress import log
+from ratescape.run.progress import Progress, log
 from ratescape.run.rationing_stage import ration_summary
 from ratescape.run.read import chunk_amounts
 from ratescape.store.database import append_rows, fetch_frame, transaction
@@ -120,13 +122,21 @@ def check_alternatives(con, spec) -> None:
                 "assumption)")
 
 
-def decide_groups(con, plan) -> None:
+def decide_groups(con, plan, *, progress: bool = True) -> None:
     """Decisions and frontiers of every group of alternatives (outside any transaction: each batch
-    of whole groups is committed, so that memory stays bounded; the run is marked done later)."""
+    of whole groups is committed, so that memory stays bounded; the run is marked done later).
+    ``progress``: a bar, or off a terminal a line every 10 s, with the time left."""
     projects = _projects(con)
     groups = _group_members(projects)
     if groups:
-        _decide_groups(con, plan, groups, chunk_amounts)
+        t0 = time.perf_counter()
+        bar = Progress(len(groups), "alternatives", unit="group", enabled=progress)
+        try:
+            _decide_groups(con, plan, groups, chunk_amounts, bar.update)
+        finally:
+            bar.close()
+        log(f"alternatives: {len(groups):,} groups decided over {plan.scenarios.size:,} scenarios in "
+            f"{time.perf_counter() - t0:.1f} s")
 
 
 def decide_run(con, plan) -> None:
@@ -301,7 +311,7 @@ def _group_measure(plan, A, invest, horizon, extras, basis, tv_tensor):
 GROUP_ROWS_PER_INSERT = 250_000
 
 
-def _decide_groups(con, plan, groups: dict, reader) -> None:
+def _decide_groups(con, plan, groups: dict, reader, done=lambda n: None) -> None:
     S = plan.scenarios.size
     spec = plan.spec
     x_name = "discount_rate" if spec.discount_basis == "nominal" else "real_rate"
@@ -399,6 +409,7 @@ def _decide_groups(con, plan, groups: dict, reader) -> None:
         if len(rows["scenario_id"]) >= GROUP_ROWS_PER_INSERT:   # bounded memory with thousands of groups
             commit(rows, fr)
             rows, fr = {k: [] for k in rows}, {k: [] for k in fr}
+        done(1)
     commit(rows, fr, _alternatives_note(spec, statements))
 
 

@@ -57,7 +57,7 @@ def _finalize(con, plan: Plan, writer: "ChunkWriter | None" = None, reader=None,
         log(f"result rows: the last chunks stored {time.perf_counter() - t0:.1f} s after the rank pass")
     ration_stage(con, plan, progress=progress)
     t0 = time.perf_counter()
-    decide_groups(con, plan)
+    decide_groups(con, plan, progress=progress)
     table = pa.table({"project_key": pa.array(np.arange(plan.project_count, dtype=np.int32)),
                       **{k: pa.array(v, mask=(v < 0) if v.dtype.kind == "i" else ~np.isfinite(v))
                          for k, v in stats.items()}})
