@@ -240,3 +240,30 @@ def test_refused_input_is_not_staged_and_validation_matches_the_in_memory_path(i
     assert streamed.value.message == memory.value.message
     assert "column 'project_id': cash flows for a project not in the projects file (value 'F7')" in memory.value.message
     assert not (tmp_path / "x.duckdb").exists() and _staging_left(tmp_path) == []
+
+
+def test_a_load_removes_the_staging_left_by_a_killed_load_but_not_a_running_ones(inputs, tmp_path, capsys):
+    # a killed load cannot remove its staging folder; the next load of the same database removes it
+    # once its owner (host and process id, written when the folder is made) has ended
+    import os
+    import socket
+    import subprocess
+    import sys
+    p, c = inputs
+    ended = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True,
+                           text=True, check=True)
+    host = socket.gethostname()
+    owners = {".x.duckdb.load-killed": f"{host} {int(ended.stdout)}",      # its process has ended
+              ".x.duckdb.load-running": f"{host} {os.getpid()}",            # alive: a load under way
+              ".x.duckdb.load-elsewhere": f"another-host-{host} 1",         # another machine's
+              ".other.duckdb.load-killed": f"{host} {int(ended.stdout)}"}    # another database's
+    for name, owner in owners.items():
+        (tmp_path / name).mkdir()
+        (tmp_path / name / "flows_000000.parquet").write_bytes(b"staged")
+        (tmp_path / name / portfolio_writer.STAGING_OWNER).write_text(owner + "\n")
+    (tmp_path / ".x.duckdb.load-unowned").mkdir()                            # no owner file: kept
+    capsys.readouterr()
+    api.load_portfolio(p, c, tmp_path / "x.duckdb", progress=True)
+    assert sorted(_staging_left(tmp_path)) == [".other.duckdb.load-killed", ".x.duckdb.load-elsewhere",
+                                               ".x.duckdb.load-running", ".x.duckdb.load-unowned"]
+    assert "load: removed 1 staging folder(s) left beside x.duckdb by a load that was killed" in capsys.readouterr().err

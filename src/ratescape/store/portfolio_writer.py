@@ -1,6 +1,8 @@
 """Write a validated portfolio into the database as one transaction."""
 from __future__ import annotations
 
+import os
+import socket
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -151,6 +153,40 @@ def check_disk_space(folder: Path, needed: int, what: str) -> None:
                              "space there, or give --db a path on a disk with more room")
 
 
+#: File in a staging folder naming the host and process that staged it (a later load removes the
+#: folder once that process has ended without removing it: killed, or the machine stopped)
+STAGING_OWNER = "owner"
+
+
+def _process_alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:          # another user's process: alive
+        return True
+    return True
+
+
+def remove_stale_staging(folder: Path, db_name: str) -> int:
+    """Remove the staging folders ``.<db_name>.load-*`` in ``folder`` whose owner (a process of this
+    host) has ended; return how many. Folders of running loads, of other hosts (a shared disk) and
+    without an owner file are kept."""
+    import shutil
+    removed = 0
+    host = socket.gethostname()
+    for stale in folder.glob(f".{db_name}.load-*"):
+        try:
+            owner_host, pid = (stale / STAGING_OWNER).read_text().split()
+            if owner_host != host or _process_alive(int(pid)):
+                continue
+        except (OSError, ValueError):
+            continue
+        shutil.rmtree(stale, ignore_errors=True)
+        removed += 1
+    return removed
+
+
 def load_streamed(db, projects_path, cash_flows_path=None, *, allow_extreme_rates: bool = False,
                   progress=None, log=None) -> dict:
     """Check the CSV files block by block, stage them, then replace the database's portfolio atomically.
@@ -172,7 +208,11 @@ def load_streamed(db, projects_path, cash_flows_path=None, *, allow_extreme_rate
     sizes = sum(Path(p).stat().st_size for p in (projects_path, cash_flows_path) if p and Path(p).is_file())
     # before reading: a long-form file stages about as many lines as it has (~30 bytes a line)
     check_disk_space(folder, estimated_disk_bytes(sizes // 30, 0), f"loading {sizes / 2**20:.0f} MB of CSV")
+    removed = remove_stale_staging(folder, db.name)
+    if removed and log is not None:
+        log(f"load: removed {removed} staging folder(s) left beside {db.name} by a load that was killed")
     work = Path(tempfile.mkdtemp(prefix=f".{db.name}.load-", dir=folder))
+    (work / STAGING_OWNER).write_text(f"{socket.gethostname()} {os.getpid()}\n")
     try:
         sink = StagingSink(work)
         scan = scan_portfolio(projects_path, cash_flows_path, allow_extreme_rates=allow_extreme_rates,
