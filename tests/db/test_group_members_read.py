@@ -63,8 +63,8 @@ def test_a_run_stopped_after_its_groups_were_committed_resumes_to_the_same_rows(
     # the groups' rows are committed in batches before the run's final transaction; a run stopped
     # in that transaction has them stored but is not done, and its resume decides every group
     # again without duplicating a row
-    import ratescape.run.decisions as decisions
     import ratescape.run.screen as screen_module
+    from ratescape.run import decisions
     db, one_block, _ = runs
     monkeypatch.setattr(decisions, "GROUP_ROWS_PER_INSERT", 1000)            # several commits
 
@@ -85,11 +85,12 @@ def test_a_run_stopped_after_its_groups_were_committed_resumes_to_the_same_rows(
     assert screen_portfolio(db, resume=run_id) == run_id
     con = duckdb.connect(str(db), read_only=True)
     try:
-        for table, (order, columns) in TABLES.items():
-            def rows(rid):
-                return con.execute(f"SELECT {order}, {columns} FROM {table} WHERE run_id = ? ORDER BY {order}",
-                                   [rid]).fetchall()
-            assert rows(run_id) == rows(one_block), table
+        def rows(table, rid):
+            order, columns = TABLES[table]
+            return con.execute(f"SELECT {order}, {columns} FROM {table} WHERE run_id = ? ORDER BY {order}",
+                               [rid]).fetchall()
+        for table in TABLES:
+            assert rows(table, run_id) == rows(table, one_block), table
         keys = con.execute("SELECT count(*), count(DISTINCT (group_name, scenario_id)) FROM group_decisions "
                            "WHERE run_id = ?", [run_id]).fetchone()
         notes = con.execute("SELECT count(*) FROM run_notes WHERE run_id = ? AND topic = 'alternatives'",

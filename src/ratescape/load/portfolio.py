@@ -22,15 +22,24 @@ from __future__ import annotations
 
 import hashlib
 import os
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable, Iterator, Protocol
+from typing import Protocol
 
 import polars as pl
 
-from .columns import BASES, CASH_FLOW_COLUMNS, DEPRECIATION_CONVENTIONS, DEPRECIATION_METHODS, KINDS, PARAMETRIC_MONEY, PROJECT_COLUMNS
 from ..errors import Issue, Issues, ValidationError, count_more, room_for
 from .clean_blocks import clean_flow_block
+from .columns import (
+    BASES,
+    CASH_FLOW_COLUMNS,
+    DEPRECIATION_CONVENTIONS,
+    DEPRECIATION_METHODS,
+    KINDS,
+    PARAMETRIC_MONEY,
+    PROJECT_COLUMNS,
+)
 from .reader import open_table
 from .validate import Cells, check_unique_id_frame
 

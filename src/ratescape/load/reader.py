@@ -22,10 +22,10 @@ import difflib
 import hashlib
 import io
 from collections import deque
+from collections.abc import Callable, Iterator
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable, Iterator
 
 import polars as pl
 
@@ -100,7 +100,7 @@ class CsvSource:
     plain_ascii: bool = False        # the block last yielded holds printable ASCII and line ends only
     spaceless: bool = False          # ... and no space: its cells need no stripping
     _structure_issues: int = 0
-    _hash: "hashlib._Hash" = field(default_factory=hashlib.sha256)
+    _hash: hashlib._Hash = field(default_factory=hashlib.sha256)
 
     @property
     def sha256(self) -> str | None:
