@@ -256,6 +256,8 @@ def test_progress_of_the_rationing_stage_shows_time_left(tmp_path, monkeypatch, 
     assert ("capital rationing: 14 projects x 30 scenarios in 4 block(s) of up to 8 scenarios read from the "
             "worth files (4 to solve;") in err
     assert "capital rationing: 30/30 scenarios, " in err and " s left" in err
+    # the summary's two passes over the 4 blocks (selections, then worths for the regret)
+    assert "capital rationing summary: 8/8 blocks, " in err
 
 
 def test_a_portfolio_whose_rationing_cannot_fit_is_refused_before_the_run_starts(tmp_path, monkeypatch):

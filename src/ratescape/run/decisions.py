@@ -139,12 +139,12 @@ def decide_groups(con, plan, *, progress: bool = True) -> None:
             f"{time.perf_counter() - t0:.1f} s")
 
 
-def decide_run(con, plan) -> None:
+def decide_run(con, plan, *, progress: bool = True) -> None:
     """The rationing summary (inside the run's final transaction; capital rationing itself was
     solved and stored block by block before it, by :func:`ratescape.run.rationing_stage.ration_stage`,
     and the groups decided by :func:`decide_groups`)."""
     if plan.spec.budgets:
-        ration_summary(con, plan)
+        ration_summary(con, plan, progress=progress)
 
 
 def _group_members(projects) -> dict:

@@ -265,10 +265,11 @@ def _stored_block(con, plan, a, b):
     return selected, objective
 
 
-def ration_summary(con, plan, *, cell_limit: int | None = None) -> None:
+def ration_summary(con, plan, *, cell_limit: int | None = None, progress: bool = True) -> None:
     """Selection shares, core portfolio and min-max regret from the stored blocks (in the caller's
     transaction): ``portfolio_summary``, ``portfolio_regret``, ``project_summary`` shares, and a
-    run note when mandatory projects do not fit some scenarios."""
+    run note when mandatory projects do not fit some scenarios. ``progress``: the two passes over
+    the blocks (selections, then worths for the regret) with the time left."""
     if not plan.spec.budgets:
         return
     P, S = plan.project_count, plan.scenarios.size
@@ -279,11 +280,13 @@ def ration_summary(con, plan, *, cell_limit: int | None = None) -> None:
     tally = SelectionTally(P, S, plan.weights)
     optima = PortfolioSet(P)
     objective = np.full(S, np.nan)
+    bar = Progress(2 * len(blocks), "capital rationing summary", unit="block", enabled=progress)
     for a, b in blocks:
         sel, obj = _stored_block(con, plan, a, b)
         tally.add(sel)
         optima.add(sel, obj)
         objective[a:b] = obj
+        bar.update()
     infeasible = con.execute("SELECT count(*) FROM portfolios WHERE run_id = ? AND status = 'infeasible'",
                              [plan.run_id]).fetchall()[0][0]
     if infeasible and inputs["mandatory"].any():
@@ -303,9 +306,11 @@ def ration_summary(con, plan, *, cell_limit: int | None = None) -> None:
             pw = plan.worth_files.read_block("pw", a, b).T
             regrets.add(pw, objective[a:b], inputs["budgets"], inputs["scenario_class"][a:b])
             del pw
+            bar.update()
         regret = regrets.result()
         if regret.best >= 0:
             best = np.asarray(regret.best_selected, dtype=bool)
+    bar.close()
     threshold = float(plan.spec.decisions.get("core_share", 0.8))
     _insert(con, "portfolio_summary", {"project_id": ids.tolist(), "selected_share": tally.share(),
                                        "selected_probability": tally.probability(), "in_core": tally.core(threshold),

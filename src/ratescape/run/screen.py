@@ -71,7 +71,7 @@ def _finalize(con, plan: Plan, writer: "ChunkWriter | None" = None, reader=None,
         append_rows(con, "scenario_ranks", pa.table({
             "scenario_id": pa.array(np.arange(plan.scenarios.size, dtype=np.int32)),
             **{k: arrow_floats(v) for k, v in agreement.items()}}), plan.run_id)
-        decide_run(con, plan)
+        decide_run(con, plan, progress=progress)
         overflow = write_overflow_note(con, plan.run_id)
         con.execute("UPDATE runs SET status = 'done', finished_at = ?, message = NULL WHERE run_id = ?",
                     [utc_now(), plan.run_id])
