@@ -1,6 +1,6 @@
 """One-query typing of a cash-flow block that holds no fault (the loader's fast path).
 
-A long-form cash-flow file is read in blocks of about a megabyte (:mod:`ratescape.load.reader`)
+A long-form cash-flow file is read in blocks of a few megabytes (:mod:`ratescape.load.reader`)
 and almost every block of a good file is clean. :class:`ratescape.load.validate.Cells` checks a
 block cell by cell with one Polars operation per check and reports each bad cell; that is the
 reference. Here the same parsing and the same conditions run as one lazy query whose rows carry
