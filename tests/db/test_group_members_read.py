@@ -101,7 +101,7 @@ def test_a_run_stopped_after_its_groups_were_committed_resumes_to_the_same_rows(
     assert keys[0] == keys[1] and notes == 1 and status == "done"
 
 
-def test_the_groups_stage_shows_progress_with_time_left(runs, monkeypatch, capsys):
+def test_the_groups_and_rank_stages_show_progress_with_time_left(runs, monkeypatch, capsys):
     # off a terminal a plain line every 10 s and at the end (run/progress.py); every line at once here
     import ratescape.run.progress as progress_module
     db, _, _ = runs
@@ -122,3 +122,5 @@ def test_the_groups_stage_shows_progress_with_time_left(runs, monkeypatch, capsy
     lines = [line for line in err.splitlines() if line.startswith("alternatives: ") and " s left" in line]
     assert len(lines) == groups and lines[-1].startswith(f"alternatives: {groups}/{groups} groups, ")
     assert f"alternatives: {groups:,} groups decided over " in err
+    # the rank pass over blocks of scenarios (the whole demo grid is one block)
+    assert "ranks: 1/1 blocks, " in err

@@ -26,7 +26,7 @@ class Progress:
         self.interval = interval
         self.count = 0
         self.start = time.monotonic()
-        self.last = 0.0
+        self.last = self.start           # the first line after `interval` (a short stage prints its last only)
         self.bar = None
         if enabled and getattr(self.stream, "isatty", lambda: False)():
             from tqdm import tqdm

@@ -18,7 +18,7 @@ from ratescape.decide.rank_kernel import (
 )
 from ratescape.run.evaluation import chunk_worths
 from ratescape.run.plan import Plan
-from ratescape.run.progress import log
+from ratescape.run.progress import Progress, log
 from ratescape.run.read import chunk_amounts
 from ratescape.store.database import DB_THREAD_PREFIX
 from ratescape.store.worth_files import RankFiles
@@ -47,7 +47,7 @@ def ensure_worth_files(con, plan: Plan, chunks=None) -> None:
         plan.worth_files.write(c, pw, pi, before, investment=fixed)
 
 
-def rank_statistics(con, plan: Plan):
+def rank_statistics(con, plan: Plan, *, progress: bool = False):
     """Per-project rank statistics by present worth and by profitability index, per scenario block.
 
     Reads the run's worth files one block of scenarios at a time (memory bounded by the block,
@@ -57,7 +57,7 @@ def rank_statistics(con, plan: Plan):
     block's ranks go to per-chunk rank files, from which exact medians are taken one chunk at a
     time. Also returns, per scenario, Spearman's rho of its ranking against the base scenario's
     (by PW, and by PI over the projects that have one) and, up to KENDALL_MAX_PROJECTS projects,
-    Kendall's tau-b.
+    Kendall's tau-b. ``progress``: the blocks ranked, with the time left.
     """
     ensure_worth_files(con, plan)
     P, S = plan.project_count, plan.scenarios.size
@@ -103,6 +103,7 @@ def rank_statistics(con, plan: Plan):
             ThreadPoolExecutor(max_workers=1, thread_name_prefix=f"{DB_THREAD_PREFIX}rank-write") as writes:
         loaded = reads.submit(load, 0)
         stored = {}
+        bar = Progress(len(blocks), "ranks", unit="block", enabled=progress)
         for n, (a, b) in enumerate(blocks):
             loaded.result()
             if n + 1 < len(blocks):
@@ -120,6 +121,8 @@ def rank_statistics(con, plan: Plan):
                 if a <= base < b:
                     st["base"][:] = ranks[base - a]
             stored[n] = writes.submit(store, n)
+            bar.update()
+        bar.close()
         for job in stored.values():
             job.result()
     out = {}

@@ -48,7 +48,7 @@ def _finalize(con, plan: Plan, writer: "ChunkWriter | None" = None, reader=None,
     capital rationing (committed block by block), the groups' decisions (committed a batch of groups
     at a time), then the summaries and the run marked done in one transaction."""
     t0 = time.perf_counter()
-    stats, agreement = rank_statistics(reader if reader is not None else con, plan)
+    stats, agreement = rank_statistics(reader if reader is not None else con, plan, progress=progress)
     log(f"ranks: {plan.project_count:,} projects x {plan.scenarios.size:,} scenarios in "
         f"{time.perf_counter() - t0:.1f} s")
     if writer is not None:
