@@ -163,7 +163,7 @@ def test_block_size_and_read_mode_do_not_change_a_good_load(tmp_path, monkeypatc
 
 
 SLOW = pytest.mark.skipif(os.environ.get("RATESCAPE_SLOW") != "1",
-                          reason="writes a ~300 MB file; set RATESCAPE_SLOW=1 to run")
+                          reason="writes files of ~300 MB and ~900 MB; set RATESCAPE_SLOW=1 to run")
 
 CHILD = """
 import resource, sys
