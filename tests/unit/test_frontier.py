@@ -277,3 +277,34 @@ def test_grid_values_with_rounding_noise():
     assert len(fr) == len(ref) > 0
     np.testing.assert_allclose(fr.x, ref.x, atol=1e-12)
     check_points(fr, worth_at, floor=1e-3 * np.abs(values).max())
+
+
+def test_bracketed_roots_agree_with_scipy_find_root():
+    """The vectorised Chandrupatla solver behind the frontier against SciPy's implementation of the
+    same method (scipy.optimize.elementwise.find_root, the reference library) on bracketed roots of
+    smooth, steep, flat-ended and polynomial functions; every root converged and f(t) near 0."""
+    from scipy.optimize import elementwise
+
+    from ratescape.decide.frontier import _bracketed_roots
+
+    rng = np.random.default_rng(11)
+    n = 400
+    shift = rng.uniform(0.001, 0.999, n)
+    kind = rng.integers(0, 4, n)
+
+    def f(t, s, k):
+        return np.select([k == 0, k == 1, k == 2, k == 3],
+                         [np.tanh(40 * (t - s)),                      # steep
+                          (t - s) ** 3,                               # flat at the root
+                          np.exp(t) - np.exp(s),                      # smooth
+                          (t - s) * (t + 2.0) * (1.5 - t) - 1e-12])   # cubic, root near s
+    f0, f1 = f(np.zeros(n), shift, kind), f(np.ones(n), shift, kind)
+    t, ok = _bracketed_roots(f, f0, f1, (shift, kind))
+    ref = elementwise.find_root(f, (np.zeros(n), np.ones(n)), args=(shift, kind))
+    assert ok.all() and ref.success.all()
+    np.testing.assert_allclose(t, ref.x, rtol=0, atol=1e-12)
+    assert np.all(np.abs(f(t, shift, kind)) <= 1e-10)
+    # an exact zero at an end, and elements whose function is not finite, are reported
+    t2, ok2 = _bracketed_roots(lambda tt, s: np.where(s > 0, np.nan, tt - 0.25), np.array([-0.25, -0.25]),
+                               np.array([0.75, 0.75]), (np.array([0.0, 1.0]),))
+    assert ok2.tolist() == [True, False] and t2[0] == 0.25 and np.isnan(t2[1])

@@ -12,6 +12,8 @@ import math
 
 import numpy as np
 
+from ratescape.evaluate.bracketing import chandrupatla
+
 
 def index_and_fixed_numpy(pw, outlay_pw, out):
     """``compiled._index_from_worth``: PI (S, P) into ``out`` (may be ``pw`` itself) and the fixed
@@ -119,15 +121,6 @@ def _worth_at(lines, p, real, frozen, escalation, multiplier, tau, uniform_step,
     return total
 
 
-def _larger(a, b):
-    """Python's ``max(a, b)`` elementwise (as compiled code evaluates it)."""
-    return np.where(b > a, b, a)
-
-
-def _smaller(a, b):
-    return np.where(b < a, b, a)
-
-
 def bracketed_roots_numpy(lines, real, frozen, escalation, multiplier, tau, uniform_step, move, rate, inflation,
                           shift, rows, low, high, xatol, xrtol, real_basis):
     """``compiled._bracketed_roots``: Chandrupatla's method on every row at once, in lockstep (each
@@ -137,58 +130,16 @@ def bracketed_roots_numpy(lines, real, frozen, escalation, multiplier, tau, unif
     nonlinear function without using derivatives", Advances in Engineering Software 28(3), 1997,
     pp. 145-149, with the steps and tests of ``scipy.optimize.elementwise.find_root``."""
     J = rows.size
-    out = np.full(J, np.nan)
     if J == 0:
-        return out
-    fatol = 2.2250738585072014e-308
+        return np.full(0, np.nan)
 
     def worth(idx, x):
         return _worth_at(lines, rows[idx], real, frozen, escalation, multiplier, tau, uniform_step, move, x, rate,
                          inflation, shift, real_basis)
 
+    all_rows = np.arange(J)
     x1 = np.array(low, dtype=float)
     x2 = np.array(high, dtype=float)
-    all_rows = np.arange(J)
     f1 = worth(all_rows, x1)
     f2 = worth(all_rows, x2)
-    x3, f3 = x2.copy(), f2.copy()
-    t = np.full(J, 0.5)
-    act = all_rows
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        for it in range(2000):
-            if act.size == 0:
-                break
-            a1, b1, a2, b2 = x1[act], f1[act], x2[act], f2[act]
-            first = np.abs(b1) < np.abs(b2)
-            xmin = np.where(first, a1, a2)
-            fmin = np.where(first, b1, b2)
-            hit = np.abs(fmin) <= fatol
-            out[act[hit]] = xmin[hit]
-            stop = hit | (np.sign(b1) == np.sign(b2)) | ~(np.isfinite(a1) & np.isfinite(a2)) \
-                | (np.isnan(b1) & np.isnan(b2))
-            dx = np.abs(a2 - a1)
-            tol = np.abs(xmin) * xrtol + xatol
-            close = ~stop & (dx < tol)
-            out[act[close]] = xmin[close]
-            go = ~stop & ~close
-            act, dx, tol = act[go], dx[go], tol[go]
-            if act.size == 0:
-                break
-            a1, b1, a2, b2, a3, b3 = x1[act], f1[act], x2[act], f2[act], x3[act], f3[act]
-            if it > 0:                                   # the first step bisects (t = 0.5)
-                xi1 = (a1 - a2) / (a3 - a2)
-                phi1 = (b1 - b2) / (b3 - b2)
-                alpha = (a3 - a1) / (a2 - a1)
-                iqi = ((1.0 - np.sqrt(1.0 - xi1)) < phi1) & (phi1 < np.sqrt(xi1))
-                tt = np.where(iqi, b1 / (b1 - b2) * b3 / (b3 - b2) - alpha * b1 / (b3 - b1) * b2 / (b2 - b3), 0.5)
-                tl = 0.5 * tol / dx
-                t[act] = _smaller(_larger(tt, tl), 1.0 - tl)
-            x = a1 + t[act] * (a2 - a1)
-            f = worth(act, x)
-            same = np.sign(f) == np.sign(b1)
-            x3[act] = np.where(same, a1, a2)
-            f3[act] = np.where(same, b1, b2)
-            x2[act] = np.where(same, a2, a1)
-            f2[act] = np.where(same, b2, b1)
-            x1[act], f1[act] = x, f
-    return out
+    return chandrupatla(worth, x1, x2, f1, f2, xatol=xatol, xrtol=xrtol)
