@@ -38,11 +38,17 @@ def store_portfolio(con, portfolio: Portfolio) -> int:
         con.register("incoming_flows", flows.to_arrow())
         con.execute(f"INSERT INTO cash_flows ({', '.join(CASH_FLOW_COLUMNS)}) SELECT * FROM incoming_flows")
         con.unregister("incoming_flows")
-        load_id = con.execute("SELECT coalesce(max(load_id), 0) + 1 FROM loads").fetchone()[0]
-        con.execute("INSERT INTO loads VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", [
-            load_id, datetime.now(timezone.utc).replace(tzinfo=None), portfolio.files.get("projects"),
-            portfolio.files.get("cash_flows"), portfolio.inputs_hash, projects.height, flows.height,
-            __version__, "\n".join(portfolio.notes)])
+        load_id = _record_load(con, portfolio.files, portfolio.inputs_hash, projects.height, flows.height,
+                               portfolio.notes)
+    return load_id
+
+
+def _record_load(con, files: dict, inputs_hash: str, projects: int, lines: int, notes: list[str]) -> int:
+    """The ``loads`` row of a load (inside its transaction); returns its load id."""
+    load_id = con.execute("SELECT coalesce(max(load_id), 0) + 1 FROM loads").fetchone()[0]
+    con.execute("INSERT INTO loads VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", [
+        load_id, datetime.now(timezone.utc).replace(tzinfo=None), files.get("projects"), files.get("cash_flows"),
+        inputs_hash, projects, lines, __version__, "\n".join(notes)])
     return load_id
 
 
@@ -318,9 +324,6 @@ def _replace_portfolio(con, scan, files: dict[str, list[Path]], projects_source:
         if scan.file_flow_rows:
             run(f"INSERT INTO cash_flows ({flows}) SELECT {flows} FROM {_parquet(files['flows'])}",
                 f"{scan.file_flow_rows:,} lines of the cash-flow file")
-        load_id = con.execute("SELECT coalesce(max(load_id), 0) + 1 FROM loads").fetchone()[0]
-        con.execute("INSERT INTO loads VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", [
-            load_id, datetime.now(timezone.utc).replace(tzinfo=None), scan.files.get("projects"),
-            scan.files.get("cash_flows"), scan.inputs_hash, scan.project_count, scan.cash_flow_rows,
-            __version__, "\n".join(scan.notes)])
+        load_id = _record_load(con, scan.files, scan.inputs_hash, scan.project_count, scan.cash_flow_rows,
+                               scan.notes)
     return load_id
