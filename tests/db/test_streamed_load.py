@@ -99,6 +99,63 @@ def test_streamed_load_in_many_blocks_equals_one_block_and_the_in_memory_load(in
         [(150, expected + 4000, info["inputs_hash"])]
 
 
+def test_simple_blocks_typed_from_their_bytes_and_staged_in_the_background_load_the_same_rows(tmp_path, monkeypatch):
+    """A file of printable ASCII without quotes or spaces (the usual export): its blocks are typed
+    straight from their bytes on the worker threads and staged by the writing thread, many small
+    files; the database equals the in-memory load's, and the physical order of the lines is the
+    file's (``source_line`` ascending in the table as stored)."""
+    from ratescape.load import portfolio as portfolio_module
+    (tmp_path / "p.csv").write_text(PROJECTS)
+    flows = "".join(line.replace('"', "") + "\n" for line in _flows().splitlines() if line)
+    assert " " not in flows
+    (tmp_path / "c.csv").write_text(flows)
+    p, c = tmp_path / "p.csv", tmp_path / "c.csv"
+    typed_from_bytes = []
+    real = portfolio_module.clean_flow_bytes
+
+    def counting(*args, **kwargs):
+        out = real(*args, **kwargs)
+        typed_from_bytes.append(out is not None)
+        return out
+    monkeypatch.setattr(portfolio_module, "clean_flow_bytes", counting)
+    monkeypatch.setattr(reader, "BLOCK_BYTES", 512)
+    monkeypatch.setattr(portfolio_writer, "STAGE_ROWS", 7)
+    many = tmp_path / "many.duckdb"
+    info = api.load_portfolio(p, c, many)
+    assert sum(typed_from_bytes) > 20                     # the path was taken, block after block
+    memory = _in_memory_db(tmp_path / "memory.duckdb", p, c)
+    assert _tables(many) == _tables(memory)
+    lines = [r[0] for r in fetch(many, "SELECT source_line FROM cash_flows WHERE source = 'c.csv'")]
+    assert lines == list(range(2, 2 + len(flows.splitlines()) - 1)) and info["cash_flow_rows"] > len(lines)
+
+
+def test_staged_files_are_written_in_order_and_a_failed_write_is_raised(tmp_path):
+    import polars as pl
+    sink = portfolio_writer.StagingSink(tmp_path)
+    frames = [pl.DataFrame({"project_id": [f"P{k}"] * 3, "source_line": [3 * k, 3 * k + 1, 3 * k + 2]})
+              for k in range(40)]
+    old = portfolio_writer.STAGE_ROWS
+    try:
+        portfolio_writer.STAGE_ROWS = 10
+        for frame in frames:
+            sink.cash_flows(frame)
+        sink.close()
+    finally:
+        portfolio_writer.STAGE_ROWS = old
+        sink.shutdown()
+    assert len(sink.files["flows"]) == 10 and all(f.exists() for f in sink.files["flows"])
+    staged = pl.concat([pl.read_parquet(f) for f in sink.files["flows"]])
+    assert staged.equals(pl.concat(frames))
+    # a write that fails (here: its folder is gone) is raised by close, not lost on the writing thread
+    broken = portfolio_writer.StagingSink(tmp_path / "gone")
+    broken.cash_flows(frames[0])
+    try:
+        with pytest.raises(Exception):
+            broken.close()
+    finally:
+        broken.shutdown()
+
+
 def test_parametric_sql_expansion_gives_the_textbook_lines(tmp_path):
     """One project worked by hand: first cost at 0, benefit and cost at 1..life in their bases, salvage at life."""
     (tmp_path / "p.csv").write_text("project_id,name,first_cost,annual_benefit,benefit_basis,benefit_escalation,"

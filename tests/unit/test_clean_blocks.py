@@ -10,10 +10,10 @@ import numpy as np
 import pytest
 
 from ratescape.errors import Issues
-from ratescape.load.clean_blocks import clean_flow_block
+from ratescape.load.clean_blocks import NUMBER_COLUMNS, clean_flow_block, clean_flow_bytes
 from ratescape.load.columns import CASH_FLOW_COLUMNS, MAX_AMOUNT, MAX_PERIOD
 from ratescape.load.portfolio import CASH_FLOW_SCHEMA, _typed_flows
-from ratescape.load.reader import open_table
+from ratescape.load.reader import byte_profile, open_table, regular_lines
 from ratescape.load.validate import Cells
 
 
@@ -26,13 +26,35 @@ def _blocks(tmp_path, text: str):
     return [(frame, source.plain_ascii, source.spaceless) for frame in source.batches()]
 
 
+def _from_bytes(text: str, columns: list[str], allow_extreme_rates: bool):
+    """The bytes path on the file's rows, or None where the reader would not offer it the block
+    (not regular, or not printable ASCII without spaces: :func:`byte_profile`'s ``simple``)."""
+    block = text.split("\n", 1)[1].encode("utf-8")
+    counts = byte_profile(block)
+    lines = regular_lines(block, len(columns), counts)
+    if not (counts[2] and lines):
+        return None
+    return clean_flow_bytes(block, columns, 2, lines, source="flows.csv", allow_extreme_rates=allow_extreme_rates)
+
+
 def _both(tmp_path, text: str, allow_extreme_rates: bool = False):
-    """(fast frame or None, reference frame, reference issues) of a one-block file."""
+    """(fast frame or None, reference frame, reference issues) of a one-block file.
+
+    Both fast paths are run: the text frame's (:func:`clean_flow_block`) is returned, and the
+    bytes path (:func:`clean_flow_bytes`) is held to the same rule here: None when the reference
+    faults, the reference's frame when it types the block.
+    """
     (frame, plain, spaceless), = _blocks(tmp_path, text)
     fast = clean_flow_block(frame, source="flows.csv", plain_ascii=plain, spaceless=spaceless,
                             allow_extreme_rates=allow_extreme_rates)
     issues = Issues()
     ref = _typed_flows(Cells("flows.csv", frame, issues, {}, allow_extreme_rates, plain, spaceless), "flows.csv")
+    direct = _from_bytes(text, [c for c in frame.columns if c != "line"], allow_extreme_rates)
+    if issues:
+        assert direct is None, text
+    elif direct is not None:
+        assert direct.equals(ref), text
+    _both.direct = direct
     return fast, ref, list(issues)
 
 
@@ -49,6 +71,16 @@ def test_a_clean_block_is_typed_as_the_reference_types_it(tmp_path):
     # blanks: basis real, escalation 0, kind inferred (period-0 outlay = investment, common practice)
     assert fast.row(2) == ("P1", 2, -50.0, "real", 0.0, "cost", "flows.csv", 4)
     assert fast.row(3)[5] == "investment"
+    assert _both.direct is not None and _both.direct.equals(ref)     # the bytes path typed it too
+
+
+def test_the_bytes_path_takes_columns_in_any_order_and_missing_optional_ones(tmp_path):
+    text = "kind,amount,project_id,period\nbenefit,10,P1,1\n,-5,P2,0\n,7,P2,3\n"
+    fast, ref, issues = _both(tmp_path, text)
+    assert not issues and _both.direct is not None and _both.direct.equals(ref)
+    assert _both.direct["kind"].to_list() == ["benefit", "investment", "benefit"]
+    assert _both.direct["basis"].to_list() == ["real"] * 3 and _both.direct["escalation"].to_list() == [0.0] * 3
+    assert _both.direct["source_line"].to_list() == [2, 3, 4]
 
 
 def test_spaces_and_missing_optional_columns(tmp_path):
@@ -125,3 +157,49 @@ def test_random_blocks_never_pass_a_fault(tmp_path):
             typed += 1
             assert fast.equals(ref), rows
     assert typed > 5 and faulted > 5          # both branches were exercised
+
+
+def _spellings() -> list[str]:
+    """Hand-picked number spellings plus 20,000 random strings over the characters numbers use."""
+    picked = ["1", "-1", "+1", "1.", "-.5", ".5", "1e5", "1E5", "1e+5", "1e-5", "1e", "e5", "inf", "-inf", "+inf",
+              "Inf", "INF", "infinity", "Infinity", "nan", "NaN", "-nan", "1_000", "0x10", "0b1", "1.2.3", "--1",
+              "+-1", "1d", "1f", "0001", "00.1", "1e400", "-1e400", "1e-400", "4.9e-324", "1.7976931348623157e308",
+              "123456789012345678901234567890", "0.1000000000000000055511151231257827", "1.5e+", ".", "-", "+",
+              "1..2", "1e1.5", "true", "1/2", "1%", "$1", "0e0", "-0", "-0.0", "9" * 400, "0." + "0" * 400 + "1",
+              ".e1", "1.e1", "0x1p3", "1e+-1"]
+    rng = np.random.default_rng(11)
+    alphabet = np.array(list("0123456789.eE+-xinfaINFA_d"))
+    drawn = ["".join(rng.choice(alphabet, size=int(rng.integers(1, 7)))) for _ in range(20_000)]
+    return list(dict.fromkeys(picked + drawn))
+
+
+def test_the_csv_readers_numbers_are_the_references_numbers():
+    """The bytes path parses numbers with Polars' CSV reader; the reference casts text to Float64.
+    Over hand-picked and random spellings both must accept the same cells with the same value (a
+    cell the CSV reader refuses makes its block fall back, which is safe; one it accepts that the
+    reference refuses, or reads differently, would let a fault through). Common practice: two
+    parsers of one library are not assumed to agree, they are compared."""
+    import math
+
+    import polars as pl
+    mismatches = []
+    for cell in _spellings():
+        ref = pl.Series([cell]).cast(pl.Float64, strict=False)[0]
+        try:
+            got = pl.read_csv((cell + "\n").encode(), has_header=False, schema={"a": pl.Float64},
+                              quote_char=None)["a"][0]
+        except pl.exceptions.PolarsError:
+            got = None
+        same = (ref is None and got is None) or (
+            ref is not None and got is not None and (ref == got or (math.isnan(ref) and math.isnan(got))))
+        if not same:
+            mismatches.append((cell, ref, got))
+    assert not mismatches[:20]
+
+
+@pytest.mark.parametrize("column", NUMBER_COLUMNS)
+def test_a_number_the_csv_reader_refuses_sends_the_block_back(tmp_path, column):
+    row = {"project_id": "P1", "period": "1", "amount": "10", "basis": "real", "escalation": "0", "kind": "benefit"}
+    row[column] = "1x"
+    fast, ref, issues = _both(tmp_path, HEADER + ",".join(row.values()) + "\n")
+    assert issues and fast is None and _both.direct is None

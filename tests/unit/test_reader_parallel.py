@@ -99,3 +99,59 @@ def test_a_regular_block_parses_as_the_line_splitter_parses_it(block):
 def test_an_irregular_block_is_left_to_the_reading_thread(block):
     from ratescape.load.reader import _parse_regular
     assert _parse_regular(block, NAMES, 2) is None
+
+
+@pytest.mark.parametrize("faults", [False, True])
+def test_blocks_typed_from_their_bytes_arrive_in_file_order_without_a_frame(tmp_path, faults):
+    """With ``direct``, a simple regular block reaches the caller typed from its bytes (frame None);
+    every other block arrives as before, and the reader's counts and faults are unchanged."""
+    path = tmp_path / "flows.csv"
+    path.write_bytes(_file(tmp_path, faults))
+    one, one_issues, one_state, _ = _read(path, parallel=False)
+    issues = Issues()
+    source = open_table(path, CASH_FLOW_COLUMNS, issues)
+    source.block_bytes = 300
+    got = list(source.read_parallel(lambda f, p, s: ("text", f.height), workers=2, ahead=3,
+                                    direct=lambda block, columns, first, lines: ("bytes", first, lines, block)))
+    source.finish()
+    assert [(i.line, i.problem) for i in issues] == [(i[1], i[4]) for i in one_issues]
+    assert (source.rows, source.blank_lines, source.broken, source.sha256) == one_state
+    assert len(got) == len(one)
+    direct = [typed for frame, _p, _s, _r, typed in got if frame is None]
+    assert direct and all(kind == "bytes" for kind, *_ in direct)
+    if faults:           # blocks with spaces, quotes or blank lines still come as text frames
+        assert any(frame is not None for frame, *_ in got)
+    for (frame, plain, spaceless, read, typed), (ref, ref_plain, ref_spaceless, ref_read) in zip(got, one):
+        assert read == ref_read and (plain, spaceless) == (ref_plain, ref_spaceless)
+        if frame is None:
+            _kind, first, lines, block = typed
+            # the block's first line and line count are the one-thread reader's
+            assert (first, lines) == (ref["line"][0], ref.height) and plain and spaceless
+            assert block.decode().count("\n") == lines
+        else:
+            assert frame.equals(ref)
+
+
+def _profile_reference(block: bytes) -> tuple[int, int, bool]:
+    simple = len(block) > 0 and all(b == 0x0A or 0x22 < b <= 0x7E for b in block)
+    return block.count(b"\n"), block.count(b","), simple
+
+
+@pytest.mark.parametrize("block", [
+    b"P1,1,2\nP1,2,3\n", b"P 1,1,2\n", b'"P1",1,2\n', b"P1,1,2\r\n", b"P1!,1,2\n", b"P\x7f1,1,2\n",
+    b"P\xc3\xa91,1,2\n", b"P\t1,1,2\n", b"", b"\n", b"~,~\n", b"#,$\n",
+])
+def test_the_byte_profile_counts_as_python_counts(block):
+    from ratescape.load.reader import byte_profile, count_line_feeds, regular_lines
+    assert byte_profile(block) == _profile_reference(block)
+    assert count_line_feeds(block) == block.count(b"\n")
+    assert regular_lines(block, 3, byte_profile(block)) == regular_lines(block, 3)
+
+
+def test_the_byte_profile_on_random_bytes():
+    from ratescape.load.reader import byte_profile
+    rng = np.random.default_rng(5)
+    for _ in range(200):
+        alphabet = rng.choice(256, size=int(rng.integers(1, 6)), replace=False)
+        block = bytes(rng.choice(np.append(alphabet, [10, 44, 65]), size=int(rng.integers(0, 400))).astype(np.uint8))
+        assert byte_profile(block) == _profile_reference(block), block

@@ -30,7 +30,7 @@ from typing import Protocol
 import polars as pl
 
 from ..errors import Issue, Issues, ValidationError, count_more, room_for
-from .clean_blocks import clean_flow_block
+from .clean_blocks import clean_flow_block, clean_flow_bytes
 from .columns import (
     BASES,
     CASH_FLOW_COLUMNS,
@@ -287,9 +287,9 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
         return f"add '{pid}' to {projects_name} or correct the id"
 
     for batch, plain, spaceless, read, done_ahead in _checked_blocks(source, name, allow_extreme_rates):
-        cells = Cells(source.name, batch, issues, counts, allow_extreme_rates, plain, spaceless)
         if done_ahead is None:        # a block with a fault (or not plain ASCII): checked cell by cell
-            typed = _typed_flows(cells, name)
+            typed = _typed_flows(Cells(source.name, batch, issues, counts, allow_extreme_rates, plain, spaceless),
+                                 name)
             block_stats, ids = _block_stats(typed)
         else:
             typed, block_stats, ids = done_ahead
@@ -297,6 +297,9 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
             missing = [i for i in ids if i and i not in known_set]
             if missing:
                 unknown = typed["project_id"].is_in(pl.Series(missing, dtype=pl.String).implode())
+                # a block typed from its bytes has no text frame: its ids and lines are the typed ones
+                cells = Cells(source.name, typed.select("project_id", pl.col("source_line").alias("line"))
+                              if batch is None else batch, issues, counts, allow_extreme_rates, plain, spaceless)
                 cells.report(unknown, "project_id", "cash flows for a project not in the projects file", unknown_fix)
         stats.append(block_stats)
         pending += stats[-1].height
@@ -321,21 +324,26 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
 
 def _block_stats(typed: pl.DataFrame) -> tuple[pl.DataFrame, list]:
     """Per project of a typed block: sum of absolute amounts and first line; and its distinct ids."""
-    return (typed.group_by("project_id").agg(pl.col("amount").abs().sum().alias("total"),
-                                             pl.col("source_line").min().alias("line")),
-            typed["project_id"].unique().to_list())
+    stats = typed.group_by("project_id").agg(pl.col("amount").abs().sum().alias("total"),
+                                             pl.col("source_line").min().alias("line"))
+    return stats, stats["project_id"].to_list()
 
 
 def _checked_blocks(source, name: str, allow_extreme_rates: bool) -> Iterator[tuple]:
     """``(frame, plain_ascii, spaceless, bytes_read, done_ahead)`` of each block in file order, parsed
     and typed on worker threads (:meth:`CsvSource.read_parallel`). ``done_ahead`` is the block typed
-    by :func:`clean_flow_block` with its :func:`_block_stats`, or None when the block has a fault
-    to report cell by cell."""
+    by :func:`clean_flow_bytes` (frame None) or :func:`clean_flow_block` with its
+    :func:`_block_stats`, or None when the block has a fault to report cell by cell."""
     def typer(frame, plain, spaceless):
         typed = clean_flow_block(frame, source=name, plain_ascii=plain, spaceless=spaceless,
                                  allow_extreme_rates=allow_extreme_rates)
         return None if typed is None else (typed, *_block_stats(typed))
-    return source.read_parallel(typer, workers=max(1, min(2, os.cpu_count() or 1)))
+
+    def direct(block, columns, first_line, lines):
+        typed = clean_flow_bytes(block, columns, first_line, lines, source=name,
+                                 allow_extreme_rates=allow_extreme_rates)
+        return None if typed is None else (typed, *_block_stats(typed))
+    return source.read_parallel(typer, workers=max(1, min(2, os.cpu_count() or 1)), direct=direct)
 
 
 def _expand_parametric(projects: pl.DataFrame, source: str) -> pl.DataFrame:

@@ -27,6 +27,7 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
 import polars as pl
 
 from ..errors import MAX_ISSUES_PER_KIND, Issue, count_more, room_for
@@ -126,6 +127,15 @@ class CsvSource:
             carry = b""
             while True:
                 chunk = self._read(fh, self.block_bytes)
+                if chunk and b'"' not in chunk and b'"' not in carry:
+                    # the usual block, without quotes: cut at its last line feed, copying it once
+                    cut = chunk.rfind(b"\n")
+                    if cut >= 0:
+                        block = b"".join((carry, memoryview(chunk)[: cut + 1])) if carry else chunk[: cut + 1]
+                        carry = chunk[cut + 1:]
+                        yield line, block
+                        line += count_line_feeds(block)
+                        continue
                 data = carry + chunk if carry else chunk
                 if not chunk:
                     self.complete = True
@@ -162,7 +172,7 @@ class CsvSource:
                     continue
                 block, carry = data[: cut + 1], data[cut + 1:]
                 yield line, block
-                line += block.count(b"\n")
+                line += count_line_feeds(block)
 
     def batches(self) -> Iterator[pl.DataFrame]:
         """Frames of text cells (canonical column names) plus ``line`` (Int64), one per block.
@@ -199,33 +209,48 @@ class CsvSource:
             yield frame, self.plain_ascii, self.spaceless, self.bytes_read
 
     def read_parallel(self, typer: Callable[[pl.DataFrame, bool, bool], object], *, workers: int = 2,
-                      ahead: int = 4) -> Iterator[tuple[pl.DataFrame, bool, bool, int, object]]:
+                      ahead: int = 4, direct: Callable[[bytes, list[str], int, int], object] | None = None,
+                      ) -> Iterator[tuple[pl.DataFrame | None, bool, bool, int, object]]:
         """:meth:`read_ahead` with ``typer(frame, plain_ascii, spaceless)`` added to each tuple, parsing
         and typing blocks on ``workers`` threads while this one reads the file (Polars releases the
         interpreter lock while it splits and parses), yielded in file order.
 
-        Only a regular block is parsed on a worker (:func:`_parse_regular`: valid UTF-8 without
-        quotes, carriage returns, blank or ragged lines). Any other block is parsed here, in file
-        order, by :meth:`_frame`, which reports its faults as :meth:`batches` does; its typed value
-        is None. At most ``ahead`` blocks wait, so memory stays a few blocks.
+        Only a regular block is parsed on a worker (:func:`regular_lines`). Any other block is
+        parsed here, in file order, by :meth:`_frame`, which reports its faults as :meth:`batches`
+        does; its typed value is None. At most ``ahead`` blocks wait, so memory stays a few blocks.
+
+        ``direct(block, columns, first_line, lines)``, when given, is tried first on a regular block
+        of printable ASCII without a space: it types the block straight from its bytes (no text
+        frame). When it returns a value, that block is yielded with frame None and that value;
+        when it returns None, the block goes through ``typer`` as any other.
         """
         names = [*self.columns, "line"]
+        fields = len(self.columns)
 
         def work(first_line: int, block: bytes):
-            frame = _parse_regular(block, names, first_line)
+            counts = byte_profile(block)
+            if counts[2]:                 # simple: printable ASCII without spaces
+                plain = spaceless = True
+            else:
+                plain = block.isascii() and not block.translate(None, _PRINTABLE_ASCII)
+                spaceless = plain and b" " not in block
+            lines = regular_lines(block, fields, counts)
+            if direct is not None and spaceless and lines:
+                typed = direct(block, self.columns, first_line, lines)
+                if typed is not None:
+                    return None, lines, plain, spaceless, typed
+            frame = _parse_regular(block, names, first_line, lines)
             if frame is None:
                 return None
-            plain = block.isascii() and not block.translate(None, _PRINTABLE_ASCII)   # no CR: regular
-            spaceless = plain and b" " not in block
-            return frame, plain, spaceless, typer(frame, plain, spaceless)
+            return frame, frame.height, plain, spaceless, typer(frame, plain, spaceless)
 
         def settle(first_line, block, read, future):
             done = future.result()
             if done is None:
                 frame = self._frame(first_line, block)
                 return None if frame is None else (frame, self.plain_ascii, self.spaceless, read, None)
-            frame, self.plain_ascii, self.spaceless, typed = done
-            self.rows += frame.height
+            frame, rows, self.plain_ascii, self.spaceless, typed = done
+            self.rows += rows
             return frame, self.plain_ascii, self.spaceless, read, typed
 
         with ThreadPoolExecutor(max_workers=max(1, workers), thread_name_prefix="ratescape-read") as pool:
@@ -289,18 +314,54 @@ def _cut_outside_quotes(data: bytes) -> int:
     return pos
 
 
-def _parse_regular(block: bytes, names: list[str], first_line: int) -> pl.DataFrame | None:
+def count_line_feeds(block: bytes) -> int:
+    """Line feeds in ``block``, counted by NumPy (which, unlike ``bytes.count``, releases the
+    interpreter lock: the worker threads count while the reading thread reads)."""
+    return int(np.count_nonzero(np.frombuffer(block, dtype=np.uint8) == 0x0A))
+
+
+def byte_profile(block: bytes) -> tuple[int, int, bool]:
+    """``(line feeds, commas, simple)`` of ``block``, counted by NumPy outside the interpreter lock.
+
+    ``simple``: every byte is a line feed or printable ASCII above '"' (0x22), so the block holds
+    no quote, carriage return, other control character, space or non-ASCII byte (nor '!', which
+    is only excluded to keep the test to two comparisons).
+    """
+    a = np.frombuffer(block, dtype=np.uint8)
+    feeds = int(np.count_nonzero(a == 0x0A))
+    commas = int(np.count_nonzero(a == 0x2C))
+    simple = a.size > 0 and int(np.count_nonzero(a <= 0x22)) == feeds and int(a.max()) <= 0x7E
+    return feeds, commas, simple
+
+
+def regular_lines(block: bytes, fields: int, counts: tuple[int, int, bool] | None = None) -> int:
+    """The number of lines of ``block`` when it is *regular*, else 0: every line ends with a line
+    feed and holds exactly ``fields`` fields, and the block holds no quote, carriage return or
+    blank line. Such a block splits on every comma and line feed. ``counts`` is the block's
+    :func:`byte_profile` when already known. Pure: bytes in, count out."""
+    lines, commas, simple = counts if counts is not None else byte_profile(block)
+    if not lines or not block.endswith(b"\n"):
+        return 0
+    if not simple and (b'"' in block or b"\r" in block):
+        return 0
+    if fields == 1 and (b"\n\n" in block or block.startswith(b"\n")):
+        return 0
+    if commas != lines * (fields - 1):      # a blank or short line has fewer commas
+        return 0
+    # a line with more fields is refused by the CSV readers given ``fields`` columns; with the
+    # commas adding up to lines x (fields - 1), every line then has exactly ``fields`` fields
+    return lines
+
+
+def _parse_regular(block: bytes, names: list[str], first_line: int, lines: int | None = None) -> pl.DataFrame | None:
     """A regular block parsed by Polars' CSV reader: the frame :func:`_parse_plain` gives (text
     cells, empty cells as "", then ``line``), or None when the block is not regular (a quote, a
     carriage return, a blank line, a line with another number of fields, invalid UTF-8): the
-    reading thread then parses it and reports what it finds. Pure: bytes in, frame out."""
+    reading thread then parses it and reports what it finds. ``lines``: :func:`regular_lines` of
+    the block when already known. Pure: bytes in, frame out."""
     n = len(names) - 1
-    lines = block.count(b"\n")
-    if not lines or not block.endswith(b"\n") or b'"' in block or b"\r" in block:
-        return None
-    if n == 1 and (b"\n\n" in block or block.startswith(b"\n")):
-        return None
-    if block.count(b",") != lines * (n - 1):      # a blank or short line has fewer commas
+    lines = regular_lines(block, n) if lines is None else lines
+    if not lines:
         return None
     try:
         frame = pl.read_csv(block, has_header=False, schema={name: pl.String for name in names[:-1]},
@@ -310,8 +371,6 @@ def _parse_regular(block: bytes, names: list[str], first_line: int) -> pl.DataFr
         return None
     if frame.height != lines or frame.width != n:
         return None
-    # every line has at most n - 1 commas (Polars refuses more fields) and they total lines x (n - 1):
-    # every line has exactly n fields (Polars would fill a short line with empty cells)
     return frame.with_columns(pl.int_range(first_line, first_line + lines, dtype=pl.Int64).alias("line"))
 
 

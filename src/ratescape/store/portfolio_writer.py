@@ -77,13 +77,22 @@ DISK_MARGIN_BYTES = 64 << 20
 
 class StagingSink:
     """Writes the scan's typed blocks to Parquet files in ``folder`` (``projects_*.parquet``,
-    ``flows_*.parquet``), :data:`STAGE_ROWS` rows a file, numbered in file order."""
+    ``flows_*.parquet``), :data:`STAGE_ROWS` rows a file, numbered in file order.
+
+    Each file is written on a thread of its own while the scan goes on (Polars writes outside the
+    interpreter lock); one file at most is being written while the next one's rows gather, so
+    memory stays two files' rows. :meth:`close` writes the rest and waits for every write;
+    :meth:`shutdown` ends the thread in every case.
+    """
 
     def __init__(self, folder: Path):
+        from concurrent.futures import ThreadPoolExecutor
         self.folder = folder
         self.parts: dict[str, list[pl.DataFrame]] = {"projects": [], "flows": []}
         self.rows = {"projects": 0, "flows": 0}
         self.files: dict[str, list[Path]] = {"projects": [], "flows": []}
+        self._writer = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-stage")
+        self._writing = None
 
     def projects(self, frame: pl.DataFrame) -> None:
         self._add("projects", frame)
@@ -97,15 +106,33 @@ class StagingSink:
         if self.rows[kind] >= STAGE_ROWS:
             self.flush(kind)
 
+    def _wait(self) -> None:
+        """Wait for the file being written (its error, such as a full disk, is raised here)."""
+        if self._writing is not None:
+            writing, self._writing = self._writing, None
+            writing.result()
+
     def flush(self, kind: str | None = None) -> None:
+        """Start writing the gathered rows (of ``kind``, or of both kinds) as the next file."""
         for name in [kind] if kind else list(self.parts):
             parts = self.parts[name]
             if not parts:
                 continue
             path = self.folder / f"{name}_{len(self.files[name]):06d}.parquet"
-            pl.concat(parts, how="vertical").write_parquet(path, compression="lz4", statistics=False)
-            self.files[name].append(path)
+            frame = pl.concat(parts, how="vertical")
             self.parts[name], self.rows[name] = [], 0
+            self._wait()
+            self._writing = self._writer.submit(frame.write_parquet, path, compression="lz4", statistics=False)
+            self.files[name].append(path)
+
+    def close(self) -> None:
+        """Write the rows still gathered and wait for every file."""
+        self.flush()
+        self._wait()
+
+    def shutdown(self) -> None:
+        """End the writing thread once its file is written (rows still gathered are dropped)."""
+        self._writer.shutdown(wait=True, cancel_futures=True)
 
 
 def _sql_text(value: str) -> str:
@@ -221,9 +248,12 @@ def load_streamed(db, projects_path, cash_flows_path=None, *, allow_extreme_rate
     (work / STAGING_OWNER).write_text(f"{socket.gethostname()} {os.getpid()}\n")
     try:
         sink = StagingSink(work)
-        scan = scan_portfolio(projects_path, cash_flows_path, allow_extreme_rates=allow_extreme_rates,
-                              sink=sink, progress=progress)
-        sink.flush()
+        try:
+            scan = scan_portfolio(projects_path, cash_flows_path, allow_extreme_rates=allow_extreme_rates,
+                                  sink=sink, progress=progress)
+            sink.close()
+        finally:
+            sink.shutdown()
         check_disk_space(folder, estimated_disk_bytes(scan.cash_flow_rows, scan.project_count),
                          f"{scan.cash_flow_rows:,} cash-flow lines")
         if log is not None:
