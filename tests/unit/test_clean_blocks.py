@@ -203,3 +203,29 @@ def test_a_number_the_csv_reader_refuses_sends_the_block_back(tmp_path, column):
     row[column] = "1x"
     fast, ref, issues = _both(tmp_path, HEADER + ",".join(row.values()) + "\n")
     assert issues and fast is None and _both.direct is None
+
+
+@pytest.mark.parametrize("order", ["grouped", "interleaved", "runs apart"])
+def test_block_totals_summed_run_by_run_equal_a_grouping_by_id(order):
+    """The per-project totals and first lines of a block (summed over runs of consecutive lines)
+    merge to what a plain grouping by id gives, whatever the order of the lines."""
+    import polars as pl
+
+    from ratescape.load.portfolio import _block_stats, _flow_stats
+    rng = np.random.default_rng(13)
+    ids = np.repeat([f"P{k}" for k in range(300)], 20)
+    if order == "interleaved":
+        ids = rng.permutation(ids)
+    elif order == "runs apart":
+        ids = np.concatenate([ids[: 3000], ids[: 3000], ids[3000:]])
+    typed = pl.DataFrame({"project_id": ids, "amount": rng.normal(0, 100, len(ids)),
+                          "source_line": np.arange(2, 2 + len(ids))})
+    stats, block_ids = _block_stats(typed)
+    expected = typed.group_by("project_id").agg(pl.col("amount").abs().sum().alias("total"),
+                                                pl.col("source_line").min().alias("line"))
+    merged = _flow_stats([stats]).sort("project_id")
+    expected = expected.sort("project_id")
+    assert merged["project_id"].equals(expected["project_id"]) and merged["line"].equals(expected["line"])
+    assert np.allclose(merged["total"].to_numpy(), expected["total"].to_numpy(), rtol=1e-12)
+    assert sorted(block_ids) == sorted(set(ids.tolist()))
+    assert stats.height <= len(ids) // 8 or order == "runs apart"     # many runs are grouped again by id

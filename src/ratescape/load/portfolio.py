@@ -323,10 +323,22 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
 
 
 def _block_stats(typed: pl.DataFrame) -> tuple[pl.DataFrame, list]:
-    """Per project of a typed block: sum of absolute amounts and first line; and its distinct ids."""
-    stats = typed.group_by("project_id").agg(pl.col("amount").abs().sum().alias("total"),
-                                             pl.col("source_line").min().alias("line"))
-    return stats, stats["project_id"].to_list()
+    """Per project of a typed block: sum of absolute amounts and first line; and its distinct ids.
+
+    A file usually lists a project's lines together: the block is summed run by run (a run is
+    consecutive lines of one project, numbered by ``rle_id``, whose grouping by an integer is
+    about twice as fast as by the id's text), and only when the runs are many (a file in another
+    order) are they grouped again by id. The result may hold a project more than once when its
+    lines are apart; :func:`_flow_stats` merges them.
+    """
+    runs = (typed.lazy()
+            .group_by(pl.col("project_id").rle_id().alias("__run"))
+            .agg(pl.col("project_id").first(), pl.col("amount").abs().sum().alias("total"),
+                 pl.col("source_line").min().alias("line"))
+            .drop("__run").collect())
+    if runs.height * 8 > typed.height:
+        runs = runs.group_by("project_id").agg(pl.col("total").sum(), pl.col("line").min())
+    return runs, runs["project_id"].unique().to_list()
 
 
 def _checked_blocks(source, name: str, allow_extreme_rates: bool) -> Iterator[tuple]:
