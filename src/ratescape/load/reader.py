@@ -34,10 +34,11 @@ from ..errors import MAX_ISSUES_PER_KIND, Issue, count_more, room_for
 
 BOM = b"\xef\xbb\xbf"
 # Bytes read per block. A block becomes a few frames of the same size, so the
-# loader's memory stays near a small multiple of this whatever the file size (4 MB: an 8.1-million
-# line file loaded in 4.9 s, against 5.8 s with 1 MB blocks, whose Polars calls cost more per byte;
+# loader's memory stays near a small multiple of this whatever the file size (8 MB: the checks of a
+# 50-million-line file took 11.3-11.5 s, against 11.9 s with 4 MB blocks and 11.4-11.5 s with
+# 16 MB, whose peak was 250 MB higher; smaller blocks' Polars calls cost more per byte;
 # bench/RESULTS.md).
-BLOCK_BYTES = 4 << 20
+BLOCK_BYTES = 8 << 20
 # A block is cut at the last line end outside quotes; a file whose quotes never
 # balance would otherwise be carried whole, so give up past this many bytes.
 MAX_CARRY_BYTES = 16 << 20
