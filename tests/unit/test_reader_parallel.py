@@ -155,3 +155,26 @@ def test_the_byte_profile_on_random_bytes():
         alphabet = rng.choice(256, size=int(rng.integers(1, 6)), replace=False)
         block = bytes(rng.choice(np.append(alphabet, [10, 44, 65]), size=int(rng.integers(0, 400))).astype(np.uint8))
         assert byte_profile(block) == _profile_reference(block), block
+
+
+@pytest.mark.parametrize("faults", [False, True])
+def test_every_regular_block_of_a_file_parses_as_the_line_splitter_parses_it(tmp_path, faults):
+    """The one-thread reader also takes Polars' CSV reader for a regular block: block by block it
+    gives the line splitter's frame (the reference for text cells and line numbers)."""
+    from ratescape.load.reader import CsvSource, _parse_plain, _parse_regular
+    path = tmp_path / "flows.csv"
+    path.write_bytes(_file(tmp_path, faults))
+    source = open_table(path, CASH_FLOW_COLUMNS, Issues())
+    source.block_bytes = 300
+    names = [*source.columns, "line"]
+    regular = 0
+    for first_line, block in source._blocks():
+        fast = _parse_regular(block, names, first_line)
+        if fast is None:
+            continue
+        regular += 1
+        ref = _parse_plain(block.decode(), len(source.columns), first_line,
+                           CsvSource(None, "f.csv", source.columns, 0, []))
+        ref.columns = names
+        assert fast.equals(ref), block
+    assert regular > 10

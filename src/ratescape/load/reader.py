@@ -190,11 +190,16 @@ class CsvSource:
     def _frame(self, first_line: int, block: bytes) -> pl.DataFrame | None:
         """Parse one block here, reporting its structural faults (None: no row to check)."""
         n = len(self.columns)
-        try:
-            text = block.decode("utf-8")
-        except UnicodeDecodeError:
-            text = self._bad_utf8(block, first_line)
-        frame = _parse_plain(text, n, first_line, self) if '"' not in text else _parse_quoted(text, n, first_line, self)
+        # a regular block (the usual one) is split by Polars' CSV reader, the same frame as
+        # _parse_plain's (tests/unit/test_reader_parallel.py) in a fraction of the time
+        frame = _parse_regular(block, [*self.columns, "line"], first_line)
+        if frame is None:
+            try:
+                text = block.decode("utf-8")
+            except UnicodeDecodeError:
+                text = self._bad_utf8(block, first_line)
+            frame = (_parse_plain(text, n, first_line, self) if '"' not in text
+                     else _parse_quoted(text, n, first_line, self))
         if frame is None:
             return None
         frame.columns = [*self.columns, "line"]

@@ -102,7 +102,9 @@ class StagingSink:
     def cash_flows(self, frame: pl.DataFrame) -> None:
         # the file's name, the same on every line, is not staged: the insert writes it
         # (:data:`STAGED_FLOW_COLUMNS`), which spares encoding it 50 million times
-        self._add("flows", frame.select(STAGED_FLOW_COLUMNS))
+        # (and whole numbers are staged as the table's 32-bit integers: no cast in the insert)
+        self._add("flows", frame.select(STAGED_FLOW_COLUMNS).with_columns(
+            pl.col("period", "source_line").cast(pl.Int32)))
 
     def _add(self, kind: str, frame: pl.DataFrame) -> None:
         self.parts[kind].append(frame)
