@@ -83,6 +83,18 @@ class Issues(list):
             self.seen[kind] = self.seen.get(kind, 0) + n
             self.omitted[kind] = self.omitted.get(kind, 0) + n
 
+    def merge(self, other: "Issues") -> None:
+        """Append the issues of ``other`` (kept and counted) after these, as if found here in turn.
+
+        The two lists are of different files (kinds name their file), so what each kept and counted
+        is what one list would have kept and counted reading one file after the other.
+        """
+        for issue in other:
+            self.append(issue)
+        for kind, n in other.omitted.items():
+            self.seen[kind] = self.seen.get(kind, 0) + n
+            self.omitted[kind] = self.omitted.get(kind, 0) + n
+
     @property
     def total(self) -> int:
         return len(self) + sum(self.omitted.values())

@@ -329,3 +329,38 @@ def test_a_load_removes_the_staging_left_by_a_killed_load_but_not_a_running_ones
     assert sorted(_staging_left(tmp_path)) == [".other.duckdb.load-killed", ".x.duckdb.load-elsewhere",
                                                ".x.duckdb.load-running", ".x.duckdb.load-unowned"]
     assert "load: removed 1 staging folder(s) left beside x.duckdb by a load that was killed" in capsys.readouterr().err
+
+
+def test_ids_no_project_has_are_reported_line_by_line_only_when_there_are_some(tmp_path, monkeypatch):
+    """Cash flows whose id is not in the projects file are found once both files are read (the two
+    are read at the same time) and reported line by line from a second reading, the first of the
+    kind with a count of the rest; a good file is read once. Oracle: the lines counted here."""
+    from ratescape.errors import MAX_ISSUES_PER_KIND
+    from ratescape.load import portfolio as portfolio_module
+    monkeypatch.setattr(reader, "BLOCK_BYTES", 2048)
+    (tmp_path / "p.csv").write_text("project_id,name\n" + "".join(f"K{k},Invented {k}\n" for k in range(20)))
+    rows = ["project_id,period,amount"] + [f"K{k % 20},{k % 30},{k + 1}" for k in range(3000)]
+    unknown_lines = []
+    for k in range(0, 3000, 7):                 # every seventh line names a project no one has
+        rows[1 + k] = f"Z{k % 3},{k % 30},5"
+        unknown_lines.append(2 + k)
+    (tmp_path / "c.csv").write_text("\n".join(rows) + "\n")
+    opened = []
+    real = portfolio_module.open_table
+
+    def counting(path, *args):
+        opened.append(Path(path).name)
+        return real(path, *args)
+    monkeypatch.setattr(portfolio_module, "open_table", counting)
+    with pytest.raises(ValidationError) as refused:
+        read_portfolio(tmp_path / "p.csv", tmp_path / "c.csv")
+    assert opened.count("c.csv") == 2
+    kept = [i for i in refused.value.issues if i.problem == "cash flows for a project not in the projects file"]
+    assert [i.line for i in kept] == unknown_lines[:MAX_ISSUES_PER_KIND]
+    assert {i.value for i in kept} == {"Z0", "Z1", "Z2"} and kept[0].fix == "add 'Z0' to p.csv or correct the id"
+    assert refused.value.total == len(unknown_lines)
+    # the same files with the unknown lines taken out: one reading of each file
+    (tmp_path / "c.csv").write_text("\n".join(r for r in rows if not r.startswith("Z")) + "\n")
+    opened.clear()
+    read_portfolio(tmp_path / "p.csv", tmp_path / "c.csv")
+    assert sorted(opened) == ["c.csv", "p.csv"]

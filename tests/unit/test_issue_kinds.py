@@ -26,3 +26,26 @@ def test_an_issue_list_keeps_the_first_of_each_kind_and_counts_the_rest():
                             for n in range(2, 7)] + \
         [f"  ... and {MAX_ISSUES_PER_KIND + 800 - 5} more of this kind (c.csv, column 'amount': not a finite number)"]
     assert message[7:] == ["  c.csv, line 9999, column 'period': less than 0 (value '-1'). Fix: write 0 or more"]
+
+
+def test_merging_the_lists_of_two_files_keeps_and_counts_what_one_list_would():
+    """The projects and the cash-flow file are checked on two threads, each into its own list; the
+    merged list (projects first) is the list one reading in turn would have built."""
+    def found(file, n, column="amount"):
+        return [Issue(file, line, column, "x", "not a finite number", "write a number") for line in range(2, 2 + n)]
+    one = Issues()
+    for issue in found("p.csv", 30, "first_cost") + found("c.csv", MAX_ISSUES_PER_KIND + 40):
+        one.append(issue)
+    one.count_more("c.csv", "amount", "not a finite number", 7)
+    projects, flows = Issues(), Issues()
+    for issue in found("p.csv", 30, "first_cost"):
+        projects.append(issue)
+    for issue in found("c.csv", MAX_ISSUES_PER_KIND + 40):
+        flows.append(issue)
+    flows.count_more("c.csv", "amount", "not a finite number", 7)
+    merged = Issues()
+    merged.merge(projects)
+    merged.merge(flows)
+    assert list(merged) == list(one) and merged.omitted == one.omitted and merged.seen == one.seen
+    assert merged.total == 30 + MAX_ISSUES_PER_KIND + 47
+    assert ValidationError(merged).message == ValidationError(one).message

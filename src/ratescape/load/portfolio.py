@@ -205,18 +205,93 @@ def scan_portfolio(projects_path, cash_flows_path=None, *, allow_extreme_rates: 
                    sink: PortfolioSink | None = None, progress: Progress | None = None) -> ScanResult:
     """Validate the files block by block, handing typed blocks to ``sink`` while they are clean.
 
-    Raises ValidationError listing every problem (the first of each kind, with a count of the
-    rest) once both files have been read; the sink's rows must then be discarded. ``progress``
-    is called with the bytes read since its last call.
+    The projects file is read on a thread of its own while this one reads the cash-flow file (the
+    files are checked on their own; what one says of the other, such as ids of cash flows that no
+    project has, is checked once both are read). Raises ValidationError listing every problem
+    (the first of each kind, with a count of the rest) once both files have been read; the sink's
+    rows must then be discarded. ``progress`` is called with the bytes read since its last call.
     """
+    import threading
+    from concurrent.futures import ThreadPoolExecutor
+
     issues = Issues()
     notes: list[str] = []
-    hashes: list[str | None] = []
     pname = Path(projects_path).name
+    if progress is not None:                 # called from both reading threads
+        lock, report = threading.Lock(), progress
+
+        def progress(n: int) -> None:       # noqa: F811  (the same callback, one call at a time)
+            with lock:
+                report(n)
+    flows: _FlowScan | None = None
+    if cash_flows_path:
+        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-projects") as pool:
+            projects_scan = pool.submit(_scan_projects, projects_path, allow_extreme_rates, sink, progress)
+            try:
+                flows = _scan_cash_flows(cash_flows_path, allow_extreme_rates, sink, progress)
+            finally:
+                projects = projects_scan.result()
+    else:
+        projects = _scan_projects(projects_path, allow_extreme_rates, sink, progress)
+    # the projects file's issues first, then the cash-flow file's: the order of a reading in turn
+    issues.merge(projects.issues)
+    notes.extend(projects.notes)
+    key = projects.key
+    if flows is not None:
+        issues.merge(flows.issues)
+        notes.extend(flows.notes)
+        if key is not None and flows.seen is not None:
+            _report_unknown_ids(cash_flows_path, flows.seen, key, pname, allow_extreme_rates, issues)
+    stats = flows.stats if flows is not None else None
+    if key is not None and (cash_flows_path is None or stats is not None):
+        _check_structure(key, stats, str(projects_path), str(cash_flows_path) if cash_flows_path else None, issues)
+    if issues:
+        raise ValidationError(issues)
+    assert key is not None
+    h = hashlib.sha256()
+    hashes = [projects.digest] + ([flows.digest] if flows is not None else [])
+    for path, digest in zip([projects_path, cash_flows_path], hashes):
+        h.update((digest or _sha256(path)).encode())
+    files = {"projects": str(projects_path), "cash_flows": str(cash_flows_path) if cash_flows_path else None}
+    flow_rows = flows.rows if flows is not None else 0
+    return ScanResult(key.height, flow_rows, projects.parametric_rows, h.hexdigest(), notes, files)
+
+
+@dataclass
+class _ProjectScan:
+    """What reading the projects file found: its own issues and notes, the per-project key frame
+    (None when the file cannot be used), the parametric lines it describes and its hash."""
+    issues: Issues
+    notes: list[str]
+    key: pl.DataFrame | None
+    parametric_rows: int
+    digest: str | None
+
+
+@dataclass
+class _FlowScan:
+    """What reading the cash-flow file found: its issues and notes, its rows, the per-project
+    stats for the cross-file checks (None when the file cannot be read whole as a table), the
+    stats of every block read (``seen``, for the ids check, even of a file broken part-way) and
+    its hash."""
+    issues: Issues
+    notes: list[str]
+    rows: int
+    stats: pl.DataFrame | None
+    seen: pl.DataFrame | None
+    digest: str | None
+
+
+def _scan_projects(path, allow_extreme_rates: bool, sink: PortfolioSink | None,
+                   progress: Progress | None) -> _ProjectScan:
+    """Read and check the projects file block by block (the whole-file id checks included)."""
+    issues = Issues()
+    notes: list[str] = []
     parametric_rows = 0
     keys: list[pl.DataFrame] = []
-    source = open_table(projects_path, PROJECT_COLUMNS, issues)
-    projects_ok = False
+    source = open_table(path, PROJECT_COLUMNS, issues)
+    usable = False
+    digest = None
     if source is not None:
         counts: dict = {}
         done = 0
@@ -235,72 +310,44 @@ def scan_portfolio(projects_path, cash_flows_path=None, *, allow_extreme_rates: 
         if source.rows == 0 and not source.broken:
             issues.append(Issue(source.name, 2, None, None, "the file has a header but no data rows",
                                 "add at least one data row"))
-        hashes.append(source.sha256)
-        projects_ok = source.rows > 0 and not source.broken
+        digest = source.sha256
+        usable = source.rows > 0 and not source.broken
     key = pl.concat(keys, how="vertical") if keys else None
     del keys
     if key is not None and key.height:
-        check_unique_id_frame(str(projects_path), key.select(pl.col("source_line").alias("line"),
-                                                             pl.col("project_id").alias("id"),
-                                                             pl.col("raw_id").alias("raw")), issues)
-    if not projects_ok:
-        key = None
-    flow_rows, stats = 0, None
-    if cash_flows_path:
-        known = key["project_id"].unique() if key is not None else None
-        flow_rows, stats, digest = _scan_cash_flows(cash_flows_path, issues, notes, known, pname,
-                                                    allow_extreme_rates, sink, progress)
-        hashes.append(digest)
-    if key is not None and (cash_flows_path is None or stats is not None):
-        _check_structure(key, stats, str(projects_path), str(cash_flows_path) if cash_flows_path else None, issues)
-    if issues:
-        raise ValidationError(issues)
-    assert key is not None
-    h = hashlib.sha256()
-    for path, digest in zip([projects_path, cash_flows_path], hashes):
-        h.update((digest or _sha256(path)).encode())
-    files = {"projects": str(projects_path), "cash_flows": str(cash_flows_path) if cash_flows_path else None}
-    return ScanResult(key.height, flow_rows, parametric_rows, h.hexdigest(), notes, files)
+        check_unique_id_frame(str(path), key.select(pl.col("source_line").alias("line"),
+                                                    pl.col("project_id").alias("id"),
+                                                    pl.col("raw_id").alias("raw")), issues)
+    return _ProjectScan(issues, notes, key if usable else None, parametric_rows, digest)
 
 
-def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Series | None, projects_name: str,
-                     allow_extreme_rates: bool, sink: PortfolioSink | None,
-                     progress: Progress | None) -> tuple[int, pl.DataFrame | None, str | None]:
-    """Stream the cash-flow file block by block; return (rows, per-project stats or None, file hash).
+UNKNOWN_PROJECT = "cash flows for a project not in the projects file"
+
+
+def _scan_cash_flows(path, allow_extreme_rates: bool, sink: PortfolioSink | None,
+                     progress: Progress | None) -> _FlowScan:
+    """Stream the cash-flow file block by block: its own checks, the rows to the sink, per-project stats.
 
     The stats (``project_id, total, line``) feed the cross-file checks and are None only when
     the file cannot be read as a table.
     """
+    issues = Issues()
+    notes: list[str] = []
     source = open_table(path, CASH_FLOW_COLUMNS, issues)
     if source is None:
-        return 0, None, None
+        return _FlowScan(issues, notes, 0, None, None, None)
     name = Path(path).name
     counts: dict = {}
-    # A set built once: a block's few distinct ids are looked up in it (is_in against all the
-    # projects' ids would hash every id of the portfolio again for every block).
-    known_set = set(known.to_list()) if known is not None else None
     stats: list[pl.DataFrame] = []
     merged = pending = 0
     done = 0
-
-    def unknown_fix(pid: str) -> str:
-        return f"add '{pid}' to {projects_name} or correct the id"
-
     for batch, plain, spaceless, read, done_ahead in _checked_blocks(source, name, allow_extreme_rates):
         if done_ahead is None:        # a block with a fault (or not plain ASCII): checked cell by cell
             typed = _typed_flows(Cells(source.name, batch, issues, counts, allow_extreme_rates, plain, spaceless),
                                  name)
-            block_stats, ids = _block_stats(typed)
+            block_stats = _block_stats(typed)
         else:
-            typed, block_stats, ids = done_ahead
-        if known_set is not None:
-            missing = [i for i in ids if i and i not in known_set]
-            if missing:
-                unknown = typed["project_id"].is_in(pl.Series(missing, dtype=pl.String).implode())
-                # a block typed from its bytes has no text frame: its ids and lines are the typed ones
-                cells = Cells(source.name, typed.select("project_id", pl.col("source_line").alias("line"))
-                              if batch is None else batch, issues, counts, allow_extreme_rates, plain, spaceless)
-                cells.report(unknown, "project_id", "cash flows for a project not in the projects file", unknown_fix)
+            typed, block_stats = done_ahead
         stats.append(block_stats)
         pending += stats[-1].height
         if len(stats) >= 32 and pending >= max(merged, 1 << 16):   # merge when the new rows are as many as
@@ -313,17 +360,47 @@ def _scan_cash_flows(path, issues: list[Issue], notes: list[str], known: pl.Seri
             done = read
     source.finish()
     notes.extend(source.notes)
+    seen = _flow_stats(stats) if stats else None
     if source.broken:
-        return source.rows, None, None
+        return _FlowScan(issues, notes, source.rows, None, seen, None)
     if source.rows == 0:
         issues.append(Issue(source.name, 2, None, None, "the file has a header but no data rows",
                             "add at least one data row"))
-        return 0, None, None
-    return source.rows, _flow_stats(stats), source.sha256
+        return _FlowScan(issues, notes, 0, None, seen, None)
+    return _FlowScan(issues, notes, source.rows, seen, seen, source.sha256)
 
 
-def _block_stats(typed: pl.DataFrame) -> tuple[pl.DataFrame, list]:
-    """Per project of a typed block: sum of absolute amounts and first line; and its distinct ids.
+def _report_unknown_ids(path, seen: pl.DataFrame, key: pl.DataFrame, projects_name: str,
+                        allow_extreme_rates: bool, issues: Issues) -> None:
+    """Report each cash-flow line whose project id is not in the projects file.
+
+    The ids come from the blocks' stats (one anti-join once both files are read); only when some
+    are unknown is the cash-flow file read again, to report each such line with its line number
+    and value, as the cell checks do. A good file is never read twice.
+    """
+    unknown = (seen.lazy().filter(pl.col("project_id").is_not_null() & (pl.col("project_id") != ""))
+               .join(key.lazy().select("project_id"), on="project_id", how="anti")
+               .select("project_id").unique().collect()["project_id"])
+    if unknown.len() == 0:
+        return
+    source = open_table(path, CASH_FLOW_COLUMNS, Issues())      # its faults are reported already
+    if source is None:
+        return
+
+    def fix(pid: str) -> str:
+        return f"add '{pid}' to {projects_name} or correct the id"
+
+    wanted = unknown.implode()
+    counts: dict = {}
+    for batch, plain, spaceless, _read, _typed in source.read_parallel(lambda *_: None, workers=2):
+        # the ids as the cell checks read them (stripped, NFC), their own faults left out
+        ids = Cells(source.name, batch, Issues(), {}, allow_extreme_rates, plain, spaceless).identifier("project_id")
+        Cells(source.name, batch, issues, counts, allow_extreme_rates, plain, spaceless).report(
+            ids.is_in(wanted), "project_id", UNKNOWN_PROJECT, fix)
+
+
+def _block_stats(typed: pl.DataFrame) -> pl.DataFrame:
+    """Per project of a typed block: sum of absolute amounts and first line.
 
     A file usually lists a project's lines together: the block is summed run by run (a run is
     consecutive lines of one project, numbered by ``rle_id``, whose grouping by an integer is
@@ -338,7 +415,7 @@ def _block_stats(typed: pl.DataFrame) -> tuple[pl.DataFrame, list]:
             .drop("__run").collect())
     if runs.height * 8 > typed.height:
         runs = runs.group_by("project_id").agg(pl.col("total").sum(), pl.col("line").min())
-    return runs, runs["project_id"].unique().to_list()
+    return runs
 
 
 # Most worker threads typing cash-flow blocks (the reading thread, which reads and hashes the
@@ -354,12 +431,12 @@ def _checked_blocks(source, name: str, allow_extreme_rates: bool) -> Iterator[tu
     def typer(frame, plain, spaceless):
         typed = clean_flow_block(frame, source=name, plain_ascii=plain, spaceless=spaceless,
                                  allow_extreme_rates=allow_extreme_rates)
-        return None if typed is None else (typed, *_block_stats(typed))
+        return None if typed is None else (typed, _block_stats(typed))
 
     def direct(block, columns, first_line, lines):
         typed = clean_flow_bytes(block, columns, first_line, lines, source=name,
                                  allow_extreme_rates=allow_extreme_rates)
-        return None if typed is None else (typed, *_block_stats(typed))
+        return None if typed is None else (typed, _block_stats(typed))
     # one worker more than the cores: a worker waiting for the interpreter lock leaves its core to
     # another (50 million lines checked in 11.9 s with three workers on two cores, 12.2 s with two)
     workers = max(2, min(READ_WORKERS, (os.cpu_count() or 1) + 1))

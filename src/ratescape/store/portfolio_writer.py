@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import os
 import socket
+import threading
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -95,6 +96,8 @@ class StagingSink:
         self.files: dict[str, list[Path]] = {"projects": [], "flows": []}
         self._writer = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ratescape-stage")
         self._writing = None
+        # the projects and the cash-flow file are read on two threads: one caller at a time
+        self._lock = threading.RLock()
 
     def projects(self, frame: pl.DataFrame) -> None:
         self._add("projects", frame)
@@ -107,10 +110,11 @@ class StagingSink:
             pl.col("period", "source_line").cast(pl.Int32)))
 
     def _add(self, kind: str, frame: pl.DataFrame) -> None:
-        self.parts[kind].append(frame)
-        self.rows[kind] += frame.height
-        if self.rows[kind] >= STAGE_ROWS:
-            self.flush(kind)
+        with self._lock:
+            self.parts[kind].append(frame)
+            self.rows[kind] += frame.height
+            if self.rows[kind] >= STAGE_ROWS:
+                self.flush(kind)
 
     def _wait(self) -> None:
         """Wait for the file being written (its error, such as a full disk, is raised here)."""
@@ -120,6 +124,10 @@ class StagingSink:
 
     def flush(self, kind: str | None = None) -> None:
         """Start writing the gathered rows (of ``kind``, or of both kinds) as the next file."""
+        with self._lock:
+            self._flush(kind)
+
+    def _flush(self, kind: str | None) -> None:
         for name in [kind] if kind else list(self.parts):
             parts = self.parts[name]
             if not parts:
@@ -133,8 +141,9 @@ class StagingSink:
 
     def close(self) -> None:
         """Write the rows still gathered and wait for every file."""
-        self.flush()
-        self._wait()
+        with self._lock:
+            self._flush(None)
+            self._wait()
 
     def shutdown(self) -> None:
         """End the writing thread once its file is written (rows still gathered are dropped)."""
