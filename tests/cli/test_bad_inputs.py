@@ -216,15 +216,18 @@ def test_huge_file_is_refused_without_loading_it_whole(tmp_path):
     libraries' working set), well below the larger file.
 
     Run with ``RATESCAPE_SLOW=1 .venv/bin/python -m pytest tests/cli/test_bad_inputs.py -k huge``.
-    Measured on the project machine: a peak of about 300-330 MB for either size (the interpreter
-    with Polars and DuckDB imported is about 60 MB; two worker threads hold a few 4 MB blocks).
+    Measured on the project machine: a peak of 483-556 MB for either size (the interpreter
+    with Polars and DuckDB imported is about 60 MB; three worker threads and up to six blocks of
+    8 MB in flight, with their typed frames). With 4 MB blocks it was 340-350 MB; the larger
+    blocks check 50 million lines about 0.2 s faster (bench/RESULTS.md), well inside the load's
+    memory budget (about 1.5 GB), so the bound below is two thirds of the larger file, not half.
     """
     small_size, small_peak = _huge_refused(tmp_path / "small", 300_000_000)
     large_size, large_peak = _huge_refused(tmp_path / "large", 900_000_000)
     print(f"files {small_size / 1e6:.0f} and {large_size / 1e6:.0f} MB, peak RSS {small_peak / 1e6:.0f} and "
           f"{large_peak / 1e6:.0f} MB")
     assert large_peak < 1.25 * small_peak, (small_peak, large_peak)       # flat in the file's size
-    assert large_peak < large_size / 2, (large_peak, large_size)
+    assert large_peak < large_size * 2 / 3, (large_peak, large_size)
 
 
 # ---- numeric extremes: long horizons and extreme rates (issue 7, part 6) -------------------------
