@@ -83,7 +83,7 @@ class Issues(list):
             self.seen[kind] = self.seen.get(kind, 0) + n
             self.omitted[kind] = self.omitted.get(kind, 0) + n
 
-    def merge(self, other: "Issues") -> None:
+    def merge(self, other: Issues) -> None:
         """Append the issues of ``other`` (kept and counted) after these, as if found here in turn.
 
         The two lists are of different files (kinds name their file), so what each kept and counted

@@ -155,7 +155,7 @@ def test_staged_files_are_written_in_order_and_a_failed_write_is_raised(tmp_path
     broken = portfolio_writer.StagingSink(tmp_path / "gone")
     broken.cash_flows(frames[0])
     try:
-        with pytest.raises(Exception):
+        with pytest.raises(OSError):
             broken.close()
     finally:
         broken.shutdown()

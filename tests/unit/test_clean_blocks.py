@@ -201,7 +201,7 @@ def test_the_csv_readers_numbers_are_the_references_numbers():
 def test_a_number_the_csv_reader_refuses_sends_the_block_back(tmp_path, column):
     row = {"project_id": "P1", "period": "1", "amount": "10", "basis": "real", "escalation": "0", "kind": "benefit"}
     row[column] = "1x"
-    fast, ref, issues = _both(tmp_path, HEADER + ",".join(row.values()) + "\n")
+    fast, _ref, issues = _both(tmp_path, HEADER + ",".join(row.values()) + "\n")
     assert issues and fast is None and _both.direct is None
 
 

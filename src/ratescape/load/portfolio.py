@@ -220,7 +220,7 @@ def scan_portfolio(projects_path, cash_flows_path=None, *, allow_extreme_rates: 
     if progress is not None:                 # called from both reading threads
         lock, report = threading.Lock(), progress
 
-        def progress(n: int) -> None:       # noqa: F811  (the same callback, one call at a time)
+        def progress(n: int) -> None:       # the same callback, one call at a time
             with lock:
                 report(n)
     flows: _FlowScan | None = None
