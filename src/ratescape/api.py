@@ -36,7 +36,8 @@ def load_portfolio(projects, cash_flows=None, db=None, *, allow_extreme_rates: b
     bar, tick = _load_progress(sizes) if show else (None, None)
     try:
         if db is None:
-            scan = scan_portfolio(projects, cash_flows, allow_extreme_rates=allow_extreme_rates, progress=tick)
+            scan = scan_portfolio(projects, cash_flows, allow_extreme_rates=allow_extreme_rates, progress=tick,
+                                  log=log if show else None)
             return {"projects": scan.project_count, "cash_flow_rows": scan.cash_flow_rows,
                     "notes": scan.notes, "inputs_hash": scan.inputs_hash}
         created = not Path(db).exists()

@@ -364,3 +364,15 @@ def test_ids_no_project_has_are_reported_line_by_line_only_when_there_are_some(t
     opened.clear()
     read_portfolio(tmp_path / "p.csv", tmp_path / "c.csv")
     assert sorted(opened) == ["c.csv", "p.csv"]
+
+
+def test_a_second_reading_for_ids_no_project_has_is_announced(tmp_path, capsys):
+    (tmp_path / "p.csv").write_text("project_id,name\nK1,Invented one\n")
+    (tmp_path / "c.csv").write_text("project_id,period,amount\nK1,0,-10\nQ7,1,4\nQ8,1,4\nK1,1,12\n")
+    db = tmp_path / "x.duckdb"
+    with pytest.raises(ValidationError) as refused:
+        api.load_portfolio(tmp_path / "p.csv", tmp_path / "c.csv", db, progress=True)
+    assert not db.exists()
+    assert [i.line for i in refused.value.issues] == [3, 4]
+    err = capsys.readouterr().err
+    assert "load: 2 project id(s) in c.csv are not in p.csv; reading the file again to list their lines ..." in err

@@ -202,14 +202,17 @@ Progress = Callable[[int], None]
 
 
 def scan_portfolio(projects_path, cash_flows_path=None, *, allow_extreme_rates: bool = False,
-                   sink: PortfolioSink | None = None, progress: Progress | None = None) -> ScanResult:
+                   sink: PortfolioSink | None = None, progress: Progress | None = None,
+                   log: Callable[[str], None] | None = None) -> ScanResult:
     """Validate the files block by block, handing typed blocks to ``sink`` while they are clean.
 
     The projects file is read on a thread of its own while this one reads the cash-flow file (the
     files are checked on their own; what one says of the other, such as ids of cash flows that no
     project has, is checked once both are read). Raises ValidationError listing every problem
     (the first of each kind, with a count of the rest) once both files have been read; the sink's
-    rows must then be discarded. ``progress`` is called with the bytes read since its last call.
+    rows must then be discarded. ``progress`` is called with the bytes read since its last call,
+    ``log`` with a line before the cash-flow file is read a second time (only to list the lines of
+    ids that no project has).
     """
     import threading
     from concurrent.futures import ThreadPoolExecutor
@@ -241,7 +244,7 @@ def scan_portfolio(projects_path, cash_flows_path=None, *, allow_extreme_rates: 
         issues.merge(flows.issues)
         notes.extend(flows.notes)
         if key is not None and flows.seen is not None:
-            _report_unknown_ids(cash_flows_path, flows.seen, key, pname, allow_extreme_rates, issues)
+            _report_unknown_ids(cash_flows_path, flows.seen, key, pname, allow_extreme_rates, issues, log)
     stats = flows.stats if flows is not None else None
     if key is not None and (cash_flows_path is None or stats is not None):
         _check_structure(key, stats, str(projects_path), str(cash_flows_path) if cash_flows_path else None, issues)
@@ -371,7 +374,7 @@ def _scan_cash_flows(path, allow_extreme_rates: bool, sink: PortfolioSink | None
 
 
 def _report_unknown_ids(path, seen: pl.DataFrame, key: pl.DataFrame, projects_name: str,
-                        allow_extreme_rates: bool, issues: Issues) -> None:
+                        allow_extreme_rates: bool, issues: Issues, log: Callable[[str], None] | None = None) -> None:
     """Report each cash-flow line whose project id is not in the projects file.
 
     The ids come from the blocks' stats (one anti-join once both files are read); only when some
@@ -386,6 +389,9 @@ def _report_unknown_ids(path, seen: pl.DataFrame, key: pl.DataFrame, projects_na
     source = open_table(path, CASH_FLOW_COLUMNS, Issues())      # its faults are reported already
     if source is None:
         return
+    if log is not None:
+        log(f"load: {unknown.len():,} project id(s) in {Path(path).name} are not in {projects_name}; "
+            "reading the file again to list their lines ...")
 
     def fix(pid: str) -> str:
         return f"add '{pid}' to {projects_name} or correct the id"

@@ -265,7 +265,7 @@ def load_streamed(db, projects_path, cash_flows_path=None, *, allow_extreme_rate
         sink = StagingSink(work)
         try:
             scan = scan_portfolio(projects_path, cash_flows_path, allow_extreme_rates=allow_extreme_rates,
-                                  sink=sink, progress=progress)
+                                  sink=sink, progress=progress, log=log)
             sink.close()
         finally:
             sink.shutdown()
