@@ -187,12 +187,13 @@ class CsvSource:
             if frame is not None:
                 yield frame
 
-    def _frame(self, first_line: int, block: bytes) -> pl.DataFrame | None:
-        """Parse one block here, reporting its structural faults (None: no row to check)."""
+    def _frame(self, first_line: int, block: bytes, may_be_regular: bool = True) -> pl.DataFrame | None:
+        """Parse one block here, reporting its structural faults (None: no row to check).
+        ``may_be_regular``: False when the block is known not to be regular (a worker said so)."""
         n = len(self.columns)
         # a regular block (the usual one) is split by Polars' CSV reader, the same frame as
         # _parse_plain's (tests/unit/test_reader_parallel.py) in a fraction of the time
-        frame = _parse_regular(block, [*self.columns, "line"], first_line)
+        frame = _parse_regular(block, [*self.columns, "line"], first_line) if may_be_regular else None
         if frame is None:
             try:
                 text = block.decode("utf-8")
@@ -253,7 +254,7 @@ class CsvSource:
         def settle(first_line, block, read, future):
             done = future.result()
             if done is None:
-                frame = self._frame(first_line, block)
+                frame = self._frame(first_line, block, may_be_regular=False)
                 return None if frame is None else (frame, self.plain_ascii, self.spaceless, read, None)
             frame, rows, self.plain_ascii, self.spaceless, typed = done
             self.rows += rows
