@@ -108,13 +108,15 @@ def clean_flow_bytes(block: bytes, columns: list[str], first_line: int, lines: i
     13,000 spellings); a cell it cannot read as a number makes the whole block fall back. The
     first line of the block is line ``first_line`` of the file. Returns the typed block or None.
     """
+    if lines == 0:
+        return None
     schema = {name: pl.Float64 if name in NUMBER_COLUMNS else pl.String for name in columns}
     try:
         frame = pl.read_csv(block, has_header=False, schema=schema, quote_char=None,
                             empty_string_is_null=False, truncate_ragged_lines=False, raise_if_empty=True)
     except (pl.exceptions.PolarsError, UnicodeDecodeError, ValueError):
         return None
-    if frame.height != lines or frame.width != len(columns) or lines == 0:
+    if frame.height != lines or frame.width != len(columns):
         return None
 
     def text(name: str) -> pl.Expr:

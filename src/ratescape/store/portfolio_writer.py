@@ -82,7 +82,7 @@ class StagingSink:
     """Writes the scan's typed blocks to Parquet files in ``folder`` (``projects_*.parquet``,
     ``flows_*.parquet``), :data:`STAGE_ROWS` rows a file, numbered in file order.
 
-    Each file is written on a thread of its own while the scan goes on (Polars writes outside the
+    The files are written by one writing thread while the scan goes on (Polars writes outside the
     interpreter lock); one file at most is being written while the next one's rows gather, so
     memory stays two files' rows. :meth:`close` writes the rest and waits for every write;
     :meth:`shutdown` ends the thread in every case.
@@ -114,7 +114,7 @@ class StagingSink:
             self.parts[kind].append(frame)
             self.rows[kind] += frame.height
             if self.rows[kind] >= STAGE_ROWS:
-                self.flush(kind)
+                self._flush(kind)
 
     def _wait(self) -> None:
         """Wait for the file being written (its error, such as a full disk, is raised here)."""
